@@ -1,0 +1,58 @@
+"""One exception hierarchy for obsprep.
+
+Every error a user can cause derives from :class:`ObsprepError` and also from the matching
+builtin, so callers can catch either.  Messages name the file, the variable, what was expected
+and what was found, so the command line can print them as one line.
+"""
+
+from __future__ import annotations
+
+
+class ObsprepError(Exception):
+    """Base class of all obsprep errors."""
+
+
+class InputFileError(ObsprepError, ValueError):
+    """An observation or grid file cannot be used.
+
+    Parameters
+    ----------
+    path : str
+        The file.
+    message : str
+        What was expected and what was found.
+    variable : str, optional
+        The variable concerned, when there is one.
+    """
+
+    def __init__(self, path, message, variable=None):
+        self.path = str(path)
+        self.variable = variable
+        self.reason = message
+        where = f"{self.path}"
+        if variable:
+            where += f", variable '{variable}'"
+        super().__init__(f"{where}: {message}")
+
+
+class NoReaderError(InputFileError):
+    """No registered reader claims the file."""
+
+
+class ConfigError(ObsprepError, ValueError):
+    """The configuration is invalid; ``key`` is the dotted path of the offending key."""
+
+    def __init__(self, key, message, path=None):
+        self.key = key
+        self.path = path
+        prefix = f"{path}: " if path else ""
+        where = f"key '{key}'" if key else "configuration"
+        super().__init__(f"{prefix}{where}: {message}")
+
+
+class GridError(ObsprepError, ValueError):
+    """The model grid definition is invalid."""
+
+
+class LedgerError(ObsprepError, RuntimeError):
+    """The accounting of raw observations does not balance (a bug, never a user error)."""

@@ -1,0 +1,127 @@
+"""The quantity vocabulary: the one place where obsprep's quantities are named.
+
+Each quantity has a short name used in the observation table and the output, the CF
+standard_name written to the output, the canonical units every reader converts to, the CF
+standard names a reader accepts as this quantity, and a physically possible range used by the
+basic range check.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """One observed quantity.
+
+    Attributes
+    ----------
+    name : str
+        Short name used in the observation table (``quantity`` column) and output.
+    standard_name : str
+        CF standard_name written to the output.
+    units : str
+        Canonical units (CF/udunits string); values in the table are in these units.
+    long_name : str
+        Human-readable description.
+    accepted_standard_names : tuple of str
+        CF standard names that a reader maps onto this quantity.
+    valid_range : tuple of float
+        Physically possible values in canonical units (a generous gross check).
+    vector : str or None
+        For vector components: the name of the vector ("sea_ice_drift") it belongs to.
+    component : str or None
+        "east"/"north" (geographic) or "x"/"y" (model grid axes).
+    """
+
+    name: str
+    standard_name: str
+    units: str
+    long_name: str
+    accepted_standard_names: tuple = field(default_factory=tuple)
+    valid_range: tuple = (float("-inf"), float("inf"))
+    vector: str | None = None
+    component: str | None = None
+    surface: bool = True
+
+
+QUANTITIES: dict[str, Quantity] = {
+    q.name: q
+    for q in [
+        Quantity(
+            "sea_level_anomaly", "sea_surface_height_above_sea_level", "m",
+            "sea level anomaly",
+            ("sea_surface_height_above_sea_level", "sea_surface_height_above_mean_sea_level",
+             "sea_surface_height_anomaly"),
+            (-3.0, 3.0),
+        ),
+        Quantity(
+            "sea_surface_temperature", "sea_surface_temperature", "degC",
+            "sea surface temperature",
+            ("sea_surface_temperature", "sea_surface_subskin_temperature",
+             "sea_surface_foundation_temperature", "sea_surface_skin_temperature"),
+            (-2.5, 40.0),
+        ),
+        Quantity(
+            "sea_ice_concentration", "sea_ice_area_fraction", "1",
+            "sea-ice concentration (fraction 0-1)",
+            ("sea_ice_area_fraction",),
+            (0.0, 1.0),
+        ),
+        Quantity(
+            "sea_ice_drift_east", "eastward_sea_ice_displacement", "m",
+            "eastward sea-ice displacement over [time, time_end]",
+            ("eastward_sea_ice_displacement",),
+            (-1.0e6, 1.0e6), vector="sea_ice_drift", component="east",
+        ),
+        Quantity(
+            "sea_ice_drift_north", "northward_sea_ice_displacement", "m",
+            "northward sea-ice displacement over [time, time_end]",
+            ("northward_sea_ice_displacement",),
+            (-1.0e6, 1.0e6), vector="sea_ice_drift", component="north",
+        ),
+        Quantity(
+            "sea_ice_drift_x", "sea_ice_x_displacement", "m",
+            "sea-ice displacement along the model grid i (x) axis over [time, time_end]",
+            ("sea_ice_x_displacement",),
+            (-1.0e6, 1.0e6), vector="sea_ice_drift", component="x",
+        ),
+        Quantity(
+            "sea_ice_drift_y", "sea_ice_y_displacement", "m",
+            "sea-ice displacement along the model grid j (y) axis over [time, time_end]",
+            ("sea_ice_y_displacement",),
+            (-1.0e6, 1.0e6), vector="sea_ice_drift", component="y",
+        ),
+        Quantity(
+            "sea_water_temperature", "sea_water_temperature", "degC",
+            "in-situ sea-water temperature",
+            ("sea_water_temperature", "sea_water_potential_temperature"),
+            (-2.5, 40.0), surface=False,
+        ),
+        Quantity(
+            "sea_water_salinity", "sea_water_practical_salinity", "1",
+            "sea-water practical salinity (PSU)",
+            ("sea_water_practical_salinity", "sea_water_salinity"),
+            (2.0, 41.0), surface=False,
+        ),
+    ]
+}
+
+
+def get_quantity(name: str) -> Quantity:
+    """Return the :class:`Quantity` called ``name``; raise KeyError listing the known names."""
+    try:
+        return QUANTITIES[name]
+    except KeyError:
+        raise KeyError(
+            f"unknown quantity '{name}'; known quantities: {', '.join(QUANTITIES)}"
+        ) from None
+
+
+def quantity_for_standard_name(standard_name: str) -> Quantity | None:
+    """Return the quantity that accepts CF ``standard_name``, or None."""
+    for q in QUANTITIES.values():
+        if standard_name in q.accepted_standard_names:
+            return q
+    return None

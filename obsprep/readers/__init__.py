@@ -1,0 +1,81 @@
+"""Observation readers: one module per product family, registered through
+:func:`obsprep.readers.base.register_reader`.  :func:`read` is the public entry point."""
+
+from __future__ import annotations
+
+import os
+
+import pandas as pd
+
+from ..exceptions import InputFileError, NoReaderError
+from .base import Reader, register_reader, registered_readers
+
+# Importing the modules registers their readers; the order is the order of guessing.
+from . import alongtrack, sst_swath, sst_grid, ice_concentration, ice_drift, profiles  # noqa: E402,F401
+
+__all__ = ["read", "guess_kind", "available_kinds", "Reader", "register_reader"]
+
+
+def available_kinds() -> list[str]:
+    """Names of the registered reader kinds."""
+    return list(registered_readers())
+
+
+def guess_kind(path, ds=None) -> str:
+    """Return the kind of the first reader whose ``guess_can_open`` accepts the file."""
+    from .cf import open_dataset
+
+    own = ds is None
+    if own:
+        ds = open_dataset(path)
+    try:
+        claims = [k for k, r in registered_readers().items() if r.guess_can_open(ds)]
+    finally:
+        if own:
+            ds.close()
+    if not claims:
+        raise NoReaderError(
+            path,
+            "no reader recognises this file from its metadata (standard_name, featureType, "
+            f"grid_mapping); known kinds: {', '.join(available_kinds())}; "
+            "name one with kind=... or the source's 'kind' key",
+        )
+    return claims[0]
+
+
+def read(path, kind=None, **options) -> pd.DataFrame:
+    """Read one observation file into the observation table.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file.
+    kind : str, optional
+        Reader kind (see :func:`available_kinds`); None or "auto" to choose from the metadata.
+    **options
+        Reader options, e.g. ``sensor="alt_a"``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The observation table; ``file_id`` is ``path``.
+    """
+    from .cf import open_dataset
+
+    path = os.fspath(path)
+    readers = registered_readers()
+    if kind not in (None, "auto") and kind not in readers:
+        raise NoReaderError(path, f"unknown reader kind '{kind}'; known kinds: {', '.join(readers)}")
+    ds = open_dataset(path)
+    try:
+        if kind in (None, "auto"):
+            kind = guess_kind(path, ds)
+        table = readers[kind].read_dataset(ds, path, **options)
+    except InputFileError:
+        raise
+    except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:
+        raise InputFileError(path, f"reader '{kind}' failed: {exc}") from exc
+    finally:
+        ds.close()
+    table.attrs["kind"] = kind
+    return table

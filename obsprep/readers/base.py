@@ -1,0 +1,57 @@
+"""The reader seam.
+
+A reader is one small class in one module::
+
+    @register_reader
+    class AlongTrackReader(Reader):
+        kind = "alongtrack"
+        description = "along-track altimetry (CF point/trajectory series)"
+
+        def guess_can_open(self, ds) -> bool: ...
+        def read_dataset(self, ds, path, **options) -> pandas.DataFrame: ...
+
+``guess_can_open`` and ``read_dataset`` receive the file already opened by
+:func:`obsprep.readers.cf.open_dataset` (CF packing and fill decoded, times *not* decoded), so
+readers never repeat the CF decoding; they find variables by standard_name and return an
+observation table (:func:`obsprep.table.make_table`).
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+import xarray as xr
+
+
+class Reader:
+    """Base class of observation readers; subclasses set ``kind`` and ``description``."""
+
+    kind: str = ""
+    description: str = ""
+    #: reader options a config may pass, name -> meaning (shown in errors and docs)
+    options: dict[str, str] = {}
+
+    def guess_can_open(self, ds: xr.Dataset) -> bool:  # pragma: no cover - interface
+        """Return True when this reader recognises ``ds`` from its metadata alone."""
+        raise NotImplementedError
+
+    def read_dataset(self, ds: xr.Dataset, path: str, **options) -> pd.DataFrame:  # pragma: no cover
+        """Return the observation table for ``ds`` (opened from ``path``)."""
+        raise NotImplementedError
+
+
+_REGISTRY: dict[str, Reader] = {}
+
+
+def register_reader(cls):
+    """Class decorator: register a :class:`Reader` subclass under its ``kind``."""
+    if not cls.kind:
+        raise ValueError(f"reader {cls.__name__} has no kind")
+    if cls.kind in _REGISTRY and type(_REGISTRY[cls.kind]) is not cls:
+        raise ValueError(f"reader kind '{cls.kind}' is registered twice")
+    _REGISTRY[cls.kind] = cls()
+    return cls
+
+
+def registered_readers() -> dict[str, Reader]:
+    """Mapping kind -> reader instance, in registration order."""
+    return dict(_REGISTRY)

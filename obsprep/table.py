@@ -1,0 +1,140 @@
+"""The observation table: the one pandas DataFrame every reader returns and every stage consumes.
+
+``schemas/observation.schema.json`` documents the same columns; a test keeps the two in step.
+Times are timezone-naive ``datetime64[ns]`` holding UTC.  A row whose ``rejected`` is missing
+(NaN) is kept; otherwise ``rejected`` holds the code (see :mod:`obsprep.reasons`) of the first test
+that rejected it.  Rejected rows stay in the table until the ledger has counted them.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .reasons import REASONS
+
+#: name -> (dtype, units, meaning).  Categorical columns hold strings.
+COLUMNS: dict[str, tuple[str, str, str]] = {
+    "quantity": ("category", "", "quantity name from obsprep.quantities"),
+    "value": ("float64", "canonical units of the quantity", "observed value"),
+    "error": ("float64", "canonical units of the quantity",
+              "1-sigma observation error; NaN until assigned"),
+    "error_origin": ("category", "", "which rule set the error (e.g. 'constant', 'file')"),
+    "lon": ("float64", "degrees_east", "longitude in -180..180"),
+    "lat": ("float64", "degrees_north", "latitude in -90..90"),
+    "depth": ("float64", "m", "depth, positive down, 0 at the surface"),
+    "time": ("datetime64[ns]", "UTC", "observation time (start of the interval for drift)"),
+    "time_end": ("datetime64[ns]", "UTC", "end of an interval observation; NaT otherwise"),
+    "sensor": ("category", "", "source name given by the user"),
+    "platform": ("category", "", "platform identifier (satellite, float WMO number, ship)"),
+    "group": ("category", "", "pass, granule or profile identifier"),
+    "file_id": ("category", "", "path of the source file"),
+    "row": ("int64", "", "position of the value in the source file (flat index)"),
+    "rejected": ("category", "", "rejection reason code; missing when the row is kept"),
+}
+
+CATEGORICAL = [c for c, (dtype, _, _) in COLUMNS.items() if dtype == "category"]
+
+
+def make_table(n: int | None = None, **columns) -> pd.DataFrame:
+    """Build an observation table from column arrays.
+
+    Missing columns are filled: ``error`` NaN, ``depth`` 0, ``time_end`` NaT, ``row`` 0..n-1,
+    strings empty, ``rejected`` missing.  Scalars are broadcast.  Unknown column names raise
+    ``KeyError`` so a typo in a reader fails loudly.
+    """
+    unknown = set(columns) - set(COLUMNS)
+    if unknown:
+        raise KeyError(f"unknown observation-table columns: {sorted(unknown)}")
+    if n is None:
+        lengths = [len(v) for v in columns.values() if np.ndim(v) > 0]
+        n = lengths[0] if lengths else 0
+    data = {}
+    for name, (dtype, _, _) in COLUMNS.items():
+        v = columns.get(name)
+        if v is None:
+            if name == "row":
+                v = np.arange(n, dtype=np.int64)
+            elif name in ("error", "value", "lon", "lat"):
+                v = np.full(n, np.nan)
+            elif name == "depth":
+                v = np.zeros(n)
+            elif name in ("time", "time_end"):
+                v = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
+            elif name == "rejected":
+                v = pd.Categorical([None] * n, categories=list(REASONS))
+            elif name == "error_origin":
+                v = "unset"
+            else:
+                v = ""
+        if np.ndim(v) == 0 and not isinstance(v, pd.Categorical):
+            v = np.full(n, v, dtype=object if isinstance(v, str) else None)
+        if dtype == "category":
+            if name == "rejected":
+                v = pd.Categorical(v, categories=list(REASONS))
+            else:
+                v = pd.Categorical(np.asarray(v, dtype=object).astype(str))
+        elif dtype.startswith("datetime64"):
+            v = np.asarray(v).astype("datetime64[ns]")
+        else:
+            v = np.asarray(v, dtype=dtype)
+        if len(v) != n:
+            raise ValueError(f"column '{name}' has length {len(v)}, expected {n}")
+        data[name] = v
+    return pd.DataFrame(data)
+
+
+def empty_table() -> pd.DataFrame:
+    """An observation table with no rows and every column."""
+    return make_table(0)
+
+
+def concat_tables(tables) -> pd.DataFrame:
+    """Concatenate observation tables, keeping categorical columns categorical."""
+    tables = [t for t in tables if t is not None]
+    if not tables:
+        return empty_table()
+    for c in CATEGORICAL:
+        if c == "rejected":
+            continue
+        cats = pd.api.types.union_categoricals([t[c].array for t in tables]).categories
+        for t in tables:
+            t[c] = t[c].cat.set_categories(cats)
+    out = pd.concat(tables, ignore_index=True)
+    out["rejected"] = pd.Categorical(out["rejected"], categories=list(REASONS))
+    return out
+
+
+def reject(table: pd.DataFrame, mask, reason: str) -> int:
+    """Mark rows selected by boolean ``mask`` as rejected with ``reason``, in place.
+
+    Rows already rejected keep their first reason.  Returns the number of rows newly rejected.
+    """
+    if reason not in REASONS:
+        raise KeyError(f"unknown rejection reason '{reason}'")
+    if reason not in table["rejected"].cat.categories:
+        table["rejected"] = table["rejected"].cat.add_categories([reason])
+    mask = np.asarray(mask, dtype=bool) & table["rejected"].isna().to_numpy()
+    n = int(mask.sum())
+    if n:
+        table.loc[mask, "rejected"] = reason
+    return n
+
+
+def kept(table: pd.DataFrame) -> np.ndarray:
+    """Boolean array: rows not rejected."""
+    return table["rejected"].isna().to_numpy()
+
+
+def validate_table(table: pd.DataFrame) -> None:
+    """Raise ``ValueError`` if ``table`` lacks a column or has a wrong dtype."""
+    for name, (dtype, _, _) in COLUMNS.items():
+        if name not in table.columns:
+            raise ValueError(f"observation table lacks column '{name}'")
+        actual = str(table[name].dtype)
+        if dtype == "category":
+            ok = isinstance(table[name].dtype, pd.CategoricalDtype)
+        else:
+            ok = actual == dtype
+        if not ok:
+            raise ValueError(f"observation table column '{name}' has dtype {actual}, expected {dtype}")
