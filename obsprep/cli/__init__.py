@@ -1,0 +1,1 @@
+"""Command line: a thin click layer over the Python API (one module per subcommand)."""

@@ -1,0 +1,25 @@
+"""The ``obsprep`` command group."""
+
+from __future__ import annotations
+
+import click
+
+from .. import __version__
+from .build import build_command
+from .demo import demo_command
+from .read import read_command
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="obsprep")
+def cli():
+    """obsprep: ocean and sea-ice observations to model-grid super-observations."""
+
+
+cli.add_command(build_command)
+cli.add_command(read_command)
+cli.add_command(demo_command)
+
+
+def main():  # pragma: no cover - console entry point
+    cli()

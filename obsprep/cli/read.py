@@ -1,0 +1,39 @@
+"""``obsprep read``: observation files to the observation table (Parquet or CSV)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from .options import library_errors
+
+
+@click.command("read")
+@click.argument("files", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
+@click.option("--kind", default="auto", show_default=True, help="Reader kind, or auto to detect it.")
+@click.option("--sensor", default="", help="Sensor name written in the sensor column.")
+@click.option("-o", "--output", "output", required=True, type=click.Path(dir_okay=False),
+              help="Output table, .parquet or .csv.")
+@library_errors
+def read_command(files, kind, sensor, output):
+    """Read observation FILES into one observation table.
+
+    Example: obsprep read alt_a_20261119.nc -o table.parquet
+    """
+    from .. import read
+    from ..table import concat_tables
+    from ..writers import atomic_path
+
+    suffix = Path(output).suffix.lower()
+    if suffix not in (".parquet", ".csv"):
+        raise click.BadParameter(f"expected a .parquet or .csv file name, got '{output}'", param_hint="--output")
+    tables = [read(f, kind=kind, sensor=sensor) for f in files]
+    table = concat_tables(tables)
+    with atomic_path(output) as tmp:
+        if suffix == ".parquet":
+            table.to_parquet(tmp, index=False)
+        else:
+            table.to_csv(tmp, index=False)
+    n_kept = int(table["rejected"].isna().sum())
+    click.echo(f"{len(table)} observations from {len(files)} file(s), {n_kept} not rejected by the reader -> {output}")

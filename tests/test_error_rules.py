@@ -1,0 +1,32 @@
+"""Raw error rules: constant, from file, factor, floor; rows without an error are rejected."""
+
+import numpy as np
+import pytest
+
+from obsprep.config import ErrorRule
+from obsprep.error_rules import assign_errors
+from obsprep.exceptions import ConfigError
+from obsprep.table import make_table
+
+
+def test_constant_per_quantity_with_factor_and_floor():
+    t = make_table(3, quantity=["sea_water_temperature", "sea_water_salinity", "sea_water_temperature"])
+    assign_errors(t, ErrorRule("constant", {"sea_water_temperature": 0.01, "sea_water_salinity": 0.002},
+                               factor=2.0, floor=0.005))
+    # hand computation: max(floor, factor * value)
+    np.testing.assert_allclose(t["error"], [0.02, 0.005, 0.02])
+    assert set(t["error_origin"]) == {"constant*factor"}
+
+
+def test_file_rule_rejects_missing_errors():
+    t = make_table(3, error=[0.3, np.nan, -1.0])
+    n = assign_errors(t, ErrorRule("file", floor=0.4))
+    assert n == 2
+    assert list(t["rejected"].astype(str)) == ["nan", "missing_error", "missing_error"]
+    assert t["error"].iloc[0] == 0.4
+
+
+def test_missing_quantity_in_table_of_values_is_a_config_error():
+    t = make_table(1, quantity=["sea_water_salinity"])
+    with pytest.raises(ConfigError, match="sea_water_salinity"):
+        assign_errors(t, ErrorRule("constant", {"sea_water_temperature": 0.01}), "sources[0].error")
