@@ -52,36 +52,43 @@ def make_table(n: int | None = None, **columns) -> pd.DataFrame:
     data = {}
     for name, (dtype, _, _) in COLUMNS.items():
         v = columns.get(name)
+        if dtype == "category":
+            data[name] = _categorical(name, v, n)
+            continue
         if v is None:
             if name == "row":
                 v = np.arange(n, dtype=np.int64)
-            elif name in ("error", "value", "lon", "lat"):
-                v = np.full(n, np.nan)
             elif name == "depth":
                 v = np.zeros(n)
             elif name in ("time", "time_end"):
                 v = np.full(n, np.datetime64("NaT"), dtype="datetime64[ns]")
-            elif name == "rejected":
-                v = pd.Categorical([None] * n, categories=list(REASONS))
-            elif name == "error_origin":
-                v = "unset"
             else:
-                v = ""
-        if np.ndim(v) == 0 and not isinstance(v, pd.Categorical):
-            v = np.full(n, v, dtype=object if isinstance(v, str) else None)
-        if dtype == "category":
-            if name == "rejected":
-                v = pd.Categorical(v, categories=list(REASONS))
-            else:
-                v = pd.Categorical(np.asarray(v, dtype=object).astype(str))
-        elif dtype.startswith("datetime64"):
-            v = np.asarray(v).astype("datetime64[ns]")
-        else:
-            v = np.asarray(v, dtype=dtype)
+                v = np.full(n, np.nan)
+        if np.ndim(v) == 0:
+            v = np.full(n, v)
+        v = np.asarray(v).astype("datetime64[ns]") if dtype.startswith("datetime64") else np.asarray(v, dtype=dtype)
         if len(v) != n:
             raise ValueError(f"column '{name}' has length {len(v)}, expected {n}")
         data[name] = v
     return pd.DataFrame(data)
+
+
+def _categorical(name, v, n) -> pd.Categorical:
+    """A categorical column; scalars and defaults are built from codes (fast for millions of rows)."""
+    if name == "rejected":
+        if v is None:
+            return pd.Categorical.from_codes(np.full(n, -1, dtype=np.int8), categories=list(REASONS))
+        out = pd.Categorical(v, categories=list(REASONS))
+    elif v is None or np.ndim(v) == 0:
+        label = {"error_origin": "unset"}.get(name, "") if v is None else str(v)
+        out = pd.Categorical.from_codes(np.zeros(n, dtype=np.int8), categories=[label])
+    elif isinstance(v, pd.Categorical):
+        out = v.rename_categories([str(c) for c in v.categories]) if len(v.categories) else v
+    else:
+        out = pd.Categorical(np.asarray(v, dtype=object).astype(str))
+    if len(out) != n:
+        raise ValueError(f"column '{name}' has length {len(out)}, expected {n}")
+    return out
 
 
 def empty_table() -> pd.DataFrame:

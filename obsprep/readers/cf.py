@@ -1,0 +1,833 @@
+"""The shared CF decoding layer: every reader finds and decodes its variables through here.
+
+A reader finds its data variable by ``standard_name``, asks this module for positions, times,
+errors and flags, and hands plain numpy arrays to :func:`observation_table`.  Nothing in here
+knows about a particular product: only the CF conventions (packing, ``standard_name``,
+``coordinates``, ``ancillary_variables``, flags, ``grid_mapping``, ``bounds``, time units and
+calendars) as described in ``docs/file-conventions.md``.
+
+Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`; times with
+:mod:`cftime`; map projections with :mod:`pyproj` (PROJ).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import tokenize
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from ..exceptions import InputFileError
+from ..quantities import Quantity
+from ..table import make_table, reject
+
+__all__ = [
+    "COMMON_OPTIONS", "DEFAULT_GOOD_FLAG_MEANINGS", "ReaderOptions", "reader_options",
+    "open_dataset", "find_variable", "require_variable", "find_coordinate", "find_coordinates",
+    "ancillary_variable_names", "find_standard_error", "find_flag_variables",
+    "good_flag_mask", "decode_time", "decode_time_variable", "convert_units",
+    "values_in_units", "wrap_longitude", "broadcast_to_variable", "crs_for_variable",
+    "lonlat_from_projection", "grid_axis_azimuths", "rotate_grid_vectors_to_east_north",
+    "horizontal_position", "observation_time", "observation_interval", "labels_as_strings",
+    "platform_attribute", "DecodedVariable", "decode_data_variable", "require_values",
+    "observation_table",
+]
+
+#: reader options every CF-generic reader accepts, name -> meaning
+COMMON_OPTIONS: dict[str, str] = {
+    "sensor": "source name written to the 'sensor' column (default: empty)",
+    "platform": "platform identifier written to every row, overriding the file's own "
+                "(default: the file's 'platform' global attribute)",
+    "good_flag_meanings": "flag meanings whose rows are kept (list of str, or one "
+                          "space-separated str; default: good good_data nominal ok valid "
+                          "probably_good)",
+}
+
+#: flag meanings kept by default (docs/file-conventions.md)
+DEFAULT_GOOD_FLAG_MEANINGS = frozenset(
+    ("good", "good_data", "nominal", "ok", "valid", "probably_good"))
+
+
+# --------------------------------------------------------------------------------------------
+# reader options
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class ReaderOptions:
+    """Validated reader options (see :data:`COMMON_OPTIONS` and each reader's ``options``).
+
+    ``pass_gap_seconds`` (s) is only accepted by readers that list it.
+    """
+
+    sensor: str = ""
+    platform: str | None = None
+    good_flag_meanings: frozenset = DEFAULT_GOOD_FLAG_MEANINGS
+    pass_gap_seconds: float = 60.0
+
+
+def reader_options(reader, options: dict) -> ReaderOptions:
+    """Check ``options`` against ``reader.options`` and return them as :class:`ReaderOptions`.
+
+    Raises ``TypeError`` naming an unknown option and listing the accepted ones, and
+    ``ValueError`` for a value of the wrong kind, so a typo in a configuration fails at once.
+    """
+    unknown = sorted(set(options) - set(reader.options))
+    if unknown:
+        raise TypeError(
+            f"unknown option(s) {', '.join(repr(u) for u in unknown)} for reader "
+            f"'{reader.kind}'; accepted options: {', '.join(reader.options)}")
+    values = {}
+    if options.get("sensor") is not None:
+        if not isinstance(options["sensor"], str):
+            raise ValueError(f"option 'sensor' must be a string, got {options['sensor']!r}")
+        values["sensor"] = options["sensor"]
+    if options.get("platform") is not None:
+        values["platform"] = str(options["platform"])
+    if options.get("good_flag_meanings") is not None:
+        meanings = options["good_flag_meanings"]
+        if isinstance(meanings, str):
+            meanings = meanings.split()
+        if not all(isinstance(m, str) for m in meanings):
+            raise ValueError(f"option 'good_flag_meanings' must be strings, got {meanings!r}")
+        values["good_flag_meanings"] = frozenset(m.lower() for m in meanings)
+    if options.get("pass_gap_seconds") is not None:
+        gap = options["pass_gap_seconds"]
+        if isinstance(gap, bool) or not isinstance(gap, (int, float)) or not gap > 0:
+            raise ValueError(f"option 'pass_gap_seconds' must be a positive number of "
+                             f"seconds, got {gap!r}")
+        values["pass_gap_seconds"] = float(gap)
+    return ReaderOptions(**values)
+
+
+# --------------------------------------------------------------------------------------------
+# opening
+# --------------------------------------------------------------------------------------------
+
+_NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
+
+
+def open_dataset(path) -> xr.Dataset:
+    """Open a netCDF file with CF packing and fill decoded, times left as numbers.
+
+    ``scale_factor``/``add_offset`` are applied and ``_FillValue``/``missing_value`` become NaN
+    (``mask_and_scale=True``); times and durations stay numeric (``decode_times=False``) so
+    :func:`decode_time` can handle every calendar; attributes such as ``coordinates`` and
+    ``grid_mapping`` stay on the variables.  The data are loaded into memory, so a truncated
+    file fails here rather than half-way through a reader.
+
+    Raises
+    ------
+    InputFileError
+        The file is missing, empty, not netCDF, or cannot be read (e.g. truncated); the
+        message is one line naming the file and the reason.
+    """
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise InputFileError(path, "file not found")
+    if os.path.isdir(path):
+        raise InputFileError(path, "is a directory, expected a netCDF file")
+    size = os.path.getsize(path)
+    if size == 0:
+        raise InputFileError(path, "file is empty (0 bytes), expected a netCDF file")
+    try:
+        ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=True, decode_times=False,
+                             decode_timedelta=False, decode_coords=False)
+    except (OSError, RuntimeError, ValueError, KeyError, IndexError) as exc:
+        with open(path, "rb") as fh:
+            head = fh.read(8)
+        if not head.startswith(_NETCDF_MAGIC):
+            raise InputFileError(
+                path, f"not a netCDF file (starts with {head[:4]!r}, expected netCDF-3 'CDF' "
+                      f"or netCDF-4/HDF5 signature)") from exc
+        raise InputFileError(path, f"cannot open netCDF file ({size} bytes; truncated or "
+                                   f"corrupt?): {_one_line(exc)}") from exc
+    try:
+        ds.load()
+    except (OSError, RuntimeError, ValueError, IndexError) as exc:
+        ds.close()
+        raise InputFileError(path, f"cannot read the data ({size} bytes; truncated or "
+                                   f"corrupt?): {_one_line(exc)}") from exc
+    ds.close()  # the data are in memory; release the file handle
+    return ds
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+# --------------------------------------------------------------------------------------------
+# finding variables
+# --------------------------------------------------------------------------------------------
+
+def find_variable(ds: xr.Dataset, standard_names, ndim=None) -> str | None:
+    """Name of the first variable whose ``standard_name`` is one of ``standard_names``.
+
+    The order of ``standard_names`` is the order of preference; ``ndim`` (an int or a
+    collection of ints) restricts the number of dimensions.  Returns None when there is none.
+    """
+    if isinstance(ndim, int):
+        ndim = (ndim,)
+    for wanted in standard_names:
+        for name, var in ds.variables.items():
+            if var.attrs.get("standard_name") == wanted and (ndim is None or var.ndim in ndim):
+                return str(name)
+    return None
+
+
+def require_variable(ds: xr.Dataset, path, standard_names, what: str, ndim=None) -> str:
+    """Like :func:`find_variable` but raise :class:`InputFileError` listing what was expected."""
+    name = find_variable(ds, standard_names, ndim=ndim)
+    if name is None:
+        dims = f" with {ndim} dimension(s)" if ndim is not None else ""
+        raise InputFileError(
+            path, f"no {what} variable{dims}: expected a variable with standard_name "
+                  f"{' or '.join(repr(s) for s in standard_names)}")
+    return name
+
+
+_LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
+_LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
+
+
+def _is_coordinate_of_kind(var: xr.Variable, kind: str) -> bool:
+    standard_name = var.attrs.get("standard_name")
+    if standard_name == kind:
+        return True
+    if standard_name is not None:
+        return False
+    # CF 4.1/4.4: latitude, longitude and time are also recognised by units / axis
+    units = str(var.attrs.get("units", "")).strip().lower()
+    if kind == "latitude":
+        return units in _LAT_UNITS
+    if kind == "longitude":
+        return units in _LON_UNITS
+    if kind == "time":
+        return var.attrs.get("axis") == "T" or " since " in units
+    return False
+
+
+def find_coordinates(ds: xr.Dataset, name: str, kind: str, anywhere: bool = False) -> list[str]:
+    """Names of the coordinate variables of kind ``kind`` for data variable ``name``.
+
+    ``kind`` is a CF standard name (``latitude``, ``longitude``, ``time``, ``depth``,
+    ``sea_water_pressure``, ``projection_x_coordinate``, ``projection_y_coordinate``);
+    latitude, longitude and time are also recognised by their units or ``axis`` (CF 4.1, 4.4).
+    Searched in order: the variable's ``coordinates`` attribute, its dimension variables, then
+    every variable whose dimensions are a subset of its own (any variable when ``anywhere``,
+    as for the per-profile coordinates of a ragged array).
+    """
+    var = ds[name]
+    listed = str(var.attrs.get("coordinates", "")).split()
+    candidates = [c for c in listed if c in ds.variables]
+    candidates += [d for d in var.dims if d in ds.variables]
+    candidates += [str(v) for v in ds.variables
+                   if anywhere or set(ds[v].dims) <= set(var.dims)]
+    found: list[str] = []
+    for c in candidates:
+        if c != name and c not in found and _is_coordinate_of_kind(ds[c].variable, kind):
+            found.append(c)
+    return found
+
+
+def find_coordinate(ds: xr.Dataset, name: str, kind: str, anywhere: bool = False) -> str | None:
+    """First of :func:`find_coordinates`, or None."""
+    found = find_coordinates(ds, name, kind, anywhere=anywhere)
+    return found[0] if found else None
+
+
+def ancillary_variable_names(ds: xr.Dataset, name: str) -> list[str]:
+    """Variables listed in ``name``'s ``ancillary_variables`` attribute that exist in ``ds``."""
+    return [a for a in str(ds[name].attrs.get("ancillary_variables", "")).split()
+            if a in ds.variables]
+
+
+def find_standard_error(ds: xr.Dataset, name: str) -> str | None:
+    """The ancillary variable with standard_name ``"<standard_name of name> standard_error"``."""
+    wanted = f"{ds[name].attrs.get('standard_name', '')} standard_error"
+    for a in ancillary_variable_names(ds, name):
+        if " ".join(str(ds[a].attrs.get("standard_name", "")).split()) == wanted:
+            return a
+    return None
+
+
+def find_flag_variables(ds: xr.Dataset, name: str) -> list[str]:
+    """Ancillary variables whose standard_name ends in ``status_flag`` or ``quality_flag``."""
+    return [a for a in ancillary_variable_names(ds, name)
+            if str(ds[a].attrs.get("standard_name", "")).strip().endswith(
+                ("status_flag", "quality_flag"))]
+
+
+# --------------------------------------------------------------------------------------------
+# flags
+# --------------------------------------------------------------------------------------------
+
+def good_flag_mask(flag: xr.DataArray, good_meanings, path) -> np.ndarray:
+    """Boolean array, True where the CF flag variable ``flag`` says "good".
+
+    CF 3.5: ``flag_meanings`` names each entry of ``flag_values`` (mutually exclusive states)
+    or of ``flag_masks`` (bit fields; with both attributes a state is set when
+    ``value & mask == flag_value``, with masks only when ``value & mask != 0``).
+    With ``flag_values`` a value is good when its meaning is in ``good_meanings``; with
+    ``flag_masks`` a value is good when every meaning set in it is in ``good_meanings``
+    (a value with no bit set is good).  A fill (NaN) flag is not good: the provider gave no
+    verdict.  Meanings are compared case-insensitively.
+    """
+    name = flag.name
+    meanings = str(flag.attrs.get("flag_meanings", "")).lower().split()
+    good_meanings = {m.lower() for m in good_meanings}
+    raw = np.asarray(flag.values, dtype=np.float64)
+    finite = np.isfinite(raw)
+    masks = flag.attrs.get("flag_masks")
+    values = flag.attrs.get("flag_values")
+    if masks is None and values is None:
+        raise InputFileError(path, "flag variable has neither flag_values nor flag_masks "
+                                   "(CF 3.5)", variable=name)
+    for attr, entries in (("flag_masks", masks), ("flag_values", values)):
+        if entries is not None and np.size(entries) != len(meanings):
+            raise InputFileError(
+                path, f"{attr} has {np.size(entries)} entries but flag_meanings has "
+                      f"{len(meanings)} words", variable=name)
+    if masks is None:
+        good_values = [v for v, m in zip(np.atleast_1d(values), meanings) if m in good_meanings]
+        return finite & np.isin(raw, np.asarray(good_values, dtype=np.float64))
+    ints = np.where(finite, raw, 0).astype(np.int64)
+    masks = np.atleast_1d(masks).astype(np.int64)
+    states = None if values is None else np.atleast_1d(values).astype(np.int64)
+    bad = np.zeros(raw.shape, dtype=bool)
+    for i, meaning in enumerate(meanings):  # loop over the few meanings, not the observations
+        if meaning in good_meanings:
+            continue
+        bits = ints & masks[i]
+        bad |= (bits == states[i]) if states is not None else (bits != 0)
+    return finite & ~bad
+
+
+# --------------------------------------------------------------------------------------------
+# time
+# --------------------------------------------------------------------------------------------
+
+_SECONDS_PER_UNIT = {
+    **dict.fromkeys(("days", "day", "d"), 86400.0),
+    **dict.fromkeys(("hours", "hour", "hr", "hrs", "h"), 3600.0),
+    **dict.fromkeys(("minutes", "minute", "min", "mins"), 60.0),
+    **dict.fromkeys(("seconds", "second", "sec", "secs", "s"), 1.0),
+    **dict.fromkeys(("milliseconds", "millisecond", "msec", "msecs", "ms"), 1e-3),
+    **dict.fromkeys(("microseconds", "microsecond", "usec", "usecs", "us"), 1e-6),
+}
+_NS_PER_DAY = 86_400 * 10**9
+
+
+def _seconds_per_unit(unit: str, path, variable) -> float:
+    try:
+        return _SECONDS_PER_UNIT[unit.strip().lower()]
+    except KeyError:
+        raise InputFileError(
+            path, f"time unit '{unit}' not understood; expected days, hours, minutes, seconds, "
+                  f"milliseconds or microseconds (months and years are not fixed lengths)",
+            variable=variable) from None
+
+
+def _label_to_datetime64_ns(label) -> np.int64:
+    """A cftime date label -> int64 nanoseconds since 1970 in the proleptic Gregorian calendar,
+    or NaT's integer when the year is outside datetime64[ns] (1678-2261)."""
+    if not 1678 <= label.year <= 2261:
+        return np.datetime64("NaT", "ns").astype(np.int64)
+    stamp = np.datetime64(
+        f"{label.year:04d}-{label.month:02d}-{label.day:02d}T{label.hour:02d}:"
+        f"{label.minute:02d}:{label.second:02d}", "ns")
+    return (stamp + np.timedelta64(label.microsecond, "us")).astype(np.int64)
+
+
+def decode_time(values, units: str, calendar: str | None, path, variable=None) -> np.ndarray:
+    """Decode CF times ``"<unit> since <epoch>"`` in any CF calendar to UTC ``datetime64[ns]``.
+
+    The calendar date each value denotes (cftime's ``num2date``) is written as the same
+    year-month-day hh:mm:ss in ``datetime64``; for the non-standard calendars (``noleap``,
+    ``360_day``, ...) that keeps the date label the file means.  A time zone offset in the
+    epoch ("... +02:00") is applied by cftime, so the result is UTC.
+
+    Vectorised: values are split into whole days since the epoch and a remainder (s); cftime
+    decodes only the distinct days (every CF calendar has 86 400-s days), and the remainder is
+    added in numpy.  NaN gives NaT, as do dates outside 1678-2261 (the ``datetime64[ns]`` range).
+
+    Parameters
+    ----------
+    values : array-like
+        Numbers of ``unit`` since the epoch, any shape.
+    units, calendar : str
+        The CF ``units`` and ``calendar`` attributes (calendar default "standard").
+
+    Raises
+    ------
+    InputFileError
+        Units not of the form "<unit> since <epoch>", unknown calendar, or a date that has no
+        equivalent in the real calendar (e.g. 30 February in the ``360_day`` calendar).
+    """
+    import cftime
+
+    units = str(units or "")
+    if " since " not in units:
+        raise InputFileError(path, f"time units '{units}' are not of the CF form "
+                                   f"'<unit> since <epoch>'", variable=variable)
+    unit, epoch = units.split(" since ", 1)
+    seconds = np.asarray(values, dtype=np.float64) * _seconds_per_unit(unit, path, variable)
+    finite = np.isfinite(seconds)
+    days = np.floor(seconds[finite] / 86400.0)
+    remainder_ns = np.round((seconds[finite] - days * 86400.0) * 1e9).astype(np.int64)
+    unique_days, inverse = np.unique(days, return_inverse=True)
+    try:
+        labels = cftime.num2date(unique_days, f"days since {epoch}",
+                                 calendar=calendar or "standard",
+                                 only_use_cftime_datetimes=True)
+        day_ns = np.array([_label_to_datetime64_ns(lab) for lab in np.atleast_1d(labels)],
+                          dtype=np.int64)
+    except (ValueError, TypeError, OverflowError) as exc:
+        raise InputFileError(path, f"cannot decode times with units '{units}' and calendar "
+                                   f"'{calendar or 'standard'}': {_one_line(exc)}",
+                             variable=variable) from exc
+    nat = np.datetime64("NaT", "ns").astype(np.int64)
+    out = np.full(seconds.shape, nat, dtype=np.int64)
+    decoded = day_ns[inverse.ravel()]
+    out[finite] = np.where(decoded == nat, nat, decoded + remainder_ns)
+    return out.view("datetime64[ns]")
+
+
+def decode_time_variable(da: xr.DataArray, path, units=None, calendar=None) -> np.ndarray:
+    """:func:`decode_time` for a variable, using its own ``units``/``calendar`` unless given
+    (CF 7.1: a ``bounds`` variable inherits them from its parent)."""
+    units = units if units is not None else da.attrs.get("units")
+    calendar = calendar if calendar is not None else da.attrs.get("calendar")
+    return decode_time(da.values, units, calendar, path, variable=da.name)
+
+
+# --------------------------------------------------------------------------------------------
+# units
+# --------------------------------------------------------------------------------------------
+
+_UNIT_REGISTRY = None
+
+#: unit strings that mean "practical salinity on the PSS-78 scale", canonical "1"
+PRACTICAL_SALINITY_UNITS = frozenset(("psu", "pss-78", "pss78", "1e-3", "0.001", "10-3", "1", ""))
+
+
+def _registry():
+    global _UNIT_REGISTRY
+    if _UNIT_REGISTRY is None:
+        from cf_xarray.units import units  # imports pint; only when a conversion is needed
+
+        _UNIT_REGISTRY = units
+    return _UNIT_REGISTRY
+
+
+def convert_units(values, units: str, canonical: str, path, variable=None,
+                  difference: bool = False) -> np.ndarray:
+    """Convert ``values`` from ``units`` to ``canonical`` with the CF/udunits pint registry.
+
+    Offset units are converted as affine maps (K -> degC: t_C = t_K - 273.15).  With
+    ``difference=True`` the values are differences (errors, spreads), converted as
+    f(v) - f(0), so 0.3 K -> 0.3 degC and 0.3 degF -> 0.1667 degC.
+
+    Returns float64.  Raises :class:`InputFileError` naming ``variable``, the units found and
+    the units expected when the string is not a unit or has the wrong dimension.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    units = str(units).strip()
+    if units == canonical:
+        return values
+    import pint
+
+    registry = _registry()
+    try:
+        converted = registry.Quantity(values, units).to(canonical).magnitude
+        if difference:
+            converted = converted - registry.Quantity(0.0, units).to(canonical).magnitude
+    except (pint.PintError, ValueError, TypeError, AttributeError, AssertionError,
+            tokenize.TokenError, SyntaxError) as exc:
+        raise InputFileError(
+            path, f"units '{units}' cannot be converted to '{canonical}' ({_one_line(exc)})",
+            variable=variable) from exc
+    return np.asarray(converted, dtype=np.float64)
+
+
+def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity | None = None,
+                    difference: bool = False, default_units: str | None = None) -> np.ndarray:
+    """The values of ``da`` in ``canonical`` units (float64, same shape).
+
+    A missing ``units`` attribute is taken as ``default_units`` when given, else as "1" when the
+    canonical unit is dimensionless (CF allows no units there), else it is an error.  For
+    practical salinity the PSS-78 spellings (``PSU``, ``psu``, ``1e-3``, ``0.001``) mean the
+    canonical "1" (PSS-78 is a dimensionless scale; "1e-3" is the CF 1.x spelling).
+    """
+    units = da.attrs.get("units", default_units)
+    if units is None:
+        if canonical != "1":
+            raise InputFileError(path, f"no units attribute; expected units convertible to "
+                                       f"'{canonical}'", variable=da.name)
+        units = "1"
+    if quantity is not None and quantity.name == "sea_water_salinity" \
+            and str(units).strip().lower() in PRACTICAL_SALINITY_UNITS:
+        return np.asarray(da.values, dtype=np.float64)
+    return convert_units(da.values, units, canonical, path, variable=da.name,
+                         difference=difference)
+
+
+# --------------------------------------------------------------------------------------------
+# positions and map projections
+# --------------------------------------------------------------------------------------------
+
+def wrap_longitude(lon) -> np.ndarray:
+    """Longitude (degrees) wrapped into [-180, 180): ((lon + 180) mod 360) - 180."""
+    return np.mod(np.asarray(lon, dtype=np.float64) + 180.0, 360.0) - 180.0
+
+
+def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
+    """Broadcast ``values`` (an array with dimension names ``dims``) to ``var``'s shape.
+
+    ``dims`` must be a subset of ``var.dims`` (in any order); scalars broadcast everywhere.
+    Returns a read-only view when no copy is needed.
+    """
+    dims = tuple(dims)
+    extra = set(dims) - set(var.dims)
+    if extra:
+        raise ValueError(f"dimensions {sorted(extra)} are not dimensions of variable "
+                         f"'{var.name}' {var.dims}")
+    values = np.asarray(values)
+    order = [d for d in var.dims if d in dims]
+    values = np.transpose(values, [dims.index(d) for d in order])
+    shape = [var.sizes[d] if d in dims else 1 for d in var.dims]
+    return np.broadcast_to(values.reshape(shape), var.shape)
+
+
+def crs_for_variable(ds: xr.Dataset, name: str, path):
+    """The :class:`pyproj.CRS` of the variable's CF ``grid_mapping`` (``pyproj.CRS.from_cf``).
+
+    Accepts the simple form ``grid_mapping = "crs"`` and the extended form
+    ``"crs: x y"`` (CF 5.6), taking the first mapping.
+    """
+    import pyproj
+
+    attribute = str(ds[name].attrs.get("grid_mapping", "")).strip()
+    if not attribute:
+        raise InputFileError(path, "no latitude/longitude coordinates and no grid_mapping "
+                                   "attribute to compute them from", variable=name)
+    mapping = attribute.split()[0].rstrip(":")
+    if mapping not in ds.variables:
+        raise InputFileError(path, f"grid_mapping variable '{mapping}' not found in the file",
+                             variable=name)
+    try:
+        return pyproj.CRS.from_cf(dict(ds[mapping].attrs))
+    except (pyproj.exceptions.CRSError, KeyError, ValueError, TypeError) as exc:
+        raise InputFileError(path, f"grid_mapping attributes do not define a CRS: "
+                                   f"{_one_line(exc)}", variable=mapping) from exc
+
+
+def _projection_xy(ds: xr.Dataset, name: str, crs, path) -> tuple[np.ndarray, np.ndarray]:
+    """Projection x/y of every value of ``name`` in the CRS's own axis units."""
+    var = ds[name]
+    out = []
+    for kind in ("projection_x_coordinate", "projection_y_coordinate"):
+        coord = find_coordinate(ds, name, kind)
+        if coord is None:
+            raise InputFileError(path, f"grid_mapping given but no {kind} coordinate on the "
+                                       f"variable's dimensions {var.dims}", variable=name)
+        metres = values_in_units(ds[coord], "m", path, default_units="m")
+        out.append(broadcast_to_variable(metres, ds[coord].dims, var))
+    factors = [axis.unit_conversion_factor for axis in crs.axis_info[:2]]
+    return out[0] / factors[0], out[1] / factors[1]
+
+
+def lonlat_from_projection(crs, x, y) -> tuple[np.ndarray, np.ndarray]:
+    """Longitude, latitude (degrees, on the CRS's own datum) of projected ``x``, ``y``
+    (CRS axis units, usually m), via ``pyproj.Transformer`` (PROJ)."""
+    import pyproj
+
+    transformer = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    lon, lat = transformer.transform(np.asarray(x, dtype=np.float64),
+                                     np.asarray(y, dtype=np.float64))
+    return np.asarray(lon), np.asarray(lat)
+
+
+def grid_axis_azimuths(crs, lon, lat, step=1000.0) -> tuple[np.ndarray, np.ndarray]:
+    """Azimuths (degrees clockwise from true north) of the projection's +x and +y axes.
+
+    Computed from the CRS itself by central differences: the point P is projected to (x, y),
+    the points P+ = (x + h, y) and P- = (x - h, y) (and likewise along y) are inverted back to
+    longitude/latitude, and the azimuth of the axis at P is the circular mean of the geodesic
+    azimuths P -> P+ and (P -> P-) + 180 deg (``pyproj.Geod`` on the CRS's ellipsoid).  The
+    two one-sided chords deviate from the tangent by equal and opposite first-order amounts, so
+    the error is second order, about (h/R)^2 rad; ``step`` h = 1 km (CRS axis units) also keeps
+    the micrometre noise of PROJ's iterative inverse projections below 1e-8 rad.
+
+    The +y azimuth alpha is the angle from true north to grid north, positive clockwise
+    (towards east); for conformal projections it equals PROJ's ``meridian_convergence``
+    (``pyproj.Proj.get_factors``) and the +x azimuth is alpha + 90 degrees.
+    """
+    import pyproj
+
+    lon = np.asarray(lon, dtype=np.float64)
+    lat = np.asarray(lat, dtype=np.float64)
+    forward = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    inverse = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    geod = crs.get_geod()
+    x, y = forward.transform(lon, lat)
+    azimuths = []
+    for dx, dy in ((step, 0.0), (0.0, step)):
+        lon_plus, lat_plus = inverse.transform(x + dx, y + dy)
+        lon_minus, lat_minus = inverse.transform(x - dx, y - dy)
+        ahead, _, _ = geod.inv(lon, lat, lon_plus, lat_plus)
+        behind, _, _ = geod.inv(lon, lat, lon_minus, lat_minus)
+        ahead, behind = np.radians(ahead), np.radians(behind) + np.pi
+        mean = np.arctan2(np.sin(ahead) + np.sin(behind), np.cos(ahead) + np.cos(behind))
+        azimuths.append(np.degrees(np.asarray(mean, dtype=np.float64)).reshape(lon.shape))
+    return azimuths[0], azimuths[1]
+
+
+def rotate_grid_vectors_to_east_north(crs, lon, lat, u, v, sigma_u=None, sigma_v=None):
+    """Rotate vector components along the projection axes into east/north components.
+
+    With beta and alpha the azimuths of the grid +x and +y axes (:func:`grid_axis_azimuths`,
+    degrees clockwise from true north) and the vector written as u e_x + v e_y:
+
+    .. math::
+
+        east  = u \\sin\\beta + v \\sin\\alpha, \\qquad
+        north = u \\cos\\beta + v \\cos\\alpha
+
+    For a conformal projection (beta = alpha + 90 deg) this is the rotation by the meridian
+    convergence alpha: east = u cos(alpha) + v sin(alpha), north = -u sin(alpha) + v cos(alpha).
+    Units of u, v are kept (m for displacements).  Errors ``sigma_u``, ``sigma_v`` (same units)
+    are propagated assuming independent component errors:
+    sigma_east^2 = (sigma_u sin beta)^2 + (sigma_v sin alpha)^2, and likewise north with cosines.
+
+    Returns ``(east, north)`` or ``(east, north, sigma_east, sigma_north)`` when errors are
+    given.
+    """
+    azimuth_x, azimuth_y = grid_axis_azimuths(crs, lon, lat)
+    beta, alpha = np.radians(azimuth_x), np.radians(azimuth_y)
+    east = u * np.sin(beta) + v * np.sin(alpha)
+    north = u * np.cos(beta) + v * np.cos(alpha)
+    if sigma_u is None and sigma_v is None:
+        return east, north
+    sigma_u = np.full(np.shape(u), np.nan) if sigma_u is None else sigma_u
+    sigma_v = np.full(np.shape(v), np.nan) if sigma_v is None else sigma_v
+    sigma_east = np.hypot(sigma_u * np.sin(beta), sigma_v * np.sin(alpha))
+    sigma_north = np.hypot(sigma_u * np.cos(beta), sigma_v * np.cos(alpha))
+    return east, north, sigma_east, sigma_north
+
+
+def horizontal_position(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
+    """Longitude in [-180, 180) and latitude (degrees) of every value of variable ``name``.
+
+    From latitude/longitude coordinates (``coordinates`` attribute, dimensions, or any variable
+    on a subset of the dimensions); when there are none, from ``projection_x/y_coordinate`` and
+    the CF ``grid_mapping`` through ``pyproj.CRS.from_cf``.  Arrays have ``name``'s shape.
+    """
+    var = ds[name]
+    lat_name = find_coordinate(ds, name, "latitude")
+    lon_name = find_coordinate(ds, name, "longitude")
+    if lat_name and lon_name:
+        lat = broadcast_to_variable(ds[lat_name].values.astype(np.float64), ds[lat_name].dims, var)
+        lon = broadcast_to_variable(ds[lon_name].values.astype(np.float64), ds[lon_name].dims, var)
+        checked = ((lat_name, lat), (lon_name, lon))
+    else:
+        crs = crs_for_variable(ds, name, path)
+        x, y = _projection_xy(ds, name, crs, path)
+        lon, lat = lonlat_from_projection(crs, x, y)
+        checked = ((name, lat),)
+    for variable, values in checked:
+        if values.size and not np.isfinite(values).any():
+            raise InputFileError(path, "every position value is fill/NaN", variable=variable)
+    return wrap_longitude(lon), np.asarray(lat, dtype=np.float64)
+
+
+def _absolute_and_offset_times(ds, name, path):
+    """(absolute time variables, duration variables) on ``name``'s dimensions."""
+    found = find_coordinates(ds, name, "time")
+    absolute = [t for t in found if " since " in str(ds[t].attrs.get("units", ""))]
+    offsets = [t for t in found if t not in absolute
+               and str(ds[t].attrs.get("units", "")).strip().lower() in _SECONDS_PER_UNIT]
+    if not absolute:
+        raise InputFileError(path, "no time coordinate: expected a variable with "
+                                   "standard_name 'time' and units '<unit> since <epoch>' on the "
+                                   f"variable's dimensions {ds[name].dims}", variable=name)
+    return absolute, offsets
+
+
+def observation_time(ds: xr.Dataset, name: str, path) -> np.ndarray:
+    """UTC ``datetime64[ns]`` time of every value of ``name`` (its shape).
+
+    The time variable with the most dimensions wins (per-pixel time over the scalar or
+    length-1 ``time`` coordinate).  A ``standard_name = "time"`` variable with duration units
+    ("seconds", no "since", like a per-pixel offset) is added to the reference time.
+    """
+    var = ds[name]
+    absolute, offsets = _absolute_and_offset_times(ds, name, path)
+    chosen = max(absolute, key=lambda t: ds[t].ndim)
+    time = broadcast_to_variable(decode_time_variable(ds[chosen], path), ds[chosen].dims, var)
+    offsets = [o for o in offsets if ds[o].ndim > ds[chosen].ndim]
+    if offsets:
+        offset = max(offsets, key=lambda t: ds[t].ndim)
+        seconds = values_in_units(ds[offset], "s", path)
+        offset_ns = np.round(broadcast_to_variable(seconds, ds[offset].dims, var) * 1e9)
+        time = time + offset_ns.astype("timedelta64[ns]")  # NaN -> NaT
+    return time
+
+
+def observation_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
+    """(start, end) UTC ``datetime64[ns]`` of every value of ``name`` from the time variable's
+    CF ``bounds`` (CF 7.1: last dimension of length 2, units/calendar of the parent)."""
+    var = ds[name]
+    absolute, _ = _absolute_and_offset_times(ds, name, path)
+    with_bounds = [t for t in absolute if ds[t].attrs.get("bounds") in ds.variables]
+    if not with_bounds:
+        raise InputFileError(path, f"no interval: the time variable(s) {', '.join(absolute)} "
+                                   f"have no 'bounds' variable giving start and end",
+                             variable=name)
+    time = max(with_bounds, key=lambda t: ds[t].ndim)
+    bounds = ds[ds[time].attrs["bounds"]]
+    if bounds.ndim == 0 or bounds.shape[-1] != 2:
+        raise InputFileError(path, f"time bounds have shape {bounds.shape}, expected a last "
+                                   f"dimension of length 2", variable=bounds.name)
+    decoded = decode_time_variable(bounds, path, units=ds[time].attrs.get("units"),
+                                   calendar=ds[time].attrs.get("calendar"))
+    dims = bounds.dims[:-1]
+    return (broadcast_to_variable(decoded[..., 0], dims, var),
+            broadcast_to_variable(decoded[..., 1], dims, var))
+
+
+def labels_as_strings(values) -> np.ndarray:
+    """Identifier values (bytes, str, integers, integer-valued floats) as a str array;
+    fill (NaN) becomes ""."""
+    values = np.asarray(values)
+    if values.dtype.kind == "S":
+        return np.char.strip(np.char.decode(values, "utf-8", errors="replace"))
+    if values.dtype.kind == "U":
+        return np.char.strip(values)
+    if values.dtype.kind in "iu":
+        return values.astype(str)
+    if values.dtype.kind == "f":
+        finite = np.isfinite(values)
+        out = np.where(finite, np.where(finite, values, 0).astype(np.int64).astype(str), "")
+        whole = finite & (values == np.round(np.where(finite, values, 0)))
+        return np.where(finite & ~whole, values.astype(str), out)
+    return np.array([str(v).strip() for v in values.ravel()], dtype=str).reshape(values.shape)
+
+
+def platform_attribute(ds: xr.Dataset, opts: ReaderOptions) -> str:
+    """Platform from the option, else the ``platform`` global attribute, else ""."""
+    if opts.platform is not None:
+        return opts.platform
+    return str(ds.attrs.get("platform", "")).strip()
+
+
+# --------------------------------------------------------------------------------------------
+# data variables and the observation table
+# --------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class DecodedVariable:
+    """One data variable decoded to canonical units, with its file error and provider flags.
+
+    ``values`` and ``error`` are float64 arrays of the variable's shape, in the quantity's
+    canonical units; ``error`` is None without a standard_error ancillary variable; ``good``
+    is a boolean array (None without flag variables).
+    """
+
+    quantity: Quantity
+    variable: str
+    values: np.ndarray
+    error: np.ndarray | None = None
+    good: np.ndarray | None = None
+
+    def replace(self, **changes) -> "DecodedVariable":
+        """A copy with some fields changed."""
+        return dataclasses.replace(self, **changes)
+
+
+def decode_data_variable(ds: xr.Dataset, name: str, quantity: Quantity, path,
+                         good_flag_meanings=DEFAULT_GOOD_FLAG_MEANINGS) -> DecodedVariable:
+    """Decode data variable ``name`` as ``quantity``: values in canonical units, the
+    ``standard_error`` ancillary variable (converted as a difference, units defaulting to the
+    data's) and the combined "good" mask of every flag ancillary variable."""
+    var = ds[name]
+    values = values_in_units(var, quantity.units, path, quantity=quantity)
+    error = None
+    error_name = find_standard_error(ds, name)
+    if error_name is not None:
+        sigma = values_in_units(ds[error_name], quantity.units, path, quantity=quantity,
+                                difference=True, default_units=var.attrs.get("units"))
+        error = np.array(broadcast_to_variable(sigma, ds[error_name].dims, var))
+    good = None
+    for flag_name in find_flag_variables(ds, name):
+        mask = broadcast_to_variable(
+            good_flag_mask(ds[flag_name], good_flag_meanings, path), ds[flag_name].dims, var)
+        good = mask.copy() if good is None else good & mask
+    return DecodedVariable(quantity, name, values, error, good)
+
+
+def require_values(path, decoded: list[DecodedVariable]) -> None:
+    """Raise :class:`InputFileError` when the data variables hold values but every one is fill
+    (an all-fill file is a broken product, not a night without data)."""
+    total = sum(d.values.size for d in decoded)
+    if total and not any(np.isfinite(d.values).any() for d in decoded):
+        names = ", ".join(d.variable for d in decoded)
+        raise InputFileError(path, f"all {total} values are fill/NaN; nothing to read",
+                             variable=names)
+
+
+def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lon, lat, time,
+                      time_end=None, depth=None, group="", platform="", row=None, keep=None,
+                      missing=None) -> pd.DataFrame:
+    """The observation table for one decoded variable.
+
+    Every array argument is broadcast to the variable's shape and flattened in source order.
+    ``row`` defaults to the flat index of the value in the source variable; ``keep`` (boolean)
+    drops entries that are not observations at all (profile padding); ``missing`` (boolean)
+    marks extra rows as ``missing_value`` (e.g. the vertical coordinate is fill).
+
+    Rows with a NaN value are rejected ``missing_value``; rows whose provider flag is not good,
+    ``provider_flag``.  ``file_id`` is ``path``, ``sensor`` the option, ``error`` the file's
+    standard_error where finite (``error_origin`` "file", else "unset").
+    """
+    shape = decoded.values.shape
+
+    def flat(a, dtype=None):
+        a = np.broadcast_to(np.asarray(a, dtype=dtype), shape).ravel()
+        return a if keep_flat is None else a[keep_flat]
+
+    keep_flat = None if keep is None else np.broadcast_to(keep, shape).ravel()
+    values = flat(decoded.values)
+    error = flat(decoded.error) if decoded.error is not None else np.full(values.size, np.nan)
+    has_error = np.isfinite(error)
+    columns = dict(
+        quantity=decoded.quantity.name,
+        value=values,
+        error=error,
+        error_origin=np.where(has_error, "file", "unset"),
+        lon=flat(lon, np.float64),
+        lat=flat(lat, np.float64),
+        time=flat(time, "datetime64[ns]"),
+        sensor=opts.sensor,
+        file_id=str(path),
+        row=flat(np.arange(decoded.values.size).reshape(shape) if row is None else row,
+                 np.int64),
+    )
+    if depth is not None:
+        columns["depth"] = flat(depth, np.float64)
+    if time_end is not None:
+        columns["time_end"] = flat(time_end, "datetime64[ns]")
+    for column, label in (("group", group), ("platform", platform)):
+        columns[column] = str(label) if np.ndim(label) == 0 else flat(label)
+    table = make_table(n=values.size, **columns)
+    missing_rows = ~np.isfinite(values)
+    if missing is not None:
+        missing_rows |= flat(missing, bool)
+    reject(table, missing_rows, "missing_value")
+    if decoded.good is not None:
+        reject(table, ~flat(decoded.good, bool), "provider_flag")
+    return table
