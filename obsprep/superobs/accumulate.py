@@ -1,0 +1,621 @@
+"""Mergeable per-group sums from which super-observations are made.
+
+Raw observations are grouped by integer keys (the pipeline chooses them: quantity, sensor, time
+slot, grid indices, ...).  Per group only a fixed set of numbers is kept, and two sets of numbers
+for the same group combine exactly into the set for the union of their observations.  Files can
+therefore be accumulated separately, in any split, and merged; merging the same accumulators in
+the same order is bit-for-bit reproducible.
+
+Numerical stability.  Values such as 273.15 K with a spread of millikelvin, or times such as
+1.7e9 s with a spread of seconds, lose every significant digit of the spread in a sum of raw
+squares.  Within a batch the mean and the sum of squared deviations about it (M2) are computed by
+the corrected two-pass algorithm; batches are merged with the pairwise update of Chan, Golub &
+LeVeque (1979, "Updating formulae and a pairwise algorithm for computing sample variances",
+Stanford report STAN-CS-79-773; 1983, "Algorithms for computing the sample variance: analysis
+and recommendations", *The American Statistician* 37, 242-247; references from memory):
+
+.. math::
+    n = n_a + n_b, \\quad \\delta = \\bar x_b - \\bar x_a, \\quad
+    \\bar x = \\bar x_a + \\delta\\,n_b/n, \\quad M_2 = M_{2,a} + M_{2,b} + \\delta^2 n_a n_b / n
+
+applied to k parts at once as :math:`M_2 = \\sum_k M_{2,k} + \\sum_k n_k (\\bar x_k - \\bar x)^2`
+(repeated pairwise updates give exactly this), with the merged mean itself found by a corrected
+two-pass step over the part means.  Weighted means merge the same way with weights in place of
+counts.
+
+Grouping is vectorised: keys are packed into one int64 code when their ranges allow (else a
+lexicographic sort), sorted once, and every per-group sum is an ``np.bincount`` over the group
+index or a ``ufunc.reduceat`` over the sorted order.  No Python loop runs over observations or
+groups; memory is O(n) per batch.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
+from .spherical import mean_position, unit_vectors
+
+_INT64_MAX = int(np.iinfo(np.int64).max)
+
+#: Per-group state kept by every accumulator: name -> meaning (units).
+STATE_FIELDS: dict[str, str] = {
+    "count": "number of raw observations (int64)",
+    "value_mean": "mean of the values (units of the value)",
+    "value_m2": "sum of squared deviations of the values about value_mean (units squared)",
+    "value_min": "smallest value",
+    "value_max": "largest value",
+    "weighted_mean": "inverse-variance weighted mean of the values, weights 1/sigma^2",
+    "sum_inverse_variance": "sum of 1/sigma^2 (the total weight of weighted_mean)",
+    "sum_inverse_sigma": "sum of 1/sigma",
+    "sum_variance": "sum of sigma^2",
+    "sum_sigma": "sum of sigma",
+    "time_mean": "mean time (s, relative to the caller's reference time)",
+    "sum_x": "sum of unit-vector x components (see obsprep.superobs.spherical)",
+    "sum_y": "sum of unit-vector y components",
+    "sum_z": "sum of unit-vector z components",
+    "depth_mean": "mean depth (m, positive down)",
+}
+
+#: Per-group representative raw observation, kept when a thinning score is given.
+REPRESENTATIVE_FIELDS: dict[str, str] = {
+    "representative_score": "lowest score in the group",
+    "representative_tiebreak": "tiebreak of the representative (int64)",
+    "representative_value": "its value",
+    "representative_error": "its 1-sigma error",
+    "representative_time": "its time (s)",
+    "representative_lon": "its longitude (degrees east)",
+    "representative_lat": "its latitude (degrees north)",
+    "representative_depth": "its depth (m)",
+}
+
+OUTPUT_COLUMNS = ("count", "value", "spread", "value_min", "value_max", "time", "lon", "lat",
+                  "depth", "error_instrument", "error_representation", "error")
+
+MODES = ("mean", "weighted", "thin")
+
+
+# --------------------------------------------------------------------------------------------
+# grouping
+
+def _validate_keys(keys, where):
+    if not isinstance(keys, dict) or not keys:
+        raise TypeError(f"{where}: 'keys' must be a non-empty dict of name -> int64 array, "
+                        f"got {type(keys).__name__}{' (empty)' if isinstance(keys, dict) else ''}")
+    names = tuple(keys)
+    clash = [name for name in names
+             if name in OUTPUT_COLUMNS or not isinstance(name, str)]
+    if clash:
+        raise ValueError(f"{where}: key names must be strings other than the output columns "
+                         f"{list(OUTPUT_COLUMNS)}; got {clash}")
+    arrays = []
+    length = None
+    for name in names:
+        array = np.asarray(keys[name])
+        if array.ndim != 1:
+            raise ValueError(f"{where}: key '{name}' must be 1-D, got shape {array.shape}")
+        if array.dtype.kind not in "iub" and not (array.size == 0 and array.dtype.kind == "f"):
+            raise TypeError(f"{where}: key '{name}' must hold integers (int64), "
+                            f"got dtype {array.dtype}")
+        if array.dtype.kind == "u" and array.size and int(array.max()) > _INT64_MAX:
+            raise ValueError(f"{where}: key '{name}' has values above the int64 range")
+        if length is None:
+            length = len(array)
+        elif len(array) != length:
+            raise ValueError(f"{where}: key '{name}' has length {len(array)}, expected {length} "
+                             f"like key '{names[0]}'")
+        arrays.append(array.astype(np.int64, copy=False))
+    return names, arrays
+
+
+def _packed_code(key_arrays):
+    """One int64 per row that sorts like the rows' key tuples, or None if it cannot fit.
+
+    Each key becomes a digit ``key - min`` (or its dense rank when its range is wider than the
+    number of rows), and the digits are packed in mixed radix, first key most significant.
+    """
+    n = len(key_arrays[0])
+    digits, radices = [], []
+    for array in key_arrays:
+        low, high = int(array.min()), int(array.max())
+        span = high - low + 1
+        if span > max(n, 1):
+            _, rank = np.unique(array, return_inverse=True)
+            digits.append(rank.reshape(-1).astype(np.int64, copy=False))
+            radices.append(int(rank.max()) + 1)
+        else:
+            digits.append(array - np.int64(low))
+            radices.append(span)
+    if math.prod(radices) > _INT64_MAX:
+        return None
+    if len(digits) == 1:
+        return digits[0]
+    code = np.zeros(n, dtype=np.int64)
+    multiplier = 1
+    for digit, radix in zip(digits[::-1], radices[::-1]):  # loop over keys, not rows
+        if radix > 1:
+            code += digit * np.int64(multiplier)
+        multiplier *= radix
+    return code
+
+
+def _group_index(key_arrays):
+    """Group rows by key tuple.
+
+    Returns
+    -------
+    order : int array
+        Row permutation putting the groups in ascending key order, rows of a group together.
+    starts : int array
+        Position in ``order`` where each group begins.
+    inverse : int array
+        Group number of each row (0..n_groups-1, groups in ascending key order).
+    """
+    n = len(key_arrays[0])
+    if n == 0:
+        empty = np.zeros(0, dtype=np.intp)
+        return empty, empty, empty
+    code = _packed_code(key_arrays)
+    new_group = np.empty(n, dtype=bool)
+    new_group[0] = True
+    if code is not None:
+        order = np.argsort(code)
+        sorted_code = code[order]
+        np.not_equal(sorted_code[1:], sorted_code[:-1], out=new_group[1:])
+    else:
+        # np.lexsort takes its primary key last
+        order = np.lexsort(key_arrays[::-1])
+        new_group[1:] = False
+        for array in key_arrays:
+            sorted_key = array[order]
+            new_group[1:] |= sorted_key[1:] != sorted_key[:-1]
+    starts = np.flatnonzero(new_group)
+    inverse = np.empty(n, dtype=np.intp)
+    inverse[order] = np.cumsum(new_group) - 1
+    return order, starts, inverse
+
+
+def _pick_representative(score, tiebreak, order, starts, inverse):
+    """Row index of each group's lowest score, ties to lowest tiebreak, then lowest row."""
+    n = len(score)
+    lowest_score = np.minimum.reduceat(score[order], starts)
+    candidate = score == lowest_score[inverse]
+    tiebreak_of_candidates = np.where(candidate, tiebreak, np.int64(_INT64_MAX))
+    lowest_tiebreak = np.minimum.reduceat(tiebreak_of_candidates[order], starts)
+    chosen = candidate & (tiebreak == lowest_tiebreak[inverse])
+    row = np.where(chosen, np.arange(n), n)
+    return np.minimum.reduceat(row[order], starts)
+
+
+# --------------------------------------------------------------------------------------------
+# stable grouped means
+
+def _grouped_mean(x, inverse, n_groups, weight_per_row, total_weight):
+    """Weighted group means by the corrected two-pass algorithm.
+
+    Returns ``(mean, sum_sq)`` with ``sum_sq = sum w (x - mean)^2`` per group, computed as
+    ``sum w d^2 - (sum w d)^2 / W`` with ``d = x - first-pass mean`` (the "corrected two-pass
+    algorithm" of Chan, Golub & LeVeque 1983), which stays accurate when the spread is tiny
+    compared with the mean.
+    ``weight_per_row`` None means unit weights.
+    """
+    weighted_x = x if weight_per_row is None else weight_per_row * x
+    first_pass = np.bincount(inverse, weighted_x, n_groups) / total_weight
+    deviation = x - first_pass[inverse]
+    weighted_deviation = deviation if weight_per_row is None else weight_per_row * deviation
+    sum_deviation = np.bincount(inverse, weighted_deviation, n_groups)
+    mean = first_pass + sum_deviation / total_weight
+    sum_sq = np.bincount(inverse, weighted_deviation * deviation, n_groups)
+    sum_sq = np.maximum(sum_sq - sum_deviation * sum_deviation / total_weight, 0.0)
+    return mean, sum_sq
+
+
+# --------------------------------------------------------------------------------------------
+# input checks
+
+def _float_column(where, name, array, n, *, positive=False, low=None, high=None):
+    array = np.asarray(array, dtype=np.float64)
+    if array.ndim == 0:
+        array = np.full(n, array.item())
+    if array.shape != (n,):
+        raise ValueError(f"{where}: '{name}' has shape {array.shape}, expected ({n},) like the keys")
+    ok = np.isfinite(array)
+    expected = "finite"
+    if positive:
+        ok &= array > 0
+        expected = "finite and > 0"
+    if low is not None:
+        ok &= (array >= low) & (array <= high)
+        expected = f"finite and within {low}..{high}"
+    if not ok.all():
+        bad = np.flatnonzero(~ok)
+        raise ValueError(f"{where}: '{name}' must be {expected}; {len(bad)} of {n} entries are "
+                         f"not, first at index {bad[0]} (value {array[bad[0]]!r})")
+    return array
+
+
+def _per_group(name, value, n_groups, *, low, high):
+    array = np.asarray(value, dtype=np.float64)
+    if array.ndim == 0:
+        array = np.full(n_groups, array.item())
+    elif array.shape != (n_groups,):
+        raise ValueError(f"finalize: '{name}' must be a scalar or an array of one value per "
+                         f"group, shape ({n_groups},); got shape {array.shape}")
+    bad = ~((array >= low) & (array <= high))
+    if bad.any():
+        index = np.flatnonzero(bad)[0]
+        raise ValueError(f"finalize: '{name}' must be within {low}..{high}; group {index} "
+                         f"has {array[index]!r}")
+    return array
+
+
+# --------------------------------------------------------------------------------------------
+
+class Accumulator:
+    """Mergeable per-group state for super-observations.
+
+    A group is one combination of the integer keys.  Per group (arrays of length
+    :attr:`n_groups`, groups in ascending lexicographic order of the keys in the given key
+    order) the accumulator keeps:
+
+    - ``count``: number of raw observations;
+    - ``value_mean``, ``value_m2``: mean of the values and sum of squared deviations about it,
+      merged with the pairwise formula of Chan, Golub & LeVeque (see the module docstring);
+    - ``value_min``, ``value_max``;
+    - ``weighted_mean`` with weights :math:`1/\\sigma_i^2`, and its total weight
+      ``sum_inverse_variance`` = :math:`\\sum \\sigma_i^{-2}`, merged the same stable way;
+    - ``sum_variance`` = :math:`\\sum\\sigma_i^2`, ``sum_sigma`` = :math:`\\sum\\sigma_i`,
+      ``sum_inverse_sigma`` = :math:`\\sum\\sigma_i^{-1}` (errors of correlated means, see
+      :mod:`obsprep.superobs.errors`);
+    - ``time_mean`` (s, relative to the caller's reference), ``depth_mean`` (m), both merged as
+      stable means;
+    - ``sum_x``, ``sum_y``, ``sum_z``: sums of unit vectors of the positions (spherical mean);
+    - when a thinning ``score`` was given, the representative raw observation: the one with the
+      lowest score, ties to the lowest ``tiebreak``: ``representative_score``, ``_tiebreak``,
+      ``_value``, ``_error``, ``_time``, ``_lon``, ``_lat``, ``_depth``.
+
+    All are in :attr:`state` (read-only arrays; names and meanings in :data:`STATE_FIELDS` and
+    :data:`REPRESENTATIVE_FIELDS`).  Build with :meth:`from_observations`, combine with
+    :meth:`merge`, turn into super-observations with :meth:`finalize`.
+    """
+
+    def __init__(self, key_names, keys, state, has_representative):
+        # Internal: use from_observations or merge.
+        self._key_names = tuple(key_names)
+        self._keys = {name: keys[name] for name in self._key_names}
+        self._state = dict(state)
+        self._has_representative = bool(has_representative)
+        for array in (*self._keys.values(), *self._state.values()):
+            array.flags.writeable = False
+
+    # ---- read-only views ---------------------------------------------------------------------
+    @property
+    def key_names(self) -> tuple[str, ...]:
+        """Names of the keys, in grouping (and sort) order."""
+        return self._key_names
+
+    @property
+    def keys(self) -> dict[str, np.ndarray]:
+        """Key values of each group: name -> int64 array of length :attr:`n_groups`."""
+        return dict(self._keys)
+
+    @property
+    def n_groups(self) -> int:
+        """Number of groups (distinct key combinations)."""
+        return len(self._state["count"])
+
+    @property
+    def count(self) -> np.ndarray:
+        """Number of raw observations per group (int64)."""
+        return self._state["count"]
+
+    @property
+    def state(self) -> dict[str, np.ndarray]:
+        """All per-group state arrays (read-only), see the class docstring."""
+        return dict(self._state)
+
+    @property
+    def has_representative(self) -> bool:
+        """Whether a thinning representative is kept (a score was given)."""
+        return self._has_representative
+
+    def __repr__(self):
+        return (f"Accumulator(keys={list(self._key_names)}, n_groups={self.n_groups}, "
+                f"n_observations={int(self.count.sum())})")
+
+    # ---- construction ------------------------------------------------------------------------
+    @classmethod
+    def from_observations(cls, keys, value, error, time, lon, lat, depth, *,
+                          score=None, tiebreak=None) -> "Accumulator":
+        """Accumulate one batch of raw observations.
+
+        Parameters
+        ----------
+        keys : dict of str -> int64 array
+            Grouping keys, all of the same length n; a group is one unique combination.  Output
+            is sorted by the keys in this order.
+        value : array (n,)
+            Observed values, canonical units of the quantity.
+        error : array (n,)
+            1-sigma observation errors, same units, finite and > 0.
+        time : array (n,)
+            Seconds relative to a reference time the caller chooses (e.g. analysis time).
+        lon, lat : array (n,)
+            Degrees east (any range), degrees north (-90..90).
+        depth : array (n,) or scalar
+            Metres, positive down.
+        score : array (n,) of float64, optional
+            Thinning score: the representative raw observation of a group is the one with the
+            lowest score.  Without a score no representative is kept and ``mode="thin"`` is
+            unavailable.
+        tiebreak : array (n,) of int64, optional
+            Breaks ties in score (lowest wins).  Give one that is unique and independent of how
+            files are split (e.g. file number * 2**32 + row); without it ties go to the first
+            row of the batch (first accumulator on merge), which depends on the split.
+
+        Returns
+        -------
+        Accumulator
+        """
+        where = "Accumulator.from_observations"
+        key_names, key_arrays = _validate_keys(keys, where)
+        n = len(key_arrays[0])
+        value = _float_column(where, "value", value, n)
+        error = _float_column(where, "error", error, n, positive=True)
+        time = _float_column(where, "time", time, n)
+        lon = _float_column(where, "lon", lon, n)
+        lat = _float_column(where, "lat", lat, n, low=-90.0, high=90.0)
+        depth = _float_column(where, "depth", depth, n)
+        if tiebreak is not None and score is None:
+            raise ValueError(f"{where}: 'tiebreak' given without 'score'; the tiebreak only "
+                             f"orders observations of equal score")
+        if score is not None:
+            score = np.asarray(score, dtype=np.float64)
+            if score.shape != (n,) or np.isnan(score).any():
+                raise ValueError(f"{where}: 'score' must be a float array of shape ({n},) "
+                                 f"without NaN; got shape {score.shape}")
+            if tiebreak is None:
+                tiebreak = np.zeros(n, dtype=np.int64)
+            else:
+                tiebreak = np.asarray(tiebreak)
+                if tiebreak.shape != (n,) or tiebreak.dtype.kind not in "iu":
+                    raise ValueError(f"{where}: 'tiebreak' must be an int64 array of shape "
+                                     f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
+                tiebreak = tiebreak.astype(np.int64, copy=False)
+
+        order, starts, inverse = _group_index(key_arrays)
+        n_groups = len(starts)
+        first_rows = order[starts]
+        group_keys = {name: array[first_rows] for name, array in zip(key_names, key_arrays)}
+        count = np.diff(starts, append=n).astype(np.int64)
+        count_float = count.astype(np.float64)
+
+        value_mean, value_m2 = _grouped_mean(value, inverse, n_groups, None, count_float)
+        inverse_sigma = 1.0 / error
+        inverse_variance = inverse_sigma * inverse_sigma
+        sum_inverse_variance = np.bincount(inverse, inverse_variance, n_groups)
+        weighted_mean, _ = _grouped_mean(value, inverse, n_groups, inverse_variance,
+                                         sum_inverse_variance)
+        time_mean, _ = _grouped_mean(time, inverse, n_groups, None, count_float)
+        depth_mean, _ = _grouped_mean(depth, inverse, n_groups, None, count_float)
+        x, y, z = unit_vectors(lon, lat)
+        if n:
+            sorted_value = value[order]
+            value_min = np.minimum.reduceat(sorted_value, starts)
+            value_max = np.maximum.reduceat(sorted_value, starts)
+        else:
+            value_min = value_max = np.zeros(0)
+
+        state = {
+            "count": count,
+            "value_mean": value_mean,
+            "value_m2": value_m2,
+            "value_min": value_min,
+            "value_max": value_max,
+            "weighted_mean": weighted_mean,
+            "sum_inverse_variance": sum_inverse_variance,
+            "sum_inverse_sigma": np.bincount(inverse, inverse_sigma, n_groups),
+            "sum_variance": np.bincount(inverse, error * error, n_groups),
+            "sum_sigma": np.bincount(inverse, error, n_groups),
+            "time_mean": time_mean,
+            "sum_x": np.bincount(inverse, x, n_groups),
+            "sum_y": np.bincount(inverse, y, n_groups),
+            "sum_z": np.bincount(inverse, z, n_groups),
+            "depth_mean": depth_mean,
+        }
+        if score is not None:
+            if n:
+                row = _pick_representative(score, tiebreak, order, starts, inverse)
+            else:
+                row = np.zeros(0, dtype=np.intp)
+            for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
+                                 ("error", error), ("time", time), ("lon", lon), ("lat", lat),
+                                 ("depth", depth)):
+                state["representative_" + name] = source[row]
+        return cls(key_names, group_keys, state, score is not None)
+
+    @classmethod
+    def merge(cls, accumulators) -> "Accumulator":
+        """Combine accumulators of the same keys into one, exactly.
+
+        The result equals (to rounding) the accumulator of all their observations at once, for
+        any split; merging the same accumulators in the same order is bit-for-bit reproducible.
+        Groups come out sorted by key.  Formulas: module docstring.
+
+        Parameters
+        ----------
+        accumulators : sequence of Accumulator
+            All with the same key names in the same order, and all with or all without a
+            thinning representative (empty ones are exempt).
+
+        Returns
+        -------
+        Accumulator
+        """
+        accumulators = list(accumulators)
+        if not accumulators:
+            raise ValueError("Accumulator.merge: expected at least one accumulator, got none")
+        for position, accumulator in enumerate(accumulators):
+            if not isinstance(accumulator, Accumulator):
+                raise TypeError(f"Accumulator.merge: item {position} is a "
+                                f"{type(accumulator).__name__}, expected an Accumulator")
+        key_names = accumulators[0].key_names
+        for position, accumulator in enumerate(accumulators):
+            if accumulator.key_names != key_names:
+                raise ValueError(f"Accumulator.merge: item {position} has keys "
+                                 f"{list(accumulator.key_names)}, expected {list(key_names)} "
+                                 f"like item 0")
+        non_empty = [a for a in accumulators if a.n_groups]
+        flags = {a.has_representative for a in (non_empty or accumulators)}
+        if len(flags) > 1:
+            raise ValueError("Accumulator.merge: some accumulators keep a thinning "
+                             "representative (a score was given) and others do not")
+        has_representative = flags.pop()
+        fields = list(STATE_FIELDS) + (list(REPRESENTATIVE_FIELDS) if has_representative else [])
+        parts = non_empty or accumulators[:1]
+
+        keys = [np.concatenate([a._keys[name] for a in parts]) for name in key_names]
+        part = {name: np.concatenate([a._state[name] for a in parts]) for name in fields}
+        order, starts, inverse = _group_index(keys)
+        n_groups = len(starts)
+        first_rows = order[starts]
+        group_keys = {name: array[first_rows] for name, array in zip(key_names, keys)}
+        n_rows = len(inverse)
+
+        if n_rows:
+            count = np.add.reduceat(part["count"][order], starts)
+            value_min = np.minimum.reduceat(part["value_min"][order], starts)
+            value_max = np.maximum.reduceat(part["value_max"][order], starts)
+        else:
+            count = np.zeros(0, dtype=np.int64)
+            value_min = value_max = np.zeros(0)
+        part_count = part["count"].astype(np.float64)
+        count_float = count.astype(np.float64)
+
+        # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2
+        value_mean, between = _grouped_mean(part["value_mean"], inverse, n_groups, part_count,
+                                            count_float)
+        value_m2 = np.bincount(inverse, part["value_m2"], n_groups) + between
+        sum_inverse_variance = np.bincount(inverse, part["sum_inverse_variance"], n_groups)
+        weighted_mean, _ = _grouped_mean(part["weighted_mean"], inverse, n_groups,
+                                         part["sum_inverse_variance"], sum_inverse_variance)
+        time_mean, _ = _grouped_mean(part["time_mean"], inverse, n_groups, part_count,
+                                     count_float)
+        depth_mean, _ = _grouped_mean(part["depth_mean"], inverse, n_groups, part_count,
+                                      count_float)
+        state = {
+            "count": count.astype(np.int64, copy=False),
+            "value_mean": value_mean,
+            "value_m2": value_m2,
+            "value_min": value_min,
+            "value_max": value_max,
+            "weighted_mean": weighted_mean,
+            "sum_inverse_variance": sum_inverse_variance,
+            "time_mean": time_mean,
+            "depth_mean": depth_mean,
+        }
+        for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
+                     "sum_z"):
+            state[name] = np.bincount(inverse, part[name], n_groups)
+        state = {name: state[name] for name in STATE_FIELDS}
+        if has_representative:
+            if n_rows:
+                row = _pick_representative(part["representative_score"],
+                                           part["representative_tiebreak"], order, starts,
+                                           inverse)
+            else:
+                row = np.zeros(0, dtype=np.intp)
+            for name in REPRESENTATIVE_FIELDS:
+                state[name] = part[name][row]
+        return cls(key_names, group_keys, state, has_representative)
+
+    # ---- output ------------------------------------------------------------------------------
+    def finalize(self, *, mode="mean", correlation=0.0, representation_error=0.0, floor=0.0):
+        """Super-observations, one row per group, as a pandas DataFrame.
+
+        Parameters
+        ----------
+        mode : {"mean", "weighted", "thin"}
+            ``"mean"``: equally weighted mean, error from
+            :func:`~obsprep.superobs.errors.error_of_mean`.  ``"weighted"``: inverse-variance
+            weighted mean, error from :func:`~obsprep.superobs.errors.error_of_weighted_mean`.
+            ``"thin"``: the representative raw observation (lowest score); its value, time,
+            position, depth and error.
+        correlation : float or array (n_groups,)
+            Common pairwise error correlation of the raw observations in a group, 0..1.
+            Ignored for ``"thin"``.
+        representation_error : float or array (n_groups,)
+            1-sigma representation error (units of the value, >= 0), added in quadrature; it
+            does not shrink with the count.
+        floor : float or array (n_groups,)
+            Lowest total error allowed (units of the value, >= 0).
+
+        Returns
+        -------
+        pandas.DataFrame
+            The key columns (int64), then ``count`` (raw observations in the group), ``value``,
+            ``spread`` (sample standard deviation, ddof = 1; NaN for one observation),
+            ``value_min``, ``value_max``, ``time`` (mean, s), ``lon``, ``lat`` (spherical mean,
+            degrees), ``depth`` (mean, m), ``error_instrument``, ``error_representation`` and
+            ``error`` = max(floor, sqrt(error_instrument^2 + error_representation^2)).
+        """
+        import pandas as pd  # only here: the accumulation path stays pandas-free
+
+        if mode not in MODES:
+            raise ValueError(f"finalize: mode must be one of {list(MODES)}, got {mode!r}")
+        n_groups = self.n_groups
+        correlation = _per_group("correlation", correlation, n_groups, low=0.0, high=1.0)
+        representation = _per_group("representation_error", representation_error, n_groups,
+                                    low=0.0, high=np.inf)
+        floor = _per_group("floor", floor, n_groups, low=0.0, high=np.inf)
+        s = self._state
+        count = s["count"]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            spread = np.where(count > 1, np.sqrt(s["value_m2"] / (count - 1)), np.nan)
+        if mode == "thin":
+            if not self._has_representative:
+                raise ValueError("finalize: mode 'thin' needs a thinning score; pass score= "
+                                 "(and tiebreak=) to Accumulator.from_observations")
+            value = s["representative_value"]
+            time = s["representative_time"]
+            lon = np.asarray(s["representative_lon"], dtype=np.float64)
+            lon = (lon + 180.0) % 360.0 - 180.0
+            lat = s["representative_lat"]
+            depth = s["representative_depth"]
+            error_instrument = s["representative_error"]
+        else:
+            time = s["time_mean"]
+            lon, lat = mean_position(s["sum_x"], s["sum_y"], s["sum_z"])
+            depth = s["depth_mean"]
+            if mode == "mean":
+                value = s["value_mean"]
+                error_instrument = error_of_mean(s["sum_variance"], s["sum_sigma"], count,
+                                                 correlation)
+            else:
+                value = s["weighted_mean"]
+                error_instrument = error_of_weighted_mean(s["sum_inverse_variance"],
+                                                          s["sum_inverse_sigma"], correlation)
+        error = apply_floor(combine_in_quadrature(error_instrument, representation), floor)
+        columns = {name: np.array(self._keys[name]) for name in self._key_names}
+        columns.update({
+            "count": np.array(count, dtype=np.int64),
+            "value": np.array(value, dtype=np.float64),
+            "spread": spread,
+            "value_min": np.array(s["value_min"]),
+            "value_max": np.array(s["value_max"]),
+            "time": np.array(time, dtype=np.float64),
+            "lon": np.asarray(lon, dtype=np.float64),
+            "lat": np.array(lat, dtype=np.float64),
+            "depth": np.array(depth, dtype=np.float64),
+            "error_instrument": np.array(error_instrument, dtype=np.float64),
+            "error_representation": representation,
+            "error": error,
+        })
+        return pd.DataFrame(columns)
+
+
+def merge_accumulators(accumulators) -> Accumulator:
+    """Combine accumulators of the same keys; see :meth:`Accumulator.merge`."""
+    return Accumulator.merge(accumulators)
