@@ -67,7 +67,9 @@ QUANTITIES: dict[str, Quantity] = {
             "sea_ice_concentration", "sea_ice_area_fraction", "1",
             "sea-ice concentration (fraction 0-1)",
             ("sea_ice_area_fraction",),
-            (0.0, 1.0),
+            # retrievals are noisy and often delivered unclipped; clipping them to 0..1 would bias
+            # averages near open water and full ice (common practice)
+            (-0.25, 1.25),
         ),
         Quantity(
             "sea_ice_drift_east", "eastward_sea_ice_displacement", "m",

@@ -23,3 +23,7 @@ cli.add_command(demo_command)
 
 def main():  # pragma: no cover - console entry point
     cli()
+
+
+if __name__ == "__main__":  # pragma: no cover - ``python -m obsprep.cli.main``
+    main()

@@ -49,7 +49,7 @@ MANIFEST_NAME = "manifest.json"
 #: model grid of the scenario (cell centres at x_min + (i + 0.5) dx, y_min + (j + 0.5) dy)
 MODEL_GRID = {"crs": truth.MODEL_CRS, "x_min": -2600000.0, "y_min": 600000.0,
               "dx": 10000.0, "dy": 10000.0, "nx": 300, "ny": 260}
-LAYER_INTERFACES_M = (0.0, 10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0)
+LAYER_INTERFACES_M = truth.LAYER_INTERFACES_M
 WINDOW_START_HOURS, WINDOW_END_HOURS, SLOT_HOURS = -72.0, 0.0, 24.0
 
 # --- sensors ----------------------------------------------------------------------------------
@@ -929,9 +929,8 @@ def _write_config(scn):
         "merge_sensors = { }",
         "# The demo truth is smooth horizontally on the 10 km grid (scales of a few hundred km),",
         "# so there is no unresolved horizontal variability: representation errors are zero.",
-        "# Vertically, T and S vary nonlinearly inside the thick layers (100-200 m, 200-500 m):",
-        "# a layer mean differs from the truth at the layer's mean depth by up to ~0.05 degC/PSU,",
-        "# which these zeros do not cover.",
+        "# Vertically, the T/S truth is linear inside each model layer, so layer means carry no",
+        "# vertical representation error either.",
         "[superobs.representation_error]",
         *[f"{q} = 0.0" for q in ERROR_FLOORS],
         "# Floors well below sigma / sqrt(n), so they never bind in the demo.",

@@ -315,6 +315,18 @@ def map_axes_to_east_north(x_component, y_component, lon, central_longitude=0.0)
 
 # --- water column -----------------------------------------------------------------------------
 
+#: Model layer interfaces of the demo (m).  The vertical shapes of the truth are linear between
+#: them (knots at the interfaces, then at 3000 and 6000 m), so the truth is one the model layers
+#: can represent: the mean of the truth over any depths inside one layer equals the truth at the
+#: mean depth, and per-layer super-observations carry no vertical representation error.
+LAYER_INTERFACES_M = (0.0, 10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0)
+_VERTICAL_KNOTS_M = np.array(LAYER_INTERFACES_M + (3000.0, 6000.0))
+
+
+def _linear_between_layers(shape, depth):
+    """``shape`` (a function of depth) sampled at the layer interfaces and linearly interpolated."""
+    return np.interp(np.asarray(depth, dtype=np.float64), _VERTICAL_KNOTS_M, shape(_VERTICAL_KNOTS_M))
+
 def _cline(depth, centre, width):
     """0 at the surface rising to 1 at depth: (tanh((z - c)/w) + tanh(c/w)) / (1 + tanh(c/w))."""
     depth = np.asarray(depth, dtype=np.float64)
@@ -336,8 +348,10 @@ def sea_water_temperature(lon, lat, depth, time):
     surface = sea_surface_temperature(lon, lat, time)
     x, y = map_xy_km(lon, lat)
     warm_deep = 0.45 + 0.15 * np.sin(x / 400.0) * np.cos(y / 350.0)
-    cooling = 0.35e-3 * 300.0 * (_softplus((depth - 600.0) / 300.0) - _softplus(-2.0))
-    return surface + (warm_deep - surface) * _cline(depth, 150.0, 60.0) - cooling
+    cooling = _linear_between_layers(
+        lambda z: 0.35e-3 * 300.0 * (_softplus((z - 600.0) / 300.0) - _softplus(-2.0)), depth)
+    cline = _linear_between_layers(lambda z: _cline(z, 150.0, 60.0), depth)
+    return surface + (warm_deep - surface) * cline - cooling
 
 
 def sea_water_salinity(lon, lat, depth, time):
@@ -350,7 +364,7 @@ def sea_water_salinity(lon, lat, depth, time):
     x, y = map_xy_km(lon, lat)
     surface = 33.95 + 0.3 * _open_water_weight(lon, lat, days)
     deep = 34.68 + 0.02 * np.cos(x / 300.0) * np.sin(y / 380.0)
-    return surface + (deep - surface) * _cline(depth, 110.0, 45.0)
+    return surface + (deep - surface) * _linear_between_layers(lambda z: _cline(z, 110.0, 45.0), depth)
 
 
 # --- one entry point --------------------------------------------------------------------------
