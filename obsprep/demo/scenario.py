@@ -268,6 +268,45 @@ def _write_model_grid(scn):
     return path, {"cells": int(sea.size), "sea_cells": int(sea.sum())}
 
 
+#: a regular lon/lat grid over the same sea (examples/regular_grid.toml)
+REGULAR_GRID = {"lon_min": -70.0, "lat_min": -78.0, "dlon": 0.25, "dlat": 0.1, "nlon": 320,
+                "nlat": 230}
+#: a curvilinear grid (examples/curvilinear_grid.toml): 20 km cells of a polar stereographic
+#: plane turned by 30 degrees about the domain centre, so its axes follow neither east nor the
+#: EPSG:3031 axes; stored as 2-D lon/lat of cell centres without an angle variable
+CURVILINEAR_GRID = {"nx": 140, "ny": 120, "cell_m": 20000.0, "turn_deg": 30.0,
+                    "centre_m": (-1100000.0, 1900000.0)}
+
+
+def _write_example_grids(scn):
+    """Mask and bathymetry on the regular example grid, and the curvilinear example grid file."""
+    from ..grid import write_grid_file
+
+    g = REGULAR_GRID
+    lon = g["lon_min"] + (np.arange(g["nlon"]) + 0.5) * g["dlon"]
+    lat = g["lat_min"] + (np.arange(g["nlat"]) + 0.5) * g["dlat"]
+    lon2, lat2 = np.meshgrid(lon, lat)
+    sea = ~truth.is_land(lon2, lat2)
+    depth = np.where(sea, truth.sea_floor_depth(lon2, lat2), np.nan)
+    regular = scn.path("grid/regular_grid_mask.nc")
+    write_grid_file(regular, lon2, lat2, sea, depth)
+
+    c = CURVILINEAR_GRID
+    a = np.deg2rad(c["turn_deg"])
+    u = (np.arange(c["nx"]) - (c["nx"] - 1) / 2.0) * c["cell_m"]
+    v = (np.arange(c["ny"]) - (c["ny"] - 1) / 2.0) * c["cell_m"]
+    uu, vv = np.meshgrid(u, v)
+    x = c["centre_m"][0] + uu * np.cos(a) - vv * np.sin(a)
+    y = c["centre_m"][1] + uu * np.sin(a) + vv * np.cos(a)
+    to_lonlat = pyproj.Transformer.from_crs(MODEL_GRID["crs"], "EPSG:4326", always_xy=True)
+    clon, clat = (np.asarray(t) for t in to_lonlat.transform(x, y))
+    csea = ~truth.is_land(clon, clat)
+    cdepth = np.where(csea, truth.sea_floor_depth(clon, clat), np.nan)
+    curvilinear = scn.path("grid/curvilinear_grid.nc")
+    write_grid_file(curvilinear, clon, clat, csea, cdepth)
+    return {"regular_mask": regular, "curvilinear": curvilinear}
+
+
 # --- altimetry --------------------------------------------------------------------------------
 
 def ground_track(orbit: Orbit, times):
@@ -1016,6 +1055,7 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
     files["ice_drift"], counts["ice_drift"] = _write_ice_drift(scn)
     files["ts_profiles"], counts["ts_profiles"] = _write_profiles(scn)
     truth_path = _write_truth_on_grid(scn)
+    example_grids = _write_example_grids(scn)
     config_path = _write_config(scn)
 
     start, end = scn.window
@@ -1037,12 +1077,11 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
                  "layer_interfaces": list(LAYER_INTERFACES_M), **grid_counts},
         "truth": {"file": _relative(scn, truth_path), "function": "obsprep.demo.truth:truth_value",
                   "drift_interval_hours": ICE_DRIFT_HOURS},
-        "representation_error": "zero: the truth is smooth horizontally on the model grid; "
-                                "T/S layer means differ from the truth at the layer's mean "
-                                "depth by up to ~0.05 (nonlinear profiles in thick layers)",
+        "representation_error": "zero: the truth is smooth horizontally on the model grid "
+                                "and linear in depth inside each model layer",
         "sensors": sensors,
     }
     manifest_path = scn.path(MANIFEST_NAME)
     manifest_path.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
     return {"directory": root, "config": config_path, "grid": grid_path, "truth": truth_path,
-            "manifest": manifest_path, "files": files}
+            "manifest": manifest_path, "files": files, "example_grids": example_grids}
