@@ -488,8 +488,9 @@ def test_truth_ranges_on_the_model_grid(demo, manifest):
         absolute = gsw.SA_from_SP(s, p, lon[sample], lat[sample])
         assert np.all(t > gsw.t_freezing(absolute, p, 0.0))
         assert np.all((33.9 < s) & (s < 34.75))
-    t300 = truth_value("sea_water_temperature", lon, lat, 300.0, when)
-    assert 0.2 < t300.min() and t300.max() < 0.8
+    # the warm deep layer, at the 500 m layer interface (a knot of the piecewise-linear shape)
+    t500 = truth_value("sea_water_temperature", lon, lat, 500.0, when)
+    assert 0.2 < t500.min() and t500.max() < 0.8
     s1000 = truth_value("sea_water_salinity", lon, lat, 1000.0, when)
     assert np.all(np.abs(s1000 - 34.68) < 0.03)
 

@@ -13,7 +13,7 @@ before the truth is evaluated, so the truth at the decoded positions is the trut
 
 Layout of a scenario directory::
 
-    weddell_spring.toml              build configuration (docs/config-draft.toml format)
+    weddell_spring.toml              build configuration (schemas/config.schema.json)
     manifest.json                    scenario, files, sensor sigmas, analysis time
     grid/model_grid.nc               model grid: mask, bathymetry, cell-centre lat/lon
     truth/truth_on_grid.nc           truth of the surface quantities on the model grid

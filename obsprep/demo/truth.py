@@ -340,8 +340,9 @@ def _softplus(u):
 
 def sea_water_temperature(lon, lat, depth, time):
     """In-situ temperature (degC): the SST in a ~50 m mixed layer, a thermocline centred at
-    150 m up to a warm deep layer of 0.3-0.6 degC near 300 m, cooling slowly (~0.35 degC per km)
-    below 600 m to about -0.7 degC at 4000 m.  Equals :func:`sea_surface_temperature` at 0 m."""
+    150 m up to a warm deep layer of 0.3-0.6 degC at 300-600 m, cooling slowly (~0.35 degC per
+    km) below 600 m to about -0.7 degC at 4000 m.  Equals :func:`sea_surface_temperature` at 0 m.
+    The vertical shapes are linear between the model layer interfaces (see LAYER_INTERFACES_M)."""
     lon = np.asarray(lon, dtype=np.float64)
     lat = np.asarray(lat, dtype=np.float64)
     depth = np.asarray(depth, dtype=np.float64)

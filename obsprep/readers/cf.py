@@ -418,8 +418,17 @@ PRACTICAL_SALINITY_UNITS = frozenset(("psu", "pss-78", "pss78", "1e-3", "0.001",
 def _registry():
     global _UNIT_REGISTRY
     if _UNIT_REGISTRY is None:
-        from cf_xarray.units import units  # imports pint; only when a conversion is needed
+        import logging
 
+        # cf_xarray redefines a few pint units on purpose (%, h, degrees_*); pint logs each
+        # redefinition as a warning, which is noise in a nightly log.
+        pint_log = logging.getLogger("pint.util")
+        level = pint_log.level
+        pint_log.setLevel(logging.ERROR)
+        try:
+            from cf_xarray.units import units  # imports pint; only when a conversion is needed
+        finally:
+            pint_log.setLevel(level)
         _UNIT_REGISTRY = units
     return _UNIT_REGISTRY
 
