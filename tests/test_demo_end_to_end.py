@@ -76,3 +76,16 @@ def test_demo_command_runs(tmp_path):
     res = CliRunner().invoke(cli, ["demo", str(tmp_path / "d"), "--scale", "0.1", "--quiet"])
     assert res.exit_code == 0, res.output
     assert (tmp_path / "d" / "out" / "superobs_20261120.nc").exists()
+
+
+def test_drift_vectors_are_combined_only_within_one_interval(demo_run):
+    _, _, ds = demo_run
+    start = ds["sea_ice_drift_x_time"].to_numpy()
+    end = ds["sea_ice_drift_x_time_end"].to_numpy()
+    # every demo drift vector spans exactly 48 h, and the two products' intervals overlap in
+    # space: a super-observation mixing them would have a mean start time between the two
+    # starts, so (end - mean start) would differ from 48 h
+    np.testing.assert_array_equal((end - start) / np.timedelta64(1, "h"), 48.0)
+    cells = pd.DataFrame({"i": ds["sea_ice_drift_x_i"].to_numpy(), "j": ds["sea_ice_drift_x_j"].to_numpy(),
+                          "end": end})
+    assert (cells.groupby(["i", "j"])["end"].nunique() > 1).any()

@@ -33,18 +33,24 @@ class SstSwathReader(Reader):
     kind = "sst_swath"
     description = "satellite SST swath (2-D latitude/longitude, per-pixel time)"
     options = dict(cf.COMMON_OPTIONS)
+    #: dimensions of the latitude coordinate that tell this layout from the others
+    latitude_ndim = 2
 
     def guess_can_open(self, ds) -> bool:
-        return sst_variable_with_latitude_ndim(ds, 2) is not None
+        return sst_variable_with_latitude_ndim(ds, self.latitude_ndim) is not None
+
+    def group(self, ds, path) -> str:
+        """The granule identifier: global ``id`` attribute, else the file name."""
+        return str(ds.attrs.get("id", "")).strip() or os.path.basename(path)
 
     def read_dataset(self, ds, path, **options):
         opts = cf.reader_options(self, options)
-        name = sst_variable_with_latitude_ndim(ds, 2) or cf.require_variable(
+        name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
             ds, path, SST.accepted_standard_names, "sea surface temperature")
         decoded = cf.decode_data_variable(ds, name, SST, path, opts.good_flag_meanings)
         cf.require_values(path, [decoded])
         lon, lat = cf.horizontal_position(ds, name, path)
         time = cf.observation_time(ds, name, path)
-        granule = str(ds.attrs.get("id", "")).strip() or os.path.basename(path)
         return cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                    group=granule, platform=cf.platform_attribute(ds, opts))
+                                    group=self.group(ds, path),
+                                    platform=cf.platform_attribute(ds, opts))
