@@ -21,11 +21,12 @@ def read(path, kind=None, **options):
     return _read(path, kind=kind, **options)
 
 
-def build(config, date=None, out=None, strict=False, progress=False):
+def build(config, date=None, out=None, strict=False, progress=False, jobs=1, scheduler=None):
     """Run the nightly super-observation build; see :func:`obsprep.pipeline.build`."""
     from .pipeline import build as _build
 
-    return _build(config, date=date, out=out, strict=strict, progress=progress)
+    return _build(config, date=date, out=out, strict=strict, progress=progress, jobs=jobs,
+                  scheduler=scheduler)
 
 
 __all__ = ["read", "build", "make_table", "COLUMNS", "ObsprepError", "InputFileError",

@@ -23,6 +23,7 @@ import jsonschema
 import numpy as np
 
 from .exceptions import ConfigError
+from .qc.settings import QcSettings
 from .quantities import QUANTITIES
 
 
@@ -80,6 +81,9 @@ class ErrorRule:
     value: float | dict | None = None
     factor: float = 1.0
     floor: float = 0.0
+    table: dict | None = None
+    add_in_quadrature: float | list | dict | None = None
+    cap: float | None = None
 
 
 @dataclass
@@ -95,6 +99,10 @@ class Source:
     error: ErrorRule = None
     options: dict = field(default_factory=dict)
     index: int = 0
+    #: reader profile (``[sources.reader]``, see obsprep.readers.cf.READER_PROFILE_KEYS)
+    reader: dict = field(default_factory=dict)
+    #: quality-control settings (``[sources.qc]``, obsprep.qc.QcSettings)
+    qc: object = None
 
     def files(self, base_dir: Path, days) -> list[str]:
         """Expand the path patterns for the given UTC days; sorted, de-duplicated, absolute."""
@@ -151,6 +159,9 @@ class Config:
     sources: list[Source]
     superobs: dict
     output: dict
+    #: {(source index, file): group labels rejected as ``duplicate``}, set by the build's
+    #: cross-file pre-pass (:func:`obsprep.qc.find_duplicates`) before the per-file work
+    duplicate_groups: dict = field(default_factory=dict)
 
     def output_sensor(self, sensor: str) -> str:
         """The sensor name a source's super-observations are written under (after merging)."""
@@ -231,12 +242,24 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
             for q in err["value"]:
                 if q not in QUANTITIES:
                     raise ConfigError(f"{key}.error.value.{q}", f"unknown quantity; known: {', '.join(QUANTITIES)}", src)
+        reader = s.get("reader", {})
+        if "good_flag_meanings" in reader and "good_flag_meanings" in s.get("options", {}) \
+                and reader["good_flag_meanings"] != s["options"]["good_flag_meanings"]:
+            raise ConfigError(f"{key}.reader.good_flag_meanings", "also given, differently, as "
+                              f"{key}.options.good_flag_meanings; keep one", src)
+        from .error_rules_config import check_error_rule
+
+        check_error_rule(err, f"{key}.error", src)
         sources.append(Source(
             sensor=s["sensor"], paths=list(s["paths"]), kind=s.get("kind", "auto"),
             quantities=s.get("quantities"), correlation=float(s.get("correlation", 0.0)),
             valid_range=dict(s.get("valid_range", {})),
-            error=ErrorRule(err["rule"], err.get("value"), float(err.get("factor", 1.0)), float(err.get("floor", 0.0))),
+            error=ErrorRule(err["rule"], err.get("value"), float(err.get("factor", 1.0)), float(err.get("floor", 0.0)),
+                            table=err.get("table"), add_in_quadrature=err.get("add_in_quadrature"),
+                            cap=float(err["cap"]) if "cap" in err else None),
             options=dict(s.get("options", {})), index=n,
+            reader=dict(s.get("reader", {})),
+            qc=QcSettings.from_dict(s.get("qc"), f"{key}.qc", src),
         ))
     from .readers import available_kinds
 
@@ -253,6 +276,9 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         for q in superobs.get(table, {}):
             if q not in QUANTITIES:
                 raise ConfigError(f"superobs.{table}.{q}", f"unknown quantity; known: {', '.join(QUANTITIES)}", src)
+    from .error_rules_config import check_superobs_error_settings
+
+    check_superobs_error_settings(superobs, src)
     return Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
                   grid=dict(raw["grid"]), sources=sources, superobs=superobs,
                   output=dict(raw.get("output", {})))

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import datetime as dt
 import os
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -21,9 +20,11 @@ from . import __version__
 from .config import Config, load_config
 from .error_rules import assign_errors
 from .exceptions import ConfigError, InputFileError, ObsprepError
+from .execution import FileTask, run_tasks
 from .grid import grid_from_config
+from .grid.base import CLASSIFY_REASONS
 from .ledger import Ledger, LedgerEntry, entry_from_table
-from .qc import basic_checks
+from .qc import find_duplicates, grid_checks, table_checks
 from .quantities import QUANTITIES
 from .readers import read
 from .superobs import Accumulator
@@ -72,6 +73,22 @@ def sensor_correlations(cfg: Config) -> dict:
     return out
 
 
+def _quantity_mask(table: pd.DataFrame, name: str) -> np.ndarray:
+    """Rows of quantity ``name``, from the categorical codes (no string comparison per row)."""
+    categories = table["quantity"].cat.categories
+    if name not in categories:
+        return np.zeros(len(table), dtype=bool)
+    return table["quantity"].cat.codes.to_numpy() == categories.get_loc(name)
+
+
+def _quantity_codes(table: pd.DataFrame) -> np.ndarray:
+    """Position of each row's quantity in QUANTITY_NAMES (int64; -1 for an unknown name)."""
+    categories = [str(c) for c in table["quantity"].cat.categories]
+    lookup = np.array([QUANTITY_NAMES.index(c) if c in QUANTITY_NAMES else -1 for c in categories]
+                      + [-1], dtype=np.int64)
+    return lookup[table["quantity"].cat.codes.to_numpy().astype(np.int64)]
+
+
 def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray) -> None:
     """Pair east/north drift components of one file by ``row`` and rotate them onto the grid axes.
 
@@ -82,9 +99,8 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
     variances, ``sx^2 = cos^2 a se^2 + sin^2 a sn^2``, ``sy^2 = sin^2 a se^2 + cos^2 a sn^2``
     (independent component errors, common practice).
     """
-    q = table["quantity"].astype(str).to_numpy()
-    east = np.flatnonzero(q == "sea_ice_drift_east")
-    north = np.flatnonzero(q == "sea_ice_drift_north")
+    east = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_east"))
+    north = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_north"))
     if len(east) == 0 and len(north) == 0:
         return
     rows = table["row"].to_numpy()
@@ -122,21 +138,31 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
 
 
 def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_names: list[str],
-                 strict: bool = False) -> FileResult:
-    """Read, check, assign errors, locate and accumulate one file of one source."""
+                 strict: bool = False, duplicate_groups=None) -> FileResult:
+    """Read, check, assign errors, locate and accumulate one file of one source.
+
+    ``duplicate_groups``: the file's profiles that lost the cross-file duplicate check
+    (default: looked up in ``cfg.duplicate_groups``, filled by :func:`build`).
+    """
     size = os.path.getsize(path) if os.path.exists(path) else 0
     try:
         if not os.path.exists(path):
             raise InputFileError(path, "file not found")
-        table = read(path, kind=source.kind, sensor=source.sensor, **source.options)
+        table = read(path, kind=source.kind, reader_profile=getattr(source, "reader", None),
+                     sensor=source.sensor, **source.options)
     except InputFileError as exc:
         if strict:
             raise
+        message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
-                                      status="unreadable", message=str(exc.reason), size_bytes=size))
+                                      status="unreadable", message=message, size_bytes=size))
     kind = table.attrs.get("kind", source.kind)
     n = len(table)
-    basic_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range)
+    if duplicate_groups is None:
+        duplicate_groups = getattr(cfg, "duplicate_groups", {}).get((source.index, path), ())
+    qc_settings = getattr(source, "qc", None)
+    table_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range,
+                 settings=qc_settings, duplicate_groups=duplicate_groups)
     assign_errors(table, source.error, f"sources[{source.index}].error")
 
     # Model-grid checks on the rows still kept.
@@ -145,21 +171,23 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     j = np.full(n, -1, dtype=np.int64)
     k = np.full(n, -1, dtype=np.int64)
     if live.any():
-        li, lj, lk, reason = grid.classify(table["lon"].to_numpy()[live], table["lat"].to_numpy()[live],
-                                           table["depth"].to_numpy()[live])
+        li, lj, lk, reason = grid.classify_codes(table["lon"].to_numpy()[live],
+                                                 table["lat"].to_numpy()[live],
+                                                 table["depth"].to_numpy()[live])
         i[live], j[live], k[live] = li, lj, lk
-        full_reason = np.full(n, "", dtype=object)
+        full_reason = np.zeros(n, dtype=np.int8)
         full_reason[live] = reason
-        for code in ("outside_grid", "land", "below_bathymetry", "below_deepest_layer"):
-            reject(table, full_reason == code, code)
+        for position, code in enumerate(CLASSIFY_REASONS, start=1):
+            reject(table, full_reason == position, code)
+        if qc_settings is not None:
+            grid_checks(table, grid, i, j, qc_settings)
     rotate_drift_to_grid(table, grid, i, j)
 
     live = kept(table)
     result = FileResult(entry=None)
     if live.any():
         sub = table.loc[live]
-        quantity = sub["quantity"].astype(str).to_numpy()
-        q_code = pd.Categorical(quantity, categories=QUANTITY_NAMES).codes.astype(np.int64)
+        q_code = _quantity_codes(sub)
         s_code = np.full(len(sub), sensor_names.index(cfg.output_sensor(source.sensor)), dtype=np.int64)
         slot = slot_index(sub["time"].to_numpy(), cfg.window)
         profile = np.full(len(sub), -1, dtype=np.int64)
@@ -178,10 +206,12 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
         lon, lat = sub["lon"].to_numpy(), sub["lat"].to_numpy()
         keys = {"quantity": q_code, "sensor": s_code, "slot": slot, "j": j[live], "i": i[live],
                 "k": k[live], "profile": profile, "t_start": t_start_key, "t_end": t_end_key}
+        thinning = cfg.superobs.get("mode", "mean") == "thin"  # the score is costly: only then
         result.accumulator = Accumulator.from_observations(
             keys, sub["value"].to_numpy(), sub["error"].to_numpy(), t, lon, lat, sub["depth"].to_numpy(),
-            score=grid.cell_center_distance(lon, lat, i[live], j[live]),
-            tiebreak=(np.int64(file_index) << 40) + sub["row"].to_numpy().astype(np.int64),
+            score=grid.cell_center_distance(lon, lat, i[live], j[live]) if thinning else None,
+            tiebreak=((np.int64(file_index) << 40) + sub["row"].to_numpy().astype(np.int64)
+                      if thinning else None),
         )
     result.entry = entry_from_table(table, path, source.sensor, kind, size)
     return result
@@ -191,20 +221,22 @@ def _process_task(args):
     return process_file(*args)
 
 
-def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names) -> pd.DataFrame:
-    """Turn the merged accumulator into the super-observation table (one row per group)."""
+def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
+                      grid=None) -> pd.DataFrame:
+    """Turn the merged accumulator into the super-observation table (one row per group).
+
+    Errors part by part: :mod:`obsprep.superobs.complete`.  ``grid`` is used for
+    representation-error fields only (built from the configuration when not given).
+    """
+    from .superobs.complete import complete_errors, group_error_inputs
+
     mode = cfg.superobs.get("mode", "mean")
     if accumulator is None or accumulator.n_groups == 0:
         return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
-    keys = accumulator.keys
-    corr_by_sensor = sensor_correlations(cfg)
-    correlation = np.array([corr_by_sensor[s] for s in sensor_names])[keys["sensor"]]
-    rep = cfg.superobs.get("representation_error", {})
-    floor = cfg.superobs.get("error_floor", {})
-    representation = np.array([rep.get(q, 0.0) for q in QUANTITY_NAMES])[keys["quantity"]]
-    floors = np.array([floor.get(q, 0.0) for q in QUANTITY_NAMES])[keys["quantity"]]
-    frame = accumulator.finalize(mode=mode, correlation=correlation, representation_error=representation,
-                                 floor=floors)
+    inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_correlations(cfg), grid=grid,
+                                quantity_names=QUANTITY_NAMES)
+    frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
+                                 representation_error=inputs.representation, floor=inputs.floor)
     out = pd.DataFrame({
         "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
         "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
@@ -215,6 +247,9 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     for col in ("count", "value", "spread", "value_min", "value_max", "error", "error_instrument",
                 "error_representation", "lon", "lat", "depth"):
         out[col] = frame[col].to_numpy()
+    for col, values in complete_errors(cfg, accumulator, frame, inputs, sensor_names,
+                                       QUANTITY_NAMES).items():
+        out[col] = values
     offset = frame["time"].to_numpy()
     out["time_offset"] = offset
     out["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
@@ -224,7 +259,8 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     return out
 
 
-def build(config, date=None, out=None, strict=False, progress=False, jobs=1) -> BuildResult:
+def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
+          scheduler=None) -> BuildResult:
     """Run the nightly build and write its outputs.
 
     Parameters
@@ -240,6 +276,9 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1) -> 
         Show a progress bar over the files.
     jobs : int
         Number of local processes for the per-file work.
+    scheduler : str or distributed.Client, optional
+        Run the per-file work on this Dask cluster instead (needs ``obsprep[dask]``); see
+        :mod:`obsprep.execution`.  Results are bit-for-bit those of ``jobs=1``.
 
     Returns
     -------
@@ -255,36 +294,18 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1) -> 
     tasks = []
     for source in cfg.sources:
         for path in source.files(cfg.base_dir, days):
-            tasks.append((cfg, grid, source, path, len(tasks), sensor_names, strict))
-
-    results: list[FileResult] = []
-    bar = None
-    if progress and tasks:
-        from tqdm import tqdm
-
-        bar = tqdm(total=len(tasks), unit="file", desc="obsprep build", leave=False)
-    if jobs and jobs > 1 and len(tasks) > 1:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
-            for r in pool.map(_process_task, tasks):
-                results.append(r)
-                if bar:
-                    bar.update()
-    else:
-        for t in tasks:
-            results.append(_process_task(t))
-            if bar:
-                bar.update()
-    if bar:
-        bar.close()
+            tasks.append(FileTask(source, path, len(tasks)))
+    # the one cross-file step: decide duplicate profiles before the independent per-file work
+    cfg.duplicate_groups = find_duplicates(tasks)
+    executed = run_tasks(cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
+                         scheduler=scheduler, progress=progress)
 
     ledger = Ledger()
-    profile_names: dict = {}
-    for r in results:
-        ledger.add(r.entry)
-        profile_names.update(r.profile_names)
+    for entry in executed.entries:
+        ledger.add(entry)
     ledger.check()
-    partials = [r.accumulator for r in results if r.accumulator is not None]
-    merged = Accumulator.merge(partials) if partials else None
+    profile_names = executed.profile_names
+    merged = executed.accumulator
     superobs = finalize_superobs(cfg, merged, sensor_names, profile_names)
     kept_total = sum(e.kept for e in ledger.entries)
     counted = int(superobs["count"].sum()) if len(superobs) else 0

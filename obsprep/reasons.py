@@ -17,6 +17,27 @@ REASONS: dict[str, str] = {
     "below_deepest_layer": "deeper than the deepest model layer interface",
     "vector_incomplete": "the other component of the vector was missing or rejected",
     "quantity_not_selected": "quantity not selected for this source in the configuration",
+    # format-specific reader verdicts (issue 3)
+    "quality_level": "GHRSST quality_level below the source's minimum (GDS 2.0: 0 no data .. 5 best)",
+    "missing_bias": "bias correction requested but the file's sses_bias is fill",
+    "l2p_flag_land": "GHRSST l2p_flags bit 'land' set",
+    "l2p_flag_ice": "GHRSST l2p_flags bit 'ice' set",
+    "l2p_flag_lake": "GHRSST l2p_flags bit 'lake' set",
+    "l2p_flag_river": "GHRSST l2p_flags bit 'river' set",
+    "l2p_flag_other": "another GHRSST l2p_flags bit named in the source's reject list set",
+    "missing_correction": "a correction named in the configuration is fill for this value",
+    "argo_qc_flag": "Argo level QC flag (of the value or its pressure) not in the kept set",
+    "position_qc": "Argo POSITION_QC not in the kept set",
+    "time_qc": "Argo JULD_QC not in the kept set",
+    # quality-control stage (obsprep.qc)
+    "argo_global_range": "outside the Argo real-time global range (T -2.5..40 degC, S 2..41)",
+    "argo_spike": "fails the Argo real-time spike test",
+    "argo_pressure_not_increasing": "pressure not greater than at every shallower level "
+                                    "(Argo real-time pressure increasing test)",
+    "below_freezing_point": "temperature below the TEOS-10 freezing point minus the tolerance",
+    "too_shallow": "model bathymetry shallower than the source's minimum depth",
+    "near_coast": "closer to a model land cell than the source's coast distance",
+    "duplicate": "a better copy of the same profile (platform, time, position) is in another file",
 }
 
 

@@ -119,18 +119,27 @@ def reject(table: pd.DataFrame, mask, reason: str) -> int:
     """
     if reason not in REASONS:
         raise KeyError(f"unknown rejection reason '{reason}'")
-    if reason not in table["rejected"].cat.categories:
-        table["rejected"] = table["rejected"].cat.add_categories([reason])
-    mask = np.asarray(mask, dtype=bool) & table["rejected"].isna().to_numpy()
-    n = int(mask.sum())
+    column = table["rejected"]
+    categories = column.cat.categories
+    if reason not in categories:
+        column = column.cat.add_categories([reason])
+        categories = column.cat.categories
+    # work on the integer codes: setting a categorical through .loc is slow for millions of rows
+    codes = column.cat.codes.to_numpy()
+    mask = np.asarray(mask, dtype=bool) & (codes < 0)
+    n = int(np.count_nonzero(mask))
     if n:
-        table.loc[mask, "rejected"] = reason
+        codes = codes.copy()
+        codes[mask] = categories.get_loc(reason)
+        table["rejected"] = pd.Categorical.from_codes(codes, categories=categories)
+    elif column is not table["rejected"]:
+        table["rejected"] = column
     return n
 
 
 def kept(table: pd.DataFrame) -> np.ndarray:
     """Boolean array: rows not rejected."""
-    return table["rejected"].isna().to_numpy()
+    return table["rejected"].cat.codes.to_numpy() < 0
 
 
 def validate_table(table: pd.DataFrame) -> None:

@@ -54,7 +54,8 @@ def config(demo):
 
 
 def all_netcdf_files(demo):
-    return [demo["grid"], demo["truth"]] + [p for paths in demo["files"].values() for p in paths]
+    return [demo["grid"], demo["truth"], demo["ensemble"]] + [
+        p for paths in demo["files"].values() for p in paths]
 
 
 def decoded(path, name):
@@ -106,7 +107,7 @@ def test_every_file_opens_with_xarray_and_references_resolve(demo):
     ancillary_variables, grid_mapping and bounds exists (CF-1.10 sections 2.6, 3.4, 5, 7.1);
     grid mappings build a CRS with PROJ; dimensional data variables have units."""
     files = all_netcdf_files(demo)
-    assert len(files) == 2 + 6 + 3 + 3 + 3 + 2 + 1
+    assert len(files) == 3 + 6 + 3 + 3 + 3 + 3 + 2 + 1
     for path in files:
         with xr.open_dataset(path) as ds:
             assert ds.attrs["Conventions"] == "CF-1.10", path
@@ -555,7 +556,7 @@ def test_config_follows_the_draft_format_and_finds_the_files(demo, manifest, con
 
 
 #: noise standard deviations of the scenario specification (the brief of the demo)
-SPECIFIED_SIGMA = {"altimeter_a": 0.03, "altimeter_b": 0.04, "sst_grid": 0.5,
+SPECIFIED_SIGMA = {"altimeter_a": 0.03, "altimeter_b": 0.04, "sst_grid": 0.5, "sst_microwave": 0.6,
                    "ice_drift": 2000.0,
                    "ts_profiles": {"sea_water_temperature": 0.01, "sea_water_salinity": 0.01}}
 

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import click
 
-from .options import date_opt, jobs_opt, library_errors, out_opt, quiet_opt, strict_opt
+from .options import (date_opt, jobs_opt, library_errors, out_opt, quiet_opt, scheduler_opt,
+                      strict_opt)
 from .summary import summary_lines
 
 
@@ -14,16 +15,22 @@ from .summary import summary_lines
 @out_opt
 @strict_opt
 @jobs_opt
+@scheduler_opt
 @quiet_opt
 @library_errors
-def build_command(config, date, out, strict, jobs, quiet):
+def build_command(config, date, out, strict, jobs, scheduler, quiet):
     """Build the super-observation file of one night from CONFIG (TOML).
 
     Example: obsprep build nightly.toml --date 2026-11-20 --out /data/superobs
+
+    With --jobs N the files are processed by N local processes; with --scheduler ADDRESS on an
+    existing Dask cluster (the files must be readable there under the same paths).  The output
+    is bit-for-bit the same either way.
     """
     from ..pipeline import build
 
-    result = build(config, date=date, out=out, strict=strict, progress=not quiet, jobs=jobs)
+    result = build(config, date=date, out=out, strict=strict, progress=not quiet, jobs=jobs,
+                   scheduler=scheduler)
     if not quiet:
         for line in summary_lines(result):
             click.echo(line)

@@ -13,21 +13,28 @@ from .summary import summary_lines
 @click.option("--seed", type=int, default=20261120, show_default=True, help="Random seed of the synthetic noise.")
 @click.option("--scale", type=click.FloatRange(min=0.05, max=1.0), default=1.0, show_default=True,
               help="Shrink the data volumes (1 = full demo).")
+@click.option("--misassign", metavar="SENSOR", default=None,
+              help="Give SENSOR half its true error in the config, for trying `obsprep audit`.")
 @jobs_opt
 @quiet_opt
 @library_errors
-def demo_command(directory, seed, scale, jobs, quiet):
+def demo_command(directory, seed, scale, misassign, jobs, quiet):
     """Write the demo scenario into DIRECTORY, run the build on it and print the summary.
 
-    Example: obsprep demo demo-run
+    Example: obsprep demo demo-run, then the audit command it prints; or
+    obsprep demo demo-wrong --misassign altimeter_b to see the audit catch a wrong error.
     """
     from ..demo import write_demo
     from ..pipeline import build
 
-    paths = write_demo(directory, seed=seed, scale=scale)
+    paths = write_demo(directory, seed=seed, scale=scale, misassign=misassign)
     if not quiet:
         click.echo(f"demo scenario written to {directory} (config: {paths['config']})")
     result = build(paths["config"], progress=not quiet, jobs=jobs)
     if not quiet:
         for line in summary_lines(result):
             click.echo(line)
+    if not quiet:
+        run_dir = result.outputs["netcdf"].parent
+        click.echo("audit the errors with:")
+        click.echo(f"  obsprep audit {run_dir} --ensemble {paths['ensemble']}")

@@ -5,8 +5,10 @@ from __future__ import annotations
 import click
 
 from .. import __version__
+from .audit import audit_command
 from .build import build_command
 from .demo import demo_command
+from .inspect import inspect_command
 from .read import read_command
 
 
@@ -19,6 +21,8 @@ def cli():
 cli.add_command(build_command)
 cli.add_command(read_command)
 cli.add_command(demo_command)
+cli.add_command(inspect_command)
+cli.add_command(audit_command)
 
 
 def main():  # pragma: no cover - console entry point

@@ -16,6 +16,9 @@ strict_opt = click.option("--strict", is_flag=True, help="Stop at the first unre
 quiet_opt = click.option("--quiet", "-q", is_flag=True, help="No progress bar and no summary.")
 jobs_opt = click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
                         help="Local processes for the per-file work.")
+scheduler_opt = click.option("--scheduler", "scheduler", metavar="ADDRESS", default=None,
+                             help="Run the per-file work on the Dask cluster whose scheduler is "
+                                  "at ADDRESS (e.g. tcp://10.0.0.5:8786); needs obsprep[dask].")
 
 
 def library_errors(func):

@@ -6,20 +6,24 @@ from pathlib import Path
 
 import click
 
+from .inspect import config_opt, source_opt, source_reading
 from .options import library_errors
 
 
 @click.command("read")
 @click.argument("files", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
-@click.option("--kind", default="auto", show_default=True, help="Reader kind, or auto to detect it.")
+@click.option("--kind", default=None, help="Reader kind (default: auto, or the source's).")
 @click.option("--sensor", default="", help="Sensor name written in the sensor column.")
 @click.option("-o", "--output", "output", required=True, type=click.Path(dir_okay=False),
               help="Output table, .parquet or .csv.")
+@config_opt
+@source_opt
 @library_errors
-def read_command(files, kind, sensor, output):
+def read_command(files, kind, sensor, output, config, source_name):
     """Read observation FILES into one observation table.
 
     Example: obsprep read alt_a_20261119.nc -o table.parquet
+    (with --config nightly.toml --source NAME: as that source reads them)
     """
     from .. import read
     from ..table import concat_tables
@@ -28,7 +32,9 @@ def read_command(files, kind, sensor, output):
     suffix = Path(output).suffix.lower()
     if suffix not in (".parquet", ".csv"):
         raise click.BadParameter(f"expected a .parquet or .csv file name, got '{output}'", param_hint="--output")
-    tables = [read(f, kind=kind, sensor=sensor) for f in files]
+    kind, options, profile = source_reading(config, source_name, kind)
+    options["sensor"] = sensor or source_name or ""
+    tables = [read(f, kind=kind, reader_profile=profile, **options) for f in files]
     table = concat_tables(tables)
     with atomic_path(output) as tmp:
         if suffix == ".parquet":

@@ -20,9 +20,11 @@ Layout of a scenario directory::
     obs/altimetry/alt_a_YYYYMMDD.nc  along-track sea level anomaly, one file per sensor and day
     obs/sst_swath/sst_l2_YYYYMMDDTHHMMSS.nc   infrared SST granules (packed int16 K)
     obs/sst_grid/sst_l4_YYYYMMDD.nc           gridded SST (0.1 deg)
+    obs/sst_microwave/sst_mw_YYYYMMDD.nc      microwave SST (0.25 deg, obsprep.demo.sst_microwave)
     obs/ice_conc/sic_YYYYMMDD.nc              ice concentration (%, 25 km polar stereographic)
     obs/ice_drift/drift_YYYYMMDD-YYYYMMDD.nc  48 h ice drift along projection axes (km)
     obs/profiles/ts_profiles_*.nc             T/S profiles (CF DSG featureType profile)
+    ensemble/ensemble_YYYYMMDD.nc             20-member model ensemble (obsprep.demo.ensemble)
 """
 
 from __future__ import annotations
@@ -64,7 +66,8 @@ ICE_CONCENTRATION_TRUNCATION = 5.0
 
 #: invented platforms
 PLATFORMS = {"altimeter_a": "Skua-1", "altimeter_b": "Petrel-2", "sst_swath_ir": "Fulmar-3",
-             "sst_grid": "demo-sst-analysis", "ice_concentration": "demo-ice-radiometry",
+             "sst_grid": "demo-sst-analysis", "sst_microwave": "Gannet-4",
+             "ice_concentration": "demo-ice-radiometry",
              "ice_drift": "demo-ice-motion", "ts_profiles": "various"}
 
 #: projection of the ice-concentration product: polar stereographic on a sphere
@@ -125,6 +128,7 @@ class _Scenario:
     analysis_time: np.datetime64           # datetime64[s]
     seed: int
     scale: float
+    misassign: str | None = None           # sensor given half its true error in the config
 
     @property
     def window(self):
@@ -893,6 +897,11 @@ def _sensor_table():
                      {"rule": "constant", "sigma": SST_GRID_SIGMA_K, "units": "degC",
                       "note": "cells under sea ice (truth concentration >= 0.15) are flagged "
                               "sea_ice in the surface_mask bit mask"}),
+        "sst_microwave": ("sst_grid", "obs/sst_microwave/sst_mw_{date:%Y%m%d}.nc",
+                          ["sea_surface_temperature"], ['rule = "constant"', "value = 0.6"],
+                          {"rule": "constant", "sigma": 0.6, "units": "degC",
+                           "note": "all-weather microwave subskin SST; cells near land and "
+                                   "under sea ice are flagged"}),
         "ice_concentration": ("ice_concentration", "obs/ice_conc/sic_{date:%Y%m%d}.nc",
                               ["sea_ice_concentration"], ['rule = "file"'],
                               {"rule": "file", "variable": "ice_conc_uncertainty",
@@ -957,7 +966,10 @@ def _write_config(scn):
         lines += ["", "[[sources]]", f'sensor = "{sensor}"', f'paths = ["{pattern}"]',
                   f'kind = "{kind}"',
                   "quantities = [" + ", ".join(f'"{q}"' for q in quantities) + "]",
-                  "correlation = 0.0", "[sources.error]", *rule, "factor = 1.0", "floor = 0.0"]
+                  "correlation = 0.0", "[sources.error]", *rule,
+                  f"factor = {0.5 if sensor == scn.misassign else 1.0}", "floor = 0.0"]
+        if sensor == scn.misassign:
+            lines.insert(-2, "# deliberately wrong: half the true noise (obsprep demo --misassign)")
         if sensor in good:
             lines += ["[sources.options]", f"good_flag_meanings = {good[sensor]}"]
     lines += [
@@ -1007,7 +1019,8 @@ def _parse_date(date):
     return day
 
 
-def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dict:
+def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0, misassign=None,
+               ensemble=True) -> dict:
     """Write the "weddell-spring" demo scenario into ``directory`` (created if needed).
 
     Parameters
@@ -1023,6 +1036,11 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
         Approximate fraction (0 < scale <= 1) of the full data volume of the SST swath and SST
         grid, for fast tests (pixel spacing of the swath is kept; the grid gets coarser).  The
         along-track, ice and profile files are small and always full size.
+    misassign : str, optional
+        A sensor whose configured error is made half its true noise (``factor = 0.5``), for
+        trying the error audit (``obsprep audit``) on a known mistake.
+    ensemble : bool
+        Also write the synthetic model ensemble (:mod:`obsprep.demo.ensemble`).
 
     Returns
     -------
@@ -1042,8 +1060,11 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
         raise ConfigError("scale", f"expected a number in (0, 1], got {scale!r}")
     root = Path(directory)
     root.mkdir(parents=True, exist_ok=True)
+    if misassign is not None and misassign not in _sensor_table():
+        raise ConfigError("misassign", f"unknown demo sensor {misassign!r}; known: "
+                                       f"{', '.join(_sensor_table())}")
     scn = _Scenario(root=root, analysis_time=day.astype("datetime64[s]"), seed=int(seed),
-                    scale=float(scale))
+                    scale=float(scale), misassign=misassign)
 
     grid_path, grid_counts = _write_model_grid(scn)
     files, counts = {}, {}
@@ -1051,10 +1072,18 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
         files[sensor], counts[sensor] = _write_altimetry(scn, sensor, index)
     files["sst_swath_ir"], counts["sst_swath_ir"] = _write_sst_swath(scn)
     files["sst_grid"], counts["sst_grid"] = _write_sst_grid(scn)
+    from .sst_microwave import write_sst_microwave
+
+    files["sst_microwave"], counts["sst_microwave"] = write_sst_microwave(scn)
     files["ice_concentration"], counts["ice_concentration"] = _write_ice_concentration(scn)
     files["ice_drift"], counts["ice_drift"] = _write_ice_drift(scn)
     files["ts_profiles"], counts["ts_profiles"] = _write_profiles(scn)
     truth_path = _write_truth_on_grid(scn)
+    ensemble_path = ensemble_record = None
+    if ensemble:
+        from .ensemble import write_ensemble
+
+        ensemble_path, ensemble_record = write_ensemble(scn)
     example_grids = _write_example_grids(scn)
     config_path = _write_config(scn)
 
@@ -1080,8 +1109,11 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0) -> dic
         "representation_error": "zero: the truth is smooth horizontally on the model grid "
                                 "and linear in depth inside each model layer",
         "sensors": sensors,
+        "ensemble": ensemble_record,
+        "misassigned": ({"sensor": misassign, "factor": 0.5} if misassign else None),
     }
     manifest_path = scn.path(MANIFEST_NAME)
     manifest_path.write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
     return {"directory": root, "config": config_path, "grid": grid_path, "truth": truth_path,
-            "manifest": manifest_path, "files": files, "example_grids": example_grids}
+            "manifest": manifest_path, "files": files, "example_grids": example_grids,
+            "ensemble": ensemble_path}

@@ -1,5 +1,16 @@
-"""Quality control: each test rejects rows under its own reason code (obsprep.reasons)."""
+"""Quality control: each test rejects rows under its own reason code (obsprep.reasons).
 
-from .basic import basic_checks
+One module per family: :mod:`.basic` (position, time, window, gross range), :mod:`.argo`
+(Argo real-time profile tests), :mod:`.freezing` (TEOS-10 freezing point), :mod:`.grid_checks`
+(too shallow, near the coast), :mod:`.duplicates` (copies across files); :mod:`.stage` runs
+them in order with the per-source :class:`~.settings.QcSettings`.
+"""
 
-__all__ = ["basic_checks"]
+from .basic import basic_checks, gross_range_check
+from .duplicates import find_duplicates, reject_duplicates
+from .grid_checks import grid_checks
+from .settings import QC_KEYS, QcSettings
+from .stage import table_checks
+
+__all__ = ["basic_checks", "gross_range_check", "table_checks", "grid_checks",
+           "find_duplicates", "reject_duplicates", "QcSettings", "QC_KEYS"]

@@ -13,7 +13,8 @@ from ..quantities import QUANTITIES
 from ..table import reject
 
 
-def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None) -> dict:
+def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
+                 range_check: bool = True) -> dict:
     """Apply the basic checks in place; return {reason: newly rejected count}.
 
     Tests, in order:
@@ -26,14 +27,15 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
       lie entirely inside [window.start, window.end];
     - ``out_of_range``: value outside the quantity's physically possible range
       (:attr:`obsprep.quantities.Quantity.valid_range`), narrowed by ``valid_range`` {quantity:
-      [min, max]} (canonical units, inclusive).
+      [min, max]} (canonical units, inclusive); skipped with ``range_check=False``
+      (:func:`gross_range_check` does it alone).
     """
     counts = {}
     counts["missing_value"] = reject(table, ~np.isfinite(table["value"].to_numpy()), "missing_value")
-    quantity = table["quantity"].astype(str).to_numpy()
     if quantities:
-        counts["quantity_not_selected"] = reject(table, ~np.isin(quantity, list(quantities)),
-                                                 "quantity_not_selected")
+        # on the categories, not on millions of strings
+        counts["quantity_not_selected"] = reject(
+            table, ~table["quantity"].isin(list(quantities)).to_numpy(), "quantity_not_selected")
     lon, lat = table["lon"].to_numpy(), table["lat"].to_numpy()
     counts["bad_position"] = reject(table, ~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(lat) <= 90)),
                                     "bad_position")
@@ -46,17 +48,30 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
         inside = (time >= window.start) & (time < window.end)
         inside_interval = (time >= window.start) & (time_end <= window.end)
     counts["outside_window"] = reject(table, ~np.where(interval, inside_interval, inside), "outside_window")
+    if range_check:
+        counts["out_of_range"] = gross_range_check(table, valid_range)
+    return counts
+
+
+def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
+    """Reject as ``out_of_range`` the values outside their quantity's physical range narrowed
+    by ``valid_range`` {quantity: [min, max]} (canonical units, inclusive); return the count."""
     value = table["value"].to_numpy()
-    low = np.full(len(table), -np.inf)
-    high = np.full(len(table), np.inf)
-    for name, q in QUANTITIES.items():
-        sel = quantity == name
-        if not sel.any():
+    quantity = table["quantity"]
+    if isinstance(quantity.dtype, pd.CategoricalDtype):
+        codes, categories = quantity.cat.codes.to_numpy(), list(quantity.cat.categories)
+    else:
+        codes, categories = pd.factorize(quantity.astype(str).to_numpy())
+    # limits per category, then looked up by code (no per-row string work)
+    low_of = np.full(len(categories) + 1, -np.inf)
+    high_of = np.full(len(categories) + 1, np.inf)
+    for c, name in enumerate(categories):
+        if str(name) not in QUANTITIES:
             continue
-        lo, hi = q.valid_range
+        lo, hi = QUANTITIES[str(name)].valid_range
         if valid_range and name in valid_range:
             lo, hi = max(lo, valid_range[name][0]), min(hi, valid_range[name][1])
-        low[sel], high[sel] = lo, hi
+        low_of[c], high_of[c] = lo, hi
+    low, high = low_of[codes], high_of[codes]   # code -1 (missing) takes the last slot
     with np.errstate(invalid="ignore"):
-        counts["out_of_range"] = reject(table, (value < low) | (value > high), "out_of_range")
-    return counts
+        return reject(table, (value < low) | (value > high), "out_of_range")

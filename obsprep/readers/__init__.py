@@ -10,7 +10,10 @@ import pandas as pd
 from ..exceptions import InputFileError, NoReaderError
 from .base import Reader, register_reader, registered_readers
 
-# Importing the modules registers their readers; the order is the order of guessing.
+# Importing the modules registers their readers; the order is the order of guessing: the
+# format-specific readers (GHRSST GDS 2.0, Argo) come before the CF-generic ones that would
+# also claim their files.
+from . import ghrsst, argo  # noqa: E402,F401
 from . import alongtrack, sst_swath, sst_grid, ice_concentration, ice_drift, profiles  # noqa: E402,F401
 
 __all__ = ["read", "guess_kind", "available_kinds", "Reader", "register_reader"]
@@ -43,7 +46,7 @@ def guess_kind(path, ds=None) -> str:
     return claims[0]
 
 
-def read(path, kind=None, **options) -> pd.DataFrame:
+def read(path, kind=None, reader_profile=None, **options) -> pd.DataFrame:
     """Read one observation file into the observation table.
 
     Parameters
@@ -52,13 +55,18 @@ def read(path, kind=None, **options) -> pd.DataFrame:
         The file.
     kind : str, optional
         Reader kind (see :func:`available_kinds`); None or "auto" to choose from the metadata.
+    reader_profile : dict, optional
+        Overrides of variable names, attributes and fill values for a product that bends the
+        conventions (:data:`obsprep.readers.cf.READER_PROFILE_KEYS`); its
+        ``good_flag_meanings`` becomes the reader option of that name.
     **options
         Reader options, e.g. ``sensor="alt_a"``.
 
     Returns
     -------
     pandas.DataFrame
-        The observation table; ``file_id`` is ``path``.
+        The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
+        ``attrs["variables"]`` the file variables the reader used and their units.
     """
     from .cf import open_dataset
 
@@ -66,7 +74,14 @@ def read(path, kind=None, **options) -> pd.DataFrame:
     readers = registered_readers()
     if kind not in (None, "auto") and kind not in readers:
         raise NoReaderError(path, f"unknown reader kind '{kind}'; known kinds: {', '.join(readers)}")
-    ds = open_dataset(path)
+    profile = dict(reader_profile or {})
+    if profile.get("good_flag_meanings") is not None:
+        if options.get("good_flag_meanings") not in (None, profile["good_flag_meanings"]):
+            raise InputFileError(path, "good_flag_meanings is given both as a reader option "
+                                       "and in the reader profile, with different values")
+        options["good_flag_meanings"] = profile.pop("good_flag_meanings")
+    profile.pop("good_flag_meanings", None)
+    ds = open_dataset(path, profile=profile or None)
     try:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
@@ -78,4 +93,5 @@ def read(path, kind=None, **options) -> pd.DataFrame:
     finally:
         ds.close()
     table.attrs["kind"] = kind
+    table.attrs.setdefault("variables", {})
     return table

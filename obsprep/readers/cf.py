@@ -34,7 +34,8 @@ __all__ = [
     "lonlat_from_projection", "grid_axis_azimuths", "rotate_grid_vectors_to_east_north",
     "horizontal_position", "observation_time", "observation_interval", "labels_as_strings",
     "platform_attribute", "DecodedVariable", "decode_data_variable", "require_values",
-    "observation_table",
+    "observation_table", "flag_meaning_masks", "apply_reader_profile", "READER_PROFILE_KEYS",
+    "reader_profile_roles", "variable_units",
 ]
 
 #: reader options every CF-generic reader accepts, name -> meaning
@@ -110,8 +111,13 @@ def reader_options(reader, options: dict) -> ReaderOptions:
 _NETCDF_MAGIC = (b"CDF\x01", b"CDF\x02", b"CDF\x05", b"\x89HDF\r\n\x1a\n")
 
 
-def open_dataset(path) -> xr.Dataset:
+def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dataset:
     """Open a netCDF file with CF packing and fill decoded, times left as numbers.
+
+    ``profile`` is a reader profile (:func:`apply_reader_profile`): attribute and fill-value
+    overrides are applied to the raw variables before the CF decoding, variable roles after.
+    ``load=False`` keeps the variables lazy and the file open (the caller closes the dataset);
+    for reading a few metadata variables of a large file.
 
     ``scale_factor``/``add_offset`` are applied and ``_FillValue``/``missing_value`` become NaN
     (``mask_and_scale=True``); times and durations stay numeric (``decode_times=False``) so
@@ -134,8 +140,8 @@ def open_dataset(path) -> xr.Dataset:
     if size == 0:
         raise InputFileError(path, "file is empty (0 bytes), expected a netCDF file")
     try:
-        ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=True, decode_times=False,
-                             decode_timedelta=False, decode_coords=False)
+        ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=not profile,
+                             decode_times=False, decode_timedelta=False, decode_coords=False)
     except (OSError, RuntimeError, ValueError, KeyError, IndexError) as exc:
         with open(path, "rb") as fh:
             head = fh.read(8)
@@ -145,6 +151,8 @@ def open_dataset(path) -> xr.Dataset:
                       f"or netCDF-4/HDF5 signature)") from exc
         raise InputFileError(path, f"cannot open netCDF file ({size} bytes; truncated or "
                                    f"corrupt?): {_one_line(exc)}") from exc
+    if not load:
+        return apply_reader_profile(ds, profile, path) if profile else ds
     try:
         ds.load()
     except (OSError, RuntimeError, ValueError, IndexError) as exc:
@@ -152,7 +160,7 @@ def open_dataset(path) -> xr.Dataset:
         raise InputFileError(path, f"cannot read the data ({size} bytes; truncated or "
                                    f"corrupt?): {_one_line(exc)}") from exc
     ds.close()  # the data are in memory; release the file handle
-    return ds
+    return apply_reader_profile(ds, profile, path) if profile else ds
 
 
 def _one_line(exc: BaseException) -> str:
@@ -305,6 +313,44 @@ def good_flag_mask(flag: xr.DataArray, good_meanings, path) -> np.ndarray:
         bits = ints & masks[i]
         bad |= (bits == states[i]) if states is not None else (bits != 0)
     return finite & ~bad
+
+
+def flag_meaning_masks(flag: xr.DataArray, path) -> dict[str, np.ndarray]:
+    """Meaning -> boolean array (the flag's shape), True where that state or bit is set.
+
+    CF 3.5: with ``flag_values`` only, meaning m is set where ``value == flag_values[m]``; with
+    ``flag_masks`` only, where ``value & flag_masks[m] != 0``; with both, where
+    ``value & flag_masks[m] == flag_values[m]``.  A fill (NaN) flag sets nothing.  Meanings are
+    lower-cased.  Raises :class:`InputFileError` naming the variable when the attributes are
+    missing or their lengths disagree.
+    """
+    name = flag.name
+    meanings = str(flag.attrs.get("flag_meanings", "")).lower().split()
+    masks = flag.attrs.get("flag_masks")
+    values = flag.attrs.get("flag_values")
+    if (masks is None and values is None) or not meanings:
+        raise InputFileError(path, "flag variable needs flag_meanings and flag_values or "
+                                   "flag_masks (CF 3.5)", variable=name)
+    for attr, entries in (("flag_masks", masks), ("flag_values", values)):
+        if entries is not None and np.size(entries) != len(meanings):
+            raise InputFileError(
+                path, f"{attr} has {np.size(entries)} entries but flag_meanings has "
+                      f"{len(meanings)} words", variable=name)
+    raw = np.asarray(flag.values, dtype=np.float64)
+    finite = np.isfinite(raw)
+    ints = np.where(finite, raw, 0).astype(np.int64)
+    states = None if values is None else np.atleast_1d(values).astype(np.int64)
+    bits = None if masks is None else np.atleast_1d(masks).astype(np.int64)
+    out: dict[str, np.ndarray] = {}
+    for k, meaning in enumerate(meanings):  # loop over the few meanings, not the observations
+        if bits is None:
+            is_set = ints == states[k]
+        elif states is None:
+            is_set = (ints & bits[k]) != 0
+        else:
+            is_set = (ints & bits[k]) == states[k]
+        out[meaning] = out.get(meaning, False) | (finite & is_set)
+    return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -817,7 +863,7 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
         quantity=decoded.quantity.name,
         value=values,
         error=error,
-        error_origin=np.where(has_error, "file", "unset"),
+        error_origin=pd.Categorical.from_codes(has_error.astype(np.int8), ["unset", "file"]),
         lon=flat(lon, np.float64),
         lat=flat(lat, np.float64),
         time=flat(time, "datetime64[ns]"),
@@ -840,3 +886,145 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     if decoded.good is not None:
         reject(table, ~flat(decoded.good, bool), "provider_flag")
     return table
+
+
+def variable_units(ds: xr.Dataset, names) -> dict[str, str]:
+    """``{variable: units attribute}`` of the named variables present in ``ds`` ("" without
+    units), for reporting which variables a reader used (``table.attrs["variables"]``)."""
+    return {str(n): str(ds[n].attrs.get("units", "")) for n in names
+            if n is not None and n in ds.variables}
+
+
+# --------------------------------------------------------------------------------------------
+# reader profiles: per-source overrides for products that bend the conventions
+# --------------------------------------------------------------------------------------------
+
+#: keys of a reader profile (the ``[sources.reader]`` table), name -> meaning
+READER_PROFILE_KEYS: dict[str, str] = {
+    "variables": "role -> variable name: a quantity name (e.g. sea_surface_temperature) or a "
+                 "coordinate (latitude, longitude, time, depth, sea_water_pressure, "
+                 "projection_x_coordinate, projection_y_coordinate) gives that variable the "
+                 "role's standard_name; '<quantity>_error' / '<quantity>_flag' make it the "
+                 "quantity's standard_error / status_flag ancillary variable; any other role "
+                 "(a format's own name, e.g. quality_level, sses_bias, TEMP) renames the "
+                 "variable to it",
+    "attributes": "variable -> {attribute = value} set on the raw variable before decoding "
+                  "(units, scale_factor, flag_meanings, ...); false removes the attribute",
+    "fill_value": "variable -> fill value in stored (packed) units, a number or a list, "
+                  "replacing _FillValue/missing_value; false: the variable has no fill value",
+    "good_flag_meanings": "flag meanings kept (the reader option of the same name)",
+}
+
+_COORDINATE_ROLES = ("latitude", "longitude", "time", "depth", "sea_water_pressure",
+                     "projection_x_coordinate", "projection_y_coordinate")
+
+
+def reader_profile_roles() -> dict[str, str]:
+    """Roles that set a standard_name: role -> the standard_name given to the variable."""
+    from ..quantities import QUANTITIES
+
+    roles = {name: q.accepted_standard_names[0] for name, q in QUANTITIES.items()}
+    roles.update({c: c for c in _COORDINATE_ROLES})
+    return roles
+
+
+def _profile_table(profile, key, path) -> dict:
+    table = profile.get(key) or {}
+    if not isinstance(table, dict):
+        raise InputFileError(path, f"reader profile '{key}' must be a table, got {table!r}")
+    return table
+
+
+def apply_reader_profile(ds: xr.Dataset, profile: dict | None, path) -> xr.Dataset:
+    """Apply a reader profile (:data:`READER_PROFILE_KEYS`) to a dataset opened *without* CF
+    decoding (``mask_and_scale=False``) and return it CF-decoded.
+
+    Order: ``attributes`` and ``fill_value`` patch the raw variables; then packing and fill are
+    decoded (``xarray.decode_cf``, times left numeric); then ``variables`` assigns roles, so a
+    reader finds the variable exactly as if the file had followed the conventions.  A
+    standard_name role is taken away from any other variable that had it.  Raises
+    :class:`InputFileError` naming the file and the variable when the profile names a
+    variable the file does not have or has an unknown key.
+    """
+    profile = dict(profile or {})
+    unknown = sorted(set(profile) - set(READER_PROFILE_KEYS))
+    if unknown:
+        raise InputFileError(path, f"unknown reader profile key(s) {unknown}; known: "
+                                   f"{', '.join(READER_PROFILE_KEYS)}")
+    ds = ds.copy()
+
+    def require(name, key):
+        if name not in ds.variables:
+            raise InputFileError(path, f"the reader profile ({key}) names variable '{name}', "
+                                       f"which is not in the file", variable=name)
+        return ds.variables[name]
+
+    for name, attrs in _profile_table(profile, "attributes", path).items():
+        var = require(name, "attributes")
+        if not isinstance(attrs, dict):
+            raise InputFileError(path, f"reader profile attributes for '{name}' must be a "
+                                       f"table, got {attrs!r}", variable=name)
+        for attr, value in attrs.items():
+            if value is False:
+                var.attrs.pop(attr, None)
+                var.encoding.pop(attr, None)
+            else:
+                var.attrs[attr] = value
+    for name, fill in _profile_table(profile, "fill_value", path).items():
+        var = require(name, "fill_value")
+        for attr in ("_FillValue", "missing_value"):
+            var.attrs.pop(attr, None)
+            var.encoding.pop(attr, None)
+        if fill is not False:
+            entries = fill if isinstance(fill, (list, tuple)) else [fill]
+            if not entries or not all(isinstance(f, (int, float)) and not isinstance(f, bool)
+                                      for f in entries):
+                raise InputFileError(path, f"reader profile fill_value must be a number, a "
+                                           f"list of numbers or false, got {fill!r}",
+                                     variable=name)
+            dtype = var.dtype if var.dtype.kind in "iuf" else np.float64
+            var.attrs["missing_value"] = np.asarray(fill, dtype=dtype)
+    try:
+        ds = xr.decode_cf(ds, mask_and_scale=True, decode_times=False, decode_coords=False,
+                          decode_timedelta=False)
+    except (ValueError, TypeError) as exc:
+        raise InputFileError(path, f"cannot decode the file with the reader profile: "
+                                   f"{_one_line(exc)}") from exc
+
+    roles = reader_profile_roles()
+    variables = _profile_table(profile, "variables", path)
+    deferred = {}
+    for role, name in variables.items():
+        require(name, "variables")
+        if role in roles:
+            _give_standard_name(ds, name, roles[role])
+        elif role.endswith(("_error", "_flag")) and role.rsplit("_", 1)[0] in roles:
+            deferred[role] = name
+        elif role != name:
+            if role in ds.variables:
+                ds = ds.rename_vars({role: f"{role}_replaced_by_reader_profile"})
+            ds = ds.rename_vars({name: role})
+    for role, name in deferred.items():  # after the data variables got their standard_name
+        quantity_role, kind = role.rsplit("_", 1)
+        data = variables.get(quantity_role)
+        if data is None:
+            from ..quantities import QUANTITIES
+
+            data = find_variable(ds, QUANTITIES[quantity_role].accepted_standard_names)
+        if data is None:
+            raise InputFileError(path, f"reader profile role '{role}': no '{quantity_role}' "
+                                       f"variable to attach it to", variable=name)
+        data_name = str(ds[data].attrs.get("standard_name", ""))
+        modifier = "standard_error" if kind == "error" else "status_flag"
+        _give_standard_name(ds, name, f"{data_name} {modifier}")
+        listed = str(ds[data].attrs.get("ancillary_variables", "")).split()
+        if name not in listed:
+            ds.variables[data].attrs["ancillary_variables"] = " ".join(listed + [name])
+    return ds
+
+
+def _give_standard_name(ds: xr.Dataset, name: str, standard_name: str) -> None:
+    for other, var in ds.variables.items():
+        if other != name and var.attrs.get("standard_name") == standard_name:
+            var.attrs["standard_name_replaced_by_reader_profile"] = var.attrs.pop("standard_name")
+    ds.variables[name].attrs["standard_name"] = standard_name

@@ -6,6 +6,7 @@ from __future__ import annotations
 from ..quantities import get_quantity
 from . import cf
 from .base import Reader, register_reader
+from .sst_swath import _used_variables
 
 SEA_ICE_CONCENTRATION = get_quantity("sea_ice_concentration")
 
@@ -30,5 +31,7 @@ class IceConcentrationReader(Reader):
         cf.require_values(path, [decoded])
         lon, lat = cf.horizontal_position(ds, name, path)
         time = cf.observation_time(ds, name, path)
-        return cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                    platform=cf.platform_attribute(ds, opts))
+        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
+                                     platform=cf.platform_attribute(ds, opts))
+        table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
+        return table

@@ -15,6 +15,7 @@ from ..quantities import get_quantity
 from ..table import concat_tables
 from . import cf
 from .base import Reader, register_reader
+from .sst_swath import _used_variables
 
 EAST, NORTH = get_quantity("sea_ice_drift_east"), get_quantity("sea_ice_drift_north")
 GRID_X, GRID_Y = get_quantity("sea_ice_drift_x"), get_quantity("sea_ice_drift_y")
@@ -74,7 +75,10 @@ class IceDriftReader(Reader):
             v = v.replace(quantity=NORTH, values=north, error=sigma[1] if sigma else None,
                           good=good)
         platform = cf.platform_attribute(ds, opts)
-        return concat_tables([
+        table = concat_tables([
             cf.observation_table(path, opts, component, lon=lon, lat=lat, time=start,
                                  time_end=end, platform=platform)
             for component in (u, v)])
+        table.attrs["variables"] = cf.variable_units(
+            ds, _used_variables(ds, names[0]) + _used_variables(ds, names[1]))
+        return table

@@ -1,7 +1,9 @@
 """Temperature/salinity profiles: CF discrete sampling geometry ``featureType = "profile"``.
 
-Layouts: incomplete multidimensional arrays (profile, level) padded with fill, and contiguous
-ragged arrays (a count variable with ``sample_dimension``).  One row per (profile, level,
+Layouts: incomplete multidimensional arrays (profile, level) padded with fill, contiguous
+ragged arrays (a count variable with ``sample_dimension``, CF H.3.4) and indexed ragged arrays
+(an index variable with ``instance_dimension``, CF H.3.5), as written for ship CTD casts and
+glider profiles.  One row per (profile, level,
 quantity); ``row`` is the flat index of the value in the source variable
 (profile * n_levels + level for the multidimensional layout, the sample index for ragged).
 A padding level, where every quantity and the vertical coordinate are fill, is not an
@@ -55,8 +57,21 @@ class _Layout:
         self.var = var
         counts = [c for c in ds.variables
                   if ds[c].attrs.get("sample_dimension") in var.dims and ds[c].ndim == 1]
-        self.ragged = bool(counts) and var.ndim == 1
-        if self.ragged:
+        indices = [c for c in ds.variables
+                   if ds[c].attrs.get("instance_dimension") in ds.dims
+                   and ds[c].dims == var.dims and var.ndim == 1]
+        self.ragged = (bool(counts) or bool(indices)) and var.ndim == 1
+        if self.ragged and not counts:
+            index = ds[indices[0]]
+            self.profile_dim = str(index.attrs["instance_dimension"])
+            self.n_profiles = ds.sizes[self.profile_dim]
+            values = np.asarray(index.values, dtype=np.float64)
+            if not (np.isfinite(values) & (values >= 0) & (values < self.n_profiles)).all():
+                raise InputFileError(path, f"indexed ragged array: every index must be a "
+                                           f"profile number 0..{self.n_profiles - 1}",
+                                     variable=index.name)
+            self.profile_of_sample = values.astype(np.int64)
+        elif self.ragged:
             count = ds[counts[0]]
             n = count.values
             if not np.isfinite(n).all() or int(n.sum()) != var.size:
@@ -135,12 +150,19 @@ class ProfileReader(Reader):
                 padding &= ~np.isfinite(d.values)
         group = self._group(ds, layout)
         platform = self._platform(ds, opts, layout)
-        return concat_tables([
+        table = concat_tables([
             cf.observation_table(path, opts, d, lon=lon, lat=lat, time=time, depth=depth,
                                  group=group, platform=platform,
                                  keep=None if padding is None else ~padding,
                                  missing=~np.isfinite(depth))
             for d in decoded])
+        used = [n for n in names.values()]
+        for n in names.values():
+            used += cf.ancillary_variable_names(ds, n)
+        for kind in ("latitude", "longitude", "time", "depth", "sea_water_pressure"):
+            used.append(cf.find_coordinate(ds, first.name, kind, anywhere=True))
+        table.attrs["variables"] = cf.variable_units(ds, list(dict.fromkeys(used)))
+        return table
 
     @staticmethod
     def _depth(ds, var, layout, lat, path) -> np.ndarray:

@@ -51,6 +51,18 @@ class SstSwathReader(Reader):
         cf.require_values(path, [decoded])
         lon, lat = cf.horizontal_position(ds, name, path)
         time = cf.observation_time(ds, name, path)
-        return cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                    group=self.group(ds, path),
-                                    platform=cf.platform_attribute(ds, opts))
+        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
+                                     group=self.group(ds, path),
+                                     platform=cf.platform_attribute(ds, opts))
+        table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
+        return table
+
+
+def _used_variables(ds, name) -> list:
+    """The data variable, its ancillary variables and its coordinates (for reporting)."""
+    used = [name] + cf.ancillary_variable_names(ds, name)
+    for kind in ("latitude", "longitude", "time", "projection_x_coordinate",
+                 "projection_y_coordinate", "depth", "sea_water_pressure"):
+        used += cf.find_coordinates(ds, name, kind, anywhere=kind in ("depth",
+                                                                        "sea_water_pressure"))
+    return list(dict.fromkeys(used))

@@ -23,10 +23,18 @@ applied to k parts at once as :math:`M_2 = \\sum_k M_{2,k} + \\sum_k n_k (\\bar 
 two-pass step over the part means.  Weighted means merge the same way with weights in place of
 counts.
 
-Grouping is vectorised: keys are packed into one int64 code when their ranges allow (else a
-lexicographic sort), sorted once, and every per-group sum is an ``np.bincount`` over the group
-index or a ``ufunc.reduceat`` over the sorted order.  No Python loop runs over observations or
-groups; memory is O(n) per batch.
+Within a batch the mean and M2 are first taken about one shift ``c`` for the whole batch (its
+mean value): ``M2 = S2 - S1^2 / n`` with ``S1 = sum (x - c)``, ``S2 = sum (x - c)^2``.  This
+one-pass form loses about ``log10(n (mean - c)^2 / M2)`` digits; groups where that ratio exceeds
+:data:`TWO_PASS_RATIO` are recomputed with the corrected two-pass algorithm above, so every group
+keeps at least 11-12 significant digits of its spread.
+
+Grouping is vectorised and sort-free when it can be: keys are packed into one int64 code in mixed
+radix; when the code range is small enough (the usual case: grid cells x slots), the code itself
+indexes the bins, so every per-group sum is one ``np.bincount`` and minima/maxima are
+``np.minimum.at``/``np.maximum.at``.  Otherwise (wide or sparse keys) the codes are sorted once
+(or sorted lexicographically when they do not fit in int64).  No Python loop runs over
+observations or groups; memory is O(n) per batch.
 """
 
 from __future__ import annotations
@@ -39,6 +47,13 @@ from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_
 from .spherical import mean_position, unit_vectors
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
+
+#: groups whose ``n (mean - shift)^2 / M2`` exceeds this get the two-pass M2 (module docstring)
+TWO_PASS_RATIO = 1.0e4
+#: keys are grouped by direct indexing when the packed code range is at most
+#: max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n) bins
+_DIRECT_MIN_BINS = 1 << 22
+_DIRECT_BINS_PER_ROW = 4
 
 #: Per-group state kept by every accumulator: name -> meaning (units).
 STATE_FIELDS: dict[str, str] = {
@@ -57,6 +72,8 @@ STATE_FIELDS: dict[str, str] = {
     "sum_y": "sum of unit-vector y components",
     "sum_z": "sum of unit-vector z components",
     "depth_mean": "mean depth (m, positive down)",
+    "depth_m2": "sum of squared deviations of the depths about depth_mean (m^2)",
+    "depth_value_c2": "sum of (depth - depth_mean)(value - value_mean) (m times units of the value)",
 }
 
 #: Per-group representative raw observation, kept when a thinning score is given.
@@ -175,6 +192,141 @@ def _group_index(key_arrays):
     inverse = np.empty(n, dtype=np.intp)
     inverse[order] = np.cumsum(new_group) - 1
     return order, starts, inverse
+
+
+class _Grouping:
+    """Rows -> bins for one batch.
+
+    ``index`` (n,) is the bin of each row; ``n_bins`` the number of bins; ``count`` (n_bins,)
+    int64 rows per bin; ``keep`` selects the occupied bins in ascending key order (None: every
+    bin is occupied and already in that order); ``group_keys`` the key values of the occupied
+    bins.  Per-bin sums are ``np.bincount(index, w, n_bins)``, then :meth:`compress`.
+    """
+
+    __slots__ = ("index", "n_bins", "count", "keep", "group_keys")
+
+    def __init__(self, index, n_bins, count, keep, group_keys):
+        self.index, self.n_bins, self.count = index, n_bins, count
+        self.keep, self.group_keys = keep, group_keys
+
+    def compress(self, per_bin):
+        """Per-bin array -> per-group array (occupied bins, ascending key order)."""
+        return per_bin if self.keep is None else per_bin[self.keep]
+
+    def sum(self, weights):
+        """Per-bin sum of ``weights`` (float64)."""
+        return np.bincount(self.index, weights, self.n_bins)
+
+    def minimum(self, values, initial):
+        out = np.full(self.n_bins, initial, dtype=np.asarray(values).dtype)
+        np.minimum.at(out, self.index, values)
+        return out
+
+    def maximum(self, values, initial):
+        out = np.full(self.n_bins, initial, dtype=np.asarray(values).dtype)
+        np.maximum.at(out, self.index, values)
+        return out
+
+
+def _direct_code(key_arrays, n):
+    """(code, lows, radices) packing the keys in mixed radix (first key most significant) when
+    the code range is small enough to index bins directly; else None."""
+    lows, radices = [], []
+    for array in key_arrays:
+        low, high = int(array.min()), int(array.max())
+        lows.append(low)
+        radices.append(high - low + 1)
+    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+        return None
+    code = None
+    for array, low, radix in zip(key_arrays, lows, radices):  # loop over keys, not rows
+        digit = array - np.int64(low) if low else array
+        if code is None:
+            code = digit.astype(np.int64, copy=True)
+        elif radix > 1:
+            code *= np.int64(radix)
+            code += digit
+        else:
+            code *= np.int64(radix)
+    return code, lows, radices
+
+
+def _grouping(key_arrays) -> _Grouping:
+    """Group rows by key tuple (see :class:`_Grouping`); groups in ascending key order."""
+    n = len(key_arrays[0])
+    if n == 0:
+        empty = np.zeros(0, dtype=np.intp)
+        return _Grouping(empty, 0, np.zeros(0, dtype=np.int64), None,
+                         [np.zeros(0, dtype=np.int64) for _ in key_arrays])
+    direct = _direct_code(key_arrays, n)
+    if direct is not None:
+        code, lows, radices = direct
+        n_codes = math.prod(radices)
+        count = np.bincount(code, minlength=n_codes)
+        occupied = np.flatnonzero(count)
+        # decode the occupied codes back to key values (mixed radix, last key least significant)
+        remainder = occupied.astype(np.int64)
+        group_keys = [None] * len(key_arrays)
+        for position in range(len(key_arrays) - 1, -1, -1):
+            remainder, digit = np.divmod(remainder, np.int64(radices[position]))
+            group_keys[position] = digit + np.int64(lows[position])
+        if 2 * len(occupied) >= n_codes:
+            # dense: the code is the bin; empty bins are dropped at the end
+            keep = None if len(occupied) == n_codes else occupied
+            return _Grouping(code, n_codes, count, keep, group_keys)
+        # sparse: renumber the occupied codes 0..n_groups-1 (smaller per-bin arrays)
+        renumber = np.empty(n_codes, dtype=np.intp)
+        renumber[occupied] = np.arange(len(occupied))
+        return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
+    order, starts, inverse = _group_index(key_arrays)
+    first_rows = order[starts]
+    count = np.diff(starts, append=n).astype(np.int64)
+    return _Grouping(inverse, len(starts), count, None, [a[first_rows] for a in key_arrays])
+
+
+def _representative_rows(grouping, score, tiebreak):
+    """Row of each bin's lowest score, ties to the lowest tiebreak, then the lowest row."""
+    n = len(score)
+    lowest_score = grouping.minimum(score, np.inf)
+    candidate = score == lowest_score[grouping.index]
+    tiebreak_of_candidates = np.where(candidate, tiebreak, np.int64(_INT64_MAX))
+    lowest_tiebreak = grouping.minimum(tiebreak_of_candidates, _INT64_MAX)
+    chosen = candidate & (tiebreak == lowest_tiebreak[grouping.index])
+    row = np.where(chosen, np.arange(n), n)
+    return grouping.compress(grouping.minimum(row, n))
+
+
+def _shifted_mean_and_m2(x, grouping, count_float):
+    """Per-bin mean and M2 of ``x``: one pass about the batch mean, two-pass where that loses
+    too many digits (module docstring).  Empty bins give NaN."""
+    shift = float(np.mean(x)) if x.size else 0.0
+    deviation = x - shift
+    s1 = grouping.sum(deviation)
+    s2 = grouping.sum(deviation * deviation)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_deviation = s1 / count_float
+        between = s1 * mean_deviation
+        m2 = np.maximum(s2 - between, 0.0)
+        mean = shift + mean_deviation
+        risky = (between > TWO_PASS_RATIO * m2) & (count_float > 1)
+    if risky.any():
+        rows = np.flatnonzero(risky[grouping.index])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            exact_mean, exact_m2 = _grouped_mean(x[rows], grouping.index[rows], grouping.n_bins,
+                                                 None, count_float)
+        mean = np.where(risky, exact_mean, mean)
+        m2 = np.where(risky, exact_m2, m2)
+    return mean, m2
+
+
+def _shifted_mean(x, grouping, count_float, weights=None, total_weight=None):
+    """Per-bin (weighted) mean of ``x`` about the batch mean: ``c + sum w (x - c) / W``."""
+    shift = float(np.mean(x)) if x.size else 0.0
+    deviation = x - shift
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if weights is None:
+            return shift + grouping.sum(deviation) / count_float
+        return shift + grouping.sum(weights * deviation) / total_weight
 
 
 def _pick_representative(score, tiebreak, order, starts, inverse):
@@ -385,49 +537,74 @@ class Accumulator:
                                      f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
                 tiebreak = tiebreak.astype(np.int64, copy=False)
 
-        order, starts, inverse = _group_index(key_arrays)
-        n_groups = len(starts)
-        first_rows = order[starts]
-        group_keys = {name: array[first_rows] for name, array in zip(key_names, key_arrays)}
-        count = np.diff(starts, append=n).astype(np.int64)
-        count_float = count.astype(np.float64)
+        grouping = _grouping(key_arrays)
+        group_keys = dict(zip(key_names, grouping.group_keys))
+        count_float = grouping.count.astype(np.float64)
+        compress = grouping.compress
 
-        value_mean, value_m2 = _grouped_mean(value, inverse, n_groups, None, count_float)
-        inverse_sigma = 1.0 / error
-        inverse_variance = inverse_sigma * inverse_sigma
-        sum_inverse_variance = np.bincount(inverse, inverse_variance, n_groups)
-        weighted_mean, _ = _grouped_mean(value, inverse, n_groups, inverse_variance,
-                                         sum_inverse_variance)
-        time_mean, _ = _grouped_mean(time, inverse, n_groups, None, count_float)
-        depth_mean, _ = _grouped_mean(depth, inverse, n_groups, None, count_float)
-        x, y, z = unit_vectors(lon, lat)
-        if n:
-            sorted_value = value[order]
-            value_min = np.minimum.reduceat(sorted_value, starts)
-            value_max = np.maximum.reduceat(sorted_value, starts)
+        value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float)
+        if n and error.min() == error.max():
+            # one error for the whole batch (a constant error rule): the error sums follow
+            # from the counts, and the weighted mean is the plain mean
+            sigma = float(error[0])
+            sum_variance = count_float * (sigma * sigma)
+            sum_sigma = count_float * sigma
+            sum_inverse_sigma = count_float * (1.0 / sigma)
+            sum_inverse_variance = count_float * (1.0 / (sigma * sigma))
+            weighted_mean = value_mean
         else:
-            value_min = value_max = np.zeros(0)
+            inverse_sigma = 1.0 / error
+            inverse_variance = inverse_sigma * inverse_sigma
+            sum_inverse_variance = grouping.sum(inverse_variance)
+            weighted_mean = _shifted_mean(value, grouping, count_float, inverse_variance,
+                                          sum_inverse_variance)
+            sum_inverse_sigma = grouping.sum(inverse_sigma)
+            sum_variance = grouping.sum(error * error)
+            sum_sigma = grouping.sum(error)
+        time_mean = _shifted_mean(time, grouping, count_float)
+        if n and depth.min() == depth.max():
+            depth_mean = np.full(grouping.n_bins, depth[0])
+            depth_m2 = depth_value_c2 = np.zeros(grouping.n_bins)
+        else:
+            # depth spread and depth-value co-moment, corrected two-pass about the group means
+            with np.errstate(invalid="ignore", divide="ignore"):
+                depth_first = grouping.sum(depth) / count_float
+                depth_deviation = depth - depth_first[grouping.index]
+                value_deviation = value - value_mean[grouping.index]
+                sum_depth_deviation = grouping.sum(depth_deviation)
+                sum_value_deviation = grouping.sum(value_deviation)
+                depth_mean = depth_first + sum_depth_deviation / count_float
+                depth_m2 = np.maximum(grouping.sum(depth_deviation * depth_deviation)
+                                      - sum_depth_deviation ** 2 / count_float, 0.0)
+                depth_value_c2 = (grouping.sum(depth_deviation * value_deviation)
+                                  - sum_depth_deviation * sum_value_deviation / count_float)
+        x, y, z = unit_vectors(lon, lat)
+        value_min = grouping.minimum(value, np.inf)
+        value_max = grouping.maximum(value, -np.inf)
 
         state = {
-            "count": count,
-            "value_mean": value_mean,
-            "value_m2": value_m2,
-            "value_min": value_min,
-            "value_max": value_max,
-            "weighted_mean": weighted_mean,
-            "sum_inverse_variance": sum_inverse_variance,
-            "sum_inverse_sigma": np.bincount(inverse, inverse_sigma, n_groups),
-            "sum_variance": np.bincount(inverse, error * error, n_groups),
-            "sum_sigma": np.bincount(inverse, error, n_groups),
-            "time_mean": time_mean,
-            "sum_x": np.bincount(inverse, x, n_groups),
-            "sum_y": np.bincount(inverse, y, n_groups),
-            "sum_z": np.bincount(inverse, z, n_groups),
-            "depth_mean": depth_mean,
+            "count": compress(grouping.count).astype(np.int64, copy=False),
+            "value_mean": compress(value_mean),
+            "value_m2": compress(value_m2),
+            "value_min": compress(value_min),
+            "value_max": compress(value_max),
+            "weighted_mean": compress(weighted_mean),
+            "sum_inverse_variance": compress(sum_inverse_variance),
+            "sum_inverse_sigma": compress(sum_inverse_sigma),
+            "sum_variance": compress(sum_variance),
+            "sum_sigma": compress(sum_sigma),
+            "time_mean": compress(time_mean),
+            "sum_x": compress(grouping.sum(x)),
+            "sum_y": compress(grouping.sum(y)),
+            "sum_z": compress(grouping.sum(z)),
+            "depth_mean": compress(depth_mean),
+            "depth_m2": compress(depth_m2),
+            "depth_value_c2": compress(depth_value_c2),
         }
+        state = {name: state[name] for name in STATE_FIELDS}
         if score is not None:
             if n:
-                row = _pick_representative(score, tiebreak, order, starts, inverse)
+                row = _representative_rows(grouping, score, tiebreak)
             else:
                 row = np.zeros(0, dtype=np.intp)
             for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
@@ -478,53 +655,55 @@ class Accumulator:
 
         keys = [np.concatenate([a._keys[name] for a in parts]) for name in key_names]
         part = {name: np.concatenate([a._state[name] for a in parts]) for name in fields}
-        order, starts, inverse = _group_index(keys)
-        n_groups = len(starts)
-        first_rows = order[starts]
-        group_keys = {name: array[first_rows] for name, array in zip(key_names, keys)}
+        grouping = _grouping(keys)
+        group_keys = dict(zip(key_names, grouping.group_keys))
+        inverse, n_groups = grouping.index, grouping.n_bins
         n_rows = len(inverse)
 
-        if n_rows:
-            count = np.add.reduceat(part["count"][order], starts)
-            value_min = np.minimum.reduceat(part["value_min"][order], starts)
-            value_max = np.maximum.reduceat(part["value_max"][order], starts)
-        else:
-            count = np.zeros(0, dtype=np.int64)
-            value_min = value_max = np.zeros(0)
+        count = grouping.sum(part["count"].astype(np.float64)).astype(np.int64)
+        value_min = grouping.minimum(part["value_min"], np.inf)
+        value_max = grouping.maximum(part["value_max"], -np.inf)
         part_count = part["count"].astype(np.float64)
         count_float = count.astype(np.float64)
-
-        # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2
-        value_mean, between = _grouped_mean(part["value_mean"], inverse, n_groups, part_count,
-                                            count_float)
-        value_m2 = np.bincount(inverse, part["value_m2"], n_groups) + between
-        sum_inverse_variance = np.bincount(inverse, part["sum_inverse_variance"], n_groups)
-        weighted_mean, _ = _grouped_mean(part["weighted_mean"], inverse, n_groups,
-                                         part["sum_inverse_variance"], sum_inverse_variance)
-        time_mean, _ = _grouped_mean(part["time_mean"], inverse, n_groups, part_count,
-                                     count_float)
-        depth_mean, _ = _grouped_mean(part["depth_mean"], inverse, n_groups, part_count,
-                                      count_float)
-        state = {
-            "count": count.astype(np.int64, copy=False),
-            "value_mean": value_mean,
-            "value_m2": value_m2,
-            "value_min": value_min,
-            "value_max": value_max,
-            "weighted_mean": weighted_mean,
-            "sum_inverse_variance": sum_inverse_variance,
-            "time_mean": time_mean,
-            "depth_mean": depth_mean,
-        }
-        for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
-                     "sum_z"):
-            state[name] = np.bincount(inverse, part[name], n_groups)
-        state = {name: state[name] for name in STATE_FIELDS}
+        # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2 (empty bins of a
+        # direct grouping give NaN here and are dropped by compress)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            value_mean, between = _grouped_mean(part["value_mean"], inverse, n_groups, part_count,
+                                                count_float)
+            value_m2 = np.bincount(inverse, part["value_m2"], n_groups) + between
+            sum_inverse_variance = np.bincount(inverse, part["sum_inverse_variance"], n_groups)
+            weighted_mean, _ = _grouped_mean(part["weighted_mean"], inverse, n_groups,
+                                             part["sum_inverse_variance"], sum_inverse_variance)
+            time_mean, _ = _grouped_mean(part["time_mean"], inverse, n_groups, part_count,
+                                         count_float)
+            depth_mean, depth_between = _grouped_mean(part["depth_mean"], inverse, n_groups,
+                                                      part_count, count_float)
+            # co-moments merge like M2: C = sum C_k + sum n_k (d_k - d)(v_k - v) (Chan et al.)
+            depth_value_between = np.bincount(
+                inverse, part_count * (part["depth_mean"] - depth_mean[inverse])
+                * (part["value_mean"] - value_mean[inverse]), n_groups)
+            state = {
+                "count": count.astype(np.int64, copy=False),
+                "value_mean": value_mean,
+                "value_m2": value_m2,
+                "value_min": value_min,
+                "value_max": value_max,
+                "weighted_mean": weighted_mean,
+                "sum_inverse_variance": sum_inverse_variance,
+                "time_mean": time_mean,
+                "depth_mean": depth_mean,
+                "depth_m2": np.bincount(inverse, part["depth_m2"], n_groups) + depth_between,
+                "depth_value_c2": (np.bincount(inverse, part["depth_value_c2"], n_groups)
+                                   + depth_value_between),
+            }
+            for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
+                         "sum_z"):
+                state[name] = np.bincount(inverse, part[name], n_groups)
+        state = {name: grouping.compress(state[name]) for name in STATE_FIELDS}
         if has_representative:
             if n_rows:
-                row = _pick_representative(part["representative_score"],
-                                           part["representative_tiebreak"], order, starts,
-                                           inverse)
+                row = _representative_rows(grouping, part["representative_score"],
+                                           part["representative_tiebreak"])
             else:
                 row = np.zeros(0, dtype=np.intp)
             for name in REPRESENTATIVE_FIELDS:

@@ -2,7 +2,9 @@
 
 Each quantity ``q`` present gets a dimension ``q_obs`` and variables ``q`` (the value, with its CF
 standard_name and canonical units), ``q_error`` (``<standard_name> standard_error``),
-``q_error_instrument``, ``q_error_representation``, ``q_spread``, ``q_count``, ``q_lon``,
+``q_error_instrument``, ``q_error_representation``, ``q_error_spread``, ``q_error_raw_rms``,
+``q_error_basis`` and ``q_error_origin`` (flags), ``q_spread`` (and ``q_spread_detrended`` for
+profiles), ``q_count``, ``q_lon``,
 ``q_lat``, ``q_depth``, ``q_time``, ``q_time_offset``, ``q_slot``, ``q_i``, ``q_j``, ``q_k``,
 ``q_sensor``, ``q_profile`` and, for interval observations (drift), ``q_time_end``.  Keeping one
 dimension per quantity lets every variable carry one standard_name and one unit, as CF requires.
@@ -11,6 +13,7 @@ dimension per quantity lets every variable carry one standard_name and one unit,
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import xarray as xr
@@ -27,7 +30,8 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
     analysis = _iso(cfg.window.analysis_time)
     time_units = f"seconds since {analysis[:-1].replace('T', ' ')}"
     data_vars, encoding = {}, {}
-    for name in [q for q in QUANTITIES if q in set(superobs["quantity"])]:
+    present = set(superobs["quantity"].unique())  # once, not once per known quantity
+    for name in [q for q in QUANTITIES if q in present]:
         q = QUANTITIES[name]
         sub = superobs[superobs["quantity"] == name]
         dim = f"{name}_obs"
@@ -41,12 +45,14 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
         var("", sub["value"], standard_name=q.standard_name, units=q.units, long_name=f"super-observation of {q.long_name}",
             coordinates=coords, ancillary_variables=f"{name}_error {name}_count {name}_spread")
         var("error", sub["error"], standard_name=f"{q.standard_name} standard_error", units=q.units,
-            long_name="total super-observation error (1-sigma): max(floor, sqrt(instrument^2 + representation^2))")
+            long_name="total super-observation error (1-sigma): max(floor, sqrt(observation part^2 + representation^2)), "
+                      "the observation part being the instrument or the spread part (see error_basis)")
         var("error_instrument", sub["error_instrument"], units=q.units,
             long_name="instrument part of the super-observation error (1-sigma), from the raw errors and the within-sensor correlation")
         var("error_representation", sub["error_representation"], units=q.units,
             long_name="representation error added in quadrature (1-sigma)")
         var("spread", sub["spread"], units=q.units, long_name="sample standard deviation of the raw values in the group (ddof=1)")
+        _error_parts(var, sub, q)
         var("count", sub["count"].astype(np.int32), standard_name="number_of_observations", units="1",
             long_name="number of raw observations in the super-observation")
         var("lon", sub["lon"], standard_name="longitude", units="degrees_east", long_name="mean position on the sphere, longitude")
@@ -84,12 +90,47 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
         "window_end": _iso(cfg.window.end),
         "slot_seconds": float(cfg.window.slot_seconds),
         "superobs_mode": cfg.superobs.get("mode", "mean"),
+        "spread_combination": cfg.superobs.get("spread_combination", "instrument"),
+        "configuration_file": str(cfg.path.resolve()) if getattr(cfg, "path", None) else "",
         "grid_shape": f"ny={grid.ny} nx={grid.nx} nk={len(grid.layer_interfaces) - 1}",
         "layer_interfaces_m": np.asarray(grid.layer_interfaces, dtype=float),
         "configuration": json.dumps(cfg.raw, default=str),
         "input_files": json.dumps(inputs),
     }
     return ds, encoding
+
+
+def cf_flag_meaning(label: str) -> str:
+    """An error-origin label as a CF flag meaning (letters, digits, '_', '-', '.')."""
+    text = str(label).replace("*", "_times_").replace("+", "_plus_")
+    return re.sub(r"[^A-Za-z0-9_.-]", "_", text) or "unset"
+
+
+def _error_parts(var, sub, q) -> None:
+    """The spread-based error, the basis and origin flags and the raw rms error of ``sub``."""
+    from ..superobs.errors import ERROR_BASIS
+
+    if "error_spread" not in sub:
+        return
+    var("error_spread", sub["error_spread"], units=q.units,
+        long_name="spread-based error (1-sigma): spread * sqrt((1 + (n-1) rho) / (n (1 - rho))); "
+                  "NaN for n < 2")
+    var("error_raw_rms", sub["error_raw_rms"], units=q.units,
+        long_name="root mean square of the assigned raw errors in the group, sqrt(sum sigma_i^2 / n)")
+    if q.surface is False:
+        var("spread_detrended", sub["spread_detrended"], units=q.units,
+            long_name="standard deviation of the raw values about a straight line in depth (ddof=2)")
+    var("error_basis", sub["error_basis"].astype(np.int8), units="1",
+        long_name="which term set the total error",
+        flag_values=np.array(list(ERROR_BASIS.values()), dtype=np.int8),
+        flag_meanings=" ".join(ERROR_BASIS))
+    labels = sorted(set(sub["error_origin"].astype(str)))
+    codes = np.searchsorted(np.array(labels, dtype=object), sub["error_origin"].astype(str).to_numpy())
+    var("error_origin", codes.astype(np.int8), units="1",
+        long_name="raw error rule of the values in the group (origin of their errors)",
+        flag_values=np.arange(len(labels), dtype=np.int8),
+        flag_meanings=" ".join(cf_flag_meaning(label) for label in labels),
+        comment="rules as labelled in the configuration: " + ", ".join(labels))
 
 
 def write_netcdf(ds: xr.Dataset, encoding: dict, path) -> None:

@@ -1,0 +1,473 @@
+"""obsprep benchmarks: every goal of the scale issue, measured side by side in one run.
+
+    python benchmarks/run.py            # full sizes (about 10-15 minutes on 2 cores)
+    python benchmarks/run.py --quick    # smoke-test sizes (about 1-2 minutes)
+    python benchmarks/run.py --record   # also write the table into benchmarks/README.md
+
+Run from the repository root (or with obsprep installed).  Synthetic data (benchmarks/synthetic.py)
+are written once to --data (default: $TMPDIR/obsprep-benchmark-data) and reused.
+
+Timings: in-process comparisons are the median of --repeats runs, the two sides interleaved so
+a drift of the machine's speed hits both; whole builds and the netCDF4 read baseline are timed
+as whole processes (wall clock, and peak RSS from the operating system's accounting of that
+child, ``os.wait4``), also interleaved.  The machine is shared and noisy: compare ratios.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import os
+import platform
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+sys.path.insert(0, str(HERE))
+sys.path.insert(0, str(ROOT))
+
+import synthetic  # noqa: E402
+
+SIZES = {
+    "full": dict(accumulate=20_000_000, projected=5_000_000, curvilinear=2_000_000,
+                 pixels_per_granule=2_500_000, e2e=50_000_000, memory=(10_000_000, 100_000_000),
+                 scaling=(1_000_000, 10_000_000, 100_000_000), jobs=10_000_000),
+    "quick": dict(accumulate=2_000_000, projected=500_000, curvilinear=200_000,
+                  pixels_per_granule=500_000, e2e=2_000_000, memory=(1_000_000, 4_000_000),
+                  scaling=(500_000, 1_000_000, 4_000_000), jobs=2_000_000),
+}
+GIB = 2.0 ** 30
+
+
+def median_time(function, repeats):
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        function()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times), times
+
+
+def interleaved(functions: dict, repeats: int) -> dict:
+    """Median seconds of each function, run A B C A B C ... (after one warm-up round)."""
+    times = {name: [] for name in functions}
+    for name, function in functions.items():
+        function()  # warm-up: caches, lazily built tables, imports
+    for _ in range(repeats):
+        for name, function in functions.items():
+            start = time.perf_counter()
+            function()
+            times[name].append(time.perf_counter() - start)
+    return {name: statistics.median(values) for name, values in times.items()}
+
+
+def run_process(args, env=None) -> tuple[float, float, int]:
+    """Run a command as a child process: (wall seconds, peak RSS in bytes, exit status)."""
+    start = time.perf_counter()
+    child = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    _, status, usage = os.wait4(child.pid, 0)
+    wall = time.perf_counter() - start
+    child.returncode = os.waitstatus_to_exitcode(status)
+    stderr = child.stderr.read().decode(errors="replace")
+    child.stderr.close()
+    if child.returncode != 0:
+        raise RuntimeError(f"{' '.join(map(str, args))} failed ({child.returncode}):\n{stderr}")
+    return wall, usage.ru_maxrss * 1024.0, child.returncode
+
+
+# ------------------------------------------------------------------------------------------
+# accumulation
+
+def bench_accumulation(n, repeats):
+    import pandas as pd
+    from scipy.stats import binned_statistic_dd
+
+    from obsprep.superobs import Accumulator
+
+    nx, ny, n_slots = 800, 880, 4
+    i, j, slot, value, error, rng = synthetic.random_observations(n, nx, ny, n_slots)
+    time_s = rng.uniform(-86400.0, 0.0, n)
+    lon = rng.uniform(-60.0, 0.0, n)
+    lat = rng.uniform(60.0, 80.0, n)
+    correlation = 0.2
+    results = {}
+
+    def obsprep_run():
+        accumulator = Accumulator.from_observations({"slot": slot, "j": j, "i": i}, value, error,
+                                                    time_s, lon, lat, 0.0)
+        results["obsprep"] = accumulator.finalize(mode="mean", correlation=correlation)
+
+    frame = pd.DataFrame({"slot": slot, "j": j, "i": i, "value": value, "variance": error ** 2,
+                          "sigma": error})
+
+    def pandas_run():
+        grouped = frame.groupby(["slot", "j", "i"])
+        out = grouped.agg(count=("value", "size"), value=("value", "mean"),
+                          spread=("value", "std"), sum_variance=("variance", "sum"),
+                          sum_sigma=("sigma", "sum"))
+        # error of the equal-weight mean with common correlation rho (README formula)
+        n_obs = out["count"]
+        out["error"] = np.sqrt(out["sum_variance"] + correlation * (out["sum_sigma"] ** 2
+                                                                    - out["sum_variance"])) / n_obs
+        results["pandas"] = out
+
+    sample = np.column_stack([slot, j, i]).astype(np.float64)
+    bins = [np.arange(n_slots + 1) - 0.5, np.arange(ny + 1) - 0.5, np.arange(nx + 1) - 0.5]
+
+    def scipy_run():
+        count = binned_statistic_dd(sample, value, "count", bins=bins)
+        stats = binned_statistic_dd(sample, [value, error ** 2, error], "sum", bins=bins,
+                                    binned_statistic_result=count)
+        spread = binned_statistic_dd(sample, value, "std", bins=bins,
+                                     binned_statistic_result=count)
+        c = count.statistic
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = stats.statistic[0] / c
+            sample_spread = spread.statistic * np.sqrt(c / (c - 1))
+            err = np.sqrt(stats.statistic[1] + correlation * (stats.statistic[2] ** 2
+                                                             - stats.statistic[1])) / c
+        results["scipy"] = (c, mean, sample_spread, err)
+
+    medians = interleaved({"obsprep": obsprep_run, "pandas": pandas_run, "scipy": scipy_run},
+                          repeats)
+    # the three agree (a benchmark that computes something else would be no comparison)
+    ours, ref = results["obsprep"], results["pandas"].reset_index()
+    agree = (len(ours) == len(ref) and np.array_equal(ours["count"], ref["count"])
+             and np.allclose(ours["value"], ref["value"], rtol=1e-12, atol=1e-9)
+             and np.allclose(ours["spread"], ref["spread"], rtol=1e-9, equal_nan=True)
+             and np.allclose(ours["error"], ref["error"], rtol=1e-9))
+    c = results["scipy"][0].ravel()
+    agree &= int(c.sum()) == n and np.array_equal(c[c > 0], ours["count"].to_numpy())
+    return medians, agree
+
+
+# ------------------------------------------------------------------------------------------
+# geolocation
+
+def bench_projected(n, repeats):
+    from pyproj import Transformer
+
+    from obsprep.grid import ProjectedGrid
+
+    g = synthetic.GRID
+    grid = ProjectedGrid(g["crs"], g["x_min"], g["y_min"], g["dx"], g["dy"], g["nx"], g["ny"])
+    rng = np.random.default_rng(3)
+    x = rng.uniform(g["x_min"] - 1e5, g["x_min"] + g["nx"] * g["dx"] + 1e5, n)
+    y = rng.uniform(g["y_min"] - 1e5, g["y_min"] + g["ny"] * g["dy"] + 1e5, n)
+    lon, lat = Transformer.from_crs(g["crs"], "EPSG:4326", always_xy=True).transform(x, y)
+    forward = Transformer.from_crs("EPSG:4326", g["crs"], always_xy=True)
+    out = {}
+
+    def ours():
+        out["ours"] = grid.locate(lon, lat)
+
+    def reference():
+        px, py = forward.transform(lon, lat)
+        fi = np.floor((px - g["x_min"]) / g["dx"])
+        fj = np.floor((py - g["y_min"]) / g["dy"])
+        inside = (fi >= 0) & (fi < g["nx"]) & (fj >= 0) & (fj < g["ny"])
+        out["ref"] = (np.where(inside, fi, -1).astype(np.int64),
+                      np.where(inside, fj, -1).astype(np.int64))
+
+    medians = interleaved({"obsprep": ours, "pyproj": reference}, repeats)
+    same = int(((out["ours"][0] == out["ref"][0]) & (out["ours"][1] == out["ref"][1])).sum())
+    return medians, n - same
+
+
+def curvilinear_points(lon_c, lat_c, n, seed=4):
+    """Positions spread over the grid: random fractional indices, bilinear in unit vectors."""
+    from scipy.ndimage import map_coordinates
+
+    from obsprep.grid.sphere import unit_vectors_from_lonlat
+
+    rng = np.random.default_rng(seed)
+    ny, nx = lon_c.shape
+    fi = rng.uniform(-0.4, nx - 0.6, n)
+    fj = rng.uniform(-0.4, ny - 0.6, n)
+    r = unit_vectors_from_lonlat(lon_c, lat_c)
+    p = np.stack([map_coordinates(r[..., k], [fj, fi], order=1, mode="nearest")
+                  for k in range(3)], axis=-1)
+    p /= np.linalg.norm(p, axis=1)[:, None]
+    return np.degrees(np.arctan2(p[:, 1], p[:, 0])), np.degrees(np.arcsin(p[:, 2]))
+
+
+def bench_curvilinear(n, repeats):
+    from scipy.spatial import cKDTree
+
+    from obsprep.grid import CurvilinearGrid
+    from obsprep.grid.sphere import unit_vectors_from_lonlat
+
+    lon_c, lat_c = synthetic.curvilinear_grid()
+    fast = CurvilinearGrid(lon_c, lat_c)
+    by_tree = CurvilinearGrid(lon_c, lat_c)
+    by_tree.first_guess = "tree"
+    lon, lat = curvilinear_points(lon_c, lat_c, n)
+    tree = cKDTree(unit_vectors_from_lonlat(lon_c, lat_c).reshape(-1, 3))
+    out = {}
+
+    def ours():
+        out["ours"] = fast.locate(lon, lat)
+
+    def kdtree():
+        _, out["nearest"] = tree.query(unit_vectors_from_lonlat(lon, lat))
+
+    medians = interleaved({"obsprep": ours, "kdtree": kdtree}, repeats)
+    i, j = out["ours"]
+    i_tree, j_tree = by_tree.locate(lon, lat)  # the same cells by the KD-tree first guess
+    differ = (i != i_tree) | (j != j_tree)
+    jn, in_ = np.divmod(out["nearest"], lon_c.shape[1])
+    nearest_differs = int(((i != in_) | (j != jn)).sum())
+    return medians, int(differ.sum()), nearest_differs
+
+
+# ------------------------------------------------------------------------------------------
+# whole builds
+
+def day(data_dir: Path, total: int, per_granule: int) -> list:
+    """Granule paths of a synthetic day of about ``total`` pixels (written once)."""
+    directory = data_dir / f"granules_{per_granule}"
+    n_granules = max(1, int(round(total / per_granule)))
+    paths = synthetic.write_day(directory, per_granule * n_granules,
+                                pixels_per_granule=per_granule)
+    return paths[:n_granules]
+
+
+def config_for(paths, work: Path, name: str) -> Path:
+    listing = work / f"{name}.list"
+    listing.mkdir(parents=True, exist_ok=True)
+    for old in listing.iterdir():
+        old.unlink()
+    for path in paths:  # a directory of links selects exactly these granules
+        (listing / path.name).symlink_to(path)
+    toml = work / f"{name}.toml"
+    toml.write_text(synthetic.config_toml(str(listing / "synth_l2p_*.nc"), str(work / f"{name}.out")))
+    return toml
+
+
+def build_command(toml, jobs=1, out=None):
+    command = [sys.executable, "-m", "obsprep", "build", str(toml), "--quiet", "--jobs", str(jobs)]
+    if out is not None:
+        command += ["--out", str(out)]
+    return command
+
+
+def read_command(paths):
+    code = ("import sys; sys.path.insert(0, %r); import synthetic; "
+            "synthetic.read_needed_variables(%r)" % (str(HERE), [str(p) for p in paths]))
+    return [sys.executable, "-c", code]
+
+
+def environment():
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(ROOT)] + [p for p in [env.get("PYTHONPATH")] if p])
+    return env
+
+
+def timed_pair(a, b, env, repeats):
+    """Whole-process wall time and peak RSS of commands a and b, interleaved."""
+    result = {"a": [], "b": [], "a_rss": [], "b_rss": []}
+    for _ in range(repeats):
+        for key, command in (("a", a), ("b", b)):
+            wall, rss, _ = run_process(command, env)
+            result[key].append(wall)
+            result[key + "_rss"].append(rss)
+    return {k: statistics.median(v) for k, v in result.items()}
+
+
+def superobs_variables_identical(path_a, path_b) -> bool:
+    import xarray as xr
+
+    with xr.open_dataset(path_a) as a, xr.open_dataset(path_b) as b:
+        if set(a.data_vars) != set(b.data_vars):
+            return False
+        return all(np.array_equal(a[v].values, b[v].values, equal_nan=a[v].dtype.kind == "f")
+                   for v in a.data_vars)
+
+
+# ------------------------------------------------------------------------------------------
+
+def machine_line():
+    import numpy
+    import pandas
+    import scipy
+
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    memory = ""
+    try:
+        with open("/proc/meminfo") as fh:
+            memory = f", {int(fh.readline().split()[1]) / 2**20:.0f} GiB"
+    except (OSError, ValueError, IndexError):
+        pass
+    return (f"{cpu}, {os.cpu_count()} cores{memory}; Python {platform.python_version()}, "
+            f"numpy {numpy.__version__}, pandas {pandas.__version__}, scipy {scipy.__version__}")
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes for a smoke run")
+    parser.add_argument("--repeats", type=int, default=3, help="in-process repeats (median)")
+    parser.add_argument("--process-repeats", type=int, default=1,
+                        help="repeats of each whole-process build/read (median)")
+    parser.add_argument("--data", type=Path,
+                        default=Path(tempfile.gettempdir()) / "obsprep-benchmark-data",
+                        help="where the synthetic data are written and reused")
+    parser.add_argument("--record", action="store_true",
+                        help="write the table into benchmarks/README.md")
+    parser.add_argument("--only", default="", help="comma list: accumulation, geolocation, "
+                        "build (end to end, memory, scaling, jobs); default all")
+    args = parser.parse_args(argv)
+    size = SIZES["quick" if args.quick else "full"]
+    only = {s.strip() for s in args.only.split(",") if s.strip()} or {
+        "accumulation", "geolocation", "build"}
+    rows = []  # (benchmark, obsprep, reference, ratio, goal, met)
+    started = dt.datetime.now(dt.timezone.utc)
+
+    def log(text):
+        print(text, file=sys.stderr, flush=True)
+
+    if "accumulation" in only:
+        n = size["accumulate"]
+        log(f"accumulation: {n:,} observations, 800 x 880 cells, 4 slots ...")
+        medians, agree = bench_accumulation(n, args.repeats)
+        speedup = medians["pandas"] / medians["obsprep"]
+        rows.append((f"accumulate {n / 1e6:g} M obs, 800x880x4 (count, mean, spread, error)",
+                     f"{medians['obsprep']:.2f} s", f"pandas groupby {medians['pandas']:.2f} s; "
+                     f"scipy binned_statistic_dd {medians['scipy']:.2f} s",
+                     f"{speedup:.2f}x vs pandas, {medians['scipy'] / medians['obsprep']:.2f}x "
+                     f"vs scipy", ">= 5x faster than pandas; same results",
+                     speedup >= 5.0 and agree))
+        if not agree:
+            log("  WARNING: obsprep, pandas and scipy results disagree")
+
+    if "geolocation" in only:
+        n = size["projected"]
+        log(f"geolocation: projected grid, {n:,} positions ...")
+        medians, differ = bench_projected(n, args.repeats)
+        rows.append((f"locate {n / 1e6:g} M positions, projected 800x880 grid",
+                     f"{medians['obsprep']:.2f} s", f"pyproj transform + floor "
+                     f"{medians['pyproj']:.2f} s",
+                     f"{medians['pyproj'] / medians['obsprep']:.2f}x; {differ} cells differ",
+                     "(reference only) identical cells", differ == 0))
+        n = size["curvilinear"]
+        log(f"geolocation: curvilinear grid, {n:,} positions ...")
+        medians, differ, nearest_differs = bench_curvilinear(n, args.repeats)
+        speedup = medians["kdtree"] / medians["obsprep"]
+        rows.append((f"locate {n / 1e6:g} M positions, curvilinear 800x880 grid",
+                     f"{medians['obsprep']:.2f} s", f"cKDTree nearest-centre query "
+                     f"{medians['kdtree']:.2f} s",
+                     f"{speedup:.2f}x; {differ} cells differ from the KD-tree-guided search; "
+                     f"{nearest_differs} differ from the nearest centre (cell edges are not "
+                     f"equidistant on a sheared grid)",
+                     ">= 3x faster than the KD-tree, identical cells", speedup >= 3.0
+                     and differ == 0))
+
+    if "build" in only:
+        env = environment()
+        per = size["pixels_per_granule"]
+        with tempfile.TemporaryDirectory(prefix="obsprep-bench-") as tmp:
+            work = Path(tmp)
+            n = size["e2e"]
+            log(f"end to end: build on {n:,} pixels of GDS 2.0 style swaths ...")
+            paths = day(args.data, n, per)
+            toml = config_for(paths, work, "e2e")
+            timing = timed_pair(build_command(toml), read_command(paths), env,
+                                args.process_repeats)
+            ratio = timing["a"] / timing["b"]
+            rows.append((f"build, {len(paths)} granules, {n / 1e6:g} M pixels (whole process)",
+                         f"{timing['a']:.1f} s", f"netCDF4 read of the needed variables "
+                         f"{timing['b']:.1f} s", f"{ratio:.1f}x the read time",
+                         "<= 1.5x the read time", ratio <= 1.5))
+
+            log("memory and scaling ...")
+            builds = {}
+            for total in sorted(set(size["memory"]) | set(size["scaling"])):
+                paths_n = day(args.data, total, min(per, total))
+                toml_n = config_for(paths_n, work, f"n{total}")
+                walls, rss = [], []
+                for _ in range(args.process_repeats):
+                    wall, peak, _ = run_process(build_command(toml_n), env)
+                    walls.append(wall)
+                    rss.append(peak)
+                builds[total] = (statistics.median(walls), max(rss), len(paths_n))
+            for total in size["memory"]:
+                wall, peak, files = builds[total]
+                rows.append((f"peak RSS of the build, {total / 1e6:g} M observations "
+                             f"({files} files)", f"{peak / GIB:.2f} GiB", "-", "-",
+                             "< 2 GiB", peak < 2 * GIB))
+            per_million = [builds[t][0] / (t / 1e6) for t in size["scaling"]]
+            growth = per_million[-1] / per_million[1]
+            rows.append(("scaling: build time at " + ", ".join(
+                f"{t / 1e6:g} M" for t in size["scaling"]),
+                ", ".join(f"{builds[t][0]:.1f} s" for t in size["scaling"]),
+                "s per million: " + ", ".join(f"{v:.2f}" for v in per_million),
+                f"{growth:.2f} (per-million time, largest / middle size)",
+                "linear: per-million time within 25 % from the middle to the largest size",
+                0.75 <= growth <= 1.25))
+
+            n = size["jobs"]
+            log(f"--jobs 1 against --jobs 2 on {n:,} pixels ...")
+            paths_j = day(args.data, n, min(per, n))
+            toml_j = config_for(paths_j, work, "jobs")
+            out1, out2 = work / "jobs1", work / "jobs2"
+            timing = timed_pair(build_command(toml_j, 1, out1), build_command(toml_j, 2, out2),
+                                env, args.process_repeats)
+            name = "superobs_20261120.nc"
+            identical = superobs_variables_identical(out1 / name, out2 / name)
+            rows.append((f"--jobs 1 vs --jobs 2, {len(paths_j)} files, {n / 1e6:g} M pixels",
+                         f"jobs 2: {timing['b']:.1f} s", f"jobs 1: {timing['a']:.1f} s",
+                         f"{timing['a'] / timing['b']:.2f}x faster; outputs "
+                         f"{'bit-for-bit identical' if identical else 'DIFFER'}",
+                         "(2 cores) faster, identical data variables",
+                         identical and timing["b"] < timing["a"]))
+
+    table = format_table(rows, started, args)
+    print(table)
+    if args.record:
+        record(table)
+    return 0
+
+
+def format_table(rows, started, args) -> str:
+    lines = [f"Run {started:%Y-%m-%d %H:%M} UTC, `python benchmarks/run.py"
+             f"{' --quick' if args.quick else ''}` (repeats {args.repeats}, process repeats "
+             f"{args.process_repeats})", "", f"Machine: {machine_line()}", "",
+             "| benchmark | obsprep | reference | ratio | goal | met |",
+             "|---|---|---|---|---|---|"]
+    for name, ours, reference, ratio, goal, met in rows:
+        lines.append(f"| {name} | {ours} | {reference} | {ratio} | {goal} | "
+                     f"{'yes' if met else 'no'} |")
+    return "\n".join(lines)
+
+
+BEGIN, END = "<!-- benchmark results: begin -->", "<!-- benchmark results: end -->"
+
+
+def record(table: str) -> None:
+    readme = HERE / "README.md"
+    text = readme.read_text() if readme.exists() else ""
+    block = f"{BEGIN}\n{table}\n{END}"
+    if BEGIN in text and END in text:
+        head, rest = text.split(BEGIN, 1)
+        text = head + block + rest.split(END, 1)[1]
+    else:
+        text = text.rstrip("\n") + "\n\n" + block + "\n"
+    readme.write_text(text)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

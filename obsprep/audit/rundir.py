@@ -1,0 +1,154 @@
+"""Reading a build output directory: super-observation files, ledgers, configuration, grid.
+
+A run directory holds ``superobs_*.nc`` (any ``*.nc`` written by ``obsprep build``, recognised by
+its ``featureType = point`` and ``configuration`` attribute) and, beside each, the ledger
+``<stem>_ledger.csv``.  All super-observations become one long table with one row per
+super-observation: ``quantity``, ``sensor``, ``value``, the error parts, position, time and grid
+indices; a ``run`` column names the file.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..exceptions import InputFileError
+from ..quantities import QUANTITIES
+
+#: per-quantity variable suffixes read into the long table (missing ones become NaN)
+SUFFIXES = ("error", "error_instrument", "error_representation", "error_spread", "error_raw_rms",
+            "error_basis", "error_origin", "spread", "spread_detrended", "count", "lon", "lat",
+            "depth", "time", "time_offset", "slot", "i", "j", "k", "sensor", "profile",
+            "time_end")
+
+
+@dataclass
+class RunData:
+    """Everything the audit reads from a run directory."""
+
+    directory: Path
+    superobs: pd.DataFrame
+    ledger: pd.DataFrame
+    configuration: dict
+    configuration_file: str = ""
+    files: list = field(default_factory=list)
+
+    def correlation(self, sensor: str) -> float:
+        """Within-sensor error correlation of an output sensor (0 when not configured)."""
+        merged = self.configuration.get("superobs", {}).get("merge_sensors", {})
+        for source in self.configuration.get("sources", []):
+            name = source["sensor"]
+            out = next((m for m, members in merged.items() if name in members), name)
+            if out == sensor:
+                return float(source.get("correlation", 0.0))
+        return 0.0
+
+    def output_sensor(self, source_sensor: str) -> str:
+        """The output sensor a source is written under (after merging)."""
+        merged = self.configuration.get("superobs", {}).get("merge_sensors", {})
+        return next((m for m, members in merged.items() if source_sensor in members),
+                    source_sensor)
+
+    def grid(self, config_file=None):
+        """The model grid of the run, rebuilt from its stored configuration.
+
+        Relative grid paths resolve against the directory of ``config_file`` when given, else
+        of the configuration file recorded in the output, else the run directory's parent or
+        the run directory itself (the first where the grid files exist).
+        """
+        from ..grid import grid_from_config
+
+        grid_cfg = self.configuration["grid"]
+        candidates = []
+        if config_file:
+            candidates.append(Path(config_file).resolve().parent)
+        if self.configuration_file:
+            candidates.append(Path(self.configuration_file).parent)
+        candidates += [self.directory.resolve().parent, self.directory.resolve(), Path.cwd()]
+        needed = [grid_cfg[k] for k in ("file", "mask_file") if k in grid_cfg]
+        for base in candidates:
+            if all((base / p).exists() for p in needed):
+                return grid_from_config(grid_cfg, base)
+        raise InputFileError(self.files[0] if self.files else self.directory,
+                             f"cannot find the grid files {needed} of the run's configuration "
+                             f"(looked in {', '.join(map(str, candidates))}); give --config")
+
+
+def _quantity_frame(ds, name) -> pd.DataFrame:
+    n = ds.sizes[f"{name}_obs"]
+    columns = {"quantity": np.full(n, name, dtype=object), "value": ds[name].to_numpy()}
+    for suffix in SUFFIXES:
+        key = f"{name}_{suffix}"
+        if key in ds:
+            values = ds[key].to_numpy()
+            if suffix == "error_origin":
+                meanings = str(ds[key].attrs.get("flag_meanings", "")).split()
+                flags = np.atleast_1d(ds[key].attrs.get("flag_values", np.arange(len(meanings))))
+                order = np.argsort(flags)
+                position = np.clip(np.searchsorted(flags[order], values), 0, len(flags) - 1)
+                values = np.asarray(meanings, dtype=object)[order][position]
+            columns[suffix] = values
+        elif suffix in ("time", "time_end"):
+            columns[suffix] = np.full(n, np.datetime64("NaT", "ns"))
+        elif suffix in ("sensor", "profile", "error_origin"):
+            columns[suffix] = np.full(n, "", dtype=object)
+        else:
+            columns[suffix] = np.full(n, np.nan)
+    return pd.DataFrame(columns)
+
+
+def read_superobs_file(path) -> tuple[pd.DataFrame, dict]:
+    """One super-observation file as a long table, and its global attributes."""
+    import xarray as xr
+
+    try:
+        ds = xr.open_dataset(path)
+    except (OSError, ValueError) as exc:
+        raise InputFileError(path, f"cannot open as netCDF ({exc})") from exc
+    with ds:
+        frames = [_quantity_frame(ds, q) for q in QUANTITIES if f"{q}_obs" in ds.dims and q in ds]
+        attrs = dict(ds.attrs)
+    frame = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
+        columns=["quantity", "value", *SUFFIXES])
+    for col in ("sensor", "profile", "quantity", "error_origin"):
+        frame[col] = frame[col].astype(object).astype(str)
+    return frame, attrs
+
+
+def load_run(run_dir) -> RunData:
+    """Read every super-observation file of ``run_dir`` with its ledger.
+
+    Raises InputFileError when the directory holds no super-observation file.
+    """
+    directory = Path(run_dir)
+    if not directory.is_dir():
+        raise InputFileError(directory, "not a directory; expected a build output directory")
+    frames, ledgers, files = [], [], []
+    configuration, configuration_file = {}, ""
+    for path in sorted(directory.glob("*.nc")):
+        frame, attrs = read_superobs_file(path)
+        if attrs.get("featureType") != "point" or "configuration" not in attrs:
+            continue
+        frame["run"] = path.name
+        frames.append(frame)
+        files.append(path)
+        configuration = json.loads(attrs["configuration"])
+        configuration_file = str(attrs.get("configuration_file", ""))
+        ledger_path = path.with_name(f"{path.stem}_ledger.csv")
+        if ledger_path.exists():
+            ledger = pd.read_csv(ledger_path)
+            ledger["run"] = path.name
+            ledgers.append(ledger)
+    if not frames:
+        raise InputFileError(directory, "no super-observation file (*.nc written by obsprep "
+                                        "build) in this directory")
+    superobs = pd.concat(frames, ignore_index=True)
+    ledger = pd.concat(ledgers, ignore_index=True) if ledgers else pd.DataFrame(
+        columns=["file", "sensor", "read", "kept"])
+    return RunData(directory=directory, superobs=superobs, ledger=ledger,
+                   configuration=configuration, configuration_file=configuration_file,
+                   files=files)

@@ -1,0 +1,101 @@
+"""Triple collocation: each sensor's error from three collocated sensors of one quantity.
+
+For three collocated estimates x_k = t + e_k of the same truth t with mutually independent
+errors, independent of t, and a common calibration (Stoffelen 1998, J. Geophys. Res. 103(C4),
+7755-7766):
+
+.. math::
+    \\sigma_1^2 = \\langle (x_1 - x_2)(x_1 - x_3) \\rangle, \\quad
+    \\sigma_2^2 = \\langle (x_2 - x_1)(x_2 - x_3) \\rangle, \\quad
+    \\sigma_3^2 = \\langle (x_3 - x_1)(x_3 - x_2) \\rangle
+
+since (x_1 - x_2)(x_1 - x_3) = (e_1 - e_2)(e_1 - e_3), whose expectation is E[e_1^2].  Here the
+average is the sample covariance of u = x_1 - x_2 and v = x_1 - x_3 (means removed, ddof = 1),
+which also removes constant biases between the sensors.
+
+Sampling uncertainty: the sample covariance c of n independent pairs (u, v) has the asymptotic
+variance (mu_22 - c^2) / n with mu_22 = E[(u - u_mean)^2 (v - v_mean)^2] (the delta method for
+a sample covariance; for Gaussian (u, v) this is (var u var v + c^2) / n, textbook moments).
+The standard error of sigma = sqrt(c) follows as se(c) / (2 sigma).
+"""
+
+from __future__ import annotations
+
+from itertools import combinations
+
+import numpy as np
+import pandas as pd
+
+from .collocation import matched, sensors_by_quantity
+
+
+def covariance_with_standard_error(u, v) -> tuple[float, float]:
+    """Sample covariance (ddof = 1) of u and v and its asymptotic standard error
+    sqrt((mean(u'^2 v'^2) - c^2) / n), u', v' the centred values."""
+    u = np.asarray(u, dtype=np.float64)
+    v = np.asarray(v, dtype=np.float64)
+    n = u.size
+    if n < 3:
+        return np.nan, np.nan
+    du, dv = u - u.mean(), v - v.mean()
+    c = float(np.sum(du * dv) / (n - 1))
+    fourth = float(np.mean(du * du * dv * dv))
+    return c, float(np.sqrt(max(fourth - c * c, 0.0) / n))
+
+
+def triple_collocation(x1, x2, x3) -> dict:
+    """Error variances of three collocated series (Stoffelen 1998), with standard errors.
+
+    Parameters
+    ----------
+    x1, x2, x3 : arrays of the same length, same units
+
+    Returns
+    -------
+    dict
+        ``n``, ``variance`` (3 values, units squared; may be negative from sampling when an
+        error is small), ``variance_se``, ``sigma`` (sqrt of the variance, NaN where it is not
+        positive) and ``sigma_se`` = variance_se / (2 sigma).
+    """
+    x = [np.asarray(a, dtype=np.float64) for a in (x1, x2, x3)]
+    variance, variance_se = [], []
+    for k in range(3):  # the three cyclic estimates
+        own, first, second = x[k], x[(k + 1) % 3], x[(k + 2) % 3]
+        c, se = covariance_with_standard_error(own - first, own - second)
+        variance.append(c)
+        variance_se.append(se)
+    variance = np.array(variance)
+    variance_se = np.array(variance_se)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sigma = np.where(variance > 0, np.sqrt(np.abs(variance)), np.nan)
+        sigma_se = variance_se / (2.0 * sigma)
+    return {"n": int(x[0].size), "variance": variance, "variance_se": variance_se,
+            "sigma": sigma, "sigma_se": sigma_se}
+
+
+def triple_collocation_table(superobs: pd.DataFrame, min_triplets: int = 10) -> pd.DataFrame:
+    """Per quantity with three or more sensors, one row per sensor of every triple of sensors
+    with at least ``min_triplets`` collocations: the triple-collocation error, the assigned
+    error (root mean square of the super-observation errors over the triplets) and their
+    ratio with its standard error."""
+    rows = []
+    for quantity, sensors in sensors_by_quantity(superobs).items():
+        for triple in combinations(sensors, 3):
+            table = matched(superobs, quantity, list(triple))
+            if len(table) < min_triplets:
+                continue
+            result = triple_collocation(*(table[f"value_{s}"] for s in triple))
+            for k, sensor in enumerate(triple):
+                assigned = float(np.sqrt(np.mean(table[f"error_{sensor}"] ** 2)))
+                others = [s for s in triple if s != sensor]
+                rows.append({
+                    "quantity": quantity, "sensor": sensor, "with": " ".join(others),
+                    "n": result["n"], "variance": result["variance"][k],
+                    "variance_se": result["variance_se"][k], "sigma": result["sigma"][k],
+                    "sigma_se": result["sigma_se"][k], "assigned": assigned,
+                    "ratio": result["sigma"][k] / assigned,
+                    "ratio_se": result["sigma_se"][k] / assigned,
+                })
+    columns = ["quantity", "sensor", "with", "n", "variance", "variance_se", "sigma", "sigma_se",
+               "assigned", "ratio", "ratio_se"]
+    return pd.DataFrame(rows, columns=columns)

@@ -1,0 +1,46 @@
+"""``obsprep audit``: check the assigned errors of a build against the data and a model."""
+
+from __future__ import annotations
+
+import click
+
+from .options import library_errors
+
+
+@click.command("audit")
+@click.argument("run_dir", type=click.Path(exists=True, file_okay=False))
+@click.option("--ensemble", "ensemble", multiple=True, metavar="FILE",
+              help="Ensemble on the model grid: member files (repeat the option, or a quoted "
+                   "glob) or one file with a member dimension.")
+@click.option("--background", metavar="FILE", default=None,
+              help="A single model state instead of an ensemble (innovation statistics only).")
+@click.option("--analysis", metavar="FILE", default=None,
+              help="An analysis state, for the Desroziers estimate of the observation error.")
+@click.option("--out", type=click.Path(file_okay=False), default=None,
+              help="Report folder (default RUN_DIR/audit).")
+@click.option("--tolerance", type=click.FloatRange(min=1.0, min_open=True), default=1.5,
+              show_default=True, help="Flag errors off by more than this factor.")
+@click.option("--config", type=click.Path(exists=True, dir_okay=False), default=None,
+              help="The build configuration, to find the grid files if the output does not.")
+@click.option("--no-figures", is_flag=True, help="Skip the PNG figures.")
+@library_errors
+def audit_command(run_dir, ensemble, background, analysis, out, tolerance, config, no_figures):
+    """Audit the observation errors of the build output in RUN_DIR and write a report.
+
+    Example: obsprep audit demo-run/out --ensemble demo-run/ensemble/ensemble_20261120.nc
+    """
+    from ..audit import audit
+
+    if ensemble and background:
+        raise click.UsageError("give --ensemble or --background, not both")
+    result = audit(run_dir, ensemble=list(ensemble), background=background, analysis=analysis,
+                   out=out, tolerance=tolerance, config=config, figures=not no_figures)
+    summary = result.summary
+    click.echo(f"{'sensor':<18}{'quantity':<26}{'superobs':>9}{'factor':>8}  verdict")
+    for _, row in summary.iterrows():  # one line per sensor and quantity
+        factor = row["suggested_factor"]
+        text = f"{factor:8.2f}" if factor == factor else f"{'-':>8}"
+        click.echo(f"{row['sensor']:<18}{row['quantity']:<26}{row['superobs']:>9}{text}  {row['flag']}")
+    for _, row in result.flagged.iterrows():
+        click.echo(f"FLAG {row['sensor']} ({row['quantity']}): {row['reason']}")
+    click.echo(f"report: {result.outputs['summary.md'].parent}")

@@ -1,0 +1,86 @@
+"""Writer of the demo's microwave SST product: a coarse daily L3-like grid that sees through
+clouds but not near land or ice.
+
+Microwave radiometers measure the subskin temperature through clouds, on footprints of a few
+tens of km, with errors of 0.5-0.8 K; their side lobes contaminate the cells near land, and sea
+ice hides the sea (FIELD notes; values from memory).  The demo product: a regular 0.25 degree
+grid over the sea of the model domain, one file per window day, time the centre of the day,
+subskin SST in packed int16 K, a constant stored error, and a bit mask for land, sea ice and
+cells near the coast.  Noise is Gaussian with the stored sigma, from its own random stream.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from . import truth
+from .scenario import (PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, _bounds, _create,
+                       _pack, _time_number, _variable)
+
+SENSOR = "sst_microwave"
+SIGMA_K = 0.6
+RESOLUTION_DEG = 0.25
+#: cells closer to the coast than this are flagged near_coast (side-lobe contamination)
+COAST_DISTANCE_KM = 50.0
+RANDOM_STREAM = 7
+
+
+def write_sst_microwave(scn):
+    """Write one file per window day into ``obs/sst_microwave/``; returns (paths, counts)."""
+    lon0, lon1, lat0, lat1 = SST_GRID_EXTENT
+    n_lon = int(round((lon1 - lon0) / RESOLUTION_DEG))
+    n_lat = int(round((lat1 - lat0) / RESOLUTION_DEG))
+    step_lon, step_lat = (lon1 - lon0) / n_lon, (lat1 - lat0) / n_lat
+    lon = lon0 + (np.arange(n_lon) + 0.5) * step_lon
+    lat = lat0 + (np.arange(n_lat) + 0.5) * step_lat
+    lon2, lat2 = np.meshgrid(lon, lat)
+    coast = truth.coast_distance_km(lon2, lat2)
+    sea = coast > 0.0
+    near_coast = sea & (coast < COAST_DISTANCE_KM)
+    paths, counts = [], {}
+    for day_index, day in enumerate(scn.days):
+        time = day.astype("datetime64[s]") + np.timedelta64(12 * 3600, "s")
+        rng = scn.rng(RANDOM_STREAM, day_index)
+        kelvin = (273.15 + truth.sea_surface_temperature(lon2, lat2, time)
+                  + SIGMA_K * rng.standard_normal(lon2.shape))
+        ice = sea & (truth.sea_ice_concentration(lon2, lat2, time) >= SWATH_ICE_THRESHOLD)
+        mask = np.where(sea, 0, 1) + np.where(ice, 2, 0) + np.where(near_coast, 4, 0)
+        path = scn.path(f"obs/sst_microwave/sst_mw_{day.astype(object):%Y%m%d}.nc")
+        with _create(path, "demo microwave SST (L3-like daily grid, 0.25 degree)",
+                     platform=PLATFORMS[SENSOR]) as ds:
+            ds.createDimension("time", 1)
+            ds.createDimension("lat", n_lat)
+            ds.createDimension("lon", n_lon)
+            ds.createDimension("nv", 2)
+            _variable(ds, "time", ("time",), np.float64, _time_number([time], "1981-01-01", 1.0), {
+                "standard_name": "time", "units": "seconds since 1981-01-01 00:00:00",
+                "calendar": "gregorian", "axis": "T", "comment": "daily composite, centre of the day"})
+            for name, values, step, units, axis in (("lat", lat, step_lat, "degrees_north", "Y"),
+                                                    ("lon", lon, step_lon, "degrees_east", "X")):
+                _variable(ds, name, (name,), np.float64, values, {
+                    "standard_name": "latitude" if name == "lat" else "longitude",
+                    "units": units, "axis": axis, "bounds": f"{name}_bnds"})
+                _variable(ds, f"{name}_bnds", (name, "nv"), np.float64, _bounds(values, step), {})
+            _variable(ds, "subskin_sst", ("time", "lat", "lon"), np.int16,
+                      _pack(kelvin[None], 0.01, 273.15, -32768, np.int16, sea[None]), {
+                          "standard_name": "sea_surface_subskin_temperature", "units": "K",
+                          "long_name": "microwave subskin sea surface temperature",
+                          "scale_factor": 0.01, "add_offset": 273.15,
+                          "ancillary_variables": "sst_error surface_flags"},
+                      fill=np.int16(-32768))
+            _variable(ds, "sst_error", ("time", "lat", "lon"), np.int16,
+                      _pack(np.full((1,) + lon2.shape, SIGMA_K), 0.01, 0.0, -32768, np.int16,
+                            sea[None]), {
+                          "standard_name": "sea_surface_subskin_temperature standard_error",
+                          "units": "K", "long_name": "SST error standard deviation",
+                          "scale_factor": 0.01, "add_offset": 0.0}, fill=np.int16(-32768))
+            _variable(ds, "surface_flags", ("time", "lat", "lon"), np.int8,
+                      mask[None].astype(np.int8), {
+                          "standard_name": "sea_surface_subskin_temperature status_flag",
+                          "long_name": "surface bit mask (no bit set: open water far from land)",
+                          "flag_masks": np.array([1, 2, 4], dtype=np.int8),
+                          "flag_meanings": "land sea_ice near_coast"})
+        paths.append(path)
+        counts[path.name] = {"sea": int(sea.sum()), "sea_ice": int(ice.sum()),
+                             "near_coast": int(near_coast.sum())}
+    return paths, counts

@@ -1,0 +1,277 @@
+"""Where the per-file work runs, and how its partial results are combined.
+
+The per-file work (:func:`obsprep.pipeline.process_file`) is independent from file to file and
+returns a mergeable accumulator.  It can run
+
+- in this process (``jobs=1``),
+- in local worker processes (``jobs=N``, :class:`concurrent.futures.ProcessPoolExecutor`), or
+- on an existing Dask distributed cluster (``scheduler="tcp://host:8786"``, or a
+  ``distributed.Client``), with the optional extra ``pip install obsprep[dask]``.  Dask is
+  imported only here and only on that path.
+
+Determinism.  Floating-point merging is not associative, so results are made independent of
+where and when the work ran by always combining the per-file accumulators in one fixed tree:
+the list of files in task order is cut into consecutive groups of :data:`MERGE_FAN_IN`, each
+group is merged (in task order) into one accumulator, and the same is repeated on the merged
+list until one is left (:func:`reduce_in_fixed_tree`).  Locally the tree is evaluated
+incrementally as results arrive (:class:`FixedTreeReducer`, holding at most
+``MERGE_FAN_IN - 1`` partial results per level, so memory does not grow with the number of
+files); on a cluster each group is one task running on the workers.  Both give the same tree, so
+the super-observations are bit-for-bit identical for any ``jobs``, on a cluster, and on reruns.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+
+from .superobs import Accumulator
+
+#: number of partial accumulators merged by one node of the reduction tree
+MERGE_FAN_IN = 8
+
+
+@dataclass(frozen=True)
+class FileTask:
+    """One file of one source, with its position in the task list (the merge order)."""
+
+    source: object
+    path: str
+    file_index: int
+
+
+@dataclass
+class ExecutionResult:
+    """What running every task gives: ledger entries and profile names in task order, and the
+    accumulator of all files (None when no file kept anything)."""
+
+    entries: list = field(default_factory=list)
+    profile_names: dict = field(default_factory=dict)
+    accumulator: Accumulator | None = None
+
+
+# --------------------------------------------------------------------------------------------
+# the fixed reduction tree
+
+def merge_group(items):
+    """Merge one node of the tree: the accumulators of ``items`` in their order.
+
+    ``items`` may hold accumulators, per-file results (their ``accumulator`` is taken) and None
+    (files that kept nothing), which are skipped.  A group with one accumulator returns it
+    unchanged (no re-rounding); with none, None.
+    """
+    present = []
+    for item in items:
+        accumulator = getattr(item, "accumulator", item)
+        if accumulator is not None:
+            present.append(accumulator)
+    if not present:
+        return None
+    if len(present) == 1:
+        return present[0]
+    return Accumulator.merge(present)
+
+
+def reduce_in_fixed_tree(items, fan_in: int = MERGE_FAN_IN):
+    """Reduce ``items`` (task order) with :func:`merge_group` over consecutive groups of
+    ``fan_in``, level by level, until one is left.  None for an empty list."""
+    if fan_in < 2:
+        raise ValueError(f"fan_in must be at least 2, got {fan_in}")
+    level = list(items)
+    if not level:
+        return None
+    while len(level) > 1:
+        level = [merge_group(level[start:start + fan_in]) for start in range(0, len(level), fan_in)]
+    return merge_group(level)
+
+
+class FixedTreeReducer:
+    """The tree of :func:`reduce_in_fixed_tree`, evaluated as the items arrive in task order.
+
+    ``add`` items one by one, then ``result()``.  A node is merged as soon as its ``fan_in``
+    children are known, so at most ``fan_in - 1`` partial results wait on each level.
+    """
+
+    def __init__(self, fan_in: int = MERGE_FAN_IN):
+        if fan_in < 2:
+            raise ValueError(f"fan_in must be at least 2, got {fan_in}")
+        self.fan_in = fan_in
+        self._levels: list[list] = []
+        self._count = 0
+
+    def add(self, item) -> None:
+        """Add the next item (in task order)."""
+        self._count += 1
+        self._push(0, getattr(item, "accumulator", item))
+
+    def _push(self, depth, item):
+        while len(self._levels) <= depth:
+            self._levels.append([])
+        level = self._levels[depth]
+        level.append(item)
+        if len(level) == self.fan_in:
+            self._levels[depth] = []
+            self._push(depth + 1, merge_group(level))
+
+    def result(self):
+        """The reduced accumulator (None when nothing was added or nothing was kept)."""
+        if self._count == 0:
+            return None
+        # Close the last, incomplete group of each level from the bottom up, exactly as the
+        # level-by-level loop of reduce_in_fixed_tree does.
+        depth = 0
+        while True:
+            above = any(self._levels[d] for d in range(depth + 1, len(self._levels)))
+            level = self._levels[depth] if depth < len(self._levels) else []
+            if not above:
+                return merge_group(level)
+            if level:
+                self._levels[depth] = []
+                self._push(depth + 1, merge_group(level))
+            depth += 1
+
+
+# --------------------------------------------------------------------------------------------
+# running the tasks
+
+_WORKER_CONTEXT: dict = {}
+
+
+def _init_worker(cfg, grid, sensor_names, strict):
+    """Process-pool initializer: keep the config and the grid (with its cached search tables)
+    in the worker, so each task ships only (source, path, file index)."""
+    _WORKER_CONTEXT.update(cfg=cfg, grid=grid, sensor_names=sensor_names, strict=strict)
+
+
+def _run_in_worker(task: FileTask):
+    from .pipeline import process_file
+
+    c = _WORKER_CONTEXT
+    return process_file(c["cfg"], c["grid"], task.source, task.path, task.file_index,
+                        c["sensor_names"], c["strict"])
+
+
+def _run_here(cfg, grid, sensor_names, strict, task: FileTask):
+    from .pipeline import process_file
+
+    return process_file(cfg, grid, task.source, task.path, task.file_index, sensor_names, strict)
+
+
+def _collect(results, reducer, outcome, bar):
+    for result in results:
+        outcome.entries.append(result.entry)
+        outcome.profile_names.update(result.profile_names)
+        reducer.add(result)
+        if bar is not None:
+            bar.update()
+
+
+def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler=None,
+              progress=False) -> ExecutionResult:
+    """Run :func:`~obsprep.pipeline.process_file` for every task and reduce the accumulators.
+
+    Parameters
+    ----------
+    cfg, grid, sensor_names, strict
+        As for :func:`~obsprep.pipeline.process_file`.
+    tasks : list of FileTask
+        In merge order (``file_index`` is the position).
+    jobs : int
+        Local worker processes (1: in this process).  Ignored when ``scheduler`` is given.
+    scheduler : str or distributed.Client, optional
+        Address of a running Dask scheduler (or a client) to run the tasks on.
+    progress : bool
+        Show a progress bar over the files.
+
+    Returns
+    -------
+    ExecutionResult
+    """
+    bar = None
+    if progress and tasks:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(tasks), unit="file", desc="obsprep build", leave=False)
+    try:
+        if scheduler is not None:
+            return _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar)
+        outcome = ExecutionResult()
+        reducer = FixedTreeReducer()
+        if jobs and jobs > 1 and len(tasks) > 1:
+            with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), initializer=_init_worker,
+                                     initargs=(cfg, grid, sensor_names, strict)) as pool:
+                _collect(pool.map(_run_in_worker, tasks), reducer, outcome, bar)
+        else:
+            _collect((_run_here(cfg, grid, sensor_names, strict, t) for t in tasks), reducer,
+                     outcome, bar)
+        outcome.accumulator = reducer.result()
+        return outcome
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+# --------------------------------------------------------------------------------------------
+# Dask distributed
+
+def _summary(result):
+    return result.entry, result.profile_names
+
+
+def _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar) -> ExecutionResult:
+    """Submit the per-file tasks and the fixed merge tree to a Dask cluster.
+
+    Input files must be readable under the same paths on the workers (a shared filesystem).
+    """
+    from .exceptions import ConfigError
+
+    try:
+        from distributed import Client, as_completed
+    except ImportError as exc:
+        raise ConfigError("--scheduler", "running on a Dask cluster needs the optional "
+                          "dependency: pip install 'obsprep[dask]'") from exc
+    if isinstance(scheduler, Client):
+        client, own = scheduler, False
+    else:
+        try:
+            client, own = Client(str(scheduler), timeout="20s"), True
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise ConfigError("--scheduler", f"cannot connect to the Dask scheduler at "
+                              f"{scheduler!r}: {exc}") from exc
+    try:
+        outcome = ExecutionResult()
+        if not tasks:
+            return outcome
+        from .pipeline import process_file
+
+        # the config and grid go to the cluster once, not once per task
+        shared = client.scatter([cfg, grid, sensor_names], broadcast=True)
+        cfg_f, grid_f, names_f = shared
+        files = [client.submit(process_file, cfg_f, grid_f, t.source, t.path, t.file_index,
+                               names_f, strict, key=f"obsprep-file-{t.file_index}-{id(tasks)}",
+                               pure=False)
+                 for t in tasks]
+        summaries = [client.submit(_summary, f, pure=False) for f in files]
+        level = files
+        depth = 0
+        while len(level) > 1:
+            level = [client.submit(merge_group, level[s:s + MERGE_FAN_IN], pure=False,
+                                   key=f"obsprep-merge-{depth}-{s}-{id(tasks)}")
+                     for s in range(0, len(level), MERGE_FAN_IN)]
+            depth += 1
+        root = client.submit(merge_group, level, pure=False, key=f"obsprep-root-{id(tasks)}")
+        if bar is not None:
+            for _ in as_completed(summaries):
+                bar.update()
+        for entry, names in client.gather(summaries):
+            outcome.entries.append(entry)
+            outcome.profile_names.update(names)
+        outcome.accumulator = root.result()
+        return outcome
+    finally:
+        if own:
+            client.close()
+
+
+__all__ = ["MERGE_FAN_IN", "FileTask", "ExecutionResult", "merge_group", "reduce_in_fixed_tree",
+           "FixedTreeReducer", "run_tasks"]

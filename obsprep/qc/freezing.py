@@ -1,0 +1,70 @@
+"""Temperatures below the freezing point of seawater (TEOS-10, through ``gsw``)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from ..table import kept
+
+
+def freezing_temperature(practical_salinity, pressure_dbar, lon, lat,
+                         saturation_fraction=1.0) -> np.ndarray:
+    """In-situ freezing temperature of seawater, degC (ITS-90).
+
+    .. math:: S_A = S_A(S_P, p, \\lambda, \\varphi), \\qquad t_f = t_f(S_A, p, s)
+
+    with ``gsw.SA_from_SP`` (Absolute Salinity from Practical Salinity, g/kg) and
+    ``gsw.t_freezing`` (IOC, SCOR and IAPSO 2010, *TEOS-10 manual*, section 3.33, via the
+    polynomial of McDougall et al. 2014).  ``pressure_dbar`` is sea pressure, ``lon``/``lat``
+    in degrees, ``saturation_fraction`` s of dissolved air (1: air-saturated, usual for
+    seawater; 0: air-free).  For S_P = 40, p = 500 dbar, air-saturated, this is within a few
+    mK of the UNESCO 1983 formula (-2.588567 degC).
+    """
+    import gsw
+
+    absolute_salinity = gsw.SA_from_SP(practical_salinity, pressure_dbar, lon, lat)
+    return np.asarray(gsw.t_freezing(absolute_salinity, pressure_dbar, saturation_fraction),
+                      dtype=np.float64)
+
+
+def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
+                        default_salinity: float) -> np.ndarray:
+    """Rows whose temperature is below the freezing point minus ``tolerance`` (degC).
+
+    Applies to the kept rows of ``quantities`` (``sea_water_temperature``,
+    ``sea_surface_temperature``).  The salinity is the kept ``sea_water_salinity`` row of the
+    same file, group and ``row`` (the same level of the same profile) where there is one, else
+    ``default_salinity``; the pressure comes from the depth (0 at the surface) with
+    ``gsw.p_from_z``.
+    """
+    from .argo import pressure_from_depth
+
+    fail = np.zeros(len(table), dtype=bool)
+    live = kept(table)
+    temperature = live & table["quantity"].isin(list(quantities)).to_numpy() & np.isfinite(
+        table["value"].to_numpy())
+    if not temperature.any():
+        return fail
+    idx = np.flatnonzero(temperature)
+    salinity = np.full(idx.size, float(default_salinity))
+    salinity_rows = live & table["quantity"].isin(["sea_water_salinity"]).to_numpy() & np.isfinite(
+        table["value"].to_numpy())
+    if salinity_rows.any():
+        keys = ["file_id", "group", "row"]
+        left = pd.DataFrame({k: table[k].to_numpy()[idx] for k in keys})
+        left["file_id"] = left["file_id"].astype(str)
+        left["group"] = left["group"].astype(str)
+        right = pd.DataFrame({k: table[k].to_numpy()[salinity_rows] for k in keys})
+        right["file_id"] = right["file_id"].astype(str)
+        right["group"] = right["group"].astype(str)
+        right["salinity"] = table["value"].to_numpy()[salinity_rows]
+        right = right.drop_duplicates(keys)
+        matched = left.merge(right, on=keys, how="left")["salinity"].to_numpy()
+        salinity = np.where(np.isfinite(matched), matched, salinity)
+    lat = table["lat"].to_numpy()[idx]
+    lon = table["lon"].to_numpy()[idx]
+    pressure = np.clip(pressure_from_depth(table["depth"].to_numpy()[idx], lat), 0.0, None)
+    t_freeze = freezing_temperature(salinity, pressure, lon, lat)
+    fail[idx] = table["value"].to_numpy()[idx] < t_freeze - tolerance
+    return fail

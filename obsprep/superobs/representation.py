@@ -1,0 +1,82 @@
+"""Representation-error fields on the model grid.
+
+A netCDF file holds one variable per quantity (named in ``superobs.representation_error_variables``)
+whose last two dimensions are the grid's (ny, nx) and, for sub-surface quantities, optionally a
+leading layer dimension of the grid's nk layers.  Values are 1-sigma errors in the units of the
+variable's ``units`` attribute (converted to the quantity's canonical units as a difference) and
+are looked up at the super-observation's cell (j, i), or (k, j, i).  Typical content: the
+sub-grid standard deviation of the quantity from a higher-resolution run or product.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..exceptions import InputFileError
+from ..quantities import QUANTITIES
+
+
+def load_representation_fields(path, variables: dict, grid_shape, nk: int) -> dict:
+    """Read the representation-error fields.
+
+    Parameters
+    ----------
+    path : path of the netCDF file
+    variables : dict
+        Quantity name -> variable name.
+    grid_shape : (ny, nx)
+    nk : int
+        Number of model layers.
+
+    Returns
+    -------
+    dict
+        Quantity -> float64 array (ny, nx) or (nk, ny, nx), canonical units of the quantity.
+
+    Raises
+    ------
+    InputFileError
+        Missing file or variable, wrong shape, or units that do not convert.
+    """
+    import xarray as xr
+
+    from ..readers.cf import values_in_units
+
+    try:
+        ds = xr.open_dataset(path, decode_times=False)
+    except (OSError, ValueError) as exc:
+        raise InputFileError(path, f"cannot open the representation-error file ({exc})") from exc
+    fields = {}
+    with ds:
+        for quantity, name in variables.items():
+            if name not in ds.variables:
+                raise InputFileError(path, f"no variable '{name}' for {quantity}; variables: "
+                                           f"{', '.join(map(str, ds.variables))}", variable=name)
+            da = ds[name]
+            shape = tuple(da.shape)
+            ok_2d = shape == tuple(grid_shape)
+            ok_3d = len(shape) == 3 and shape[1:] == tuple(grid_shape) and shape[0] == nk
+            if not (ok_2d or ok_3d):
+                raise InputFileError(path, f"expected shape (ny, nx) = {tuple(grid_shape)} or "
+                                           f"(nk, ny, nx) = {(nk, *grid_shape)}, found {shape}",
+                                     variable=name)
+            canonical = QUANTITIES[quantity].units
+            fields[quantity] = values_in_units(da, canonical, path, QUANTITIES[quantity],
+                                               difference=True, default_units=canonical)
+    return fields
+
+
+def representation_at(field: np.ndarray, j, i, k, path, variable) -> np.ndarray:
+    """Values of ``field`` at cells (j, i) (2-D field) or (k, j, i) (3-D field).
+
+    Raises InputFileError when a value needed is missing (NaN) or negative.
+    """
+    values = field[k, j, i] if field.ndim == 3 else field[j, i]
+    bad = ~(np.isfinite(values) & (values >= 0))
+    if bad.any():
+        first = int(np.flatnonzero(bad)[0])
+        raise InputFileError(path, f"{int(bad.sum())} super-observation cell(s) have no valid "
+                                   f"representation error (first at j={j[first]}, i={i[first]}: "
+                                   f"{values[first]!r}); expected finite values >= 0",
+                             variable=variable)
+    return values

@@ -1,0 +1,153 @@
+"""GHRSST GDS 2.0 L2P and L3 readers on small files written from the specification.
+
+References: GHRSST Data Specification 2.0 (from memory; ../shared/REFERENCES.md): quality
+levels 0 no data .. 5 best, bias-corrected SST = sea_surface_temperature - sses_bias, time
+reference 1981-01-01 00:00:00 UTC, l2p_flags bits from flag_masks/flag_meanings (CF 3.5).  The
+netCDF4 library's own unpacking (scale_factor/add_offset) and numpy datetime64 arithmetic are the
+reference implementations for values and times.
+"""
+
+from __future__ import annotations
+
+import netCDF4
+import numpy as np
+import pytest
+
+from formats import GDS2_EPOCH, write_gds2
+from obsprep.exceptions import InputFileError
+from obsprep.readers import cf, guess_kind, read, registered_readers
+from obsprep.table import validate_table
+
+NAN = np.nan
+
+
+def reasons(table):
+    return [None if isinstance(r, float) else r for r in table["rejected"].astype(object)]
+
+
+def netcdf4_decoded(path, name):
+    """The variable as netCDF4 unpacks it (reference for packing), NaN for fill."""
+    with netCDF4.Dataset(path) as nc:
+        nc.set_auto_maskandscale(True)
+        return np.ma.filled(nc[name][0].astype(np.float64), np.nan)
+
+
+@pytest.fixture
+def l2p(tmp_path):
+    sst = np.array([[300.00, 301.00, 302.00, 290.00],
+                    [285.00, NAN, 288.00, 289.00],
+                    [271.50, 280.00, 281.00, 282.00]])
+    bias = np.array([[0.50, -0.30, 0.00, 0.10],
+                     [0.00, 0.00, NAN, 0.00],
+                     [0.00, 0.20, 0.00, 0.00]])
+    sd = np.full(sst.shape, 0.40)
+    sd[0, 1] = 0.65
+    dtime = np.arange(sst.size, dtype=float).reshape(sst.shape) * 120.0
+    quality = np.array([[5, 4, 3, 5],
+                        [5, 0, 5, 2],
+                        [5, 5, 5, 1]])
+    # l2p_flags bits (GDS 2.0, from memory): 1 microwave, 2 land, 4 ice, 8 lake, 16 river
+    flags = np.array([[0, 1, 0, 0],
+                      [2, 0, 0, 0],
+                      [4 | 2, 8, 16, 0]])
+    path = write_gds2(tmp_path / "20261119000000-DEMO-L2P_GHRSST-SSTskin.nc", sst, bias=bias,
+                      sd=sd, dtime=dtime, quality=quality, flags=flags)
+    return path, dict(sst=sst, bias=bias, sd=sd, dtime=dtime, quality=quality, flags=flags)
+
+
+def test_gds2_files_are_claimed_before_the_cf_generic_sst_readers(l2p, tmp_path):
+    path, _ = l2p
+    ds = cf.open_dataset(path)
+    claims = [k for k, r in registered_readers().items() if r.guess_can_open(ds)]
+    # the CF-generic swath reader also recognises the file; the GDS 2.0 reader is asked first
+    assert claims[0] == "ghrsst_l2p" and "ghrsst_l3" not in claims
+    assert guess_kind(path) == "ghrsst_l2p"
+    l3 = write_gds2(tmp_path / "l3.nc", np.full((2, 3), 290.0), level="L3")
+    assert guess_kind(l3) == "ghrsst_l3"
+
+
+def test_l2p_values_errors_times_against_netcdf4_and_the_gds2_rules(l2p):
+    path, f = l2p
+    table = read(path, sensor="sst_ir")
+    validate_table(table)
+    assert len(table) == f["sst"].size
+    # reference: netCDF4's unpacking, then GDS 2.0 bias correction SST - sses_bias, K -> degC
+    sst = netcdf4_decoded(path, "sea_surface_temperature")
+    bias = netcdf4_decoded(path, "sses_bias")
+    expected = np.where(np.isfinite(bias), sst - bias, sst) - 273.15
+    np.testing.assert_allclose(table["value"], expected.ravel(), rtol=0, atol=1e-9)
+    # bias sign: 300.00 K with bias +0.50 K is 299.50 K, i.e. 26.35 degC
+    assert table["value"].iloc[0] == pytest.approx(26.35, abs=1e-9)
+    np.testing.assert_allclose(table["error"], netcdf4_decoded(path, "sses_standard_deviation")
+                               .ravel(), rtol=0, atol=1e-9)
+    # time = 1981-01-01 + reference time + sst_dtime (numpy datetime64 as reference)
+    expected_time = (GDS2_EPOCH + np.timedelta64(1_000_000_000, "s")
+                     + (f["dtime"].ravel() * 1e9).astype("timedelta64[ns]"))
+    np.testing.assert_array_equal(table["time"].to_numpy(), expected_time)
+    assert set(table["group"].astype(str)) == {"DEMO-L2P-GHRSST"}
+    assert set(table["platform"].astype(str)) == {"demo_sat"}
+    # longitudes 350..351 in the file are -10..-9
+    assert table["lon"].min() == pytest.approx(-10.0) and table["lon"].max() <= -9.0 + 1e-5
+
+
+def test_l2p_rejections_each_have_their_reason(l2p):
+    path, _ = l2p
+    table = read(path)
+    assert reasons(table) == [
+        None, None, "quality_level", None,             # ql 3 < 4; microwave bit is not rejected
+        "l2p_flag_land", "missing_value", "missing_bias", "quality_level",
+        "l2p_flag_land", "l2p_flag_lake", "l2p_flag_river", "quality_level",  # land before ice
+    ]
+
+
+def test_options_minimum_quality_flags_and_bias_switch(l2p):
+    path, f = l2p
+    table = read(path, min_quality_level=2, reject_l2p_flags="ice microwave",
+                 subtract_sses_bias=False)
+    assert reasons(table) == [
+        None, "l2p_flag_other", None, None,
+        None, "missing_value", None, None,
+        "l2p_flag_ice", None, None, "quality_level",
+    ]
+    # without the bias correction the value is the file's SST (netCDF4 unpacking)
+    np.testing.assert_allclose(table["value"], netcdf4_decoded(path, "sea_surface_temperature")
+                               .ravel() - 273.15, atol=1e-9)
+    with pytest.raises(InputFileError, match="min_quality_level"):
+        read(path, min_quality_level=6)
+    with pytest.raises(InputFileError, match="good_flag_meanings"):
+        read(path, good_flag_meanings="good")  # not an option of the GDS 2.0 reader
+
+
+def test_l3_grid_with_one_dimensional_coordinates(tmp_path):
+    sst = np.array([[275.0, 276.0, NAN], [277.0, 278.0, 279.0]])
+    quality = np.array([[5, 4, 0], [3, 5, 5]])
+    path = write_gds2(tmp_path / "l3.nc", sst, level="L3", quality=quality,
+                      bias=np.full(sst.shape, 0.1), lat=[-65.0, -64.0], lon=[170.0, 180.0, 190.0])
+    table = read(path)
+    assert table.attrs["kind"] == "ghrsst_l3"
+    np.testing.assert_allclose(table["lat"], [-65.0] * 3 + [-64.0] * 3)
+    # 190 E is -170 in -180..180; 180 E is -180
+    np.testing.assert_allclose(table["lon"], [170.0, -180.0, -170.0] * 2)
+    np.testing.assert_allclose(table["value"], (sst - 0.1 - 273.15).ravel(), atol=1e-6)
+    assert reasons(table) == [None, None, "missing_value", "quality_level", None, None]
+    assert set(table["group"].astype(str)) == {""}
+
+
+def test_subtracting_a_bias_the_file_lacks_names_the_variable(tmp_path):
+    path = write_gds2(tmp_path / "nobias.nc", np.full((2, 2), 290.0))
+    with netCDF4.Dataset(path, "a") as nc:
+        nc.renameVariable("sses_bias", "bias_other")
+    with pytest.raises(InputFileError, match="sses_bias") as info:
+        read(path)
+    assert path in str(info.value)
+    table = read(path, subtract_sses_bias=False)
+    np.testing.assert_allclose(table["value"], 290.0 - 273.15, atol=1e-9)
+
+
+def test_flags_without_meanings_are_a_named_error(tmp_path):
+    path = write_gds2(tmp_path / "flags.nc", np.full((2, 2), 290.0))
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["l2p_flags"].delncattr("flag_meanings")
+    with pytest.raises(InputFileError, match="flag_meanings") as info:
+        read(path)
+    assert "'l2p_flags'" in str(info.value) and path in str(info.value)

@@ -1,0 +1,207 @@
+"""The complete super-observation error: spread-based error, spread about a line in depth, the
+combination rules, representation-error fields, checked against numpy Monte Carlo, numpy's
+least-squares line fit (reference implementation) and hand computations.
+
+Monte Carlo tolerances: a mean of T independent draws is compared with its expectation within
+5 standard errors (sample std / sqrt(T)), so a correct formula fails with probability below
+1e-6, while a formula off by a few percent fails."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from obsprep.config import load_config
+from obsprep.exceptions import InputFileError
+from obsprep.pipeline import QUANTITY_NAMES, finalize_superobs
+from obsprep.superobs import Accumulator
+from obsprep.superobs.errors import (combine_instrument_and_spread, error_from_spread,
+                                     spread_about_depth_line)
+
+STANDARD_ERRORS = 5.0
+
+
+def equicorrelated_errors(rng, trials, n, sigma, rho):
+    """Errors with variance sigma^2 and pairwise correlation rho: sigma (sqrt(rho) z0 +
+    sqrt(1 - rho) z_i) (a shared and an own standard normal part)."""
+    shared = rng.standard_normal((trials, 1))
+    own = rng.standard_normal((trials, n))
+    return sigma * (np.sqrt(rho) * shared + np.sqrt(1.0 - rho) * own)
+
+
+def assert_mean_close(samples, expected, label):
+    samples = np.asarray(samples, dtype=float)
+    se = samples.std(ddof=1) / np.sqrt(samples.size)
+    assert abs(samples.mean() - expected) < STANDARD_ERRORS * se, (label, samples.mean(), expected, se)
+
+
+@pytest.mark.parametrize("rho", [0.0, 0.3])
+def test_spread_based_error_matches_the_variance_of_the_mean(rho):
+    rng = np.random.default_rng(11)
+    n, sigma, trials = 8, 0.5, 40000
+    errors = equicorrelated_errors(rng, trials, n, sigma, rho)
+    spread = errors.std(axis=1, ddof=1)
+    estimate = error_from_spread(spread, n, rho)
+    # E[estimate^2] = var(mean) = sigma^2 (1 + (n-1) rho) / n (textbook), and the Monte Carlo
+    # variance of the means must agree with both
+    expected = sigma**2 * (1 + (n - 1) * rho) / n
+    assert_mean_close(estimate**2, expected, "spread-based")
+    assert_mean_close(errors.mean(axis=1) ** 2, expected, "Monte Carlo of the mean")
+
+
+def test_spread_based_error_is_undefined_for_single_values_and_full_correlation():
+    assert np.isnan(error_from_spread(0.3, 1, 0.0))
+    assert np.isnan(error_from_spread(0.3, 5, 1.0))
+    np.testing.assert_allclose(error_from_spread(0.3, 9, 0.0), 0.1)   # s / sqrt(n), by hand
+
+
+def test_spread_about_a_depth_line_equals_numpy_polyfit_and_merges():
+    rng = np.random.default_rng(3)
+    groups, per_group = 40, 12
+    group = np.repeat(np.arange(groups), per_group)
+    depth = rng.uniform(20.0, 50.0, group.size)
+    value = 1.0 + 0.05 * depth + rng.normal(0.0, 0.01, group.size) + group * 0.1
+    keys = {"g": group.astype(np.int64)}
+    def accumulate(rows):
+        return Accumulator.from_observations({"g": keys["g"][rows]}, value[rows],
+                                             np.full(rows.size, 0.01), np.zeros(rows.size),
+                                             np.zeros(rows.size), np.zeros(rows.size), depth[rows])
+    half = rng.permutation(group.size)
+    merged = Accumulator.merge([accumulate(np.sort(half[: group.size // 2])),
+                                accumulate(np.sort(half[group.size // 2:]))])
+    for acc in (accumulate(np.arange(group.size)), merged):
+        s = acc.state
+        line = spread_about_depth_line(s["value_m2"], s["depth_m2"], s["depth_value_c2"],
+                                       s["count"])
+        for g in range(groups):     # reference: numpy least squares, residual std with ddof=2
+            rows = group == g
+            coefficients = np.polyfit(depth[rows], value[rows], 1)
+            residual = value[rows] - np.polyval(coefficients, depth[rows])
+            np.testing.assert_allclose(line[g], np.sqrt(np.sum(residual**2) / (per_group - 2)),
+                                       rtol=1e-6)
+
+
+def test_spread_about_a_depth_line_estimates_the_noise_by_monte_carlo():
+    rng = np.random.default_rng(5)
+    trials, n, sigma = 20000, 6, 0.02
+    depth = rng.uniform(0.0, 100.0, (trials, n))
+    value = 3.0 - 0.01 * depth + sigma * rng.standard_normal((trials, n))
+    dd = depth - depth.mean(1, keepdims=True)
+    dv = value - value.mean(1, keepdims=True)
+    line = spread_about_depth_line((dv**2).sum(1), (dd**2).sum(1), (dd * dv).sum(1), n)
+    assert_mean_close(line**2, sigma**2, "residual variance")      # E[SSR/(n-2)] = sigma^2
+
+
+def test_combination_rules_by_hand():
+    instrument = np.array([0.1, 0.1, 0.1, 0.1])
+    spread = np.array([0.2, 0.05, np.nan, 0.3])
+    count = np.array([10, 10, 10, 3])
+    chosen, basis = combine_instrument_and_spread(instrument, spread, count, "max", 5)
+    np.testing.assert_array_equal(chosen, [0.2, 0.1, 0.1, 0.1])
+    np.testing.assert_array_equal(basis, [1, 0, 0, 0])
+    chosen, basis = combine_instrument_and_spread(instrument, spread, count, "spread_when_n_ge", 5)
+    np.testing.assert_array_equal(chosen, [0.2, 0.05, 0.1, 0.1])
+    chosen, _ = combine_instrument_and_spread(instrument, spread, count, "instrument", 5)
+    np.testing.assert_array_equal(chosen, instrument)
+    with pytest.raises(ValueError, match="spread combination"):
+        combine_instrument_and_spread(instrument, spread, count, "median", 5)
+
+
+CONFIG = """
+[window]
+date = "2026-11-20"
+analysis_time = "{{date}}T00:00:00"
+[grid]
+type = "regular"
+lon_min = 0.0
+lat_min = 0.0
+dlon = 1.0
+dlat = 1.0
+nlon = 4
+nlat = 3
+[[sources]]
+sensor = "sst_a"
+paths = ["none.nc"]
+correlation = {rho}
+[sources.error]
+rule = "constant"
+value = 0.3
+[superobs]
+spread_combination = "{rule}"
+spread_min_count = 5
+representation_error_file = "rep.nc"
+representation_error_variables = {{ sea_surface_temperature = "sst_rep" }}
+"""
+
+
+def write_representation(path, field, units="K", name="sst_rep"):
+    xr.Dataset({name: (("lat", "lon"), field, {"units": units})}).to_netcdf(path)
+
+
+def synthetic_groups(rng, representation, n=6, slots=400, sigma=0.3, rho=0.2):
+    """Groups of n raw SST values per cell and slot: cell truth 0, the group's true mean off by
+    N(0, representation[j, i]^2), raw errors equicorrelated (sigma, rho)."""
+    ny, nx = representation.shape
+    jj, ii, ss = np.meshgrid(np.arange(ny), np.arange(nx), np.arange(slots), indexing="ij")
+    jj, ii, ss = (a.ravel() for a in (jj, ii, ss))
+    groups = jj.size
+    offset = representation[jj, ii] * rng.standard_normal(groups)
+    values = offset[:, None] + equicorrelated_errors(rng, groups, n, sigma, rho)
+    rows = np.repeat(np.arange(groups), n)
+    zeros = np.zeros(rows.size, dtype=np.int64)
+    keys = {"quantity": np.full(rows.size, QUANTITY_NAMES.index("sea_surface_temperature")),
+            "sensor": zeros, "slot": ss[rows].astype(np.int64), "j": jj[rows].astype(np.int64),
+            "i": ii[rows].astype(np.int64), "k": zeros, "profile": zeros - 1, "t_start": zeros,
+            "t_end": zeros}
+    acc = Accumulator.from_observations(keys, values.ravel(), np.full(rows.size, sigma),
+                                        np.zeros(rows.size), 0.5 + ii[rows], 0.5 + jj[rows], 0.0)
+    return acc
+
+
+@pytest.mark.parametrize("rule", ["instrument", "spread_when_n_ge"])
+def test_total_error_with_a_representation_field_by_monte_carlo(tmp_path, rule):
+    rng = np.random.default_rng(21)
+    representation = np.array([[0.0, 0.05, 0.1, 0.2], [0.3, 0.02, 0.15, 0.25],
+                               [0.08, 0.12, 0.04, 0.5]])
+    write_representation(tmp_path / "rep.nc", representation)
+    (tmp_path / "c.toml").write_text(CONFIG.format(rho=0.2, rule=rule))
+    cfg = load_config(tmp_path / "c.toml")
+    out = finalize_superobs(cfg, synthetic_groups(rng, representation), ["sst_a"], {})
+    j, i = out["j"].to_numpy(), out["i"].to_numpy()
+    # looked up at (j, i); K -> degC as a difference (pint), so to rounding
+    np.testing.assert_allclose(out["error_representation"], representation[j, i], atol=1e-12)
+    # the error of the mean of 6 values, sigma 0.3, rho 0.2 (textbook formula)
+    instrument = 0.3 * np.sqrt((1 + 5 * 0.2) / 6)
+    np.testing.assert_allclose(out["error_instrument"], instrument, rtol=1e-12)
+    assert (out["error_basis"] == (1 if rule == "spread_when_n_ge" else 0)).all()
+    # Monte Carlo: the total error must describe the scatter of the values about the cell
+    # truth (0): E[value^2] = instrument^2 + representation^2, per cell
+    for cell in range(representation.size):
+        rows = (j * 4 + i) == cell
+        expected = instrument**2 + representation.flat[cell] ** 2
+        assert_mean_close(out["value"][rows] ** 2, expected, f"cell {cell}")
+        # the assigned total error, averaged, is that same variance (within its own sampling
+        # for the spread-based rule)
+        assert_mean_close(out["error"][rows] ** 2, expected, f"assigned, cell {cell}") \
+            if rule == "spread_when_n_ge" else np.testing.assert_allclose(
+                out["error"][rows] ** 2, expected, rtol=1e-12)
+    assert set(out["error_origin"]) == {"constant"}
+
+
+def test_representation_field_errors_name_file_and_variable(tmp_path):
+    rng = np.random.default_rng(1)
+    (tmp_path / "c.toml").write_text(CONFIG.format(rho=0.0, rule="instrument"))
+    cfg = load_config(tmp_path / "c.toml")
+    acc = synthetic_groups(rng, np.zeros((3, 4)), slots=2)
+    write_representation(tmp_path / "rep.nc", np.zeros((4, 3)))
+    with pytest.raises(InputFileError, match=r"rep\.nc, variable 'sst_rep': expected shape"):
+        finalize_superobs(cfg, acc, ["sst_a"], {})
+    field = np.zeros((3, 4))
+    field[1, 2] = np.nan
+    write_representation(tmp_path / "rep.nc", field)
+    with pytest.raises(InputFileError, match=r"sst_rep.*first at j=1, i=2"):
+        finalize_superobs(cfg, acc, ["sst_a"], {})
+    write_representation(tmp_path / "rep.nc", np.zeros((3, 4)), name="other")
+    with pytest.raises(InputFileError, match="no variable 'sst_rep'"):
+        finalize_superobs(cfg, acc, ["sst_a"], {})
