@@ -213,3 +213,19 @@ def test_thinning_keeps_the_raw_value_nearest_the_cell_centre(tmp_path):
     np.testing.assert_array_equal(so.sort_values(["slot", "j", "i"])["count"], exp["count"])
     # a thinned value keeps its raw error (0.03) plus the representation error (0.02)
     np.testing.assert_allclose(so["error"], np.hypot(0.03, 0.02), rtol=1e-12)
+
+
+def test_outputs_have_ordinary_file_permissions(tmp_path):
+    import os
+    import stat
+
+    from obsprep.writers import atomic_path
+
+    target = tmp_path / "x.txt"
+    with atomic_path(target) as tmp:
+        tmp.write_text("done")
+    umask = os.umask(0)
+    os.umask(umask)
+    # POSIX: a new file gets 0666 & ~umask (open(2)); the temporary name is gone
+    assert stat.S_IMODE(target.stat().st_mode) == 0o666 & ~umask
+    assert [p.name for p in tmp_path.iterdir()] == ["x.txt"]

@@ -19,6 +19,10 @@ def atomic_path(final_path):
     final_path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{final_path.name}.", suffix=".partial", dir=final_path.parent)
     os.close(fd)
+    # mkstemp creates the file 0600; give the result the permissions of an ordinary new file
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield Path(tmp)
         with open(tmp, "rb+") as fh:
