@@ -10,9 +10,9 @@ import pandas as pd
 from ..exceptions import InputFileError, NoReaderError
 from .base import Reader, register_reader, registered_readers
 
-# Importing the modules registers their readers; the order is the order of guessing: the
-# format-specific readers (GHRSST GDS 2.0, Argo) come before the CF-generic ones that would
-# also claim their files.
+# Importing the modules registers their readers.  Guessing asks readers by descending
+# ``priority`` (the format-specific GHRSST GDS 2.0 and Argo readers first, since the CF-generic
+# ones would also claim their files), then in this import order.
 from . import ghrsst, argo  # noqa: E402,F401
 from . import alongtrack, sst_swath, sst_grid, ice_concentration, ice_drift, profiles  # noqa: E402,F401
 

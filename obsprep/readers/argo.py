@@ -226,6 +226,7 @@ class ArgoProfileReader(Reader):
     """Argo core profile files (N_PROF x N_LEVELS), real-time and adjusted data."""
 
     kind = "argo"
+    priority = 10
     description = "Argo profile netCDF (PRES/TEMP/PSAL, DATA_MODE, QC flags, JULD)"
     options = ARGO_OPTIONS
 

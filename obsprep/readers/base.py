@@ -29,6 +29,8 @@ class Reader:
     description: str = ""
     #: reader options a config may pass, name -> meaning (shown in errors and docs)
     options: dict[str, str] = {}
+    #: order of guessing: readers of a specific format (higher) are asked before CF-generic ones
+    priority: int = 0
 
     def guess_can_open(self, ds: xr.Dataset) -> bool:  # pragma: no cover - interface
         """Return True when this reader recognises ``ds`` from its metadata alone."""
@@ -53,5 +55,7 @@ def register_reader(cls):
 
 
 def registered_readers() -> dict[str, Reader]:
-    """Mapping kind -> reader instance, in registration order."""
-    return dict(_REGISTRY)
+    """Mapping kind -> reader instance, in guessing order: by descending ``priority``, then in
+    registration order."""
+    ordered = sorted(_REGISTRY.items(), key=lambda item: -item[1].priority)
+    return dict(ordered)

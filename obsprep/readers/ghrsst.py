@@ -33,6 +33,7 @@ from ..quantities import get_quantity
 from ..table import reject
 from . import cf
 from .base import Reader, register_reader
+from .sst_swath import sst_variable_with_latitude_ndim
 
 SST = get_quantity("sea_surface_temperature")
 
@@ -61,20 +62,6 @@ def is_gds2(ds) -> bool:
     if version:
         return version.startswith("2")
     return "sst_dtime" in ds.variables and "quality_level" in ds.variables
-
-
-def _sst_variable(ds, latitude_ndim: int) -> str | None:
-    """The SST variable (by standard_name) whose latitude coordinate has ``latitude_ndim``
-    dimensions."""
-    for standard_name in SST.accepted_standard_names:
-        name = cf.find_variable(ds, [standard_name])
-        if name is None:
-            continue
-        lat = cf.find_coordinate(ds, name, "latitude")
-        if lat is not None and ds[lat].ndim == latitude_ndim \
-                and cf.find_coordinate(ds, name, "longitude") is not None:
-            return name
-    return None
 
 
 def ghrsst_options(options: dict) -> tuple[int, bool, tuple]:
@@ -113,9 +100,10 @@ def reference_time(ds, name, path) -> np.ndarray:
 class _GhrsstReader(Reader):
     options = GHRSST_OPTIONS
     latitude_ndim = 2
+    priority = 10
 
     def guess_can_open(self, ds) -> bool:
-        return is_gds2(ds) and _sst_variable(ds, self.latitude_ndim) is not None
+        return is_gds2(ds) and sst_variable_with_latitude_ndim(ds, self.latitude_ndim) is not None
 
     def group(self, ds, path) -> str:
         return ""
@@ -133,7 +121,7 @@ class _GhrsstReader(Reader):
     def read_dataset(self, ds, path, **options):
         opts = cf.reader_options(self, options)
         min_level, subtract_bias, reject_flags = ghrsst_options(options)
-        name = _sst_variable(ds, self.latitude_ndim) or cf.require_variable(
+        name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
             ds, path, SST.accepted_standard_names, "sea surface temperature")
         sst = ds[name]
         values = cf.values_in_units(sst, SST.units, path, quantity=SST)
