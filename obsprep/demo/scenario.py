@@ -516,6 +516,49 @@ def _write_sst_swath(scn):
 SST_GRID_EXTENT = (-80.0, 12.0, -80.0, -52.0)
 
 
+def write_daily_latlon_sst(path, title, platform, time, lon, lat, step_lon, step_lat, kelvin, sea,
+                           sigma, *, time_comment, sst, error, flags):
+    """Write one daily SST file on a regular lat/lon grid (L3/L4-like).
+
+    ``kelvin`` (lat, lon) is packed as int16 K (0.01 K steps, fill off the sea); ``sst`` is
+    (variable name, standard_name, long_name); ``error`` (variable name, long_name) holds the
+    constant ``sigma`` (K) as the ``standard_error`` ancillary; ``flags`` is (variable name,
+    long_name, bit-mask array, flag_masks, flag_meanings) for the ``status_flag`` ancillary.
+    """
+    sst_name, standard_name, sst_long_name = sst
+    error_name, error_long_name = error
+    flag_name, flag_long_name, mask, flag_masks, flag_meanings = flags
+    with _create(path, title, platform=platform) as ds:
+        ds.createDimension("time", 1)
+        ds.createDimension("lat", len(lat))
+        ds.createDimension("lon", len(lon))
+        ds.createDimension("nv", 2)
+        _variable(ds, "time", ("time",), np.float64, _time_number([time], "1981-01-01", 1.0), {
+            "standard_name": "time", "units": "seconds since 1981-01-01 00:00:00",
+            "calendar": "gregorian", "axis": "T", "comment": time_comment})
+        for name, values, step, units, axis in (("lat", lat, step_lat, "degrees_north", "Y"),
+                                                ("lon", lon, step_lon, "degrees_east", "X")):
+            _variable(ds, name, (name,), np.float64, values, {
+                "standard_name": "latitude" if name == "lat" else "longitude",
+                "units": units, "axis": axis, "bounds": f"{name}_bnds"})
+            _variable(ds, f"{name}_bnds", (name, "nv"), np.float64, _bounds(values, step), {})
+        _variable(ds, sst_name, ("time", "lat", "lon"), np.int16,
+                  _pack(kelvin[None], 0.01, 273.15, -32768, np.int16, sea[None]), {
+                      "standard_name": standard_name, "units": "K", "long_name": sst_long_name,
+                      "scale_factor": 0.01, "add_offset": 273.15,
+                      "ancillary_variables": f"{error_name} {flag_name}"},
+                  fill=np.int16(-32768))
+        _variable(ds, error_name, ("time", "lat", "lon"), np.int16,
+                  _pack(np.full((1,) + kelvin.shape, sigma), 0.01, 0.0, -32768, np.int16,
+                        sea[None]), {
+                      "standard_name": f"{standard_name} standard_error", "units": "K",
+                      "long_name": error_long_name, "scale_factor": 0.01, "add_offset": 0.0},
+                  fill=np.int16(-32768))
+        _variable(ds, flag_name, ("time", "lat", "lon"), np.int8, mask[None].astype(np.int8), {
+            "standard_name": f"{standard_name} status_flag", "long_name": flag_long_name,
+            "flag_masks": np.array(flag_masks, dtype=np.int8), "flag_meanings": flag_meanings})
+
+
 def _write_sst_grid(scn):
     lon0, lon1, lat0, lat1 = SST_GRID_EXTENT
     resolution = 0.1 / np.sqrt(scn.scale)
@@ -535,40 +578,15 @@ def _write_sst_grid(scn):
         ice = sea & (truth.sea_ice_concentration(lon2, lat2, time) >= SWATH_ICE_THRESHOLD)
         mask = np.where(sea, 0, 1) + np.where(ice, 2, 0)
         path = scn.path(f"obs/sst_grid/sst_l4_{day.astype(object):%Y%m%d}.nc")
-        with _create(path, "demo gridded SST analysis (L4-like, 0.1 degree)",
-                     platform=PLATFORMS["sst_grid"]) as ds:
-            ds.createDimension("time", 1)
-            ds.createDimension("lat", n_lat)
-            ds.createDimension("lon", n_lon)
-            ds.createDimension("nv", 2)
-            _variable(ds, "time", ("time",), np.float64, _time_number([time], "1981-01-01", 1.0), {
-                "standard_name": "time", "units": "seconds since 1981-01-01 00:00:00",
-                "calendar": "gregorian", "axis": "T",
-                "comment": "daily analysis, centre of the day"})
-            for name, values, step, units, axis in (("lat", lat, step_lat, "degrees_north", "Y"),
-                                                    ("lon", lon, step_lon, "degrees_east", "X")):
-                _variable(ds, name, (name,), np.float64, values, {
-                    "standard_name": "latitude" if name == "lat" else "longitude",
-                    "units": units, "axis": axis, "bounds": f"{name}_bnds"})
-                _variable(ds, f"{name}_bnds", (name, "nv"), np.float64, _bounds(values, step), {})
-            _variable(ds, "analysed_sst", ("time", "lat", "lon"), np.int16,
-                      _pack(kelvin[None], 0.01, 273.15, -32768, np.int16, sea[None]), {
-                          "standard_name": "sea_surface_foundation_temperature", "units": "K",
-                          "long_name": "analysed sea surface temperature",
-                          "scale_factor": 0.01, "add_offset": 273.15,
-                          "ancillary_variables": "analysis_error surface_mask"},
-                      fill=np.int16(-32768))
-            _variable(ds, "analysis_error", ("time", "lat", "lon"), np.int16,
-                      _pack(np.full((1,) + lon2.shape, SST_GRID_SIGMA_K), 0.01, 0.0, -32768,
-                            np.int16, sea[None]), {
-                          "standard_name": "sea_surface_foundation_temperature standard_error",
-                          "units": "K", "long_name": "analysis error standard deviation",
-                          "scale_factor": 0.01, "add_offset": 0.0}, fill=np.int16(-32768))
-            _variable(ds, "surface_mask", ("time", "lat", "lon"), np.int8,
-                      mask[None].astype(np.int8), {
-                "standard_name": "sea_surface_foundation_temperature status_flag",
-                "long_name": "surface type bit mask (no bit set: open water)",
-                "flag_masks": np.array([1, 2], dtype=np.int8), "flag_meanings": "land sea_ice"})
+        write_daily_latlon_sst(
+            path, "demo gridded SST analysis (L4-like, 0.1 degree)", PLATFORMS["sst_grid"], time,
+            lon, lat, step_lon, step_lat, kelvin, sea, SST_GRID_SIGMA_K,
+            time_comment="daily analysis, centre of the day",
+            sst=("analysed_sst", "sea_surface_foundation_temperature",
+                 "analysed sea surface temperature"),
+            error=("analysis_error", "analysis error standard deviation"),
+            flags=("surface_mask", "surface type bit mask (no bit set: open water)", mask,
+                   [1, 2], "land sea_ice"))
         paths.append(path)
         counts[path.name] = {"sea": int(sea.sum()), "sea_ice": int(ice.sum())}
     return paths, counts

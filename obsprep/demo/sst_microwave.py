@@ -14,8 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from . import truth
-from .scenario import (PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, _bounds, _create,
-                       _pack, _time_number, _variable)
+from .scenario import PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, write_daily_latlon_sst
 
 SENSOR = "sst_microwave"
 SIGMA_K = 0.6
@@ -46,40 +45,15 @@ def write_sst_microwave(scn):
         ice = sea & (truth.sea_ice_concentration(lon2, lat2, time) >= SWATH_ICE_THRESHOLD)
         mask = np.where(sea, 0, 1) + np.where(ice, 2, 0) + np.where(near_coast, 4, 0)
         path = scn.path(f"obs/sst_microwave/sst_mw_{day.astype(object):%Y%m%d}.nc")
-        with _create(path, "demo microwave SST (L3-like daily grid, 0.25 degree)",
-                     platform=PLATFORMS[SENSOR]) as ds:
-            ds.createDimension("time", 1)
-            ds.createDimension("lat", n_lat)
-            ds.createDimension("lon", n_lon)
-            ds.createDimension("nv", 2)
-            _variable(ds, "time", ("time",), np.float64, _time_number([time], "1981-01-01", 1.0), {
-                "standard_name": "time", "units": "seconds since 1981-01-01 00:00:00",
-                "calendar": "gregorian", "axis": "T", "comment": "daily composite, centre of the day"})
-            for name, values, step, units, axis in (("lat", lat, step_lat, "degrees_north", "Y"),
-                                                    ("lon", lon, step_lon, "degrees_east", "X")):
-                _variable(ds, name, (name,), np.float64, values, {
-                    "standard_name": "latitude" if name == "lat" else "longitude",
-                    "units": units, "axis": axis, "bounds": f"{name}_bnds"})
-                _variable(ds, f"{name}_bnds", (name, "nv"), np.float64, _bounds(values, step), {})
-            _variable(ds, "subskin_sst", ("time", "lat", "lon"), np.int16,
-                      _pack(kelvin[None], 0.01, 273.15, -32768, np.int16, sea[None]), {
-                          "standard_name": "sea_surface_subskin_temperature", "units": "K",
-                          "long_name": "microwave subskin sea surface temperature",
-                          "scale_factor": 0.01, "add_offset": 273.15,
-                          "ancillary_variables": "sst_error surface_flags"},
-                      fill=np.int16(-32768))
-            _variable(ds, "sst_error", ("time", "lat", "lon"), np.int16,
-                      _pack(np.full((1,) + lon2.shape, SIGMA_K), 0.01, 0.0, -32768, np.int16,
-                            sea[None]), {
-                          "standard_name": "sea_surface_subskin_temperature standard_error",
-                          "units": "K", "long_name": "SST error standard deviation",
-                          "scale_factor": 0.01, "add_offset": 0.0}, fill=np.int16(-32768))
-            _variable(ds, "surface_flags", ("time", "lat", "lon"), np.int8,
-                      mask[None].astype(np.int8), {
-                          "standard_name": "sea_surface_subskin_temperature status_flag",
-                          "long_name": "surface bit mask (no bit set: open water far from land)",
-                          "flag_masks": np.array([1, 2, 4], dtype=np.int8),
-                          "flag_meanings": "land sea_ice near_coast"})
+        write_daily_latlon_sst(
+            path, "demo microwave SST (L3-like daily grid, 0.25 degree)", PLATFORMS[SENSOR], time,
+            lon, lat, step_lon, step_lat, kelvin, sea, SIGMA_K,
+            time_comment="daily composite, centre of the day",
+            sst=("subskin_sst", "sea_surface_subskin_temperature",
+                 "microwave subskin sea surface temperature"),
+            error=("sst_error", "SST error standard deviation"),
+            flags=("surface_flags", "surface bit mask (no bit set: open water far from land)",
+                   mask, [1, 2, 4], "land sea_ice near_coast"))
         paths.append(path)
         counts[path.name] = {"sea": int(sea.sum()), "sea_ice": int(ice.sum()),
                              "near_coast": int(near_coast.sum())}
