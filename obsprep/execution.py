@@ -22,6 +22,8 @@ the super-observations are bit-for-bit identical for any ``jobs``, on a cluster,
 
 from __future__ import annotations
 
+import os
+import threading
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 
@@ -72,9 +74,11 @@ def merge_group(items):
     return Accumulator.merge(present)
 
 
-def reduce_in_fixed_tree(items, fan_in: int = MERGE_FAN_IN):
+def reduce_in_fixed_tree(items, fan_in: int | None = None):
     """Reduce ``items`` (task order) with :func:`merge_group` over consecutive groups of
-    ``fan_in``, level by level, until one is left.  None for an empty list."""
+    ``fan_in`` (default :data:`MERGE_FAN_IN`), level by level, until one is left.  None for an
+    empty list."""
+    fan_in = MERGE_FAN_IN if fan_in is None else fan_in
     if fan_in < 2:
         raise ValueError(f"fan_in must be at least 2, got {fan_in}")
     level = list(items)
@@ -92,7 +96,8 @@ class FixedTreeReducer:
     children are known, so at most ``fan_in - 1`` partial results wait on each level.
     """
 
-    def __init__(self, fan_in: int = MERGE_FAN_IN):
+    def __init__(self, fan_in: int | None = None):
+        fan_in = MERGE_FAN_IN if fan_in is None else fan_in
         if fan_in < 2:
             raise ValueError(f"fan_in must be at least 2, got {fan_in}")
         self.fan_in = fan_in
@@ -132,6 +137,61 @@ class FixedTreeReducer:
 
 
 # --------------------------------------------------------------------------------------------
+# the same file given twice
+
+def identical_files(tasks) -> dict:
+    """Tasks whose file has the same content as an earlier file of the same source.
+
+    A re-delivered granule under a new name would otherwise be counted twice.  Only files of
+    equal size are compared, by SHA-256 of their bytes, so a night of distinct files costs one
+    ``stat`` each.  (The same path listed twice never gets this far: the file list of a source
+    has each path once.)  Returns ``{file_index: path of the first copy}``.
+    """
+    import hashlib
+
+    by_size: dict = {}
+    for task in tasks:
+        try:
+            size = os.path.getsize(task.path)
+        except OSError:
+            continue  # missing: the per-file work lists it as unreadable
+        if size:
+            by_size.setdefault((task.source.index, size), []).append(task)
+    duplicates = {}
+    for same_size in by_size.values():
+        if len(same_size) < 2:
+            continue
+        first_by_digest = {}
+        for task in same_size:
+            digest = hashlib.sha256()
+            try:
+                with open(task.path, "rb") as fh:
+                    for block in iter(lambda: fh.read(1 << 20), b""):
+                        digest.update(block)
+            except OSError:
+                continue
+            key = digest.hexdigest()
+            if key in first_by_digest:
+                duplicates[task.file_index] = first_by_digest[key]
+            else:
+                first_by_digest[key] = task.path
+    return duplicates
+
+
+def _duplicate_result(task: FileTask, first: str):
+    from .ledger import LedgerEntry
+    from .pipeline import FileResult
+
+    return FileResult(LedgerEntry(file=task.path, sensor=task.source.sensor, kind=task.source.kind,
+                                  status=DUPLICATE_FILE, message=f"same content as {first}; "
+                                  "not read again", size_bytes=os.path.getsize(task.path)))
+
+
+#: ledger status of a file skipped because an earlier file of the source has the same bytes
+DUPLICATE_FILE = "duplicate_file"
+
+
+# --------------------------------------------------------------------------------------------
 # running the tasks
 
 _WORKER_CONTEXT: dict = {}
@@ -155,6 +215,16 @@ def _run_here(cfg, grid, sensor_names, strict, task: FileTask):
     from .pipeline import process_file
 
     return process_file(cfg, grid, task.source, task.path, task.file_index, sensor_names, strict)
+
+
+def _in_task_order(tasks, duplicates, ran):
+    """Results of every task in task order: those that ran, and the skipped duplicates."""
+    ran = iter(ran)
+    for task in tasks:
+        if task.file_index in duplicates:
+            yield _duplicate_result(task, duplicates[task.file_index])
+        else:
+            yield next(ran)
 
 
 def _collect(results, reducer, outcome, bar):
@@ -192,18 +262,22 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
         from tqdm import tqdm
 
         bar = tqdm(total=len(tasks), unit="file", desc="obsprep build", leave=False)
+    duplicates = identical_files(tasks)
+    to_run = [t for t in tasks if t.file_index not in duplicates]
     try:
         if scheduler is not None:
-            return _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar)
+            return _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
+                                bar)
         outcome = ExecutionResult()
         reducer = FixedTreeReducer()
-        if jobs and jobs > 1 and len(tasks) > 1:
-            with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), initializer=_init_worker,
+        if jobs and jobs > 1 and len(to_run) > 1:
+            with ProcessPoolExecutor(max_workers=min(jobs, len(to_run)), initializer=_init_worker,
                                      initargs=(cfg, grid, sensor_names, strict)) as pool:
-                _collect(pool.map(_run_in_worker, tasks), reducer, outcome, bar)
+                _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),
+                         reducer, outcome, bar)
         else:
-            _collect((_run_here(cfg, grid, sensor_names, strict, t) for t in tasks), reducer,
-                     outcome, bar)
+            ran = (_run_here(cfg, grid, sensor_names, strict, t) for t in to_run)
+            _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)
         outcome.accumulator = reducer.result()
         return outcome
     finally:
@@ -218,7 +292,20 @@ def _summary(result):
     return result.entry, result.profile_names
 
 
-def _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar) -> ExecutionResult:
+#: one file at a time per worker process: the HDF5 library under netCDF4 is not thread-safe,
+#: and a Dask worker may run several tasks in threads of one process
+_FILE_LOCK = threading.Lock()
+
+
+def _process_file_on_worker(*args):
+    from .pipeline import process_file
+
+    with _FILE_LOCK:
+        return process_file(*args)
+
+
+def _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
+                 bar) -> ExecutionResult:
     """Submit the per-file tasks and the fixed merge tree to a Dask cluster.
 
     Input files must be readable under the same paths on the workers (a shared filesystem).
@@ -233,8 +320,12 @@ def _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar) -> Exec
     if isinstance(scheduler, Client):
         client, own = scheduler, False
     else:
+        import dask
+
         try:
-            client, own = Client(str(scheduler), timeout="20s"), True
+            # the connect timeout of the Dask configuration (distributed.comm.timeouts.connect)
+            timeout = dask.config.get("distributed.comm.timeouts.connect")
+            client, own = Client(str(scheduler), timeout=timeout), True
         except (OSError, TimeoutError, ValueError) as exc:
             raise ConfigError("--scheduler", f"cannot connect to the Dask scheduler at "
                               f"{scheduler!r}: {exc}") from exc
@@ -242,24 +333,30 @@ def _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar) -> Exec
         outcome = ExecutionResult()
         if not tasks:
             return outcome
-        from .pipeline import process_file
+        import uuid
 
+        run = uuid.uuid4().hex  # task keys unique to this run on a shared cluster
         # the config and grid go to the cluster once, not once per task
         shared = client.scatter([cfg, grid, sensor_names], broadcast=True)
         cfg_f, grid_f, names_f = shared
-        files = [client.submit(process_file, cfg_f, grid_f, t.source, t.path, t.file_index,
-                               names_f, strict, key=f"obsprep-file-{t.file_index}-{id(tasks)}",
-                               pure=False)
+        files = [client.submit(_process_file_on_worker, cfg_f, grid_f, t.source, t.path,
+                               t.file_index, names_f, strict,
+                               key=f"obsprep-file-{t.file_index}-{run}", pure=False)
+                 if t.file_index not in duplicates
+                 else client.submit(_duplicate_result, t, duplicates[t.file_index], pure=False,
+                                    key=f"obsprep-duplicate-{t.file_index}-{run}")
                  for t in tasks]
         summaries = [client.submit(_summary, f, pure=False) for f in files]
+        # the same tree as reduce_in_fixed_tree / FixedTreeReducer, one task per node
+        fan_in = MERGE_FAN_IN
         level = files
         depth = 0
         while len(level) > 1:
-            level = [client.submit(merge_group, level[s:s + MERGE_FAN_IN], pure=False,
-                                   key=f"obsprep-merge-{depth}-{s}-{id(tasks)}")
-                     for s in range(0, len(level), MERGE_FAN_IN)]
+            level = [client.submit(merge_group, level[s:s + fan_in], pure=False,
+                                   key=f"obsprep-merge-{depth}-{s}-{run}")
+                     for s in range(0, len(level), fan_in)]
             depth += 1
-        root = client.submit(merge_group, level, pure=False, key=f"obsprep-root-{id(tasks)}")
+        root = client.submit(merge_group, level, pure=False, key=f"obsprep-root-{run}")
         if bar is not None:
             for _ in as_completed(summaries):
                 bar.update()
@@ -273,5 +370,5 @@ def _run_on_dask(cfg, grid, tasks, sensor_names, strict, scheduler, bar) -> Exec
             client.close()
 
 
-__all__ = ["MERGE_FAN_IN", "FileTask", "ExecutionResult", "merge_group", "reduce_in_fixed_tree",
-           "FixedTreeReducer", "run_tasks"]
+__all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "ExecutionResult", "merge_group",
+           "reduce_in_fixed_tree", "FixedTreeReducer", "identical_files", "run_tasks"]

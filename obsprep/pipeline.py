@@ -20,7 +20,7 @@ from . import __version__
 from .config import Config, load_config
 from .error_rules import assign_errors
 from .exceptions import ConfigError, InputFileError, ObsprepError
-from .execution import FileTask, run_tasks
+from .execution import FileTask, FixedTreeReducer, run_tasks
 from .grid import grid_from_config
 from .grid.base import CLASSIFY_REASONS
 from .ledger import Ledger, LedgerEntry, entry_from_table
@@ -32,6 +32,8 @@ from .table import kept, reject
 from .timeslots import seconds_since, slot_index
 
 QUANTITY_NAMES = list(QUANTITIES)
+#: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
+ACCUMULATE_CHUNK_ROWS = 1 << 19
 KEY_NAMES = ["quantity", "sensor", "slot", "j", "i", "k", "profile", "t_start", "t_end"]
 
 
@@ -186,33 +188,58 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     live = kept(table)
     result = FileResult(entry=None)
     if live.any():
-        sub = table.loc[live]
-        q_code = _quantity_codes(sub)
-        s_code = np.full(len(sub), sensor_names.index(cfg.output_sensor(source.sensor)), dtype=np.int64)
-        slot = slot_index(sub["time"].to_numpy(), cfg.window)
-        profile = np.full(len(sub), -1, dtype=np.int64)
-        if cfg.superobs.get("profiles", "per_profile") == "per_profile":
-            is_profile = np.array([not QUANTITIES[name].surface for name in QUANTITY_NAMES])[q_code]
-            group_codes = sub["group"].cat.codes.to_numpy().astype(np.int64)
-            profile[is_profile] = (np.int64(file_index) << 32) + group_codes[is_profile]
-            cats = sub["group"].cat.categories
-            for code in np.unique(group_codes[is_profile]):
-                result.profile_names[int((file_index << 32) + code)] = str(cats[code])
-        t = seconds_since(sub["time"].to_numpy(), cfg.window.analysis_time)
-        t_end = seconds_since(sub["time_end"].to_numpy(), cfg.window.analysis_time)
-        interval = np.isfinite(t_end)
-        t_start_key = np.where(interval, np.round(np.nan_to_num(t)), 0).astype(np.int64)
-        t_end_key = np.where(interval, np.round(np.nan_to_num(t_end)), 0).astype(np.int64)
-        lon, lat = sub["lon"].to_numpy(), sub["lat"].to_numpy()
-        keys = {"quantity": q_code, "sensor": s_code, "slot": slot, "j": j[live], "i": i[live],
-                "k": k[live], "profile": profile, "t_start": t_start_key, "t_end": t_end_key}
+        live_rows = np.flatnonzero(live)
+        q_all = _quantity_codes(table)
+        sensor_code = sensor_names.index(cfg.output_sensor(source.sensor))
+        per_profile = cfg.superobs.get("profiles", "per_profile") == "per_profile"
+        is_profile_quantity = np.array([not QUANTITIES[name].surface for name in QUANTITY_NAMES])
+        group_codes = table["group"].cat.codes.to_numpy().astype(np.int64)
+        if per_profile:
+            profile_rows = live_rows[is_profile_quantity[q_all[live_rows]]]
+            categories = table["group"].cat.categories
+            for code in np.unique(group_codes[profile_rows]):
+                result.profile_names[int((file_index << 32) + code)] = str(categories[code])
+        columns = {name: table[name].to_numpy() for name in
+                   ("value", "error", "lon", "lat", "depth", "time", "time_end", "row")}
         thinning = cfg.superobs.get("mode", "mean") == "thin"  # the score is costly: only then
-        result.accumulator = Accumulator.from_observations(
-            keys, sub["value"].to_numpy(), sub["error"].to_numpy(), t, lon, lat, sub["depth"].to_numpy(),
-            score=grid.cell_center_distance(lon, lat, i[live], j[live]) if thinning else None,
-            tiebreak=((np.int64(file_index) << 40) + sub["row"].to_numpy().astype(np.int64)
-                      if thinning else None),
-        )
+        reducer = FixedTreeReducer()
+        # Row chunks bound the temporary memory of a big file; they are merged in a fixed
+        # order, so the result does not depend on how files are spread over processes.
+        for start in range(0, live_rows.size, ACCUMULATE_CHUNK_ROWS):
+            rows = live_rows[start:start + ACCUMULATE_CHUNK_ROWS]
+            m = rows.size
+
+            def constant(value):
+                return np.broadcast_to(np.int64(value), (m,))  # no memory per row
+
+            q_code = q_all[rows]
+            profile = constant(-1)
+            if per_profile:
+                is_profile = is_profile_quantity[q_code]
+                if is_profile.any():
+                    profile = np.where(is_profile, (np.int64(file_index) << 32) + group_codes[rows],
+                                       np.int64(-1))
+            t = seconds_since(columns["time"][rows], cfg.window.analysis_time)
+            t_end = seconds_since(columns["time_end"][rows], cfg.window.analysis_time)
+            interval = np.isfinite(t_end)
+            if interval.any():
+                t_start_key = np.where(interval, np.round(np.nan_to_num(t)), 0).astype(np.int64)
+                t_end_key = np.where(interval, np.round(np.nan_to_num(t_end)), 0).astype(np.int64)
+            else:
+                t_start_key = t_end_key = constant(0)
+            lon, lat = columns["lon"][rows], columns["lat"][rows]
+            ii, jj = i[rows], j[rows]
+            keys = {"quantity": q_code, "sensor": constant(sensor_code),
+                    "slot": slot_index(columns["time"][rows], cfg.window), "j": jj, "i": ii,
+                    "k": k[rows], "profile": profile, "t_start": t_start_key, "t_end": t_end_key}
+            reducer.add(Accumulator.from_observations(
+                keys, columns["value"][rows], columns["error"][rows], t, lon, lat,
+                columns["depth"][rows],
+                score=grid.cell_center_distance(lon, lat, ii, jj) if thinning else None,
+                tiebreak=((np.int64(file_index) << 40) + columns["row"][rows].astype(np.int64)
+                          if thinning else None),
+            ))
+        result.accumulator = reducer.result()
     result.entry = entry_from_table(table, path, source.sensor, kind, size)
     return result
 
@@ -305,8 +332,9 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
         ledger.add(entry)
     ledger.check()
     profile_names = executed.profile_names
-    merged = executed.accumulator
+    merged, executed.accumulator = executed.accumulator, None
     superobs = finalize_superobs(cfg, merged, sensor_names, profile_names)
+    del merged  # the sums are in the table now: free them before the writers need memory
     kept_total = sum(e.kept for e in ledger.entries)
     counted = int(superobs["count"].sum()) if len(superobs) else 0
     if counted != kept_total:

@@ -42,6 +42,10 @@ def make_table(n: int | None = None, **columns) -> pd.DataFrame:
     Missing columns are filled: ``error`` NaN, ``depth`` 0, ``time_end`` NaT, ``row`` 0..n-1,
     strings empty, ``rejected`` missing.  Scalars are broadcast.  Unknown column names raise
     ``KeyError`` so a typo in a reader fails loudly.
+
+    Writeable numpy arrays of the right dtype become columns without a copy (a swath of
+    millions of rows would otherwise be held twice while the table is built): a reader must not
+    modify them afterwards.
     """
     unknown = set(columns) - set(COLUMNS)
     if unknown:
@@ -66,11 +70,14 @@ def make_table(n: int | None = None, **columns) -> pd.DataFrame:
                 v = np.full(n, np.nan)
         if np.ndim(v) == 0:
             v = np.full(n, v)
-        v = np.asarray(v).astype("datetime64[ns]") if dtype.startswith("datetime64") else np.asarray(v, dtype=dtype)
+        v = (np.asarray(v).astype("datetime64[ns]", copy=False) if dtype.startswith("datetime64")
+             else np.asarray(v, dtype=dtype))
         if len(v) != n:
             raise ValueError(f"column '{name}' has length {len(v)}, expected {n}")
+        if not v.flags.writeable or v.base is not None and not v.flags.c_contiguous:
+            v = v.copy()  # read-only views (e.g. broadcasts) and strided views: own copy
         data[name] = v
-    return pd.DataFrame(data)
+    return pd.DataFrame(data, copy=False)
 
 
 def _categorical(name, v, n) -> pd.Categorical:
@@ -135,6 +142,18 @@ def reject(table: pd.DataFrame, mask, reason: str) -> int:
     elif column is not table["rejected"]:
         table["rejected"] = column
     return n
+
+
+def category_masks(table: pd.DataFrame, column: str = "quantity") -> dict:
+    """``{label: boolean row mask}`` for the labels present in categorical ``column``.
+
+    Works on the integer codes: ``table[column].astype(str)`` builds one string per row, which
+    costs more than the test itself on a swath of millions of rows.
+    """
+    codes = table[column].cat.codes.to_numpy()
+    categories = table[column].cat.categories
+    present = np.flatnonzero(np.bincount(codes[codes >= 0], minlength=len(categories)))
+    return {str(categories[c]): codes == c for c in present}
 
 
 def kept(table: pd.DataFrame) -> np.ndarray:

@@ -391,6 +391,27 @@ def test_spread_and_mean_are_exact_for_epoch_seconds():
     assert result["time"].iloc[0] - 1.7e9 == pytest.approx(offsets.mean(), abs=1e-6)
 
 
+def test_spread_is_exact_for_groups_far_from_the_batch_mean():
+    # One batch, two groups a million units apart: the batch is accumulated about one shift
+    # (its mean), which is 5e5 from both groups.  A one-pass M2 about that shift would lose
+    # every digit of the millimetre spread of group 1 (n (mean - shift)^2 ~ 2.5e14 n against
+    # M2 ~ 1e-6 n); the accumulator must notice and use the two-pass sums for it.
+    rng = np.random.default_rng(8)
+    n = 5000
+    cell = np.repeat(np.array([0, 1], dtype=np.int64), n)
+    small = rng.normal(0.0, 1.0, n)
+    far = 1e6 + 1e-3 * rng.normal(size=n)
+    values = np.concatenate([small, far])
+    ones = np.ones(2 * n)
+    result = Accumulator.from_observations({"cell": cell}, values, ones, ones, ones, ones,
+                                           ones).finalize()
+    # Reference: np.std / np.mean of each group's own values (two-pass in numpy), and of the
+    # offsets 1e-3 * normal for the far group (storing 1e6 + x rounds x by <= 1.2e-10).
+    assert result["spread"].iloc[0] == pytest.approx(np.std(small, ddof=1), rel=1e-12)
+    assert result["spread"].iloc[1] == pytest.approx(np.std(far - 1e6, ddof=1), rel=1e-6)
+    assert result["value"].iloc[1] - 1e6 == pytest.approx(np.mean(far - 1e6), abs=1e-9)
+
+
 # ----------------------------------------------------------------------------------------------
 # positions on the sphere
 
@@ -635,3 +656,69 @@ def test_empty_batches():
     # an empty batch merges with any other, with or without a representative
     assert Accumulator.merge([nothing, some, nothing]).finalize()["count"].tolist() == [2]
     assert Accumulator.merge([nothing, nothing]).n_groups == 0
+
+
+# ----------------------------------------------------------------------------------------------
+# property-based: any grouping of merges
+
+def _merge_in_tree(parts, shape):
+    """Merge ``parts`` (in order) following ``shape``: a list of cut positions per level."""
+    level = list(parts)
+    for cut in shape:
+        if len(level) < 2:
+            break
+        at = 1 + cut % (len(level) - 1)
+        level = [Accumulator.merge(level[:at])] + level[at:]
+        level = level[:1] + ([Accumulator.merge(level[1:])] if len(level) > 2 else level[1:])
+    return Accumulator.merge(level)
+
+
+merge_trees = st.integers(min_value=1, max_value=80).flatmap(
+    lambda n: st.tuples(
+        st.lists(st.integers(0, 4), min_size=n, max_size=n),           # key a
+        st.lists(st.floats(-50.0, 50.0, allow_nan=False), min_size=n, max_size=n),  # values
+        st.lists(st.floats(0.05, 5.0), min_size=n, max_size=n),        # errors
+        st.lists(st.integers(0, n), min_size=0, max_size=7),            # cuts into parts
+        st.lists(st.integers(0, 1000), min_size=0, max_size=6),         # tree shape
+        st.booleans(),                                                  # wide keys (sort path)
+        st.randoms(use_true_random=False),
+    ))
+
+
+@settings(max_examples=60, deadline=None)
+@given(merge_trees)
+def test_properties_any_grouping_of_merges_matches_one_batch(args):
+    key_a, values, errors, cuts, shape, wide, random = args
+    n = len(values)
+    a = np.array(key_a, dtype=np.int64)
+    # wide keys leave the direct-index range and take the sorting path of the grouping
+    a = a * np.int64(10**15) if wide else a
+    data = dict(keys={"a": a, "b": np.arange(n, dtype=np.int64) % 2},
+                value=273.15 + np.array(values), error=np.array(errors),
+                time=np.linspace(-3600.0, 0.0, n), lon=np.linspace(-179.5, 179.5, n),
+                lat=np.linspace(-85.0, 85.0, n), depth=np.linspace(0.0, 100.0, n),
+                score=np.array(errors), tiebreak=np.arange(n, dtype=np.int64))
+    chunks = np.split(np.arange(n), sorted(cuts))
+    parts = [accumulate(subset(data, rows)) for rows in chunks]
+    random.shuffle(parts)  # any order ...
+    merged = _merge_in_tree(parts, shape)  # ... and any grouping
+    whole = accumulate(data)
+    # Reference: the same observations accumulated in one batch; counts and extremes exact
+    for name in ("count", "value_min", "value_max"):
+        np.testing.assert_array_equal(merged.state[name], whole.state[name], err_msg=name)
+    assert merged.count.sum() == n  # conserved
+    for mode in ("mean", "weighted"):
+        got, expected = merged.finalize(mode=mode), whole.finalize(mode=mode)
+        for column in ("value", "time", "lon", "lat", "depth", "error_instrument"):
+            np.testing.assert_allclose(got[column], expected[column], rtol=1e-9, atol=1e-9,
+                                       err_msg=f"{mode} {column}")
+        # a mean lies within [min, max] up to a few units in the last place of 273 K
+        assert (got["value"] >= got["value_min"] - 1e-10).all()
+        assert (got["value"] <= got["value_max"] + 1e-10).all()
+    variance = merged.finalize()["spread"] ** 2
+    np.testing.assert_allclose(variance, whole.finalize()["spread"] ** 2, rtol=1e-8, atol=1e-9,
+                               equal_nan=True)
+    # the thinning representative is the same raw observation whatever the grouping
+    picked = ["count", "value", "time", "lon", "lat", "depth", "error_instrument"]
+    pd.testing.assert_frame_equal(merged.finalize(mode="thin")[picked],
+                                  whole.finalize(mode="thin")[picked], check_exact=True)

@@ -214,7 +214,8 @@ class CurvilinearGrid(ModelGrid):
     def _lookup(self):
         """The first-guess table (module docstring), or None when the grid is too wide for one
         stereographic plane.  Returns (basis (3, 3): mean direction, e1, e2; x0, y0, bin size in
-        plane units; table (nby, nbx) of flat centre indices)."""
+        plane units; table (nby, nbx) of flat centre indices; (ncells, 6) plane x, y of each
+        centre and its differences along +i and +j)."""
         from scipy.ndimage import distance_transform_edt
 
         r = self._unit_vectors.reshape(-1, 3)
@@ -253,7 +254,14 @@ class CurvilinearGrid(ModelGrid):
         table[by, bx] = np.arange(self.ny * self.nx, dtype=np.int32)
         nearest = distance_transform_edt(table < 0, return_distances=False, return_indices=True)
         table = table[nearest[0], nearest[1]]
-        return basis, x0, y0, size, table
+        # per centre: its plane position and the centred differences along +i and +j (one-sided
+        # at the edges), rows of one array so that a lookup gathers one row
+        jc, ic = np.indices(self.shape)
+        right, left = np.minimum(ic + 1, self.nx - 1), np.maximum(ic - 1, 0)
+        up, down = np.minimum(jc + 1, self.ny - 1), np.maximum(jc - 1, 0)
+        axes = np.stack([x, y, x[jc, right] - x[jc, left], y[jc, right] - y[jc, left],
+                         x[up, ic] - x[down, ic], y[up, ic] - y[down, ic]], axis=-1)
+        return basis, x0, y0, size, table, np.ascontiguousarray(axes.reshape(-1, 6))
 
     @staticmethod
     def _stereographic_plane(r, basis):
@@ -267,12 +275,12 @@ class CurvilinearGrid(ModelGrid):
         return x, y, along
 
     def _first_guess(self, points):
-        """Flat index of a centre near each position (unit vectors), or ncells where the
-        position is outside the table or the grid has no table (then ``None``)."""
+        """(flat index of a centre near each position (unit vectors), or ncells where the
+        position is outside the table; plane x; plane y), or None when the grid has no table."""
         lookup = self._lookup
         if lookup is None:
             return None
-        basis, x0, y0, size, table = lookup
+        basis, x0, y0, size, table, _ = lookup
         ncells = self.ny * self.nx
         with np.errstate(invalid="ignore", divide="ignore"):
             x, y, along = self._stereographic_plane(points, basis)
@@ -281,10 +289,10 @@ class CurvilinearGrid(ModelGrid):
             inside = (bx >= 0) & (bx < table.shape[1]) & (by >= 0) & (by < table.shape[0])
             inside &= along > 0.0
         if inside.all():
-            return table[by.astype(np.intp), bx.astype(np.intp)].astype(np.intp)
+            return table[by.astype(np.intp), bx.astype(np.intp)].astype(np.intp), x, y
         guess = np.full(len(points), ncells, dtype=np.intp)
         guess[inside] = table[by[inside].astype(np.intp), bx[inside].astype(np.intp)]
-        return guess
+        return guess, x, y
 
     @cached_property
     def _centre_axes(self):
@@ -422,19 +430,29 @@ class CurvilinearGrid(ModelGrid):
         near_miss = np.empty((n, 5))  # violation, j0, i0, s, t; read only where finite
         near_miss[:, 0] = np.inf
         points = unit_vectors_from_lonlat(lon, lat)
-        nearest = self._first_guess(points) if self.first_guess == "table" else None
-        from_tree = nearest is None
+        guess = self._first_guess(points) if self.first_guess == "table" else None
+        from_tree = guess is None
         if from_tree:
             _, nearest = self._tree.query(points, k=1, distance_upper_bound=self._search_radius)
+        else:
+            nearest, plane_x, plane_y = guess
         pending = np.flatnonzero(nearest < ncells)  # the others are far from every centre
         # 1) the four pieces around the nearest centre, the one facing the position first
         centre = nearest[pending]
         jc, ic = np.divmod(centre, self.nx)
-        r = self._unit_vectors.reshape(-1, 3)
-        along_i, along_j = self._centre_axes
-        offset = points[pending] - r[centre]
-        di = np.where(np.einsum("ij,ij->i", offset, along_i[centre]) < 0, -1, 0)
-        dj = np.where(np.einsum("ij,ij->i", offset, along_j[centre]) < 0, -1, 0)
+        if from_tree:  # facing: offset from the centre against the grid axes, in 3-D
+            r = self._unit_vectors.reshape(-1, 3)
+            along_i, along_j = self._centre_axes
+            offset = points[pending] - r[centre]
+            di = np.where(np.einsum("ij,ij->i", offset, along_i[centre]) < 0, -1, 0)
+            dj = np.where(np.einsum("ij,ij->i", offset, along_j[centre]) < 0, -1, 0)
+        else:  # ... or in the table's plane (conformal: the same sides), cheaper
+            xc, yc, aix, aiy, ajx, ajy = np.ascontiguousarray(self._lookup[5][centre].T)
+            if pending.size != n:
+                plane_x, plane_y = plane_x[pending], plane_y[pending]
+            ox, oy = plane_x - xc, plane_y - yc
+            di = np.where(ox * aix + oy * aiy < 0, -1, 0)
+            dj = np.where(ox * ajx + oy * ajy < 0, -1, 0)
         for flip_j, flip_i in ((False, False), (False, True), (True, False), (True, True)):
             if pending.size == 0:
                 break

@@ -537,7 +537,8 @@ def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity |
 
 def wrap_longitude(lon) -> np.ndarray:
     """Longitude (degrees) wrapped into [-180, 180): ((lon + 180) mod 360) - 180."""
-    return np.mod(np.asarray(lon, dtype=np.float64) + 180.0, 360.0) - 180.0
+    with np.errstate(invalid="ignore"):  # +-inf stays NaN: rejected later as bad_position
+        return np.mod(np.asarray(lon, dtype=np.float64) + 180.0, 360.0) - 180.0
 
 
 def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
@@ -852,7 +853,9 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     shape = decoded.values.shape
 
     def flat(a, dtype=None):
-        a = np.broadcast_to(np.asarray(a, dtype=dtype), shape).ravel()
+        a = np.asarray(a, dtype=dtype)
+        # an array of the full shape is flattened as it is (a view, no copy); others broadcast
+        a = a.ravel() if a.shape == shape else np.broadcast_to(a, shape).ravel()
         return a if keep_flat is None else a[keep_flat]
 
     keep_flat = None if keep is None else np.broadcast_to(keep, shape).ravel()

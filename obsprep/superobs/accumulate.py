@@ -240,14 +240,16 @@ def _direct_code(key_arrays, n):
         return None
     code = None
     for array, low, radix in zip(key_arrays, lows, radices):  # loop over keys, not rows
+        if radix == 1:
+            continue  # a constant key adds nothing to the code (and may be a broadcast view)
         digit = array - np.int64(low) if low else array
         if code is None:
             code = digit.astype(np.int64, copy=True)
-        elif radix > 1:
-            code *= np.int64(radix)
-            code += digit
         else:
             code *= np.int64(radix)
+            code += digit
+    if code is None:
+        code = np.zeros(n, dtype=np.int64)
     return code, lows, radices
 
 
@@ -260,28 +262,62 @@ def _grouping(key_arrays) -> _Grouping:
                          [np.zeros(0, dtype=np.int64) for _ in key_arrays])
     direct = _direct_code(key_arrays, n)
     if direct is not None:
-        code, lows, radices = direct
-        n_codes = math.prod(radices)
-        count = np.bincount(code, minlength=n_codes)
-        occupied = np.flatnonzero(count)
-        # decode the occupied codes back to key values (mixed radix, last key least significant)
-        remainder = occupied.astype(np.int64)
-        group_keys = [None] * len(key_arrays)
-        for position in range(len(key_arrays) - 1, -1, -1):
-            remainder, digit = np.divmod(remainder, np.int64(radices[position]))
-            group_keys[position] = digit + np.int64(lows[position])
-        if 2 * len(occupied) >= n_codes:
-            # dense: the code is the bin; empty bins are dropped at the end
-            keep = None if len(occupied) == n_codes else occupied
-            return _Grouping(code, n_codes, count, keep, group_keys)
-        # sparse: renumber the occupied codes 0..n_groups-1 (smaller per-bin arrays)
-        renumber = np.empty(n_codes, dtype=np.intp)
-        renumber[occupied] = np.arange(len(occupied))
-        return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
+        return _direct_grouping(*direct)
     order, starts, inverse = _group_index(key_arrays)
     first_rows = order[starts]
     count = np.diff(starts, append=n).astype(np.int64)
     return _Grouping(inverse, len(starts), count, None, [a[first_rows] for a in key_arrays])
+
+
+def _direct_grouping(code, lows, radices) -> _Grouping:
+    """The grouping of rows by a direct (mixed-radix) code, see :func:`_direct_code`."""
+    n_codes = math.prod(radices)
+    count = np.bincount(code, minlength=n_codes)
+    occupied = np.flatnonzero(count)
+    # decode the occupied codes back to key values (mixed radix, last key least significant)
+    remainder = occupied.astype(np.int64)
+    group_keys = [None] * len(radices)
+    for position in range(len(radices) - 1, -1, -1):
+        if radices[position] == 1:  # a constant key: one value, no memory per group
+            group_keys[position] = np.broadcast_to(np.int64(lows[position]), occupied.shape)
+            continue
+        remainder, digit = np.divmod(remainder, np.int64(radices[position]))
+        group_keys[position] = digit + np.int64(lows[position])
+    if 2 * len(occupied) >= n_codes:
+        # dense: the code is the bin; empty bins are dropped at the end
+        keep = None if len(occupied) == n_codes else occupied
+        return _Grouping(code, n_codes, count, keep, group_keys)
+    # sparse: renumber the occupied codes 0..n_groups-1 (smaller per-bin arrays)
+    renumber = np.empty(n_codes, dtype=np.intp)
+    renumber[occupied] = np.arange(len(occupied))
+    return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
+
+
+def _grouping_of_parts(parts, key_names) -> _Grouping:
+    """:func:`_grouping` of the concatenated keys of accumulators ``parts`` (merge), without
+    concatenating every key when a direct code fits: each part's keys are packed into the
+    common code, and only the codes are concatenated."""
+    n = sum(a.n_groups for a in parts)
+    if n == 0:
+        return _grouping([np.zeros(0, dtype=np.int64) for _ in key_names])
+    lows, radices = [], []
+    for name in key_names:
+        present = [a._keys[name] for a in parts if a.n_groups]
+        low = min(int(k.min()) for k in present)
+        high = max(int(k.max()) for k in present)
+        lows.append(low)
+        radices.append(high - low + 1)
+    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+        return _grouping([np.concatenate([a._keys[name] for a in parts]) for name in key_names])
+    codes = []
+    for a in parts:
+        code = np.zeros(a.n_groups, dtype=np.int64)
+        for name, low, radix in zip(key_names, lows, radices):  # loop over keys, not rows
+            if radix > 1:
+                code *= np.int64(radix)
+                code += a._keys[name] - np.int64(low)
+        codes.append(code)
+    return _direct_grouping(np.concatenate(codes), lows, radices)
 
 
 def _representative_rows(grouping, score, tiebreak):
@@ -296,13 +332,14 @@ def _representative_rows(grouping, score, tiebreak):
     return grouping.compress(grouping.minimum(row, n))
 
 
-def _shifted_mean_and_m2(x, grouping, count_float):
+def _shifted_mean_and_m2(x, grouping, count_float, work=None):
     """Per-bin mean and M2 of ``x``: one pass about the batch mean, two-pass where that loses
-    too many digits (module docstring).  Empty bins give NaN."""
+    too many digits (module docstring).  Empty bins give NaN.  ``work``: a scratch array like
+    ``x`` (overwritten)."""
     shift = float(np.mean(x)) if x.size else 0.0
-    deviation = x - shift
+    deviation = np.subtract(x, shift, out=work)
     s1 = grouping.sum(deviation)
-    s2 = grouping.sum(deviation * deviation)
+    s2 = grouping.sum(np.multiply(deviation, deviation, out=deviation))
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_deviation = s1 / count_float
         between = s1 * mean_deviation
@@ -319,14 +356,42 @@ def _shifted_mean_and_m2(x, grouping, count_float):
     return mean, m2
 
 
-def _shifted_mean(x, grouping, count_float, weights=None, total_weight=None):
-    """Per-bin (weighted) mean of ``x`` about the batch mean: ``c + sum w (x - c) / W``."""
+def _shifted_mean(x, grouping, count_float, weights=None, total_weight=None, work=None):
+    """Per-bin (weighted) mean of ``x`` about the batch mean: ``c + sum w (x - c) / W``.
+    ``work``: a scratch array like ``x`` (overwritten)."""
     shift = float(np.mean(x)) if x.size else 0.0
-    deviation = x - shift
+    deviation = np.subtract(x, shift, out=work)
     with np.errstate(invalid="ignore", divide="ignore"):
         if weights is None:
             return shift + grouping.sum(deviation) / count_float
-        return shift + grouping.sum(weights * deviation) / total_weight
+        return shift + grouping.sum(np.multiply(weights, deviation, out=deviation)) / total_weight
+
+
+#: rows per block when unit vectors are evaluated (block arrays stay in the processor cache)
+_UNIT_VECTOR_BLOCK = 1 << 16
+
+
+def _unit_vector_sums(lon, lat, grouping, work, work_2):
+    """Per-bin sums of the unit vectors of the positions (:func:`unit_vectors`, the same
+    arithmetic: x = cos(lat) cos(lon), y = cos(lat) sin(lon), z = sin(lat), radians by the
+    factor pi/180), evaluated in cache-sized blocks into the scratch arrays ``work`` and
+    ``work_2`` (overwritten)."""
+    n = lon.size
+    z = np.empty(n)
+    block = min(_UNIT_VECTOR_BLOCK, max(n, 1))
+    lat_rad, lon_rad, cos_lat = np.empty(block), np.empty(block), np.empty(block)
+    to_radians = np.pi / 180.0
+    for start in range(0, n, block):  # loop over blocks of rows, not rows
+        stop = min(start + block, n)
+        m = stop - start
+        a, b, c = lat_rad[:m], lon_rad[:m], cos_lat[:m]
+        np.multiply(lat[start:stop], to_radians, out=a)
+        np.multiply(lon[start:stop], to_radians, out=b)
+        np.cos(a, out=c)
+        np.sin(a, out=z[start:stop])
+        np.multiply(np.cos(b, out=work[start:stop]), c, out=work[start:stop])
+        np.multiply(np.sin(b, out=work_2[start:stop]), c, out=work_2[start:stop])
+    return grouping.sum(work), grouping.sum(work_2), grouping.sum(z)
 
 
 def _pick_representative(score, tiebreak, order, starts, inverse):
@@ -542,7 +607,11 @@ class Accumulator:
         count_float = grouping.count.astype(np.float64)
         compress = grouping.compress
 
-        value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float)
+        # Two work buffers of n floats are reused by every per-row product below: fresh
+        # temporaries of millions of rows cost more in page faults than the arithmetic.
+        work = np.empty(n)
+        work_2 = np.empty(n)
+        value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
         if n and error.min() == error.max():
             # one error for the whole batch (a constant error rule): the error sums follow
             # from the counts, and the weighted mean is the plain mean
@@ -553,15 +622,15 @@ class Accumulator:
             sum_inverse_variance = count_float * (1.0 / (sigma * sigma))
             weighted_mean = value_mean
         else:
-            inverse_sigma = 1.0 / error
-            inverse_variance = inverse_sigma * inverse_sigma
+            inverse_sigma = np.divide(1.0, error, out=work)
+            sum_inverse_sigma = grouping.sum(inverse_sigma)
+            inverse_variance = np.multiply(inverse_sigma, inverse_sigma, out=work)
             sum_inverse_variance = grouping.sum(inverse_variance)
             weighted_mean = _shifted_mean(value, grouping, count_float, inverse_variance,
-                                          sum_inverse_variance)
-            sum_inverse_sigma = grouping.sum(inverse_sigma)
-            sum_variance = grouping.sum(error * error)
+                                          sum_inverse_variance, work_2)
+            sum_variance = grouping.sum(np.multiply(error, error, out=work))
             sum_sigma = grouping.sum(error)
-        time_mean = _shifted_mean(time, grouping, count_float)
+        time_mean = _shifted_mean(time, grouping, count_float, work=work)
         if n and depth.min() == depth.max():
             depth_mean = np.full(grouping.n_bins, depth[0])
             depth_m2 = depth_value_c2 = np.zeros(grouping.n_bins)
@@ -578,7 +647,9 @@ class Accumulator:
                                       - sum_depth_deviation ** 2 / count_float, 0.0)
                 depth_value_c2 = (grouping.sum(depth_deviation * value_deviation)
                                   - sum_depth_deviation * sum_value_deviation / count_float)
-        x, y, z = unit_vectors(lon, lat)
+                del depth_deviation, value_deviation
+        sum_x, sum_y, sum_z = _unit_vector_sums(lon, lat, grouping, work, work_2)
+        del work, work_2
         value_min = grouping.minimum(value, np.inf)
         value_max = grouping.maximum(value, -np.inf)
 
@@ -594,9 +665,9 @@ class Accumulator:
             "sum_variance": compress(sum_variance),
             "sum_sigma": compress(sum_sigma),
             "time_mean": compress(time_mean),
-            "sum_x": compress(grouping.sum(x)),
-            "sum_y": compress(grouping.sum(y)),
-            "sum_z": compress(grouping.sum(z)),
+            "sum_x": compress(sum_x),
+            "sum_y": compress(sum_y),
+            "sum_z": compress(sum_z),
             "depth_mean": compress(depth_mean),
             "depth_m2": compress(depth_m2),
             "depth_value_c2": compress(depth_value_c2),
@@ -650,64 +721,64 @@ class Accumulator:
             raise ValueError("Accumulator.merge: some accumulators keep a thinning "
                              "representative (a score was given) and others do not")
         has_representative = flags.pop()
-        fields = list(STATE_FIELDS) + (list(REPRESENTATIVE_FIELDS) if has_representative else [])
         parts = non_empty or accumulators[:1]
 
-        keys = [np.concatenate([a._keys[name] for a in parts]) for name in key_names]
-        part = {name: np.concatenate([a._state[name] for a in parts]) for name in fields}
-        grouping = _grouping(keys)
+        grouping = _grouping_of_parts(parts, key_names)
         group_keys = dict(zip(key_names, grouping.group_keys))
         inverse, n_groups = grouping.index, grouping.n_bins
         n_rows = len(inverse)
 
-        count = grouping.sum(part["count"].astype(np.float64)).astype(np.int64)
-        value_min = grouping.minimum(part["value_min"], np.inf)
-        value_max = grouping.maximum(part["value_max"], -np.inf)
-        part_count = part["count"].astype(np.float64)
+        def part(name):
+            # one field of every part at a time: a merge of big partial results would
+            # otherwise hold every field twice
+            return np.concatenate([a._state[name] for a in parts])
+
+        part_count = part("count").astype(np.float64)
+        count = grouping.sum(part_count).astype(np.int64)
+        value_min = grouping.minimum(part("value_min"), np.inf)
+        value_max = grouping.maximum(part("value_max"), -np.inf)
         count_float = count.astype(np.float64)
+        state = {"count": count, "value_min": value_min, "value_max": value_max}
         # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2 (empty bins of a
         # direct grouping give NaN here and are dropped by compress)
         with np.errstate(invalid="ignore", divide="ignore"):
-            value_mean, between = _grouped_mean(part["value_mean"], inverse, n_groups, part_count,
+            part_value_mean = part("value_mean")
+            value_mean, between = _grouped_mean(part_value_mean, inverse, n_groups, part_count,
                                                 count_float)
-            value_m2 = np.bincount(inverse, part["value_m2"], n_groups) + between
-            sum_inverse_variance = np.bincount(inverse, part["sum_inverse_variance"], n_groups)
-            weighted_mean, _ = _grouped_mean(part["weighted_mean"], inverse, n_groups,
-                                             part["sum_inverse_variance"], sum_inverse_variance)
-            time_mean, _ = _grouped_mean(part["time_mean"], inverse, n_groups, part_count,
-                                         count_float)
-            depth_mean, depth_between = _grouped_mean(part["depth_mean"], inverse, n_groups,
+            state["value_mean"] = value_mean
+            state["value_m2"] = np.bincount(inverse, part("value_m2"), n_groups) + between
+            part_weight = part("sum_inverse_variance")
+            sum_inverse_variance = np.bincount(inverse, part_weight, n_groups)
+            state["sum_inverse_variance"] = sum_inverse_variance
+            state["weighted_mean"], _ = _grouped_mean(part("weighted_mean"), inverse, n_groups,
+                                                      part_weight, sum_inverse_variance)
+            del part_weight
+            state["time_mean"], _ = _grouped_mean(part("time_mean"), inverse, n_groups,
+                                                  part_count, count_float)
+            part_depth_mean = part("depth_mean")
+            depth_mean, depth_between = _grouped_mean(part_depth_mean, inverse, n_groups,
                                                       part_count, count_float)
+            state["depth_mean"] = depth_mean
             # co-moments merge like M2: C = sum C_k + sum n_k (d_k - d)(v_k - v) (Chan et al.)
             depth_value_between = np.bincount(
-                inverse, part_count * (part["depth_mean"] - depth_mean[inverse])
-                * (part["value_mean"] - value_mean[inverse]), n_groups)
-            state = {
-                "count": count.astype(np.int64, copy=False),
-                "value_mean": value_mean,
-                "value_m2": value_m2,
-                "value_min": value_min,
-                "value_max": value_max,
-                "weighted_mean": weighted_mean,
-                "sum_inverse_variance": sum_inverse_variance,
-                "time_mean": time_mean,
-                "depth_mean": depth_mean,
-                "depth_m2": np.bincount(inverse, part["depth_m2"], n_groups) + depth_between,
-                "depth_value_c2": (np.bincount(inverse, part["depth_value_c2"], n_groups)
-                                   + depth_value_between),
-            }
+                inverse, part_count * (part_depth_mean - depth_mean[inverse])
+                * (part_value_mean - value_mean[inverse]), n_groups)
+            del part_depth_mean, part_value_mean
+            state["depth_m2"] = np.bincount(inverse, part("depth_m2"), n_groups) + depth_between
+            state["depth_value_c2"] = (np.bincount(inverse, part("depth_value_c2"), n_groups)
+                                       + depth_value_between)
             for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
                          "sum_z"):
-                state[name] = np.bincount(inverse, part[name], n_groups)
+                state[name] = np.bincount(inverse, part(name), n_groups)
         state = {name: grouping.compress(state[name]) for name in STATE_FIELDS}
         if has_representative:
             if n_rows:
-                row = _representative_rows(grouping, part["representative_score"],
-                                           part["representative_tiebreak"])
+                row = _representative_rows(grouping, part("representative_score"),
+                                           part("representative_tiebreak"))
             else:
                 row = np.zeros(0, dtype=np.intp)
             for name in REPRESENTATIVE_FIELDS:
-                state[name] = part[name][row]
+                state[name] = part(name)[row]
         return cls(key_names, group_keys, state, has_representative)
 
     # ---- output ------------------------------------------------------------------------------

@@ -33,7 +33,8 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
     present = set(superobs["quantity"].unique())  # once, not once per known quantity
     for name in [q for q in QUANTITIES if q in present]:
         q = QUANTITIES[name]
-        sub = superobs[superobs["quantity"] == name]
+        same = superobs["quantity"] == name
+        sub = superobs if same.all() else superobs[same]  # one quantity: no copy of the table
         dim = f"{name}_obs"
         coords = f"{name}_time {name}_lat {name}_lon {name}_depth"
 

@@ -1,0 +1,210 @@
+"""Where the per-file work runs: the fixed merge tree, local processes, a Dask cluster, and the
+bit-for-bit identity of the super-observation file however the run was spread out.
+
+References: the tree is checked against its own definition (consecutive groups of fan_in,
+level by level) and against a single flat merge within floating tolerance; builds are checked
+against each other bit for bit (the determinism requirement), and their counts against a
+numpy count of the raw points that fall in the grid (an independent computation).
+"""
+
+from __future__ import annotations
+
+import json
+
+import netCDF4
+import numpy as np
+import pytest
+import xarray as xr
+from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from obsprep import execution
+from obsprep.cli.main import cli
+from obsprep.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
+from obsprep.pipeline import build
+from obsprep.superobs import Accumulator
+
+ANALYSIS = np.datetime64("2026-11-20T00:00:00")
+EPOCH_1950 = np.datetime64("1950-01-01T00:00:00")
+
+
+# ----------------------------------------------------------------------------------------------
+# the fixed tree
+
+def partial(seed, n=50):
+    """A small invented accumulator (keys in 0..5, values around 20)."""
+    rng = np.random.default_rng(seed)
+    keys = {"cell": rng.integers(0, 6, n).astype(np.int64)}
+    return Accumulator.from_observations(keys, 20.0 + rng.normal(0, 1, n),
+                                         rng.uniform(0.1, 1.0, n), rng.uniform(-10, 0, n),
+                                         rng.uniform(0, 1, n), rng.uniform(50, 51, n), 0.0)
+
+
+def assert_state_identical(a, b):
+    assert a.key_names == b.key_names
+    for name in a.key_names:
+        np.testing.assert_array_equal(a.keys[name], b.keys[name])
+    for name, array in a.state.items():
+        assert np.array_equal(array, b.state[name], equal_nan=True), name
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.one_of(st.none(), st.integers(0, 10_000)), min_size=0, max_size=40),
+       st.integers(2, 5))
+def test_incremental_tree_equals_level_by_level_tree(seeds, fan_in):
+    # Reference: the definition, reduce_in_fixed_tree (consecutive groups, level by level);
+    # None stands for a file that kept nothing.
+    items = [None if s is None else partial(s) for s in seeds]
+    expected = reduce_in_fixed_tree(items, fan_in)
+    reducer = FixedTreeReducer(fan_in)
+    for item in items:
+        reducer.add(item)
+    got = reducer.result()
+    if expected is None:
+        assert got is None
+    else:
+        assert_state_identical(got, expected)
+
+
+def test_tree_agrees_with_one_flat_merge():
+    items = [partial(s) for s in range(19)]
+    tree = reduce_in_fixed_tree(items, 4).finalize(correlation=0.3)
+    flat = Accumulator.merge(items).finalize(correlation=0.3)
+    assert tree["count"].sum() == 19 * 50
+    for column in ("count", "value", "spread", "time", "lon", "lat", "error"):
+        np.testing.assert_allclose(tree[column], flat[column], rtol=1e-12, atol=1e-12)
+
+
+def test_merge_group_passes_a_single_accumulator_through_unchanged():
+    one = partial(1)
+    assert merge_group([None, one, None]) is one
+    assert merge_group([None, None]) is None
+    assert reduce_in_fixed_tree([]) is None
+
+
+# ----------------------------------------------------------------------------------------------
+# builds spread over processes and a cluster
+
+def write_alongtrack(path, lon, lat, seconds_since_1950, sla_m, platform="sat_a"):
+    """A CF along-track file (CF 1.10 sec. 9 trajectory-like series, from memory)."""
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.Conventions = "CF-1.10"
+        nc.featureType = "trajectory"
+        nc.platform = platform
+        nc.createDimension("time", len(lon))
+        t = nc.createVariable("time", "f8", ("time",))
+        t.standard_name, t.units = "time", "seconds since 1950-01-01 00:00:00"
+        t[:] = seconds_since_1950
+        for name, sn, units, data in (("longitude", "longitude", "degrees_east", lon),
+                                      ("latitude", "latitude", "degrees_north", lat)):
+            v = nc.createVariable(name, "f8", ("time",))
+            v.standard_name, v.units = sn, units
+            v[:] = data
+        v = nc.createVariable("sla", "f8", ("time",))
+        v.standard_name, v.units = "sea_surface_height_above_sea_level", "m"
+        v.coordinates = "time latitude longitude"
+        v[:] = sla_m
+
+
+def many_files_scenario(tmp_path, n_files=11, n=300, seed=3):
+    """Eleven invented along-track files (two sources), more than one merge-tree node."""
+    rng = np.random.default_rng(seed)
+    inside = 0
+    for k in range(n_files):
+        lon = rng.uniform(-11.0, -1.0, n)
+        lat = rng.uniform(40.0, 46.0, n)
+        times = ANALYSIS - np.timedelta64(72, "h") + rng.integers(0, 72 * 3600, n).astype(
+            "timedelta64[s]")
+        seconds = (times - EPOCH_1950) / np.timedelta64(1, "s")
+        prefix = "a" if k % 2 else "b"
+        write_alongtrack(tmp_path / f"{prefix}_{k:02d}.nc", lon, lat, seconds,
+                         rng.normal(0.05, 0.03, n))
+        inside += int(((lon >= -10.0) & (lon < -2.0) & (lat >= 40.0) & (lat < 46.0)).sum())
+    config = tmp_path / "config.toml"
+    config.write_text(f"""
+[window]
+analysis_time = "2026-11-20T00:00:00"
+start_hours = -72.0
+slot_hours = 12.0
+[grid]
+type = "regular"
+lon_min = -10.0
+lat_min = 40.0
+dlon = 0.5
+dlat = 0.5
+nlon = 16
+nlat = 12
+[[sources]]
+sensor = "alt_a"
+paths = ["a_*.nc"]
+kind = "alongtrack"
+correlation = 0.2
+error = {{ rule = "constant", value = 0.03 }}
+[[sources]]
+sensor = "alt_b"
+paths = ["b_*.nc"]
+kind = "alongtrack"
+error = {{ rule = "constant", value = 0.04 }}
+[superobs]
+representation_error = {{ sea_level_anomaly = 0.02 }}
+[output]
+directory = "out"
+""")
+    return config, inside
+
+
+def data_variables(path):
+    with xr.open_dataset(path) as ds:
+        return {name: ds[name].values for name in ds.data_vars}
+
+
+def assert_identical_files(a, b):
+    va, vb = data_variables(a), data_variables(b)
+    assert set(va) == set(vb)
+    for name in va:
+        equal_nan = va[name].dtype.kind == "f"
+        assert va[name].dtype == vb[name].dtype, name
+        assert np.array_equal(va[name], vb[name], equal_nan=equal_nan), name
+
+
+def test_jobs_and_reruns_give_bit_for_bit_identical_files(tmp_path, monkeypatch):
+    monkeypatch.setattr(execution, "MERGE_FAN_IN", 3)  # 11 files: a tree of three levels
+    config, inside = many_files_scenario(tmp_path)
+    one = build(config, out=tmp_path / "jobs1", jobs=1)
+    again = build(config, out=tmp_path / "rerun", jobs=1)
+    two = build(config, out=tmp_path / "jobs2", jobs=2)
+    # Reference for the counts: numpy count of the raw points inside the grid.
+    assert int(one.superobs["count"].sum()) == inside
+    assert len(one.ledger.entries) == 11
+    assert [e.file for e in one.ledger.entries] == [e.file for e in two.ledger.entries]
+    assert_identical_files(one.outputs["netcdf"], again.outputs["netcdf"])
+    assert_identical_files(one.outputs["netcdf"], two.outputs["netcdf"])
+
+
+def test_dask_cluster_run_is_bit_for_bit_the_local_run(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    monkeypatch.setattr(execution, "MERGE_FAN_IN", 3)
+    config, _ = many_files_scenario(tmp_path, n_files=9, n=200, seed=5)
+    local = build(config, out=tmp_path / "local", jobs=1)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                  dashboard_address=None) as cluster, \
+            distributed.Client(cluster) as client:
+        on_cluster = build(config, out=tmp_path / "dask", scheduler=client)
+        by_address = build(config, out=tmp_path / "dask_address", scheduler=cluster.scheduler_address)
+    assert_identical_files(local.outputs["netcdf"], on_cluster.outputs["netcdf"])
+    assert_identical_files(local.outputs["netcdf"], by_address.outputs["netcdf"])
+    ledger = json.loads(on_cluster.outputs["ledger_json"].read_text())
+    assert [e["file"] for e in ledger["entries"]] == [e.file for e in local.ledger.entries]
+
+
+def test_cli_scheduler_that_cannot_be_reached_is_a_clear_usage_error(tmp_path):
+    pytest.importorskip("distributed")
+    import dask
+
+    config, _ = many_files_scenario(tmp_path, n_files=2, n=20)
+    with dask.config.set({"distributed.comm.timeouts.connect": "1s"}):
+        result = CliRunner().invoke(cli, ["build", str(config), "--quiet", "--scheduler",
+                                          "tcp://127.0.0.1:9"])  # port 9 (discard): unused
+    assert result.exit_code == 2, result.output
+    assert "--scheduler" in result.output and "cannot connect" in result.output
