@@ -18,6 +18,9 @@ incrementally as results arrive (:class:`FixedTreeReducer`, holding at most
 ``MERGE_FAN_IN - 1`` partial results per level, so memory does not grow with the number of
 files); on a cluster each group is one task running on the workers.  Both give the same tree, so
 the super-observations are bit-for-bit identical for any ``jobs``, on a cluster, and on reruns.
+
+A file with the same bytes as an earlier file of the same source is not read again; the ledger
+lists it as ``duplicate_file`` (:func:`identical_files`).
 """
 
 from __future__ import annotations
@@ -31,6 +34,8 @@ from .superobs import Accumulator
 
 #: number of partial accumulators merged by one node of the reduction tree
 MERGE_FAN_IN = 8
+#: ledger status of a file skipped because an earlier file of the source has the same bytes
+DUPLICATE_FILE = "duplicate_file"
 
 
 @dataclass(frozen=True)
@@ -143,11 +148,25 @@ def identical_files(tasks) -> dict:
     """Tasks whose file has the same content as an earlier file of the same source.
 
     A re-delivered granule under a new name would otherwise be counted twice.  Only files of
-    equal size are compared, by SHA-256 of their bytes, so a night of distinct files costs one
-    ``stat`` each.  (The same path listed twice never gets this far: the file list of a source
-    has each path once.)  Returns ``{file_index: path of the first copy}``.
+    equal size are compared: first by SHA-256 of their first and last MiB, then, where those
+    agree, of all their bytes; so a night of distinct files costs one ``stat`` each, or little
+    more for products of fixed size.  (The same path listed twice never gets this far: the
+    file list of a source has each path once.)  Returns ``{file_index: path of the first
+    copy}``.
     """
     import hashlib
+
+    def digest(path, size, whole):
+        h = hashlib.sha256()
+        with open(path, "rb") as fh:
+            if whole or size <= 2 << 20:
+                for block in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(block)
+            else:
+                h.update(fh.read(1 << 20))
+                fh.seek(size - (1 << 20))
+                h.update(fh.read(1 << 20))
+        return h.hexdigest()
 
     by_size: dict = {}
     for task in tasks:
@@ -158,23 +177,28 @@ def identical_files(tasks) -> dict:
         if size:
             by_size.setdefault((task.source.index, size), []).append(task)
     duplicates = {}
-    for same_size in by_size.values():
+    for (_, size), same_size in by_size.items():
         if len(same_size) < 2:
             continue
-        first_by_digest = {}
+        candidates: dict = {}
         for task in same_size:
-            digest = hashlib.sha256()
             try:
-                with open(task.path, "rb") as fh:
-                    for block in iter(lambda: fh.read(1 << 20), b""):
-                        digest.update(block)
+                candidates.setdefault(digest(task.path, size, whole=False), []).append(task)
             except OSError:
                 continue
-            key = digest.hexdigest()
-            if key in first_by_digest:
-                duplicates[task.file_index] = first_by_digest[key]
-            else:
-                first_by_digest[key] = task.path
+        for same_ends in candidates.values():
+            if len(same_ends) < 2:
+                continue
+            first_by_digest = {}
+            for task in same_ends:  # in task order: the first copy is read, later ones not
+                try:
+                    key = digest(task.path, size, whole=True)
+                except OSError:
+                    continue
+                if key in first_by_digest:
+                    duplicates[task.file_index] = first_by_digest[key]
+                else:
+                    first_by_digest[key] = task.path
     return duplicates
 
 
@@ -185,10 +209,6 @@ def _duplicate_result(task: FileTask, first: str):
     return FileResult(LedgerEntry(file=task.path, sensor=task.source.sensor, kind=task.source.kind,
                                   status=DUPLICATE_FILE, message=f"same content as {first}; "
                                   "not read again", size_bytes=os.path.getsize(task.path)))
-
-
-#: ledger status of a file skipped because an earlier file of the source has the same bytes
-DUPLICATE_FILE = "duplicate_file"
 
 
 # --------------------------------------------------------------------------------------------
@@ -261,7 +281,10 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
     if progress and tasks:
         from tqdm import tqdm
 
-        bar = tqdm(total=len(tasks), unit="file", desc="obsprep build", leave=False)
+        class Bar(tqdm):
+            monitor_interval = 0  # no monitor thread: worker processes are forked later
+
+        bar = Bar(total=len(tasks), unit="file", desc="obsprep build", leave=False)
     duplicates = identical_files(tasks)
     to_run = [t for t in tasks if t.file_index not in duplicates]
     try:

@@ -132,7 +132,7 @@ class CurvilinearGrid(ModelGrid):
     grid_type = "curvilinear"
     #: smaller chunks than the default: the search keeps several arrays per position, and
     #: chunks whose arrays stay in the processor cache are searched about twice as fast
-    chunk_size = 131_072
+    chunk_size = 65_536
     #: number of nearest centres whose surrounding pieces are tried
     neighbours = 4
     #: largest number of bins of the first-guess lookup table (int32 each)
@@ -266,8 +266,9 @@ class CurvilinearGrid(ModelGrid):
     @staticmethod
     def _stereographic_plane(r, basis):
         """Stereographic coordinates (unit sphere) about ``basis[:, 0]`` of unit vectors r
-        ((n, 3)); returns (x, y, cosine of the angle from the projection centre)."""
-        rx, ry, rz = r[:, 0], r[:, 1], r[:, 2]
+        ((n, 3), or a tuple of the three components); returns (x, y, cosine of the angle from
+        the projection centre)."""
+        rx, ry, rz = r if isinstance(r, tuple) else (r[:, 0], r[:, 1], r[:, 2])
         along = rx * basis[0, 0] + ry * basis[1, 0] + rz * basis[2, 0]
         scale = 2.0 / (1.0 + along)
         x = (rx * basis[0, 1] + ry * basis[1, 1] + rz * basis[2, 1]) * scale
@@ -290,7 +291,7 @@ class CurvilinearGrid(ModelGrid):
             inside &= along > 0.0
         if inside.all():
             return table[by.astype(np.intp), bx.astype(np.intp)].astype(np.intp), x, y
-        guess = np.full(len(points), ncells, dtype=np.intp)
+        guess = np.full(len(x), ncells, dtype=np.intp)
         guess[inside] = table[by[inside].astype(np.intp), bx[inside].astype(np.intp)]
         return guess, x, y
 
@@ -381,8 +382,9 @@ class CurvilinearGrid(ModelGrid):
         sub = idx
         # gather whole rows (one memory access per position), then make the columns
         # contiguous for the arithmetic below
-        rows = np.ascontiguousarray(self._piece_table[j0 * (self.nx - 1) + i0].T)
-        ex, ey, fx, fy, gx, gy, x00, y00, polar_piece, reference = rows
+        rows = np.take(self._piece_table, j0 * (self.nx - 1) + i0, axis=0)
+        ex, ey, fx, fy, gx, gy, x00, y00, polar_piece, reference = (
+            np.ascontiguousarray(rows[:, c]) for c in range(10))
         if sub.size == lon.size:  # every position, in order (the first try of a chunk)
             lon_sub, lat_sub = lon, lat
         else:
@@ -429,10 +431,22 @@ class CurvilinearGrid(ModelGrid):
         found = (np.full(n, -1, dtype=np.int64), np.full(n, -1, dtype=np.int64))
         near_miss = np.empty((n, 5))  # violation, j0, i0, s, t; read only where finite
         near_miss[:, 0] = np.inf
-        points = unit_vectors_from_lonlat(lon, lat)
-        guess = self._first_guess(points) if self.first_guess == "table" else None
+        # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
+        lon_rad, lat_rad = np.radians(lon), np.radians(lat)
+        cos_lat = np.cos(lat_rad)
+        components = (cos_lat * np.cos(lon_rad), cos_lat * np.sin(lon_rad), np.sin(lat_rad))
+        del lon_rad, lat_rad, cos_lat
+
+        def points_at(rows=None):
+            """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
+            if rows is None:
+                return np.stack(components, axis=-1)
+            return np.stack([c[rows] for c in components], axis=-1)
+
+        guess = self._first_guess(components) if self.first_guess == "table" else None
         from_tree = guess is None
         if from_tree:
+            points = points_at()
             _, nearest = self._tree.query(points, k=1, distance_upper_bound=self._search_radius)
         else:
             nearest, plane_x, plane_y = guess
@@ -447,7 +461,8 @@ class CurvilinearGrid(ModelGrid):
             di = np.where(np.einsum("ij,ij->i", offset, along_i[centre]) < 0, -1, 0)
             dj = np.where(np.einsum("ij,ij->i", offset, along_j[centre]) < 0, -1, 0)
         else:  # ... or in the table's plane (conformal: the same sides), cheaper
-            xc, yc, aix, aiy, ajx, ajy = np.ascontiguousarray(self._lookup[5][centre].T)
+            axes = np.take(self._lookup[5], centre, axis=0)
+            xc, yc, aix, aiy, ajx, ajy = (np.ascontiguousarray(axes[:, c]) for c in range(6))
             if pending.size != n:
                 plane_x, plane_y = plane_x[pending], plane_y[pending]
             ox, oy = plane_x - xc, plane_y - yc
@@ -465,7 +480,7 @@ class CurvilinearGrid(ModelGrid):
         #    the tree
         k = min(self.neighbours, ncells)
         if pending.size and (k > 1 or not from_tree):
-            _, nearest_k = self._tree.query(points[pending], k=k,
+            _, nearest_k = self._tree.query(points_at(pending), k=k,
                                             distance_upper_bound=self._search_radius)
             nearest_k = nearest_k.reshape(len(pending), k)
             for rank in range(1 if from_tree else 0, k):

@@ -283,11 +283,12 @@ def _direct_grouping(code, lows, radices) -> _Grouping:
             continue
         remainder, digit = np.divmod(remainder, np.int64(radices[position]))
         group_keys[position] = digit + np.int64(lows[position])
-    if 2 * len(occupied) >= n_codes:
-        # dense: the code is the bin; empty bins are dropped at the end
+    if 10 * len(occupied) >= 9 * n_codes:
+        # nearly every bin occupied: the code is the bin; empty bins are dropped at the end
         keep = None if len(occupied) == n_codes else occupied
         return _Grouping(code, n_codes, count, keep, group_keys)
-    # sparse: renumber the occupied codes 0..n_groups-1 (smaller per-bin arrays)
+    # else renumber the occupied codes 0..n_groups-1: one gather per row buys per-bin arrays
+    # of the occupied bins only, cheaper for every sum that follows
     renumber = np.empty(n_codes, dtype=np.intp)
     renumber[occupied] = np.arange(len(occupied))
     return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
@@ -438,6 +439,12 @@ def _float_column(where, name, array, n, *, positive=False, low=None, high=None)
         array = np.full(n, array.item())
     if array.shape != (n,):
         raise ValueError(f"{where}: '{name}' has shape {array.shape}, expected ({n},) like the keys")
+    if n:
+        # fast path: the extremes decide (NaN propagates through min and max)
+        smallest, largest = array.min(), array.max()
+        if (np.isfinite(smallest) and np.isfinite(largest) and (not positive or smallest > 0)
+                and (low is None or (smallest >= low and largest <= high))):
+            return array
     ok = np.isfinite(array)
     expected = "finite"
     if positive:
