@@ -37,7 +37,7 @@ import numpy as np
 import pandas as pd
 
 from .exceptions import ConfigError
-from .table import reject
+from .table import category_masks, reject
 
 BASE_RULES = ("constant", "file", "table")
 TABLE_OF = ("value", "depth")
@@ -129,11 +129,11 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
         Number of rows newly rejected for a missing error.
     """
     n = len(table)
-    quantity = table["quantity"].astype(str).to_numpy()
-    present = list(np.unique(quantity)) if n else []
+    # masks from the categorical codes: a string per row would cost more than the rule itself
+    masks = category_masks(table, "quantity") if n else {}  # a handful of quantities
+    present = sorted(masks)
     values = table["value"].to_numpy(dtype=float)
     depth = table["depth"].to_numpy(dtype=float)
-    masks = {q: quantity == q for q in present}  # a handful of quantities, not rows
 
     if rule.rule == "constant":
         _require_per_quantity(rule.value, f"{source_key}.value", present, "error value")
