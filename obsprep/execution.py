@@ -284,7 +284,8 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
         class Bar(tqdm):
             monitor_interval = 0  # no monitor thread: worker processes are forked later
 
-        bar = Bar(total=len(tasks), unit="file", desc="obsprep build", leave=False)
+        # disable=None: no bar when stderr is not a terminal (a nightly log gets no \r litter)
+        bar = Bar(total=len(tasks), unit="file", desc="obsprep build", leave=False, disable=None)
     duplicates = identical_files(tasks)
     to_run = [t for t in tasks if t.file_index not in duplicates]
     try:
