@@ -97,7 +97,7 @@ def origin_label(rule, quantity: str) -> str:
         label = rule.rule
     if rule.factor != 1.0:
         label += "*factor"
-    if _terms(_for_quantity(getattr(rule, "add_in_quadrature", None), quantity)):
+    if _terms(_for_quantity(rule.add_in_quadrature, quantity)):
         label += "+quadrature"
     return label
 
@@ -158,7 +158,7 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     # A non-positive or missing base error is invalid input; floor and extra terms must not
     # disguise it.
     bad = ~(np.isfinite(sigma) & (sigma > 0))
-    extra = getattr(rule, "add_in_quadrature", None)
+    extra = rule.add_in_quadrature
     if extra is not None:
         variance = sigma * sigma
         for q, mask in masks.items():
@@ -167,7 +167,7 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
                         else np.full(int(mask.sum()), float(term)))
                 variance[mask] += part * part
         sigma = np.sqrt(variance)
-    cap = getattr(rule, "cap", None)
+    cap = rule.cap
     sigma = np.maximum(sigma, rule.floor)
     if cap is not None:
         sigma = np.minimum(sigma, cap)

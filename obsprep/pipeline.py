@@ -150,7 +150,7 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     try:
         if not os.path.exists(path):
             raise InputFileError(path, "file not found")
-        table = read(path, kind=source.kind, reader_profile=getattr(source, "reader", None),
+        table = read(path, kind=source.kind, reader_profile=source.reader,
                      sensor=source.sensor, **source.options)
     except InputFileError as exc:
         if strict:
@@ -161,8 +161,8 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     kind = table.attrs.get("kind", source.kind)
     n = len(table)
     if duplicate_groups is None:
-        duplicate_groups = getattr(cfg, "duplicate_groups", {}).get((source.index, path), ())
-    qc_settings = getattr(source, "qc", None)
+        duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
+    qc_settings = source.qc
     table_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range,
                  settings=qc_settings, duplicate_groups=duplicate_groups)
     assign_errors(table, source.error, f"sources[{source.index}].error")

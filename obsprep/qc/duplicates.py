@@ -55,7 +55,7 @@ def file_identities(path, source) -> pd.DataFrame:
     from ..readers.cf import open_dataset
 
     options = dict(source.options)
-    reader_profile = dict(getattr(source, "reader", None) or {})
+    reader_profile = dict(source.reader or {})
     kind = source.kind
     if kind not in (None, "auto"):
         reader = registered_readers().get(kind)
@@ -148,7 +148,7 @@ def find_duplicates(tasks) -> dict:
     """
     frames = []
     for task in tasks:
-        settings = getattr(task.source, "qc", None)
+        settings = task.source.qc
         if settings is None or not settings.duplicates:
             continue
         try:

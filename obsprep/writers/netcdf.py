@@ -92,7 +92,7 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
         "slot_seconds": float(cfg.window.slot_seconds),
         "superobs_mode": cfg.superobs.get("mode", "mean"),
         "spread_combination": cfg.superobs.get("spread_combination", "instrument"),
-        "configuration_file": str(cfg.path.resolve()) if getattr(cfg, "path", None) else "",
+        "configuration_file": str(cfg.path.resolve()) if cfg.path else "",
         "grid_shape": f"ny={grid.ny} nx={grid.nx} nk={len(grid.layer_interfaces) - 1}",
         "layer_interfaces_m": np.asarray(grid.layer_interfaces, dtype=float),
         "configuration": json.dumps(cfg.raw, default=str),
