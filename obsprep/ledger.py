@@ -37,13 +37,25 @@ class LedgerEntry:
                               f"read {self.read} != kept {self.kept} + rejected {total - self.kept}")
 
 
-def entry_from_table(table: pd.DataFrame, file: str, sensor: str, kind: str, size_bytes: int) -> LedgerEntry:
-    """Count a fully processed table: kept rows have no ``rejected`` code."""
-    codes = table["rejected"]
-    counts = codes.value_counts(dropna=True)
-    rejected = {str(k): int(v) for k, v in counts.items() if v > 0}
+def rejected_counts(table: pd.DataFrame) -> dict:
+    """{reason: number of rows} of the rejected rows of ``table``."""
+    counts = table["rejected"].value_counts(dropna=True)
+    return {str(k): int(v) for k, v in counts.items() if v > 0}
+
+
+def entry_from_table(table: pd.DataFrame, file: str, sensor: str, kind: str, size_bytes: int,
+                     counted_earlier: dict | None = None) -> LedgerEntry:
+    """Count a fully processed table: kept rows have no ``rejected`` code.
+
+    ``counted_earlier``: {reason: rows} rejected and removed from the table before (they count
+    as read and rejected).
+    """
+    rejected = rejected_counts(table)
+    for reason, count in (counted_earlier or {}).items():
+        rejected[reason] = rejected.get(reason, 0) + int(count)
+    read = len(table) + sum((counted_earlier or {}).values())
     entry = LedgerEntry(file=file, sensor=sensor, kind=kind, size_bytes=size_bytes,
-                        read=len(table), kept=int(codes.isna().sum()), rejected=rejected)
+                        read=read, kept=int(table["rejected"].isna().sum()), rejected=rejected)
     entry.check()
     return entry
 

@@ -23,7 +23,7 @@ from .exceptions import ConfigError, InputFileError, ObsprepError
 from .execution import FileTask, FixedTreeReducer, run_tasks
 from .grid import grid_from_config
 from .grid.base import CLASSIFY_REASONS
-from .ledger import Ledger, LedgerEntry, entry_from_table
+from .ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
 from .qc import find_duplicates, grid_checks, table_checks
 from .quantities import QUANTITIES
 from .readers import read
@@ -159,6 +159,11 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
                                       status="unreadable", message=message, size_bytes=size))
     kind = table.attrs.get("kind", source.kind)
+    # Rows the reader rejected (fill, provider flags, quality level) are counted for the ledger
+    # now and not carried through the later stages: on a cloudy swath they are most rows.
+    counted_by_reader = rejected_counts(table)
+    if counted_by_reader:
+        table = table.loc[kept(table)].reset_index(drop=True)
     n = len(table)
     if duplicate_groups is None:
         duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
@@ -240,7 +245,8 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
                           if thinning else None),
             ))
         result.accumulator = reducer.result()
-    result.entry = entry_from_table(table, path, source.sensor, kind, size)
+    result.entry = entry_from_table(table, path, source.sensor, kind, size,
+                                    counted_earlier=counted_by_reader)
     return result
 
 

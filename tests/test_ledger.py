@@ -29,3 +29,11 @@ def test_frame_has_one_column_per_reason_seen():
     assert list(f["rejected_land"]) == [2, 0]
     per = ledger.by_sensor()
     assert int(per["read"].iloc[0]) == 3 and int(per["unreadable"].iloc[0]) == 1
+
+
+def test_rows_counted_before_the_table_was_compacted_still_balance():
+    t = make_table(3)
+    reject(t, [False, True, False], "land")
+    e = entry_from_table(t, "f.nc", "s", "alongtrack", 10, counted_earlier={"missing_value": 5, "land": 1})
+    # hand count: 3 rows in the table + 6 removed earlier
+    assert (e.read, e.kept, e.rejected) == (9, 2, {"land": 2, "missing_value": 5})
