@@ -285,33 +285,19 @@ def good_flag_mask(flag: xr.DataArray, good_meanings, path) -> np.ndarray:
     (a value with no bit set is good).  A fill (NaN) flag is not good: the provider gave no
     verdict.  Meanings are compared case-insensitively.
     """
-    name = flag.name
-    meanings = str(flag.attrs.get("flag_meanings", "")).lower().split()
     good_meanings = {m.lower() for m in good_meanings}
-    raw = np.asarray(flag.values, dtype=np.float64)
-    finite = np.isfinite(raw)
-    masks = flag.attrs.get("flag_masks")
-    values = flag.attrs.get("flag_values")
-    if masks is None and values is None:
-        raise InputFileError(path, "flag variable has neither flag_values nor flag_masks "
-                                   "(CF 3.5)", variable=name)
-    for attr, entries in (("flag_masks", masks), ("flag_values", values)):
-        if entries is not None and np.size(entries) != len(meanings):
-            raise InputFileError(
-                path, f"{attr} has {np.size(entries)} entries but flag_meanings has "
-                      f"{len(meanings)} words", variable=name)
-    if masks is None:
-        good_values = [v for v, m in zip(np.atleast_1d(values), meanings) if m in good_meanings]
-        return finite & np.isin(raw, np.asarray(good_values, dtype=np.float64))
-    ints = np.where(finite, raw, 0).astype(np.int64)
-    masks = np.atleast_1d(masks).astype(np.int64)
-    states = None if values is None else np.atleast_1d(values).astype(np.int64)
-    bad = np.zeros(raw.shape, dtype=bool)
-    for i, meaning in enumerate(meanings):  # loop over the few meanings, not the observations
-        if meaning in good_meanings:
-            continue
-        bits = ints & masks[i]
-        bad |= (bits == states[i]) if states is not None else (bits != 0)
+    set_by_meaning = flag_meaning_masks(flag, path)
+    finite = np.isfinite(np.asarray(flag.values, dtype=np.float64))
+    if flag.attrs.get("flag_masks") is None:  # exclusive states: good when a good state is set
+        good = np.zeros(finite.shape, dtype=bool)
+        for meaning, is_set in set_by_meaning.items():
+            if meaning in good_meanings:
+                good |= is_set
+        return good
+    bad = np.zeros(finite.shape, dtype=bool)  # bit fields: good when no bad bit is set
+    for meaning, is_set in set_by_meaning.items():
+        if meaning not in good_meanings:
+            bad |= is_set
     return finite & ~bad
 
 
