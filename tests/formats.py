@@ -182,3 +182,33 @@ def write_argo(path, *, platform, cycle, mode, juld, lat, lon, pres, temp, psal,
                 v = nc.createVariable(name, "S1", ("N_PROF", "N_LEVELS"), fill_value=b" ")
                 v[:] = np.asarray(values, dtype="S1")
     return str(path)
+
+
+def write_alongtrack(path, lon, lat, seconds_since_1950, sla, *, units="m", packed=False,
+                     platform="sat_a"):
+    """A CF along-track file (CF 1.10 sec. 9 trajectory-like 1-D series, from memory).
+
+    ``sla`` in ``units``; ``packed`` stores it as int16 with scale_factor 0.01 (steps of 0.01
+    ``units``; netCDF4 packs on write).
+    """
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.Conventions = "CF-1.10"
+        nc.featureType = "trajectory"
+        nc.platform = platform
+        nc.createDimension("time", len(lon))
+        t = nc.createVariable("time", "f8", ("time",))
+        t.standard_name, t.units = "time", "seconds since 1950-01-01 00:00:00"
+        t[:] = seconds_since_1950
+        for name, sn, coord_units, data in (("longitude", "longitude", "degrees_east", lon),
+                                            ("latitude", "latitude", "degrees_north", lat)):
+            v = nc.createVariable(name, "f8", ("time",))
+            v.standard_name, v.units = sn, coord_units
+            v[:] = data
+        if packed:
+            v = nc.createVariable("sla", "i2", ("time",), fill_value=np.int16(-32767))
+            v.scale_factor = 0.01
+        else:
+            v = nc.createVariable("sla", "f8", ("time",))
+        v.standard_name, v.units = "sea_surface_height_above_sea_level", units
+        v.coordinates = "time latitude longitude"
+        v[:] = sla

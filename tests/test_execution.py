@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import json
 
-import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
@@ -20,6 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from obsprep import execution
+from formats import write_alongtrack
 from obsprep.cli.main import cli
 from obsprep.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
 from obsprep.pipeline import build
@@ -85,27 +85,6 @@ def test_merge_group_passes_a_single_accumulator_through_unchanged():
 
 # ----------------------------------------------------------------------------------------------
 # builds spread over processes and a cluster
-
-def write_alongtrack(path, lon, lat, seconds_since_1950, sla_m, platform="sat_a"):
-    """A CF along-track file (CF 1.10 sec. 9 trajectory-like series, from memory)."""
-    with netCDF4.Dataset(path, "w") as nc:
-        nc.Conventions = "CF-1.10"
-        nc.featureType = "trajectory"
-        nc.platform = platform
-        nc.createDimension("time", len(lon))
-        t = nc.createVariable("time", "f8", ("time",))
-        t.standard_name, t.units = "time", "seconds since 1950-01-01 00:00:00"
-        t[:] = seconds_since_1950
-        for name, sn, units, data in (("longitude", "longitude", "degrees_east", lon),
-                                      ("latitude", "latitude", "degrees_north", lat)):
-            v = nc.createVariable(name, "f8", ("time",))
-            v.standard_name, v.units = sn, units
-            v[:] = data
-        v = nc.createVariable("sla", "f8", ("time",))
-        v.standard_name, v.units = "sea_surface_height_above_sea_level", "m"
-        v.coordinates = "time latitude longitude"
-        v[:] = sla_m
-
 
 def many_files_scenario(tmp_path, n_files=11, n=300, seed=3):
     """Eleven invented along-track files (two sources), more than one merge-tree node."""

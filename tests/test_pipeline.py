@@ -3,38 +3,17 @@ computation, the ledger balance, unreadable files, atomic outputs, the CLI."""
 
 import json
 
-import netCDF4
 import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
 from click.testing import CliRunner
 
+from formats import write_alongtrack
 from obsprep.cli.main import cli
 from obsprep.pipeline import build
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
-
-
-def write_alongtrack(path, lon, lat, seconds_since_1950, sla_cm, platform="sat_a"):
-    """A CF along-track file (CF trajectory-like 1-D series, from memory of CF 1.10 sec. 9)."""
-    with netCDF4.Dataset(path, "w") as nc:
-        nc.Conventions = "CF-1.10"
-        nc.featureType = "trajectory"
-        nc.platform = platform
-        nc.createDimension("time", len(lon))
-        t = nc.createVariable("time", "f8", ("time",))
-        t.standard_name, t.units = "time", "seconds since 1950-01-01 00:00:00"
-        t[:] = seconds_since_1950
-        for name, sn, units, data in (("longitude", "longitude", "degrees_east", lon),
-                                      ("latitude", "latitude", "degrees_north", lat)):
-            v = nc.createVariable(name, "f8", ("time",))
-            v.standard_name, v.units = sn, units
-            v[:] = data
-        v = nc.createVariable("sla", "i2", ("time",), fill_value=np.int16(-32767))
-        v.standard_name, v.units, v.scale_factor = "sea_surface_height_above_sea_level", "cm", 0.01
-        v.coordinates = "time latitude longitude"
-        v[:] = sla_cm
 
 
 def scenario(tmp_path, rng):
@@ -57,7 +36,7 @@ def scenario(tmp_path, rng):
         times = t0 + rng.integers(0, 86400, n).astype("timedelta64[s]")
         sla_cm = np.round(rng.normal(5.0, 3.0, n)).astype(np.int16)
         secs = (times - epoch).astype("timedelta64[s]").astype(float)
-        write_alongtrack(tmp_path / f"alt_{day}.nc", lon, lat, secs, sla_cm)
+        write_alongtrack(tmp_path / f"alt_{day}.nc", lon, lat, secs, sla_cm, units="cm", packed=True)
         frames.append(pd.DataFrame({"lon": lon, "lat": lat, "time": times.astype("datetime64[ns]"),
                                     "value": sla_cm * 0.01, "file": day}))
     (tmp_path / "alt_20261117.nc").write_bytes(b"CDF\x01 truncated")  # an unreadable file
