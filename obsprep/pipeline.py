@@ -11,7 +11,6 @@ from __future__ import annotations
 import datetime as dt
 import os
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -34,7 +33,6 @@ from .timeslots import seconds_since, slot_index
 QUANTITY_NAMES = list(QUANTITIES)
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
-KEY_NAMES = ["quantity", "sensor", "slot", "j", "i", "k", "profile", "t_start", "t_end"]
 
 
 @dataclass
@@ -250,10 +248,6 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     return result
 
 
-def _process_task(args):
-    return process_file(*args)
-
-
 def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
                       grid=None) -> pd.DataFrame:
     """Turn the merged accumulator into the super-observation table (one row per group).
@@ -339,7 +333,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     ledger.check()
     profile_names = executed.profile_names
     merged, executed.accumulator = executed.accumulator, None
-    superobs = finalize_superobs(cfg, merged, sensor_names, profile_names)
+    superobs = finalize_superobs(cfg, merged, sensor_names, profile_names, grid=grid)
     del merged  # the sums are in the table now: free them before the writers need memory
     kept_total = sum(e.kept for e in ledger.entries)
     counted = int(superobs["count"].sum()) if len(superobs) else 0
@@ -352,4 +346,4 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs)
 
 
-__all__ = ["build", "process_file", "finalize_superobs", "BuildResult", "Path"]
+__all__ = ["build", "process_file", "finalize_superobs", "BuildResult"]
