@@ -457,6 +457,23 @@ def test_mean_of_two_points_is_the_great_circle_midpoint():
     assert (angular_difference(lon, mid_lon) * np.cos(np.radians(lat)) < 1e-8).all()
 
 
+def test_unit_vectors_equal_the_textbook_formula():
+    # Reference: x = cos(lat) cos(lon), y = cos(lat) sin(lon), z = sin(lat) with numpy's sin
+    # and cos (spherical to Cartesian coordinates); obsprep uses the tangent half-angle
+    # identities, which must agree to a few units in the last place, at any longitude range
+    # (no wrapping), at the dateline and at the poles.
+    rng = np.random.default_rng(21)
+    lon = np.concatenate([rng.uniform(-720.0, 720.0, 100_000),
+                          [180.0, -180.0, 540.0, 0.0, 90.0, -90.0, 359.999999, 1e-12]])
+    lat = np.concatenate([rng.uniform(-90.0, 90.0, 100_000),
+                          [90.0, -90.0, 0.0, 45.0, -45.0, 89.999999, -89.999999, 0.0]])
+    x, y, z = unit_vectors(lon, lat)
+    lon_rad, lat_rad = np.radians(lon), np.radians(lat)
+    np.testing.assert_allclose(x, np.cos(lat_rad) * np.cos(lon_rad), rtol=0, atol=2e-15)
+    np.testing.assert_allclose(y, np.cos(lat_rad) * np.sin(lon_rad), rtol=0, atol=2e-15)
+    np.testing.assert_allclose(z, np.sin(lat_rad), rtol=0, atol=2e-15)
+
+
 def test_mean_near_the_pole():
     rng = np.random.default_rng(9)
     lon = rng.uniform(-180.0, 180.0, 200)

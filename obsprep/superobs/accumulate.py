@@ -44,7 +44,7 @@ import math
 import numpy as np
 
 from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
-from .spherical import mean_position, unit_vectors
+from .spherical import _cos_sin_degrees, mean_position, unit_vectors
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
 
@@ -373,25 +373,20 @@ _UNIT_VECTOR_BLOCK = 1 << 16
 
 
 def _unit_vector_sums(lon, lat, grouping, work, work_2):
-    """Per-bin sums of the unit vectors of the positions (:func:`unit_vectors`, the same
-    arithmetic: x = cos(lat) cos(lon), y = cos(lat) sin(lon), z = sin(lat), radians by the
-    factor pi/180), evaluated in cache-sized blocks into the scratch arrays ``work`` and
-    ``work_2`` (overwritten)."""
+    """Per-bin sums of the unit vectors of the positions, the arithmetic of
+    :func:`~obsprep.superobs.spherical.unit_vectors` (tangent half-angle identities) evaluated
+    in cache-sized blocks into the scratch arrays ``work`` and ``work_2`` (overwritten)."""
     n = lon.size
     z = np.empty(n)
     block = min(_UNIT_VECTOR_BLOCK, max(n, 1))
-    lat_rad, lon_rad, cos_lat = np.empty(block), np.empty(block), np.empty(block)
-    to_radians = np.pi / 180.0
+    cos_lat = np.empty(block)
     for start in range(0, n, block):  # loop over blocks of rows, not rows
         stop = min(start + block, n)
         m = stop - start
-        a, b, c = lat_rad[:m], lon_rad[:m], cos_lat[:m]
-        np.multiply(lat[start:stop], to_radians, out=a)
-        np.multiply(lon[start:stop], to_radians, out=b)
-        np.cos(a, out=c)
-        np.sin(a, out=z[start:stop])
-        np.multiply(np.cos(b, out=work[start:stop]), c, out=work[start:stop])
-        np.multiply(np.sin(b, out=work_2[start:stop]), c, out=work_2[start:stop])
+        c, _ = _cos_sin_degrees(lat[start:stop], cos_lat[:m], z[start:stop])
+        x, y = _cos_sin_degrees(lon[start:stop], work[start:stop], work_2[start:stop])
+        np.multiply(x, c, out=x)
+        np.multiply(y, c, out=y)
     return grouping.sum(work), grouping.sum(work_2), grouping.sum(z)
 
 
