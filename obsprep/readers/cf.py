@@ -301,14 +301,15 @@ def good_flag_mask(flag: xr.DataArray, good_meanings, path) -> np.ndarray:
     return finite & ~bad
 
 
-def flag_meaning_masks(flag: xr.DataArray, path) -> dict[str, np.ndarray]:
+def flag_meaning_masks(flag: xr.DataArray, path, only=None) -> dict[str, np.ndarray]:
     """Meaning -> boolean array (the flag's shape), True where that state or bit is set.
 
     CF 3.5: with ``flag_values`` only, meaning m is set where ``value == flag_values[m]``; with
     ``flag_masks`` only, where ``value & flag_masks[m] != 0``; with both, where
     ``value & flag_masks[m] == flag_values[m]``.  A fill (NaN) flag sets nothing.  Meanings are
-    lower-cased.  Raises :class:`InputFileError` naming the variable when the attributes are
-    missing or their lengths disagree.
+    lower-cased.  ``only`` (meanings) limits the result to those meanings.  Raises
+    :class:`InputFileError` naming the variable when the attributes are missing or their
+    lengths disagree.
     """
     name = flag.name
     meanings = str(flag.attrs.get("flag_meanings", "")).lower().split()
@@ -322,20 +323,31 @@ def flag_meaning_masks(flag: xr.DataArray, path) -> dict[str, np.ndarray]:
             raise InputFileError(
                 path, f"{attr} has {np.size(entries)} entries but flag_meanings has "
                       f"{len(meanings)} words", variable=name)
-    raw = np.asarray(flag.values, dtype=np.float64)
-    finite = np.isfinite(raw)
-    ints = np.where(finite, raw, 0).astype(np.int64)
+    raw = np.asarray(flag.values)
+    if raw.dtype.kind in "iu":
+        finite = None  # integer flags have no fill left to mask
+        ints = raw  # bit tests in the file's own integer type: no widened copy per pixel
+    else:
+        raw = raw.astype(np.float64, copy=False)
+        finite = np.isfinite(raw)
+        ints = np.where(finite, raw, 0).astype(np.int64)
     states = None if values is None else np.atleast_1d(values).astype(np.int64)
-    bits = None if masks is None else np.atleast_1d(masks).astype(np.int64)
+    # the masks in the flags' own type (the same bits; CF gives them that type anyway)
+    bits = None if masks is None else np.atleast_1d(masks).astype(np.int64).astype(ints.dtype)
+    wanted = None if only is None else {str(m).lower() for m in only}
     out: dict[str, np.ndarray] = {}
     for k, meaning in enumerate(meanings):  # loop over the few meanings, not the observations
+        if wanted is not None and meaning not in wanted:
+            continue
         if bits is None:
             is_set = ints == states[k]
         elif states is None:
             is_set = (ints & bits[k]) != 0
         else:
             is_set = (ints & bits[k]) == states[k]
-        out[meaning] = out.get(meaning, False) | (finite & is_set)
+        if finite is not None:
+            is_set &= finite
+        out[meaning] = out[meaning] | is_set if meaning in out else is_set
     return out
 
 
@@ -523,15 +535,19 @@ def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity |
 
 def wrap_longitude(lon) -> np.ndarray:
     """Longitude (degrees) wrapped into [-180, 180): ((lon + 180) mod 360) - 180."""
+    lon = np.asarray(lon, dtype=np.float64)
+    if lon.size and -180.0 <= lon.min() and lon.max() < 180.0:  # NaN fails this: the slow way
+        return lon  # already in range (the common case): no modulo per value
     with np.errstate(invalid="ignore"):  # +-inf stays NaN: rejected later as bad_position
-        return np.mod(np.asarray(lon, dtype=np.float64) + 180.0, 360.0) - 180.0
+        return np.mod(lon + 180.0, 360.0) - 180.0
 
 
 def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
     """Broadcast ``values`` (an array with dimension names ``dims``) to ``var``'s shape.
 
     ``dims`` must be a subset of ``var.dims`` (in any order); scalars broadcast everywhere.
-    Returns a read-only view when no copy is needed.
+    Returns a view when no copy is needed: read-only where values are repeated, a plain
+    (writeable) reshape when ``values`` already has one value per element.
     """
     dims = tuple(dims)
     extra = set(dims) - set(var.dims)
@@ -542,6 +558,8 @@ def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
     order = [d for d in var.dims if d in dims]
     values = np.transpose(values, [dims.index(d) for d in order])
     shape = [var.sizes[d] if d in dims else 1 for d in var.dims]
+    if values.size == var.size and values.flags.writeable:
+        return values.reshape(var.shape)  # nothing to broadcast: a plain view, no copy later
     return np.broadcast_to(values.reshape(shape), var.shape)
 
 

@@ -169,9 +169,9 @@ class _GhrsstReader(Reader):
 
         flags_var = self._pixel(ds, name, "l2p_flags", path)
         if flags_var is not None and reject_flags:
-            masks = cf.flag_meaning_masks(flags_var, path)
+            masks = cf.flag_meaning_masks(flags_var, path, only=reject_flags)
             used.append("l2p_flags")
-            chosen = set(reject_flags) & set(masks)
+            chosen = set(masks)
             ordered = [m for m in L2P_FLAG_REASONS if m in chosen] + sorted(
                 chosen - set(L2P_FLAG_REASONS))
             for meaning in ordered:
@@ -179,8 +179,10 @@ class _GhrsstReader(Reader):
                 reject(table, mask, L2P_FLAG_REASONS.get(meaning, "l2p_flag_other"))
         level_var = self._pixel(ds, name, "quality_level", path)
         if level_var is not None:
-            level = np.nan_to_num(broadcast(level_var).astype(np.float64), nan=0.0)
-            reject(table, level.ravel() < min_level, "quality_level")
+            level = broadcast(level_var).ravel()
+            # a fill level (NaN) counts as level 0, "no data"
+            too_low = ~(level >= min_level) if min_level > 0 else level < min_level
+            reject(table, too_low, "quality_level")
             used.append("quality_level")
         if bias_missing is not None:
             reject(table, bias_missing.ravel(), "missing_bias")

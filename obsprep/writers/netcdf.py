@@ -16,6 +16,7 @@ import json
 import re
 
 import numpy as np
+import pandas as pd
 import xarray as xr
 
 from ..quantities import QUANTITIES
@@ -125,8 +126,9 @@ def _error_parts(var, sub, q) -> None:
         long_name="which term set the total error",
         flag_values=np.array(list(ERROR_BASIS.values()), dtype=np.int8),
         flag_meanings=" ".join(ERROR_BASIS))
-    labels = sorted(set(sub["error_origin"].astype(str)))
-    codes = np.searchsorted(np.array(labels, dtype=object), sub["error_origin"].astype(str).to_numpy())
+    # labels and codes through pandas' factorisation (a Python set of every row is slow)
+    origin_codes, origin_labels = pd.factorize(sub["error_origin"].astype(str), sort=True)
+    labels, codes = [str(label) for label in origin_labels], origin_codes
     var("error_origin", codes.astype(np.int8), units="1",
         long_name="raw error rule of the values in the group (origin of their errors)",
         flag_values=np.arange(len(labels), dtype=np.int8),
