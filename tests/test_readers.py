@@ -372,6 +372,24 @@ def test_practical_salinity_spellings_mean_canonical_one(tmp_path, units):
     np.testing.assert_array_equal(salinity["value"], [35.0, 34.5])
 
 
+@pytest.mark.parametrize("units, canonical", [
+    ("K", "degC"), ("kelvin", "degC"), ("degF", "degC"), ("degree_Celsius", "degC"),
+    ("cm", "m"), ("mm", "m"), ("km day-1", "m s-1"), ("cm/s", "m s-1"), ("%", "1"),
+    ("dbar", "dbar"), ("hPa", "dbar"),
+])
+def test_unit_conversion_equals_pint_on_the_whole_array(units, canonical):
+    # Reference: the CF/udunits pint registry of cf_xarray converting the array itself; obsprep
+    # applies the same map as scale and offset, for values and for differences (errors).
+    values = np.array([-40.0, 0.0, 0.3, 271.35, 300.0, 1e4])
+    expected = cf_units.Quantity(values, units).to(canonical).magnitude
+    np.testing.assert_allclose(cf.convert_units(values, units, canonical, "x.nc"), expected,
+                               rtol=1e-13, atol=1e-10)
+    zero = cf_units.Quantity(0.0, units).to(canonical).magnitude
+    np.testing.assert_allclose(cf.convert_units(values, units, canonical, "x.nc",
+                                                difference=True), expected - zero,
+                               rtol=1e-13, atol=1e-10)
+
+
 def test_nonsense_units_name_file_variable_and_units(tmp_path):
     path = sst_grid_file(tmp_path / "sst.nc", np.full(6, 290.0), units="bananas")
     with pytest.raises(InputFileError) as info:

@@ -492,19 +492,44 @@ def convert_units(values, units: str, canonical: str, path, variable=None,
     units = str(units).strip()
     if units == canonical:
         return values
-    import pint
+    scale, offset = _affine_conversion(units, canonical, path, variable)
+    converted = np.multiply(values, scale)  # one new array; the caller's stays as it was
+    if not difference and offset:
+        converted += offset
+    return converted
 
-    registry = _registry()
-    try:
-        converted = registry.Quantity(values, units).to(canonical).magnitude
-        if difference:
-            converted = converted - registry.Quantity(0.0, units).to(canonical).magnitude
-    except (pint.PintError, ValueError, TypeError, AttributeError, AssertionError,
-            tokenize.TokenError, SyntaxError) as exc:
-        raise InputFileError(
-            path, f"units '{units}' cannot be converted to '{canonical}' ({_one_line(exc)})",
-            variable=variable) from exc
-    return np.asarray(converted, dtype=np.float64)
+
+#: (units, canonical) -> (scale, offset) of the affine map between them, see _affine_conversion
+_AFFINE_CONVERSIONS: dict[tuple[str, str], tuple[float, float]] = {}
+
+
+def _affine_conversion(units: str, canonical: str, path, variable) -> tuple[float, float]:
+    """``(scale, offset)`` with ``canonical = scale * units + offset``, from the pint registry.
+
+    Every CF unit conversion obsprep makes is affine (a factor, plus an offset for temperature
+    scales); pint is asked for f(0) and f(1) once per pair of unit strings and the map is
+    applied with numpy, instead of pint converting every array (slow for offset units).  A
+    third point checks that the map is affine.
+    """
+    key = (units, canonical)
+    if key not in _AFFINE_CONVERSIONS:
+        import pint
+
+        registry = _registry()
+        try:
+            at = registry.Quantity(np.array([0.0, 1.0, 1000.0]), units).to(canonical).magnitude
+        except (pint.PintError, ValueError, TypeError, AttributeError, AssertionError,
+                tokenize.TokenError, SyntaxError) as exc:
+            raise InputFileError(
+                path, f"units '{units}' cannot be converted to '{canonical}' ({_one_line(exc)})",
+                variable=variable) from exc
+        offset, scale = float(at[0]), float(at[1] - at[0])
+        if not np.isclose(at[2], offset + 1000.0 * scale, rtol=1e-12, atol=1e-12 * abs(offset)):
+            raise InputFileError(path, f"units '{units}' -> '{canonical}' is not an affine "
+                                       f"conversion; obsprep converts factors and offsets only",
+                                 variable=variable)
+        _AFFINE_CONVERSIONS[key] = (scale, offset)
+    return _AFFINE_CONVERSIONS[key]
 
 
 def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity | None = None,
