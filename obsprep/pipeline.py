@@ -26,6 +26,7 @@ from .ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
 from .qc import find_duplicates, grid_checks, table_checks
 from .quantities import QUANTITIES
 from .readers import read
+from .readers.cf import NOT_IN_TABLE
 from .superobs import Accumulator
 from .table import kept, reject
 from .timeslots import seconds_since, slot_index
@@ -149,7 +150,7 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
         if not os.path.exists(path):
             raise InputFileError(path, "file not found")
         table = read(path, kind=source.kind, reader_profile=source.reader,
-                     sensor=source.sensor, **source.options)
+                     leave_out_rejected=True, sensor=source.sensor, **source.options)
     except InputFileError as exc:
         if strict:
             raise
@@ -162,6 +163,8 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     counted_by_reader = rejected_counts(table)
     if counted_by_reader:
         table = table.loc[kept(table)].reset_index(drop=True)
+    for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():  # left out by the reader
+        counted_by_reader[reason] = counted_by_reader.get(reason, 0) + count
     n = len(table)
     if duplicate_groups is None:
         duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())

@@ -85,7 +85,10 @@ def _categorical(name, v, n) -> pd.Categorical:
     if name == "rejected":
         if v is None:
             return pd.Categorical.from_codes(np.full(n, -1, dtype=np.int8), categories=list(REASONS))
-        out = pd.Categorical(v, categories=list(REASONS))
+        if isinstance(v, pd.Categorical) and list(v.categories) == list(REASONS):
+            out = v  # already coded against the reasons (a reader's per-row reasons)
+        else:
+            out = pd.Categorical(v, categories=list(REASONS))
     elif v is None or np.ndim(v) == 0:
         label = {"error_origin": "unset"}.get(name, "") if v is None else str(v)
         out = pd.Categorical.from_codes(np.zeros(n, dtype=np.int8), categories=[label])

@@ -100,6 +100,23 @@ def test_l2p_rejections_each_have_their_reason(l2p):
     ]
 
 
+def test_rows_left_out_by_the_reader_are_counted_under_the_same_reasons(l2p):
+    # Reference: the full table of the same file (every row with its reason, as `obsprep
+    # read` shows it); the build's reader leaves the rejected rows out and counts them.
+    path, _ = l2p
+    full = read(path)
+    lean = read(path, leave_out_rejected=True)
+    kept = full[full["rejected"].isna()].reset_index(drop=True)
+    assert len(lean) == len(kept) == 3  # the three kept pixels of the fixture
+    for column in ("value", "error", "lon", "lat", "time", "row"):
+        np.testing.assert_array_equal(lean[column].to_numpy(), kept[column].to_numpy())
+    assert lean["rejected"].isna().all()
+    counted = full["rejected"].value_counts()
+    assert lean.attrs[cf.NOT_IN_TABLE] == {str(k): int(v) for k, v in counted.items() if v}
+    assert sum(lean.attrs[cf.NOT_IN_TABLE].values()) + len(lean) == len(full)
+    assert cf.NOT_IN_TABLE not in full.attrs
+
+
 def test_options_minimum_quality_flags_and_bias_switch(l2p):
     path, f = l2p
     table = read(path, min_quality_level=2, reject_l2p_flags="ice microwave",

@@ -26,7 +26,7 @@ def available_kinds() -> list[str]:
 
 def guess_kind(path, ds=None) -> str:
     """Return the kind of the first reader whose ``guess_can_open`` accepts the file."""
-    from .cf import open_dataset
+    from .cf import leaving_out_rejected_rows, open_dataset
 
     own = ds is None
     if own:
@@ -46,7 +46,7 @@ def guess_kind(path, ds=None) -> str:
     return claims[0]
 
 
-def read(path, kind=None, reader_profile=None, **options) -> pd.DataFrame:
+def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **options) -> pd.DataFrame:
     """Read one observation file into the observation table.
 
     Parameters
@@ -59,6 +59,10 @@ def read(path, kind=None, reader_profile=None, **options) -> pd.DataFrame:
         Overrides of variable names, attributes and fill values for a product that bends the
         conventions (:data:`obsprep.readers.cf.READER_PROFILE_KEYS`); its
         ``good_flag_meanings`` becomes the reader option of that name.
+    leave_out_rejected : bool
+        Readers that can (:func:`obsprep.readers.cf.leaving_out_rejected_rows`) leave the rows
+        they reject out of the table and count them in ``attrs["rejected_not_in_table"]``
+        ({reason: rows}); the build uses this, ``obsprep read`` and ``inspect`` do not.
     **options
         Reader options, e.g. ``sensor="alt_a"``.
 
@@ -68,7 +72,7 @@ def read(path, kind=None, reader_profile=None, **options) -> pd.DataFrame:
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from .cf import open_dataset
+    from .cf import leaving_out_rejected_rows, open_dataset
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -85,7 +89,8 @@ def read(path, kind=None, reader_profile=None, **options) -> pd.DataFrame:
     try:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
-        table = readers[kind].read_dataset(ds, path, **options)
+        with leaving_out_rejected_rows(leave_out_rejected):
+            table = readers[kind].read_dataset(ds, path, **options)
     except InputFileError:
         raise
     except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:

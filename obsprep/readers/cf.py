@@ -12,6 +12,8 @@ Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`;
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import dataclasses
 import os
 import tokenize
@@ -23,6 +25,7 @@ import xarray as xr
 
 from ..exceptions import InputFileError
 from ..quantities import Quantity
+from ..reasons import REASONS
 from ..table import make_table, reject
 
 __all__ = [
@@ -865,9 +868,31 @@ def require_values(path, decoded: list[DecodedVariable]) -> None:
                              variable=names)
 
 
+#: table attribute: {reason: rows} the reader rejected and left out of the table
+NOT_IN_TABLE = "rejected_not_in_table"
+
+_LEAVE_OUT_REJECTED = contextvars.ContextVar("obsprep_leave_out_rejected", default=False)
+
+
+@contextlib.contextmanager
+def leaving_out_rejected_rows(enabled: bool = True):
+    """Within this context, :func:`observation_table` calls marked ``final`` leave the rows
+    they reject out of the table and count them in ``table.attrs[NOT_IN_TABLE]`` instead.
+
+    For the nightly build, which only counts those rows: on a cloudy swath they are most rows,
+    and building, checking and then dropping them costs more than reading them.  ``obsprep
+    read`` and ``inspect`` keep every row with its reason.
+    """
+    token = _LEAVE_OUT_REJECTED.set(bool(enabled))
+    try:
+        yield
+    finally:
+        _LEAVE_OUT_REJECTED.reset(token)
+
+
 def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lon, lat, time,
                       time_end=None, depth=None, group="", platform="", row=None, keep=None,
-                      missing=None) -> pd.DataFrame:
+                      missing=None, rejections=(), final=False) -> pd.DataFrame:
     """The observation table for one decoded variable.
 
     Every array argument is broadcast to the variable's shape and flattened in source order.
@@ -876,8 +901,13 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     marks extra rows as ``missing_value`` (e.g. the vertical coordinate is fill).
 
     Rows with a NaN value are rejected ``missing_value``; rows whose provider flag is not good,
-    ``provider_flag``.  ``file_id`` is ``path``, ``sensor`` the option, ``error`` the file's
-    standard_error where finite (``error_origin`` "file", else "unset").
+    ``provider_flag``; then each ``(mask, reason)`` of ``rejections`` (masks of the variable's
+    shape), the first reason of a row winning.  ``file_id`` is ``path``, ``sensor`` the option,
+    ``error`` the file's standard_error where finite (``error_origin`` "file", else "unset").
+
+    ``final=True`` declares that the reader changes no rows afterwards: then, inside
+    :func:`leaving_out_rejected_rows`, the rejected rows are counted in
+    ``table.attrs[NOT_IN_TABLE]`` and left out.
     """
     shape = decoded.values.shape
 
@@ -889,34 +919,57 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
 
     keep_flat = None if keep is None else np.broadcast_to(keep, shape).ravel()
     values = flat(decoded.values)
-    error = flat(decoded.error) if decoded.error is not None else np.full(values.size, np.nan)
+    # reason of each row, the first that applies (-1 kept), as codes into REASONS
+    reasons = list(REASONS)
+    code = np.full(values.size, -1, dtype=np.int8)
+    missing_rows = ~np.isfinite(values)
+    if missing is not None:
+        missing_rows |= flat(missing, bool)
+    ordered = [(missing_rows, "missing_value")]
+    if decoded.good is not None:
+        ordered.append((~flat(decoded.good, bool), "provider_flag"))
+    ordered += [(flat(mask, bool), reason) for mask, reason in rejections]
+    for mask, reason in ordered:  # loop over the few reasons, not the rows
+        code[mask & (code < 0)] = reasons.index(reason)
+    leave_out = final and _LEAVE_OUT_REJECTED.get()
+    select = None
+    not_in_table = {}
+    if leave_out:
+        counts = np.bincount(code + 1, minlength=len(reasons) + 1)
+        not_in_table = {reasons[k - 1]: int(c) for k, c in enumerate(counts) if k and c}
+        if not_in_table:
+            select = code < 0
+            values, code = values[select], code[select]
+
+    def column(a, dtype=None):
+        a = flat(a, dtype)
+        return a if select is None else a[select]
+
+    error = column(decoded.error) if decoded.error is not None else np.full(values.size, np.nan)
     has_error = np.isfinite(error)
     columns = dict(
         quantity=decoded.quantity.name,
         value=values,
         error=error,
         error_origin=pd.Categorical.from_codes(has_error.astype(np.int8), ["unset", "file"]),
-        lon=flat(lon, np.float64),
-        lat=flat(lat, np.float64),
-        time=flat(time, "datetime64[ns]"),
+        lon=column(lon, np.float64),
+        lat=column(lat, np.float64),
+        time=column(time, "datetime64[ns]"),
         sensor=opts.sensor,
         file_id=str(path),
-        row=flat(np.arange(decoded.values.size).reshape(shape) if row is None else row,
-                 np.int64),
+        row=column(np.arange(decoded.values.size).reshape(shape) if row is None else row,
+                   np.int64),
+        rejected=pd.Categorical.from_codes(code, categories=reasons),
     )
     if depth is not None:
-        columns["depth"] = flat(depth, np.float64)
+        columns["depth"] = column(depth, np.float64)
     if time_end is not None:
-        columns["time_end"] = flat(time_end, "datetime64[ns]")
-    for column, label in (("group", group), ("platform", platform)):
-        columns[column] = str(label) if np.ndim(label) == 0 else flat(label)
+        columns["time_end"] = column(time_end, "datetime64[ns]")
+    for name, label in (("group", group), ("platform", platform)):
+        columns[name] = str(label) if np.ndim(label) == 0 else column(label)
     table = make_table(n=values.size, **columns)
-    missing_rows = ~np.isfinite(values)
-    if missing is not None:
-        missing_rows |= flat(missing, bool)
-    reject(table, missing_rows, "missing_value")
-    if decoded.good is not None:
-        reject(table, ~flat(decoded.good, bool), "provider_flag")
+    if leave_out:
+        table.attrs[NOT_IN_TABLE] = not_in_table
     return table
 
 

@@ -30,7 +30,6 @@ import numpy as np
 
 from ..exceptions import InputFileError
 from ..quantities import get_quantity
-from ..table import reject
 from . import cf
 from .base import Reader, register_reader
 from .sst_swath import sst_variable_with_latitude_ndim
@@ -163,10 +162,8 @@ class _GhrsstReader(Reader):
             offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst) * 1e9)
             time = time + offset.astype("timedelta64[ns]")  # NaN -> NaT -> bad_time later
             used.append("sst_dtime")
-        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                     group=self.group(ds, path),
-                                     platform=cf.platform_attribute(ds, opts))
-
+        # the reader's own rejections, in this order (a pixel counts under the first)
+        rejections = []
         flags_var = self._pixel(ds, name, "l2p_flags", path)
         if flags_var is not None and reject_flags:
             masks = cf.flag_meaning_masks(flags_var, path, only=reject_flags)
@@ -175,17 +172,21 @@ class _GhrsstReader(Reader):
             ordered = [m for m in L2P_FLAG_REASONS if m in chosen] + sorted(
                 chosen - set(L2P_FLAG_REASONS))
             for meaning in ordered:
-                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst).ravel()
-                reject(table, mask, L2P_FLAG_REASONS.get(meaning, "l2p_flag_other"))
+                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst)
+                rejections.append((mask, L2P_FLAG_REASONS.get(meaning, "l2p_flag_other")))
         level_var = self._pixel(ds, name, "quality_level", path)
         if level_var is not None:
-            level = broadcast(level_var).ravel()
+            level = broadcast(level_var)
             # a fill level (NaN) counts as level 0, "no data"
             too_low = ~(level >= min_level) if min_level > 0 else level < min_level
-            reject(table, too_low, "quality_level")
+            rejections.append((too_low, "quality_level"))
             used.append("quality_level")
         if bias_missing is not None:
-            reject(table, bias_missing.ravel(), "missing_bias")
+            rejections.append((bias_missing, "missing_bias"))
+        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
+                                     group=self.group(ds, path),
+                                     platform=cf.platform_attribute(ds, opts),
+                                     rejections=rejections, final=True)
         lat_name = cf.find_coordinate(ds, name, "latitude")
         lon_name = cf.find_coordinate(ds, name, "longitude")
         table.attrs["variables"] = cf.variable_units(ds, used + [lat_name, lon_name, "time"])
