@@ -43,7 +43,6 @@ from functools import cached_property
 from pathlib import Path
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from ..exceptions import GridError, InputFileError
 from .base import ModelGrid
@@ -208,6 +207,8 @@ class CurvilinearGrid(ModelGrid):
 
     @cached_property
     def _tree(self):
+        from scipy.spatial import cKDTree  # imported when a tree is needed (import is slow)
+
         return cKDTree(self._unit_vectors.reshape(-1, 3))
 
     @cached_property

@@ -938,12 +938,20 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
         counts = np.bincount(code + 1, minlength=len(reasons) + 1)
         not_in_table = {reasons[k - 1]: int(c) for k, c in enumerate(counts) if k and c}
         if not_in_table:
-            select = code < 0
+            select = np.flatnonzero(code < 0)  # indices: one scan, then cheap gathers
             values, code = values[select], code[select]
 
     def column(a, dtype=None):
         a = flat(a, dtype)
-        return a if select is None else a[select]
+        return a if select is None else a.take(select)
+
+    if row is None and keep_flat is None:
+        # the flat index in the source variable: for a selection, the selection itself
+        row = np.arange(values.size) if select is None else select
+        row_column = row
+    else:
+        row_column = column(np.arange(decoded.values.size).reshape(shape) if row is None else row,
+                            np.int64)
 
     error = column(decoded.error) if decoded.error is not None else np.full(values.size, np.nan)
     has_error = np.isfinite(error)
@@ -957,8 +965,7 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
         time=column(time, "datetime64[ns]"),
         sensor=opts.sensor,
         file_id=str(path),
-        row=column(np.arange(decoded.values.size).reshape(shape) if row is None else row,
-                   np.int64),
+        row=row_column.astype(np.int64, copy=False),
         rejected=pd.Categorical.from_codes(code, categories=reasons),
     )
     if depth is not None:
