@@ -184,6 +184,16 @@ def read_needed_variables(paths) -> int:
     return total
 
 
+def read_needed_variables_in_processes(paths, processes: int = 2) -> int:
+    """The same baseline in ``processes`` worker processes (files dealt out in turn): the
+    yardstick for a build that runs with ``--jobs`` of the same number."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    shares = [list(paths)[k::processes] for k in range(processes)]
+    with ProcessPoolExecutor(processes) as pool:
+        return sum(pool.map(read_needed_variables, shares))
+
+
 def random_observations(n: int, nx: int, ny: int, n_slots: int, seed: int = 0):
     """Invented observations for the accumulator benchmark: cells, slots, SST-like values."""
     rng = np.random.default_rng(seed)

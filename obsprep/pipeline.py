@@ -138,6 +138,11 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
     table["quantity"] = quantity
 
 
+def _rows(array: np.ndarray, selected: np.ndarray) -> np.ndarray:
+    """``array[selected]`` for a boolean ``selected``; the array itself when every row is."""
+    return array if selected.all() else array[selected]
+
+
 def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_names: list[str],
                  strict: bool = False, duplicate_groups=None) -> FileResult:
     """Read, check, assign errors, locate and accumulate one file of one source.
@@ -179,9 +184,8 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     j = np.full(n, -1, dtype=np.int64)
     k = np.full(n, -1, dtype=np.int64)
     if live.any():
-        li, lj, lk, reason = grid.classify_codes(table["lon"].to_numpy()[live],
-                                                 table["lat"].to_numpy()[live],
-                                                 table["depth"].to_numpy()[live])
+        li, lj, lk, reason = grid.classify_codes(*(_rows(table[c].to_numpy(), live)
+                                                   for c in ("lon", "lat", "depth")))
         i[live], j[live], k[live] = li, lj, lk
         full_reason = np.zeros(n, dtype=np.int8)
         full_reason[live] = reason
@@ -214,6 +218,8 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
         for start in range(0, live_rows.size, ACCUMULATE_CHUNK_ROWS):
             rows = live_rows[start:start + ACCUMULATE_CHUNK_ROWS]
             m = rows.size
+            if m and rows[-1] - rows[0] == m - 1:
+                rows = slice(int(rows[0]), int(rows[-1]) + 1)  # consecutive rows: views, no copies
 
             def constant(value):
                 return np.broadcast_to(np.int64(value), (m,))  # no memory per row
