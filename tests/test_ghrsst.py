@@ -117,6 +117,34 @@ def test_rows_left_out_by_the_reader_are_counted_under_the_same_reasons(l2p):
     assert cf.NOT_IN_TABLE not in full.attrs
 
 
+def test_only_the_variables_the_reader_uses_are_read_each_once(l2p, monkeypatch):
+    # Real L2P granules carry many variables obsprep does not use (wind speed, sea-ice
+    # fraction, ...); they must not be read or decoded.  Reference: the netCDF4 reads that
+    # xarray's netCDF4 backend makes, recorded.
+    from xarray.backends import netCDF4_
+
+    path, _ = l2p
+    expected = read(path)
+    with netCDF4.Dataset(path, "a") as nc:
+        for name in ("wind_speed", "sea_ice_fraction"):
+            v = nc.createVariable(name, "f4", ("time", "nj", "ni"))
+            v[:] = np.ones(v.shape)
+    reads = []
+    original = netCDF4_.NetCDF4ArrayWrapper._getitem
+
+    def recording(self, key):
+        reads.append(self.variable_name)
+        return original(self, key)
+
+    monkeypatch.setattr(netCDF4_.NetCDF4ArrayWrapper, "_getitem", recording)
+    table = read(path)
+    assert "wind_speed" not in reads and "sea_ice_fraction" not in reads
+    assert sorted(reads) == sorted(set(reads))  # each variable read once
+    assert {"sea_surface_temperature", "lat", "lon", "quality_level"} <= set(reads)
+    np.testing.assert_array_equal(table["value"], expected["value"])
+    assert reasons(table) == reasons(expected)
+
+
 def test_options_minimum_quality_flags_and_bias_switch(l2p):
     path, f = l2p
     table = read(path, min_quality_level=2, reject_l2p_flags="ice microwave",

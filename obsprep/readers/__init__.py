@@ -26,11 +26,11 @@ def available_kinds() -> list[str]:
 
 def guess_kind(path, ds=None) -> str:
     """Return the kind of the first reader whose ``guess_can_open`` accepts the file."""
-    from .cf import leaving_out_rejected_rows, open_dataset
+    from .cf import open_dataset
 
     own = ds is None
     if own:
-        ds = open_dataset(path)
+        ds = open_dataset(path, load=False)  # metadata only
     try:
         claims = [k for k, r in registered_readers().items() if r.guess_can_open(ds)]
     finally:
@@ -72,6 +72,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
+    from .cf import _one_line as cf_one_line
     from .cf import leaving_out_rejected_rows, open_dataset
 
     path = os.fspath(path)
@@ -85,7 +86,9 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
                                        "and in the reader profile, with different values")
         options["good_flag_meanings"] = profile.pop("good_flag_meanings")
     profile.pop("good_flag_meanings", None)
-    ds = open_dataset(path, profile=profile or None)
+    # lazy: a variable is read (once, then cached) when the reader first uses it, so the
+    # many variables of a product that obsprep does not need are never read or decoded
+    ds = open_dataset(path, profile=profile or None, load=False)
     try:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
@@ -93,6 +96,9 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
             table = readers[kind].read_dataset(ds, path, **options)
     except InputFileError:
         raise
+    except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
+        raise InputFileError(path, f"cannot read the data ({os.path.getsize(path)} bytes; "
+                                   f"truncated or corrupt?): {cf_one_line(exc)}") from exc
     except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:
         raise InputFileError(path, f"reader '{kind}' failed: {exc}") from exc
     finally:
