@@ -25,7 +25,7 @@ from .grid.base import CLASSIFY_REASONS
 from .ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
 from .qc import find_duplicates, grid_checks, table_checks
 from .quantities import QUANTITIES
-from .readers import read
+from .readers import read, read_parts
 from .readers.cf import NOT_IN_TABLE
 from .superobs import Accumulator
 from .table import kept, reject
@@ -34,6 +34,9 @@ from .timeslots import seconds_since, slot_index
 QUANTITY_NAMES = list(QUANTITIES)
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
+#: values per variable above which a file is read in parts (readers that can; see
+#: process_file): bounds the memory of one huge file at about 1.5 GiB whatever its size
+READ_PART_VALUES = 1 << 22
 
 
 @dataclass
@@ -147,21 +150,63 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
                  strict: bool = False, duplicate_groups=None) -> FileResult:
     """Read, check, assign errors, locate and accumulate one file of one source.
 
+    A file bigger than :data:`READ_PART_VALUES` values per variable is read in parts along its
+    reader's slice dimension (:func:`obsprep.readers.read_parts`), each part processed like a
+    file, their ledger counts added and their accumulators merged in order.  When any part
+    cannot be read, the whole file is listed as unreadable and nothing of it is used.
+
     ``duplicate_groups``: the file's profiles that lost the cross-file duplicate check
     (default: looked up in ``cfg.duplicate_groups``, filled by :func:`build`).
     """
     size = os.path.getsize(path) if os.path.exists(path) else 0
+    if duplicate_groups is None:
+        duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
+    results = []
     try:
         if not os.path.exists(path):
             raise InputFileError(path, "file not found")
-        table = read(path, kind=source.kind, reader_profile=source.reader,
-                     leave_out_rejected=True, sensor=source.sensor, **source.options)
+        parts = read_parts(path, kind=source.kind, reader_profile=source.reader,
+                           max_values=READ_PART_VALUES)
+        for part in parts:
+            table = read(path, kind=source.kind, reader_profile=source.reader,
+                         leave_out_rejected=True, row_slice=part, sensor=source.sensor,
+                         **source.options)
+            results.append(_process_table(cfg, grid, source, path, table, file_index,
+                                          sensor_names, size, duplicate_groups))
+            del table
     except InputFileError as exc:
         if strict:
             raise
         message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
                                       status="unreadable", message=message, size_bytes=size))
+    return results[0] if len(results) == 1 else _combine_parts(results)
+
+
+def _combine_parts(results: list[FileResult]) -> FileResult:
+    """One file's result from the results of its parts (ledger counts added, accumulators
+    merged in part order)."""
+    first = results[0].entry
+    rejected: dict = {}
+    for r in results:
+        for reason, count in r.entry.rejected.items():
+            rejected[reason] = rejected.get(reason, 0) + count
+    entry = LedgerEntry(file=first.file, sensor=first.sensor, kind=first.kind,
+                        size_bytes=first.size_bytes, read=sum(r.entry.read for r in results),
+                        kept=sum(r.entry.kept for r in results), rejected=rejected)
+    entry.check()
+    reducer = FixedTreeReducer()
+    profile_names: dict = {}
+    for r in results:
+        if r.accumulator is not None:
+            reducer.add(r.accumulator)
+        profile_names.update(r.profile_names)
+    return FileResult(entry=entry, accumulator=reducer.result(), profile_names=profile_names)
+
+
+def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, file_index: int,
+                   sensor_names: list[str], size: int, duplicate_groups) -> FileResult:
+    """Everything after reading, for one file or one part of it (see :func:`process_file`)."""
     kind = table.attrs.get("kind", source.kind)
     # Rows the reader rejected (fill, provider flags, quality level) are counted for the ledger
     # now and not carried through the later stages: on a cloudy swath they are most rows.
@@ -171,8 +216,6 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
     for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():  # left out by the reader
         counted_by_reader[reason] = counted_by_reader.get(reason, 0) + count
     n = len(table)
-    if duplicate_groups is None:
-        duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
     qc_settings = source.qc
     table_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range,
                  settings=qc_settings, duplicate_groups=duplicate_groups)

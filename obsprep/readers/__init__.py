@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import os
 
+import numpy as np
 import pandas as pd
 
 from ..exceptions import InputFileError, NoReaderError
@@ -16,7 +17,7 @@ from .base import Reader, register_reader, registered_readers
 from . import ghrsst, argo  # noqa: E402,F401
 from . import alongtrack, sst_swath, sst_grid, ice_concentration, ice_drift, profiles  # noqa: E402,F401
 
-__all__ = ["read", "guess_kind", "available_kinds", "Reader", "register_reader"]
+__all__ = ["read", "read_parts", "guess_kind", "available_kinds", "Reader", "register_reader"]
 
 
 def available_kinds() -> list[str]:
@@ -46,7 +47,45 @@ def guess_kind(path, ds=None) -> str:
     return claims[0]
 
 
-def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **options) -> pd.DataFrame:
+def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
+    """How to read ``path`` in parts of at most about ``max_values`` values per variable.
+
+    Returns a list of ``row_slice`` arguments for :func:`read` (``[None]``: read the file
+    whole), from the file's metadata only.  Files are cut only along the reader's
+    :meth:`~obsprep.readers.base.Reader.slice_dimension`, and at multiples of the variables'
+    storage chunks along it, so no compressed chunk is decompressed twice.
+    """
+    from .cf import open_dataset
+
+    if max_values is None:
+        return [None]
+    profile = {k: v for k, v in dict(reader_profile or {}).items() if k != "good_flag_meanings"}
+    ds = open_dataset(path, profile=profile or None, load=False)
+    try:
+        if kind in (None, "auto"):
+            kind = guess_kind(path, ds)
+        reader = registered_readers().get(kind)
+        dimension = reader.slice_dimension(ds) if reader is not None else None
+        if dimension is None or dimension not in ds.sizes:
+            return [None]
+        sliced = [v for v in ds.data_vars.values() if dimension in v.dims]
+        n_rows = ds.sizes[dimension]
+        per_row = max((v.size // n_rows for v in sliced), default=1) or 1
+        chunk = 1
+        for v in sliced:
+            sizes = v.encoding.get("chunksizes")
+            if sizes:
+                chunk = max(chunk, int(sizes[v.dims.index(dimension)]))
+        rows = max(chunk, (max(1, int(max_values) // per_row) // chunk) * chunk)
+        if rows >= n_rows:
+            return [None]
+        return [slice(start, min(start + rows, n_rows)) for start in range(0, n_rows, rows)]
+    finally:
+        ds.close()
+
+
+def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_slice=None,
+         **options) -> pd.DataFrame:
     """Read one observation file into the observation table.
 
     Parameters
@@ -63,6 +102,9 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
         Readers that can (:func:`obsprep.readers.cf.leaving_out_rejected_rows`) leave the rows
         they reject out of the table and count them in ``attrs["rejected_not_in_table"]``
         ({reason: rows}); the build uses this, ``obsprep read`` and ``inspect`` do not.
+    row_slice : slice, optional
+        Read only this part of the reader's slice dimension (see :func:`read_parts`); the
+        ``row`` column still numbers the values of the whole file.
     **options
         Reader options, e.g. ``sensor="alt_a"``.
 
@@ -92,8 +134,16 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
     try:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
+        whole = ds
+        if row_slice is not None:
+            dimension = readers[kind].slice_dimension(ds)
+            if dimension is None:
+                raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
+            ds = ds.isel({dimension: row_slice})
         with leaving_out_rejected_rows(leave_out_rejected):
             table = readers[kind].read_dataset(ds, path, **options)
+        if row_slice is not None:
+            _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
     except InputFileError:
         raise
     except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
@@ -106,3 +156,20 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, **optio
     table.attrs["kind"] = kind
     table.attrs.setdefault("variables", {})
     return table
+
+
+def _rows_of_whole_file(table, whole, part, dimension, start, path) -> None:
+    """Map ``table["row"]`` (flat indices into the part's variable) to the whole file's."""
+    from .cf import ROW_VARIABLE
+
+    name = table.attrs.get(ROW_VARIABLE)
+    if name is None or name not in part.variables:
+        raise InputFileError(path, "the reader did not say which variable its rows number; "
+                                   "cannot read the file in parts")
+    variable = whole[name]
+    if dimension not in variable.dims or len(table) == 0:
+        return
+    index = list(np.unravel_index(table["row"].to_numpy(), part[name].shape))
+    axis = variable.dims.index(dimension)
+    index[axis] = index[axis] + start
+    table["row"] = np.ravel_multi_index(tuple(index), variable.shape).astype(np.int64)

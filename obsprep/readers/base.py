@@ -40,6 +40,18 @@ class Reader:
         """Return the observation table for ``ds`` (opened from ``path``)."""
         raise NotImplementedError
 
+    def slice_dimension(self, ds: xr.Dataset) -> str | None:
+        """A dimension along which ``ds`` may be read in parts, or None (read it whole).
+
+        The rows of a swath or a grid are independent observations: a reader that says so here
+        gets each part as ``ds.isel({dimension: slice})`` and reads it like a whole file, so
+        one huge file (a global L3 grid, a full-orbit swath) is read, checked and accumulated
+        a part at a time within the build's memory.  The ``row`` numbers are mapped back to
+        the whole file by :func:`obsprep.readers.read`.  Not for readers whose rows depend on
+        each other (passes split at time gaps, profiles).
+        """
+        return None
+
 
 _REGISTRY: dict[str, Reader] = {}
 

@@ -870,6 +870,8 @@ def require_values(path, decoded: list[DecodedVariable]) -> None:
 
 #: table attribute: {reason: rows} the reader rejected and left out of the table
 NOT_IN_TABLE = "rejected_not_in_table"
+#: table attribute: the variable whose flat index the ``row`` column is
+ROW_VARIABLE = "row_variable"
 
 _LEAVE_OUT_REJECTED = contextvars.ContextVar("obsprep_leave_out_rejected", default=False)
 
@@ -945,10 +947,10 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
         a = flat(a, dtype)
         return a if select is None else a.take(select)
 
-    if row is None and keep_flat is None:
+    rows_number_the_variable = row is None and keep_flat is None
+    if rows_number_the_variable:
         # the flat index in the source variable: for a selection, the selection itself
-        row = np.arange(values.size) if select is None else select
-        row_column = row
+        row_column = np.arange(values.size) if select is None else select
     else:
         row_column = column(np.arange(decoded.values.size).reshape(shape) if row is None else row,
                             np.int64)
@@ -977,6 +979,8 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     table = make_table(n=values.size, **columns)
     if leave_out:
         table.attrs[NOT_IN_TABLE] = not_in_table
+    if rows_number_the_variable:
+        table.attrs[ROW_VARIABLE] = decoded.variable
     return table
 
 

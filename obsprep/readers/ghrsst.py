@@ -107,6 +107,15 @@ class _GhrsstReader(Reader):
     def group(self, ds, path) -> str:
         return ""
 
+    def slice_dimension(self, ds):
+        """Rows of the swath (``nj``) or of the grid (``lat``): the first dimension of the SST
+        longer than one (``time`` has length 1 in GDS 2.0 files)."""
+        name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim)
+        if name is None:
+            return None
+        longer = [d for d in ds[name].dims if ds.sizes[d] > 1]
+        return longer[0] if len(longer) >= 2 else None
+
     def _pixel(self, ds, name, variable, path):
         """A per-pixel variable broadcast to the SST's shape, or None if absent."""
         if variable not in ds.variables:
