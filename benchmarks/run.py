@@ -38,9 +38,11 @@ import synthetic  # noqa: E402
 SIZES = {
     "full": dict(accumulate=20_000_000, projected=5_000_000, curvilinear=2_000_000,
                  pixels_per_granule=2_500_000, e2e=50_000_000, memory=(10_000_000, 100_000_000),
+                 one_file=50_000_000,
                  scaling=(1_000_000, 10_000_000, 100_000_000), jobs=10_000_000),
     "quick": dict(accumulate=2_000_000, projected=500_000, curvilinear=200_000,
                   pixels_per_granule=500_000, e2e=2_000_000, memory=(1_000_000, 4_000_000),
+                  one_file=8_000_000,
                   scaling=(500_000, 1_000_000, 4_000_000), jobs=2_000_000),
 }
 GIB = 2.0 ** 30
@@ -430,6 +432,13 @@ def main(argv=None):
                 rows.append((f"peak RSS of the build, {total / 1e6:g} M observations "
                              f"({files} files)", f"{peak / GIB:.2f} GiB", "-", "-",
                              "< 2 GiB", peak < 2 * GIB))
+            # one huge file (a global L3 grid, a full orbit): read in parts, the same budget
+            total = size["one_file"]
+            paths_1 = day(args.data, total, total)
+            wall, peak, _ = run_process(build_command(config_for(paths_1, work, "one")), env)
+            rows.append((f"peak RSS of the build, one file of {total / 1e6:g} M pixels",
+                         f"{peak / GIB:.2f} GiB ({wall:.1f} s)", "-", "-", "< 2 GiB",
+                         peak < 2 * GIB))
             # linear growth: the marginal time per million observations (the slope between
             # consecutive sizes; start-up is a constant) stays the same as the size grows
             sizes = size["scaling"]
