@@ -13,6 +13,7 @@ import pytest
 import xarray as xr
 
 from formats import write_gds2
+from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
 from obsprep import pipeline
 from obsprep.pipeline import build
 from obsprep.readers import read, read_parts
@@ -123,3 +124,46 @@ def test_parts_never_split_a_row_and_never_overlap(tmp_path, max_values):
     parts = read_parts(path, max_values=max_values)
     covered = np.concatenate([np.arange(p.start, p.stop) for p in parts])
     np.testing.assert_array_equal(covered, np.arange(30))
+
+
+def test_a_part_of_nothing_but_fill_is_counted_not_refused(tmp_path):
+    # The first rows of a granule are often fill (outside the scan); a part made only of them
+    # is counted as missing values, and the ledger still balances.
+    rows, columns = 30, 40
+    sst = np.full((rows, columns), 285.0)
+    sst[:10] = np.nan
+    lat = np.linspace(40.2, 45.8, rows)
+    path = write_gds2(tmp_path / "edge.nc", sst, quality=np.full(sst.shape, 5), lat=lat,
+                      lon=np.linspace(350.2, 357.8, columns))
+    parts = read_parts(path, max_values=5 * columns)
+    first = read(path, leave_out_rejected=True, row_slice=parts[0])
+    assert len(first) == 0 and first.attrs["rejected_not_in_table"] == {"missing_value": 200}
+    tables = [read(path, leave_out_rejected=True, row_slice=p) for p in parts]
+    assert sum(len(t) for t in tables) == 20 * columns
+    assert sum(sum(t.attrs["rejected_not_in_table"].values()) for t in tables) == 10 * columns
+
+
+@pytest.mark.parametrize("kind", ["sst_grid", "sst_swath", "ice_concentration"])
+def test_cf_grids_and_swaths_read_in_parts_equal_the_whole_file(tmp_path, kind):
+    # Reference: the same file read whole.
+    rng = np.random.default_rng(11)
+    if kind == "sst_grid":
+        sst = 280.0 + rng.random((9, 5))
+        sst[2, 1] = np.nan
+        path = sst_grid_file(tmp_path / "g.nc", sst, lat=tuple(np.linspace(50, 54, 9)),
+                             lon=tuple(np.linspace(0, 4, 5)))
+    elif kind == "sst_swath":
+        path = sst_swath_file(tmp_path / "s.nc", ny=7, nx=4)
+    else:
+        conc = rng.uniform(0, 100, (1, 6, 3))
+        conc[0, 4, 2] = np.nan
+        path = ice_concentration_file(tmp_path / "i.nc", conc=conc,
+                                      y=tuple(np.linspace(-2.0e6, -1.5e6, 6)))
+    parts = read_parts(path, max_values=8)
+    assert len(parts) > 1
+    whole = read(path)
+    joined = pd.concat([read(path, row_slice=p) for p in parts], ignore_index=True)
+    assert whole.attrs["kind"] == kind
+    for column in ("row", "value", "lon", "lat", "time"):
+        np.testing.assert_array_equal(joined[column].to_numpy(), whole[column].to_numpy())
+    assert (joined["rejected"].astype(str).tolist() == whole["rejected"].astype(str).tolist())

@@ -115,7 +115,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
     from .cf import _one_line as cf_one_line
-    from .cf import leaving_out_rejected_rows, open_dataset
+    from .cf import READING_PART, leaving_out_rejected_rows, open_dataset
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -140,8 +140,12 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
             if dimension is None:
                 raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
             ds = ds.isel({dimension: row_slice})
-        with leaving_out_rejected_rows(leave_out_rejected):
-            table = readers[kind].read_dataset(ds, path, **options)
+        part = READING_PART.set(row_slice is not None)
+        try:
+            with leaving_out_rejected_rows(leave_out_rejected):
+                table = readers[kind].read_dataset(ds, path, **options)
+        finally:
+            READING_PART.reset(part)
         if row_slice is not None:
             _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
     except InputFileError:

@@ -190,6 +190,16 @@ def find_variable(ds: xr.Dataset, standard_names, ndim=None) -> str | None:
     return None
 
 
+def rows_dimension(ds: xr.Dataset, name: str | None) -> str | None:
+    """The first dimension longer than one of variable ``name`` when it has at least two such
+    dimensions (the rows of a swath or grid; a length-1 ``time`` is skipped), else None: the
+    slice dimension of readers of gridded and swath files."""
+    if name is None or name not in ds.variables:
+        return None
+    longer = [d for d in ds[name].dims if ds.sizes[d] > 1]
+    return longer[0] if len(longer) >= 2 else None
+
+
 def require_variable(ds: xr.Dataset, path, standard_names, what: str, ndim=None) -> str:
     """Like :func:`find_variable` but raise :class:`InputFileError` listing what was expected."""
     name = find_variable(ds, standard_names, ndim=ndim)
@@ -728,7 +738,7 @@ def horizontal_position(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np
         lon, lat = lonlat_from_projection(crs, x, y)
         checked = ((name, lat),)
     for variable, values in checked:
-        if values.size and not np.isfinite(values).any():
+        if values.size and not READING_PART.get() and not np.isfinite(values).any():
             raise InputFileError(path, "every position value is fill/NaN", variable=variable)
     return wrap_longitude(lon), np.asarray(lat, dtype=np.float64)
 
@@ -858,9 +868,18 @@ def decode_data_variable(ds: xr.Dataset, name: str, quantity: Quantity, path,
     return DecodedVariable(quantity, name, values, error, good)
 
 
+#: True while a reader reads one part of a file (see obsprep.readers.read, ``row_slice``)
+READING_PART = contextvars.ContextVar("obsprep_reading_part", default=False)
+
+
 def require_values(path, decoded: list[DecodedVariable]) -> None:
     """Raise :class:`InputFileError` when the data variables hold values but every one is fill
-    (an all-fill file is a broken product, not a night without data)."""
+    (an all-fill file is a broken product, not a night without data).
+
+    Not for a part of a file (:data:`READING_PART`): rows of fill at the edge of a swath or the
+    polar rows of a global grid are ordinary; their values are counted as ``missing_value``."""
+    if READING_PART.get():
+        return
     total = sum(d.values.size for d in decoded)
     if total and not any(np.isfinite(d.values).any() for d in decoded):
         names = ", ".join(d.variable for d in decoded)

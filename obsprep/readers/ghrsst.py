@@ -108,13 +108,8 @@ class _GhrsstReader(Reader):
         return ""
 
     def slice_dimension(self, ds):
-        """Rows of the swath (``nj``) or of the grid (``lat``): the first dimension of the SST
-        longer than one (``time`` has length 1 in GDS 2.0 files)."""
-        name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim)
-        if name is None:
-            return None
-        longer = [d for d in ds[name].dims if ds.sizes[d] > 1]
-        return longer[0] if len(longer) >= 2 else None
+        """Rows of the swath (``nj``) or of the grid (``lat``)."""
+        return cf.rows_dimension(ds, sst_variable_with_latitude_ndim(ds, self.latitude_ndim))
 
     def _pixel(self, ds, name, variable, path):
         """A per-pixel variable broadcast to the SST's shape, or None if absent."""

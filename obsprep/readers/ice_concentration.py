@@ -22,6 +22,10 @@ class IceConcentrationReader(Reader):
     def guess_can_open(self, ds) -> bool:
         return cf.find_variable(ds, SEA_ICE_CONCENTRATION.accepted_standard_names) is not None
 
+    def slice_dimension(self, ds):
+        """Rows of the grid (cells are independent observations)."""
+        return cf.rows_dimension(ds, cf.find_variable(ds, SEA_ICE_CONCENTRATION.accepted_standard_names))
+
     def read_dataset(self, ds, path, **options):
         opts = cf.reader_options(self, options)
         name = cf.require_variable(ds, path, SEA_ICE_CONCENTRATION.accepted_standard_names,

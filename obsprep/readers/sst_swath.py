@@ -43,6 +43,10 @@ class SstSwathReader(Reader):
         """The granule identifier: global ``id`` attribute, else the file name."""
         return str(ds.attrs.get("id", "")).strip() or os.path.basename(path)
 
+    def slice_dimension(self, ds):
+        """Rows of the swath or grid (pixels are independent observations)."""
+        return cf.rows_dimension(ds, sst_variable_with_latitude_ndim(ds, self.latitude_ndim))
+
     def read_dataset(self, ds, path, **options):
         opts = cf.reader_options(self, options)
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
