@@ -295,6 +295,9 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
         outcome = ExecutionResult()
         reducer = FixedTreeReducer()
         if jobs and jobs > 1 and len(to_run) > 1:
+            from .readers.cf import preload
+
+            preload()  # before the workers are forked, so each inherits it
             with ProcessPoolExecutor(max_workers=min(jobs, len(to_run)), initializer=_init_worker,
                                      initargs=(cfg, grid, sensor_names, strict)) as pool:
                 _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),

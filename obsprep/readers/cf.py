@@ -490,6 +490,15 @@ def _registry():
     return _UNIT_REGISTRY
 
 
+def preload() -> None:
+    """Import what reading a file needs on first use (the CF/udunits unit registry, xarray's
+    netCDF4 backend), so that worker processes forked afterwards inherit it instead of each
+    paying the half second of loading it again."""
+    import xarray.backends.netCDF4_  # noqa: F401
+
+    _registry()
+
+
 def convert_units(values, units: str, canonical: str, path, variable=None,
                   difference: bool = False) -> np.ndarray:
     """Convert ``values`` from ``units`` to ``canonical`` with the CF/udunits pint registry.
