@@ -19,6 +19,18 @@ GDS2_EPOCH = np.datetime64("1981-01-01T00:00:00", "ns")
 ARGO_EPOCH = np.datetime64("1950-01-01T00:00:00", "ns")
 
 
+#: a regular 0.5-degree test grid over 40..46 N, -10..-2 E (a TOML [grid] table)
+REGULAR_GRID_TOML = """[grid]
+type = "regular"
+lon_min = -10.0
+lat_min = 40.0
+dlon = 0.5
+dlat = 0.5
+nlon = 16
+nlat = 12
+"""
+
+
 def _packed(nc, name, dtype, dims, values, fill, scale, offset, **attrs):
     v = nc.createVariable(name, dtype, dims, fill_value=fill)
     v.setncatts({"scale_factor": scale, "add_offset": offset, **attrs})

@@ -19,7 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from obsprep import execution
-from formats import write_alongtrack
+from formats import REGULAR_GRID_TOML, write_alongtrack
 from obsprep.cli.main import cli
 from obsprep.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
 from obsprep.pipeline import build
@@ -106,15 +106,7 @@ def many_files_scenario(tmp_path, n_files=11, n=300, seed=3):
 analysis_time = "2026-11-20T00:00:00"
 start_hours = -72.0
 slot_hours = 12.0
-[grid]
-type = "regular"
-lon_min = -10.0
-lat_min = 40.0
-dlon = 0.5
-dlat = 0.5
-nlon = 16
-nlat = 12
-[[sources]]
+{REGULAR_GRID_TOML}[[sources]]
 sensor = "alt_a"
 paths = ["a_*.nc"]
 kind = "alongtrack"

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from formats import write_gds2
+from formats import REGULAR_GRID_TOML, write_gds2
 from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
 from obsprep import pipeline
 from obsprep.pipeline import build
@@ -66,15 +66,7 @@ analysis_time = "{{date}}T00:00:00"
 start_hours = -24.0
 end_hours = 0.0
 slot_hours = 6.0
-[grid]
-type = "regular"
-lon_min = -10.0
-lat_min = 40.0
-dlon = 0.5
-dlat = 0.5
-nlon = 16
-nlat = 12
-[[sources]]
+{REGULAR_GRID_TOML}[[sources]]
 sensor = "sst_l2p"
 paths = ["{path}"]
 kind = "auto"
