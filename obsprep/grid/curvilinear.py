@@ -48,7 +48,7 @@ from ..exceptions import GridError, InputFileError
 from .base import ModelGrid
 from .gridfile import read_grid_file, write_grid_file
 from .rotation import axis_angle_from_centres
-from .sphere import unit_vectors_from_lonlat, wrap_longitude
+from .sphere import unit_vector_components, unit_vectors_from_lonlat, wrap_longitude
 
 #: pieces with a corner poleward of this latitude (degrees) use polar stereographic coordinates
 POLAR_CAP_LATITUDE = 80.0
@@ -433,10 +433,7 @@ class CurvilinearGrid(ModelGrid):
         near_miss = np.empty((n, 5))  # violation, j0, i0, s, t; read only where finite
         near_miss[:, 0] = np.inf
         # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
-        lon_rad, lat_rad = np.radians(lon), np.radians(lat)
-        cos_lat = np.cos(lat_rad)
-        components = (cos_lat * np.cos(lon_rad), cos_lat * np.sin(lon_rad), np.sin(lat_rad))
-        del lon_rad, lat_rad, cos_lat
+        components = unit_vector_components(lon, lat)
 
         def points_at(rows=None):
             """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""

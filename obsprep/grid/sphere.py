@@ -21,12 +21,43 @@ def unit_vectors_from_lonlat(lon, lat):
     """Earth-centred unit vectors (x, y, z) stacked on a last axis of length 3.
 
     ``lon``, ``lat`` in degrees; x points to (0 E, 0 N), y to (90 E, 0 N), z to the north pole.
+    Sines and cosines by :func:`cos_sin_degrees`.
     """
-    lon_rad = np.radians(lon)
-    lat_rad = np.radians(lat)
-    cos_lat = np.cos(lat_rad)
-    return np.stack([cos_lat * np.cos(lon_rad), cos_lat * np.sin(lon_rad), np.sin(lat_rad)],
-                    axis=-1)
+    return np.stack(unit_vector_components(lon, lat), axis=-1)
+
+
+def unit_vector_components(lon, lat):
+    """The three components of :func:`unit_vectors_from_lonlat` as separate arrays:
+    x = cos(lat) cos(lon), y = cos(lat) sin(lon), z = sin(lat)."""
+    cos_lon, sin_lon = cos_sin_degrees(np.asarray(lon, dtype=np.float64))
+    cos_lat, sin_lat = cos_sin_degrees(np.asarray(lat, dtype=np.float64))
+    return cos_lat * cos_lon, cos_lat * sin_lon, sin_lat
+
+
+_HALF_DEGREE_IN_RADIANS = np.pi / 360.0
+
+
+def cos_sin_degrees(angle, cos_out=None, sin_out=None):
+    """(cos, sin) of ``angle`` (degrees) from the tangent of the half angle.
+
+    .. math:: t = \\tan(\\alpha / 2), \\quad \\cos\\alpha = \\frac{2}{1 + t^2} - 1,
+              \\quad \\sin\\alpha = \\frac{2 t}{1 + t^2}
+
+    (the tangent half-angle identities, any trigonometry handbook): one transcendental function
+    instead of two, as accurate (a few units in the last place), and periodic in 360 degrees,
+    so any longitude range works.  At exactly +-180 degrees ``t`` is about 1.6e16 and the
+    identities still give cos = -1, sin ~ 1e-16.  ``cos_out`` and ``sin_out`` (arrays like
+    ``angle``, optional) receive the results.
+    """
+    half_tangent = np.multiply(angle, _HALF_DEGREE_IN_RADIANS, out=sin_out)
+    np.tan(half_tangent, out=half_tangent)
+    # 2 / (1 + t^2), then cos = 2 / (1 + t^2) - 1 and sin = t * 2 / (1 + t^2)
+    cos_angle = np.multiply(half_tangent, half_tangent, out=cos_out)
+    cos_angle += 1.0
+    np.divide(2.0, cos_angle, out=cos_angle)
+    sin_angle = np.multiply(half_tangent, cos_angle, out=half_tangent)
+    cos_angle -= 1.0
+    return cos_angle, sin_angle
 
 
 def great_circle_distance(lon1, lat1, lon2, lat2, radius=EARTH_MEAN_RADIUS_M):

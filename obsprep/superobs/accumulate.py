@@ -44,7 +44,8 @@ import math
 import numpy as np
 
 from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
-from .spherical import _cos_sin_degrees, mean_position, unit_vectors
+from ..grid.sphere import cos_sin_degrees
+from .spherical import mean_position, unit_vectors
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
 
@@ -383,8 +384,8 @@ def _unit_vector_sums(lon, lat, grouping, work, work_2):
     for start in range(0, n, block):  # loop over blocks of rows, not rows
         stop = min(start + block, n)
         m = stop - start
-        c, _ = _cos_sin_degrees(lat[start:stop], cos_lat[:m], z[start:stop])
-        x, y = _cos_sin_degrees(lon[start:stop], work[start:stop], work_2[start:stop])
+        c, _ = cos_sin_degrees(lat[start:stop], cos_lat[:m], z[start:stop])
+        x, y = cos_sin_degrees(lon[start:stop], work[start:stop], work_2[start:stop])
         np.multiply(x, c, out=x)
         np.multiply(y, c, out=y)
     return grouping.sum(work), grouping.sum(work_2), grouping.sum(z)

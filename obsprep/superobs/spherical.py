@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..grid.sphere import unit_vector_components
+
 
 def unit_vectors(lon, lat):
     """Unit vectors (x, y, z) of positions on the unit sphere.
@@ -22,13 +24,9 @@ def unit_vectors(lon, lat):
         x = \\cos\\varphi \\cos\\lambda, \\quad y = \\cos\\varphi \\sin\\lambda, \\quad
         z = \\sin\\varphi
 
-    (spherical to Cartesian coordinates, any geometry textbook.)  The sines and cosines come
-    from the tangent of the half angle, :math:`t = \\tan(\\alpha/2)`,
-    :math:`\\cos\\alpha = (1 - t^2)/(1 + t^2)`, :math:`\\sin\\alpha = 2t/(1 + t^2)`
-    (the "tangent half-angle" identities, any trigonometry handbook): one transcendental
-    function per angle instead of two, as accurate (a few units in the last place), and periodic
-    in 360 degrees, so longitudes need no wrapping.  At exactly +-180 degrees ``t`` is about
-    1.6e16 and the identities still give cos = -1, sin ~ 1e-16.
+    (spherical to Cartesian coordinates, any geometry textbook); sines and cosines by
+    :func:`obsprep.grid.sphere.cos_sin_degrees` (tangent half-angle identities); the same as
+    :func:`obsprep.grid.sphere.unit_vector_components`.
 
     Parameters
     ----------
@@ -42,26 +40,7 @@ def unit_vectors(lon, lat):
     x, y, z : numpy.ndarray
         Dimensionless components; x points to (0 N, 0 E), y to (0 N, 90 E), z to the North Pole.
     """
-    cos_lon, sin_lon = _cos_sin_degrees(np.asarray(lon, dtype=np.float64))
-    cos_lat, sin_lat = _cos_sin_degrees(np.asarray(lat, dtype=np.float64))
-    return cos_lat * cos_lon, cos_lat * sin_lon, sin_lat
-
-
-_HALF_DEGREE_IN_RADIANS = np.pi / 360.0
-
-
-def _cos_sin_degrees(angle, cos_out=None, sin_out=None):
-    """(cos, sin) of ``angle`` in degrees by the tangent half-angle identities (see
-    :func:`unit_vectors`), into ``cos_out`` and ``sin_out`` when given (arrays like ``angle``)."""
-    half_tangent = np.multiply(angle, _HALF_DEGREE_IN_RADIANS, out=sin_out)
-    np.tan(half_tangent, out=half_tangent)
-    # 2 / (1 + t^2), then cos = 2 / (1 + t^2) - 1 and sin = t * 2 / (1 + t^2)
-    cos_angle = np.multiply(half_tangent, half_tangent, out=cos_out)
-    cos_angle += 1.0
-    np.divide(2.0, cos_angle, out=cos_angle)
-    sin_angle = np.multiply(half_tangent, cos_angle, out=half_tangent)
-    cos_angle -= 1.0
-    return cos_angle, sin_angle
+    return unit_vector_components(lon, lat)
 
 
 def mean_position(sum_x, sum_y, sum_z):
