@@ -35,7 +35,8 @@ QUANTITY_NAMES = list(QUANTITIES)
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
 #: values per variable above which a file is read in parts (readers that can; see
-#: process_file): bounds the memory of one huge file at about 1.5 GiB whatever its size
+#: process_file): bounds the memory of one huge file whatever its size (a 50-million-pixel
+#: granule builds within 0.8 GiB, benchmarks/README.md)
 READ_PART_VALUES = 1 << 22
 
 

@@ -65,7 +65,10 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
         reader = registered_readers().get(kind)
-        dimension = reader.slice_dimension(ds) if reader is not None else None
+        try:
+            dimension = reader.slice_dimension(ds) if reader is not None else None
+        except (KeyError, ValueError, TypeError, IndexError):
+            dimension = None  # read whole: the reader itself will say what is wrong
         if dimension is None or dimension not in ds.sizes:
             return [None]
         sliced = [v for v in ds.data_vars.values() if dimension in v.dims]
