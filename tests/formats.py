@@ -196,26 +196,34 @@ def write_argo(path, *, platform, cycle, mode, juld, lat, lon, pres, temp, psal,
     return str(path)
 
 
-def write_alongtrack(path, lon, lat, seconds_since_1950, sla, *, units="m", packed=False,
-                     platform="sat_a"):
+def write_alongtrack(path, lon, lat, time_values, sla, *, units="m", packed=False,
+                     platform="sat_a", time_units="seconds since 1950-01-01 00:00:00",
+                     calendar=None, with_sla=True):
     """A CF along-track file (CF 1.10 sec. 9 trajectory-like 1-D series, from memory).
 
-    ``sla`` in ``units``; ``packed`` stores it as int16 with scale_factor 0.01 (steps of 0.01
-    ``units``; netCDF4 packs on write).
+    ``time_values`` in ``time_units`` (``calendar`` when given); ``sla`` in ``units``;
+    ``packed`` stores it as int16 with scale_factor 0.01 (steps of 0.01 ``units``; netCDF4
+    packs on write); ``platform`` None writes no platform attribute, ``with_sla=False`` no
+    sea-level variable.
     """
     with netCDF4.Dataset(path, "w") as nc:
         nc.Conventions = "CF-1.10"
         nc.featureType = "trajectory"
-        nc.platform = platform
+        if platform is not None:
+            nc.platform = platform
         nc.createDimension("time", len(lon))
         t = nc.createVariable("time", "f8", ("time",))
-        t.standard_name, t.units = "time", "seconds since 1950-01-01 00:00:00"
-        t[:] = seconds_since_1950
+        t.standard_name, t.units = "time", time_units
+        if calendar:
+            t.calendar = calendar
+        t[:] = time_values
         for name, sn, coord_units, data in (("longitude", "longitude", "degrees_east", lon),
                                             ("latitude", "latitude", "degrees_north", lat)):
             v = nc.createVariable(name, "f8", ("time",))
             v.standard_name, v.units = sn, coord_units
             v[:] = data
+        if not with_sla:
+            return
         if packed:
             v = nc.createVariable("sla", "i2", ("time",), fill_value=np.int16(-32767))
             v.scale_factor = 0.01

@@ -17,11 +17,11 @@ import time
 from pathlib import Path
 
 import cftime
-import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
 
+from formats import write_alongtrack
 from obsprep.pipeline import build
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
@@ -29,27 +29,10 @@ N = 40  # raw values per good file
 
 
 def write_track(path, lon, lat, time_values, sla, *, time_units="days since 1950-01-01 00:00:00",
-                calendar=None, sla_units="m", with_sla=True):
-    """A small CF along-track file (CF 1.10 trajectory-like series)."""
-    with netCDF4.Dataset(path, "w") as nc:
-        nc.Conventions = "CF-1.10"
-        nc.featureType = "trajectory"
-        nc.createDimension("time", len(lon))
-        t = nc.createVariable("time", "f8", ("time",))
-        t.standard_name, t.units = "time", time_units
-        if calendar:
-            t.calendar = calendar
-        t[:] = time_values
-        for name, sn, units, data in (("longitude", "longitude", "degrees_east", lon),
-                                      ("latitude", "latitude", "degrees_north", lat)):
-            v = nc.createVariable(name, "f8", ("time",))
-            v.standard_name, v.units = sn, units
-            v[:] = data
-        if with_sla:
-            v = nc.createVariable("sla", "f8", ("time",))
-            v.standard_name, v.units = "sea_surface_height_above_sea_level", sla_units
-            v.coordinates = "time latitude longitude"
-            v[:] = sla
+                sla_units="m", **options):
+    """A small CF along-track file (CF 1.10 trajectory-like series), times in days."""
+    write_alongtrack(path, lon, lat, time_values, sla, units=sla_units, time_units=time_units,
+                     platform=None, **options)
 
 
 def days_since_1950(times):
