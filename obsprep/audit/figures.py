@@ -35,6 +35,22 @@ def _panels(plt, n, width=4.0, height=3.4):
     return fig, list(axes.flat[:n])
 
 
+def _grid_axes(ax, title):
+    """Title and grid-index axes of a map panel (cells drawn at their (i, j))."""
+    ax.set_title(title)
+    ax.set_xlabel("grid column i")
+    ax.set_ylabel("grid row j")
+    ax.set_aspect("equal")
+
+
+def _save(plt, fig, path, title=None) -> Path:
+    if title:
+        fig.suptitle(title)
+    fig.savefig(path, dpi=80)
+    plt.close(fig)
+    return Path(path)
+
+
 def _cell_grid(frame, value=None, statistic="count", shape=None):
     j = frame["j"].to_numpy().astype(int)
     i = frame["i"].to_numpy().astype(int)
@@ -58,14 +74,8 @@ def counts_map(superobs: pd.DataFrame, path, shape=None) -> Path:
         grid = _cell_grid(superobs[superobs["sensor"] == sensor], shape=shape)
         image = ax.pcolormesh(grid, cmap="viridis", shading="auto", rasterized=True)
         fig.colorbar(image, ax=ax, label="super-observations")
-        ax.set_title(sensor)
-        ax.set_xlabel("grid column i")
-        ax.set_ylabel("grid row j")
-        ax.set_aspect("equal")
-    fig.suptitle("super-observations per model grid cell")
-    fig.savefig(path, dpi=80)
-    plt.close(fig)
-    return Path(path)
+        _grid_axes(ax, sensor)
+    return _save(plt, fig, path, "super-observations per model grid cell")
 
 
 def innovation_map(table: pd.DataFrame, path, shape=None) -> Path | None:
@@ -84,14 +94,8 @@ def innovation_map(table: pd.DataFrame, path, shape=None) -> Path | None:
         image = ax.pcolormesh(grid, cmap="RdBu_r", vmin=-limit, vmax=limit, shading="auto",
                               rasterized=True)
         fig.colorbar(image, ax=ax, label="observation - model")
-        ax.set_title(quantity)
-        ax.set_xlabel("grid column i")
-        ax.set_ylabel("grid row j")
-        ax.set_aspect("equal")
-    fig.suptitle("mean innovation per model grid cell")
-    fig.savefig(path, dpi=80)
-    plt.close(fig)
-    return Path(path)
+        _grid_axes(ax, quantity)
+    return _save(plt, fig, path, "mean innovation per model grid cell")
 
 
 def normalised_innovation_histograms(table: pd.DataFrame, path) -> Path | None:
@@ -111,9 +115,7 @@ def normalised_innovation_histograms(table: pd.DataFrame, path) -> Path | None:
                      fontsize=9)
         ax.set_xlabel("d / sqrt(sigma_o² + sigma_ens²)")
     axes[0].legend(fontsize=8)
-    fig.savefig(path, dpi=80)
-    plt.close(fig)
-    return Path(path)
+    return _save(plt, fig, path)
 
 
 def spread_vs_error(superobs: pd.DataFrame, path) -> Path | None:
@@ -138,6 +140,4 @@ def spread_vs_error(superobs: pd.DataFrame, path) -> Path | None:
         ax.set_xlabel("assigned raw error (rms)")
         ax.set_ylabel("within-cell spread")
     axes[0].legend(fontsize=8)
-    fig.savefig(path, dpi=80)
-    plt.close(fig)
-    return Path(path)
+    return _save(plt, fig, path)
