@@ -242,6 +242,13 @@ def model_grid_lonlat():
     return np.asarray(lon), np.asarray(lat)
 
 
+def _model_grid_coordinates(ds, x, y, lon, lat):
+    """The model grid's projected axes, grid mapping ``crs`` and 2-D lon/lat of the centres."""
+    _projected_axes(ds, x, y, MODEL_GRID["dx"], MODEL_GRID["dy"], "model grid")
+    _grid_mapping_variable(ds, "crs", pyproj.CRS(MODEL_GRID["crs"]))
+    _lonlat_variables(ds, ("y", "x"), lon, lat)
+
+
 def _write_model_grid(scn):
     path = scn.path("grid/model_grid.nc")
     x, y = model_grid_axes()
@@ -251,9 +258,7 @@ def _write_model_grid(scn):
     with _create(path, "weddell-spring demo model grid (10 km, south polar stereographic)",
                  comment="Invented geography. Cell centres at x_min + (i + 0.5) dx, "
                          "y_min + (j + 0.5) dy; land includes the ice shelves.") as ds:
-        _projected_axes(ds, x, y, MODEL_GRID["dx"], MODEL_GRID["dy"], "model grid")
-        _grid_mapping_variable(ds, "crs", pyproj.CRS(MODEL_GRID["crs"]))
-        _lonlat_variables(ds, ("y", "x"), lon, lat)
+        _model_grid_coordinates(ds, x, y, lon, lat)
         common = {"grid_mapping": "crs", "coordinates": "lat lon"}
         _variable(ds, "sea_mask", ("y", "x"), np.int8, sea.astype(np.int8), {
             "standard_name": "sea_binary_mask", "units": "1", "long_name": "model sea mask",
@@ -863,9 +868,7 @@ def _write_truth_on_grid(scn):
     with _create(path, "weddell-spring demo truth on the model grid",
                  comment="Surface quantities at the analysis time; ice drift is the displacement "
                          "over the 48 h before it. NaN on land.") as ds:
-        _projected_axes(ds, x, y, MODEL_GRID["dx"], MODEL_GRID["dy"], "model grid")
-        _grid_mapping_variable(ds, "crs", pyproj.CRS(MODEL_GRID["crs"]))
-        _lonlat_variables(ds, ("y", "x"), lon, lat)
+        _model_grid_coordinates(ds, x, y, lon, lat)
         _variable(ds, "time", (), np.float64, _time_number(analysis, "1970-01-01", 1.0), {
             "standard_name": "time", "units": "seconds since 1970-01-01 00:00:00",
             "calendar": "standard", "long_name": "analysis time"}, compress=False)
