@@ -46,6 +46,17 @@ def profile_order(table: pd.DataFrame, rows: np.ndarray):
     return idx, np.cumsum(new) - 1
 
 
+def _profile_levels(table: pd.DataFrame, column: str, rows):
+    """``(values of column, idx, segment)`` for a per-level Argo test: the column as an
+    array, and :func:`profile_order` of ``rows`` (default: kept rows of profile quantities
+    where the column is finite)."""
+    values = table[column].to_numpy()
+    if rows is None:
+        rows = kept(table) & profile_quantity_rows(table) & np.isfinite(values)
+    idx, segment = profile_order(table, rows)
+    return values, idx, segment
+
+
 def pressure_from_depth(depth, lat) -> np.ndarray:
     """Sea pressure (dbar) from depth (m, positive down) and latitude (degrees):
     ``gsw.p_from_z(-depth, lat)`` (TEOS-10, IOC et al. 2010, eq. 3.32.3 inverted)."""
@@ -75,10 +86,7 @@ def pressure_increasing_test(table: pd.DataFrame, rows=None) -> np.ndarray:
     depth is compared.  ``rows`` (default: kept rows of profile quantities with a finite
     depth) selects the rows taking part.
     """
-    depth = table["depth"].to_numpy()
-    if rows is None:
-        rows = kept(table) & profile_quantity_rows(table) & np.isfinite(depth)
-    idx, segment = profile_order(table, rows)
+    depth, idx, segment = _profile_levels(table, "depth", rows)
     fail = np.zeros(len(table), dtype=bool)
     if idx.size < 2:
         return fail
@@ -104,10 +112,7 @@ def spike_test(table: pd.DataFrame, rows=None) -> np.ndarray:
     (pressure < 500 dbar) or 2 degC (>= 500 dbar) for temperature, 0.9 / 0.3 PSU for
     salinity.  The first and last levels are not tested.
     """
-    value = table["value"].to_numpy()
-    if rows is None:
-        rows = kept(table) & profile_quantity_rows(table) & np.isfinite(value)
-    idx, segment = profile_order(table, rows)
+    value, idx, segment = _profile_levels(table, "value", rows)
     fail = np.zeros(len(table), dtype=bool)
     if idx.size < 3:
         return fail
