@@ -11,8 +11,15 @@ EARTH_MEAN_RADIUS_M = 6_371_008.8
 
 
 def wrap_longitude(lon):
-    """Longitude in degrees wrapped into [-180, 180)."""
-    wrapped = (np.asarray(lon, dtype=float) + 180.0) % 360.0 - 180.0
+    """Longitude in degrees wrapped into [-180, 180): ((lon + 180) mod 360) - 180, float64.
+
+    NaN stays NaN and +-inf becomes NaN (a bad position, rejected later as such).
+    """
+    lon = np.asarray(lon, dtype=np.float64)
+    if lon.size and -180.0 <= lon.min() and lon.max() < 180.0:  # NaN fails this: the slow way
+        return lon  # already in range (the common case): no modulo per value
+    with np.errstate(invalid="ignore"):
+        wrapped = (lon + 180.0) % 360.0 - 180.0
     # (x % 360) can round up to 360 for tiny negative x; keep the half-open interval
     return np.where(wrapped >= 180.0, wrapped - 360.0, wrapped)
 

@@ -24,6 +24,7 @@ import pandas as pd
 import xarray as xr
 
 from ..exceptions import InputFileError
+from ..grid.sphere import wrap_longitude  # noqa: F401  (part of this module's interface)
 from ..quantities import Quantity
 from ..reasons import REASONS
 from ..table import make_table, reject
@@ -579,15 +580,6 @@ def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity |
 # --------------------------------------------------------------------------------------------
 # positions and map projections
 # --------------------------------------------------------------------------------------------
-
-def wrap_longitude(lon) -> np.ndarray:
-    """Longitude (degrees) wrapped into [-180, 180): ((lon + 180) mod 360) - 180."""
-    lon = np.asarray(lon, dtype=np.float64)
-    if lon.size and -180.0 <= lon.min() and lon.max() < 180.0:  # NaN fails this: the slow way
-        return lon  # already in range (the common case): no modulo per value
-    with np.errstate(invalid="ignore"):  # +-inf stays NaN: rejected later as bad_position
-        return np.mod(lon + 180.0, 360.0) - 180.0
-
 
 def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
     """Broadcast ``values`` (an array with dimension names ``dims``) to ``var``'s shape.
