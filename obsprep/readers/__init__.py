@@ -117,8 +117,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from .cf import _one_line as cf_one_line
-    from .cf import READING_PART, leaving_out_rejected_rows, open_dataset
+    from .cf import READING_PART, leaving_out_rejected_rows, open_dataset, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -154,8 +153,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
     except InputFileError:
         raise
     except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
-        raise InputFileError(path, f"cannot read the data ({os.path.getsize(path)} bytes; "
-                                   f"truncated or corrupt?): {cf_one_line(exc)}") from exc
+        raise unreadable_data(path, exc) from exc
     except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:
         raise InputFileError(path, f"reader '{kind}' failed: {exc}") from exc
     finally:

@@ -161,10 +161,15 @@ def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dat
         ds.load()
     except (OSError, RuntimeError, ValueError, IndexError) as exc:
         ds.close()
-        raise InputFileError(path, f"cannot read the data ({size} bytes; truncated or "
-                                   f"corrupt?): {_one_line(exc)}") from exc
+        raise unreadable_data(path, exc) from exc
     ds.close()  # the data are in memory; release the file handle
     return apply_reader_profile(ds, profile, path) if profile else ds
+
+
+def unreadable_data(path, exc: BaseException) -> InputFileError:
+    """The error for data the netCDF/HDF5 library fails to read (truncated or corrupt)."""
+    return InputFileError(path, f"cannot read the data ({os.path.getsize(path)} bytes; "
+                                f"truncated or corrupt?): {_one_line(exc)}")
 
 
 def _one_line(exc: BaseException) -> str:
