@@ -18,7 +18,6 @@ from pathlib import Path
 
 import cftime
 import numpy as np
-import pytest
 import xarray as xr
 
 from formats import write_alongtrack

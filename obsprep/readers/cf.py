@@ -27,7 +27,7 @@ from ..exceptions import InputFileError
 from ..grid.sphere import wrap_longitude  # noqa: F401  (part of this module's interface)
 from ..quantities import Quantity
 from ..reasons import REASONS
-from ..table import make_table, reject
+from ..table import make_table
 
 __all__ = [
     "COMMON_OPTIONS", "DEFAULT_GOOD_FLAG_MEANINGS", "ReaderOptions", "reader_options",

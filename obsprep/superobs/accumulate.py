@@ -45,7 +45,7 @@ import numpy as np
 
 from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
 from ..grid.sphere import cos_sin_degrees
-from .spherical import mean_position, unit_vectors
+from .spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
 
