@@ -170,7 +170,7 @@ def bench_accumulation(n, repeats):
 def bench_projected(n, repeats):
     from pyproj import Transformer
 
-    from obsprep.grid import ProjectedGrid
+    from obsprep.geo.grid import ProjectedGrid
 
     g = synthetic.GRID
     grid = ProjectedGrid(g["crs"], g["x_min"], g["y_min"], g["dx"], g["dy"], g["nx"], g["ny"])
@@ -201,7 +201,7 @@ def curvilinear_points(lon_c, lat_c, n, seed=4):
     """Positions spread over the grid: random fractional indices, bilinear in unit vectors."""
     from scipy.ndimage import map_coordinates
 
-    from obsprep.grid.sphere import unit_vectors_from_lonlat
+    from obsprep.geo.sphere import unit_vectors_from_lonlat
 
     rng = np.random.default_rng(seed)
     ny, nx = lon_c.shape
@@ -217,8 +217,8 @@ def curvilinear_points(lon_c, lat_c, n, seed=4):
 def bench_curvilinear(n, repeats):
     from scipy.spatial import cKDTree
 
-    from obsprep.grid import CurvilinearGrid
-    from obsprep.grid.sphere import unit_vectors_from_lonlat
+    from obsprep.geo.grid import CurvilinearGrid
+    from obsprep.geo.sphere import unit_vectors_from_lonlat
 
     lon_c, lat_c = synthetic.curvilinear_grid()
     fast = CurvilinearGrid(lon_c, lat_c)

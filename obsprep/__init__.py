@@ -7,23 +7,23 @@ try:
 except PackageNotFoundError:  # running from a source tree without installing
     __version__ = "0.0.0+unknown"
 
-from .exceptions import ConfigError, InputFileError, NoReaderError, ObsprepError  # noqa: E402
-from .table import COLUMNS, make_table  # noqa: E402
+from obsprep.exceptions import ConfigError, InputFileError, NoReaderError, ObsprepError  # noqa: E402
+from obsprep.model.table import COLUMNS, make_table  # noqa: E402
 
 
 def read(path, kind=None, **options):
-    """Read one observation file into the observation table (see :mod:`obsprep.table`).
+    """Read one observation file into the observation table (see :mod:`obsprep.model.table`).
 
     ``kind=None`` asks every registered reader whether it can open the file.
     """
-    from .readers import read as _read
+    from obsprep.readers import read as _read
 
     return _read(path, kind=kind, **options)
 
 
 def build(config, date=None, out=None, strict=False, progress=False, jobs=1, scheduler=None):
-    """Run the nightly super-observation build; see :func:`obsprep.pipeline.build`."""
-    from .pipeline import build as _build
+    """Run the nightly super-observation build; see :func:`obsprep.run.build.build`."""
+    from obsprep.run.build import build as _build
 
     return _build(config, date=date, out=out, strict=strict, progress=progress, jobs=jobs,
                   scheduler=scheduler)

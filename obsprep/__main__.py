@@ -1,5 +1,5 @@
 """``python -m obsprep`` runs the command line."""
 
-from .cli.main import cli
+from obsprep.cli.main import cli
 
 cli()

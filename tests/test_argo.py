@@ -19,7 +19,7 @@ import pytest
 from formats import ARGO_EPOCH, write_argo
 from obsprep.exceptions import InputFileError
 from obsprep.readers import guess_kind, read
-from obsprep.table import validate_table
+from obsprep.model.table import validate_table
 
 NAN = np.nan
 GOOD = set("1258")

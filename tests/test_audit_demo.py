@@ -19,7 +19,7 @@ from click.testing import CliRunner
 from obsprep.audit import audit, load_run
 from obsprep.cli.main import cli
 from obsprep.demo import write_demo
-from obsprep.pipeline import build
+from obsprep.run.build import build
 
 SCALE = 0.05
 MISASSIGNED = "altimeter_b"

@@ -13,7 +13,7 @@ from scipy.interpolate import RegularGridInterpolator
 
 from obsprep.audit.ensemble import fractional_indices, model_equivalents
 from obsprep.exceptions import InputFileError
-from obsprep.grid import CurvilinearGrid, ProjectedGrid, RegularGrid
+from obsprep.geo.grid import CurvilinearGrid, ProjectedGrid, RegularGrid
 
 TIMES = np.array(["2026-11-19T00", "2026-11-19T12", "2026-11-20T00"], dtype="datetime64[ns]")
 

@@ -15,7 +15,7 @@ from click.testing import CliRunner
 from formats import GDS2_EPOCH, write_argo, write_gds2
 from obsprep.cli.main import cli
 from obsprep.exceptions import InputFileError
-from obsprep.pipeline import build
+from obsprep.run.build import build
 from obsprep.readers import read
 
 DAY = np.datetime64("2026-11-19T12:00:00", "ns")

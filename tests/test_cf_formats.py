@@ -19,7 +19,7 @@ import pytest
 from test_readers import TIME_1950, polar_grid_mapping, var, write_nc
 from obsprep.exceptions import InputFileError
 from obsprep.readers import read
-from obsprep.table import validate_table
+from obsprep.model.table import validate_table
 
 NAN = np.nan
 

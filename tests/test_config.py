@@ -6,7 +6,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from obsprep.config import load_config, load_schema
+from obsprep.settings.config import load_config, load_schema
 from obsprep.exceptions import ConfigError
 
 ROOT = Path(__file__).parents[1]

@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from obsprep.cli.main import cli
 from obsprep.demo import write_demo
 from obsprep.demo.truth import truth_value
-from obsprep.pipeline import build
+from obsprep.run.build import build
 
 QUANTITIES = ["sea_level_anomaly", "sea_surface_temperature", "sea_ice_concentration",
               "sea_ice_drift_x", "sea_ice_drift_y", "sea_water_temperature", "sea_water_salinity"]

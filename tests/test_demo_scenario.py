@@ -30,7 +30,7 @@ import xarray as xr
 from obsprep.demo import truth_value, write_demo
 from obsprep.demo import truth as demo_truth
 from obsprep.exceptions import ConfigError
-from obsprep.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES
 
 SCALE = 0.05               # ~5 % of the full swath / gridded-SST volume: the tests take seconds
 STANDARD_ERRORS = 5.0

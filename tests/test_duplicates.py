@@ -13,9 +13,9 @@ import pandas as pd
 import pyproj
 
 from formats import ARGO_EPOCH, write_argo
-from obsprep.pipeline import build
+from obsprep.run.build import build
 from obsprep.qc.duplicates import decide_duplicates, file_identities
-from obsprep.config import load_config
+from obsprep.settings.config import load_config
 
 NAN = np.nan
 DAY = np.datetime64("2026-11-19T12:00:00", "ns")

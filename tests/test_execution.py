@@ -18,11 +18,11 @@ from click.testing import CliRunner
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from obsprep import execution
+from obsprep.run import execution
 from formats import REGULAR_GRID_TOML, write_alongtrack
 from obsprep.cli.main import cli
-from obsprep.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
-from obsprep.pipeline import build
+from obsprep.run.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
+from obsprep.run.build import build
 from obsprep.superobs import Accumulator
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
@@ -184,7 +184,7 @@ def test_cli_scheduler_that_cannot_be_reached_is_a_clear_usage_error(tmp_path):
 def test_identical_files_compares_whole_contents_within_a_source(tmp_path):
     from types import SimpleNamespace
 
-    from obsprep.execution import FileTask, identical_files
+    from obsprep.run.execution import FileTask, identical_files
 
     rng = np.random.default_rng(9)
     body = rng.bytes(5 << 20)  # 5 MiB: beyond the first-and-last-MiB prefilter

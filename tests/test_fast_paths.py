@@ -13,9 +13,9 @@ import pandas as pd
 import pyproj
 import pytest
 
-from obsprep.grid import CurvilinearGrid
-from obsprep.grid.base import CLASSIFY_REASONS
-from obsprep.table import category_masks, kept, make_table, reject
+from obsprep.geo.grid import CurvilinearGrid
+from obsprep.geo.grid.base import CLASSIFY_REASONS
+from obsprep.model.table import category_masks, kept, make_table, reject
 
 
 def grid_pair(lon, lat):

@@ -16,7 +16,7 @@ import pytest
 from formats import GDS2_EPOCH, write_gds2
 from obsprep.exceptions import InputFileError
 from obsprep.readers import cf, guess_kind, read, registered_readers
-from obsprep.table import validate_table
+from obsprep.model.table import validate_table
 
 NAN = np.nan
 

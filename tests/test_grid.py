@@ -1,4 +1,4 @@
-"""Tests of obsprep.grid: locating positions on regular, projected and curvilinear grids, layers,
+"""Tests of obsprep.geo.grid: locating positions on regular, projected and curvilinear grids, layers,
 axis angles and vector rotation, rejection reasons, grid files and the [grid] configuration.
 
 Every check names its reference beside it.
@@ -13,7 +13,7 @@ from pyproj import CRS, Geod, Proj, Transformer
 from scipy.spatial import cKDTree
 
 from obsprep.exceptions import ConfigError, GridError, InputFileError
-from obsprep.grid import (
+from obsprep.geo.grid import (
     EARTH_MEAN_RADIUS_M,
     CurvilinearGrid,
     ProjectedGrid,
@@ -24,7 +24,7 @@ from obsprep.grid import (
     layer_interfaces_from_depths,
     write_grid_file,
 )
-from obsprep.grid.sphere import unit_vectors_from_lonlat, wrap_longitude
+from obsprep.geo.sphere import unit_vectors_from_lonlat, wrap_longitude
 
 WGS84 = "EPSG:4326"
 

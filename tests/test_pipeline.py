@@ -11,7 +11,7 @@ from click.testing import CliRunner
 
 from formats import write_alongtrack
 from obsprep.cli.main import cli
-from obsprep.pipeline import build
+from obsprep.run.build import build
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
 

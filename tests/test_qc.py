@@ -15,15 +15,15 @@ import numpy as np
 import pyproj
 import pytest
 
-from obsprep.config import Window
+from obsprep.settings.config import Window
 from obsprep.exceptions import ConfigError
-from obsprep.grid import RegularGrid
+from obsprep.geo.grid import RegularGrid
 from obsprep.qc import QcSettings, grid_checks, table_checks
 from obsprep.qc.argo import (global_range_test, pressure_increasing_test, spike_test,
                              pressure_from_depth)
 from obsprep.qc.freezing import below_freezing_test, freezing_temperature
 from obsprep.qc.grid_checks import distance_to_land, too_shallow_test
-from obsprep.table import make_table
+from obsprep.model.table import make_table
 
 T0 = np.datetime64("2026-11-19T12:00:00", "ns")
 WINDOW = Window(np.datetime64("2026-11-20T00:00:00", "ns"), np.datetime64("2026-11-19T00:00:00", "ns"),
@@ -91,7 +91,7 @@ def test_spike_neighbours_are_within_the_same_profile_and_kept_rows():
     t.loc[3:, "group"] = "p2"    # profile p1: 4, 4, 20 (20 is an end point: not tested)
     assert not spike_test(t).any()
     u = profile_table([4.0, 30.0, 4.0, 4.0], depth_at([10, 20, 30, 40]))
-    from obsprep.table import reject
+    from obsprep.model.table import reject
     reject(u, np.array([False, False, True, False]), "provider_flag")
     # with level 2 flagged, the neighbours of level 1 are levels 0 and 3
     assert spike_test(u).tolist() == [False, True, False, False]
@@ -132,7 +132,7 @@ def test_below_freezing_uses_the_salinity_of_the_same_level():
     temp = profile_table([-1.95, -1.95], depth)
     temp.loc[1, "row"] = 1
     sal = profile_table([34.0, 30.0], depth, quantity="sea_water_salinity")
-    from obsprep.table import concat_tables
+    from obsprep.model.table import concat_tables
     table = concat_tables([temp, sal])
     lat, lon = -60.0, 0.0
     p = pressure_from_depth(depth, lat)
@@ -174,7 +174,7 @@ def test_distance_to_land_against_pyproj_geodesics():
     reference = np.array([geod.inv(np.full(land_lon.size, x), np.full(land_lon.size, y),
                                    land_lon, land_lat)[2].min() for x, y in zip(lon, lat)])
     # the sphere of mean radius is within -0.45 % .. +0.56 % of the WGS 84 geodesic
-    # (obsprep.grid.sphere; ratio of R to the extreme radii of curvature)
+    # (obsprep.geo.sphere; ratio of R to the extreme radii of curvature)
     np.testing.assert_allclose(distance_to_land(grid, lon, lat), reference, rtol=0.006)
 
 

@@ -14,8 +14,8 @@ import xarray as xr
 
 from formats import REGULAR_GRID_TOML, write_gds2
 from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
-from obsprep import pipeline
-from obsprep.pipeline import build
+from obsprep.run import build as pipeline
+from obsprep.run.build import build
 from obsprep.readers import read, read_parts
 
 

@@ -14,8 +14,8 @@ import pytest
 
 from formats import write_gds2
 from obsprep.exceptions import ConfigError, InputFileError
-from obsprep.config import load_config
-from obsprep.pipeline import build
+from obsprep.settings.config import load_config
+from obsprep.run.build import build
 from obsprep.readers import read
 
 RAW = np.array([[[2685, 2690, -999], [2700, 2710, 2720]]], dtype=np.int16)  # stored int16

@@ -21,8 +21,8 @@ from hypothesis import given, settings, strategies as st
 from obsprep.exceptions import InputFileError, NoReaderError
 from obsprep.readers import guess_kind, read, registered_readers
 from obsprep.readers import cf
-from obsprep.readers.profiles import depth_from_pressure
-from obsprep.table import validate_table
+from obsprep.readers.products.profiles import depth_from_pressure
+from obsprep.model.table import validate_table
 
 # --------------------------------------------------------------------------------------------
 # helpers: a tiny netCDF writer and a checked read

@@ -21,7 +21,7 @@ import numpy as np
 import xarray as xr
 
 from formats import write_alongtrack
-from obsprep.pipeline import build
+from obsprep.run.build import build
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
 N = 40  # raw values per good file
@@ -189,7 +189,7 @@ def write_then_hang(ds, encoding, path):
 netcdf.write_netcdf = write_then_hang
 import obsprep.writers
 obsprep.writers.write_netcdf = write_then_hang
-from obsprep.pipeline import build
+from obsprep.run.build import build
 build(sys.argv[1])
 """
 

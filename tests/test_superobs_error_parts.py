@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from obsprep.config import load_config
+from obsprep.settings.config import load_config
 from obsprep.exceptions import InputFileError
-from obsprep.pipeline import QUANTITY_NAMES, finalize_superobs
+from obsprep.run.build import QUANTITY_NAMES, finalize_superobs
 from obsprep.superobs import Accumulator
 from obsprep.superobs.errors import (combine_instrument_and_spread, error_from_spread,
                                      spread_about_depth_line)

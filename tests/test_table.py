@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from obsprep.table import COLUMNS, concat_tables, kept, make_table, reject, validate_table
+from obsprep.model.table import COLUMNS, concat_tables, kept, make_table, reject, validate_table
 
 SCHEMA = json.loads((Path(__file__).parents[1] / "schemas" / "observation.schema.json").read_text())
 

@@ -2,8 +2,8 @@
 
 import numpy as np
 
-from obsprep.config import Window
-from obsprep.timeslots import seconds_since, slot_bounds, slot_index
+from obsprep.settings.config import Window
+from obsprep.superobs.timeslots import seconds_since, slot_bounds, slot_index
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00", "ns")
 WINDOW = Window(ANALYSIS, ANALYSIS - np.timedelta64(72, "h"), ANALYSIS, 24 * 3600.0)

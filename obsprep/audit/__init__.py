@@ -22,12 +22,12 @@ from pathlib import Path
 
 import pandas as pd
 
-from ..exceptions import InputFileError
-from .collocation import collocation_table
-from .innovations import add_innovations, innovation_table
-from .rundir import RunData, load_run
-from .summary import sensor_summary
-from .triple import triple_collocation_table
+from obsprep.exceptions import InputFileError
+from obsprep.audit.collocation import collocation_table
+from obsprep.audit.innovations import add_innovations, innovation_table
+from obsprep.audit.rundir import RunData, load_run
+from obsprep.audit.summary import sensor_summary
+from obsprep.audit.triple import triple_collocation_table
 
 DEFAULT_TOLERANCE = 1.5
 
@@ -97,7 +97,7 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     -------
     AuditResult
     """
-    from .report import write_report
+    from obsprep.audit.report import write_report
 
     run = load_run(run_dir)
     ensemble_paths = _expand(ensemble)
@@ -109,7 +109,7 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     table, innovations, grid_shape = None, pd.DataFrame(), None
     description = "none (no ensemble or background given)"
     if model_paths:
-        from .ensemble import model_equivalents
+        from obsprep.audit.ensemble import model_equivalents
 
         grid = run.grid(config)
         grid_shape = grid.shape

@@ -32,8 +32,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..exceptions import InputFileError
-from ..quantities import QUANTITIES
+from obsprep.exceptions import InputFileError
+from obsprep.model.quantities import QUANTITIES
 
 MEMBER_DIMS = ("member", "realization", "ensemble", "number", "realisation")
 
@@ -65,7 +65,7 @@ def fractional_indices(grid, lon, lat, i, j):
     if hasattr(grid, "lon_min") and hasattr(grid, "dlon"):
         return (((lon - grid.lon_min) % 360.0) / grid.dlon - 0.5,
                 (lat - grid.lat_min) / grid.dlat - 0.5)
-    from ..grid.sphere import unit_vectors_from_lonlat
+    from obsprep.geo.sphere import unit_vectors_from_lonlat
 
     i = np.asarray(i, dtype=np.int64)
     j = np.asarray(j, dtype=np.int64)
@@ -239,7 +239,7 @@ def model_equivalents(paths, superobs: pd.DataFrame, grid) -> dict:
         Quantity -> :class:`ModelEquivalents` for the rows of that quantity (in table order);
         quantities without a model variable, and interval quantities, are absent.
     """
-    from ..readers.cf import convert_units
+    from obsprep.readers.cf import convert_units
 
     datasets = [_open(p) for p in paths]
     try:

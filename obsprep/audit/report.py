@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..writers.atomic import atomic_path
+from obsprep.writers.atomic import atomic_path
 
 
 def _fmt(value, digits=3) -> str:
@@ -83,7 +83,7 @@ def summary_markdown(result) -> str:
 
 def write_report(result, out_dir, with_figures: bool = True) -> dict:
     """Write the report folder; returns name -> path of every file written."""
-    from . import figures
+    from obsprep.audit import figures
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)

@@ -16,8 +16,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..exceptions import InputFileError
-from ..quantities import QUANTITIES
+from obsprep.exceptions import InputFileError
+from obsprep.model.quantities import QUANTITIES
 
 #: per-quantity variable suffixes read into the long table (missing ones become NaN)
 SUFFIXES = ("error", "error_instrument", "error_representation", "error_spread", "error_raw_rms",
@@ -60,7 +60,7 @@ class RunData:
         of the configuration file recorded in the output, else the run directory's parent or
         the run directory itself (the first where the grid files exist).
         """
-        from ..grid import grid_from_config
+        from obsprep.geo.grid import grid_from_config
 
         grid_cfg = self.configuration["grid"]
         candidates = []

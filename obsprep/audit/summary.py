@@ -28,7 +28,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES
 
 #: fewest degrees of freedom / samples an estimate needs to be used in the verdict
 MIN_SAMPLES = 20

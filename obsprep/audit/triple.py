@@ -26,7 +26,7 @@ from itertools import combinations
 import numpy as np
 import pandas as pd
 
-from .collocation import matched, sensors_by_quantity
+from obsprep.audit.collocation import matched, sensors_by_quantity
 
 
 def covariance_with_standard_error(u, v) -> tuple[float, float]:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .options import library_errors
+from obsprep.cli.options import library_errors
 
 
 @click.command("audit")
@@ -29,7 +29,7 @@ def audit_command(run_dir, ensemble, background, analysis, out, tolerance, confi
 
     Example: obsprep audit demo-run/out --ensemble demo-run/ensemble/ensemble_20261120.nc
     """
-    from ..audit import audit
+    from obsprep.audit import audit
 
     if ensemble and background:
         raise click.UsageError("give --ensemble or --background, not both")

@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import click
 
-from .options import (date_opt, jobs_opt, library_errors, out_opt, quiet_opt, scheduler_opt,
-                      strict_opt)
-from .summary import summary_lines
+from obsprep.cli.options import date_opt, jobs_opt, library_errors, out_opt, quiet_opt, scheduler_opt, strict_opt
+from obsprep.cli.summary import summary_lines
 
 
 @click.command("build")
@@ -27,7 +26,7 @@ def build_command(config, date, out, strict, jobs, scheduler, quiet):
     existing Dask cluster (the files must be readable there under the same paths).  The output
     is bit-for-bit the same either way.
     """
-    from ..pipeline import build
+    from obsprep.run.build import build
 
     result = build(config, date=date, out=out, strict=strict, progress=not quiet, jobs=jobs,
                    scheduler=scheduler)

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import click
 
-from .options import jobs_opt, library_errors, quiet_opt
-from .summary import summary_lines
+from obsprep.cli.options import jobs_opt, library_errors, quiet_opt
+from obsprep.cli.summary import summary_lines
 
 
 @click.command("demo")
@@ -24,8 +24,8 @@ def demo_command(directory, seed, scale, misassign, jobs, quiet):
     Example: obsprep demo demo-run, then the audit command it prints; or
     obsprep demo demo-wrong --misassign altimeter_b to see the audit catch a wrong error.
     """
-    from ..demo import write_demo
-    from ..pipeline import build
+    from obsprep.demo import write_demo
+    from obsprep.run.build import build
 
     paths = write_demo(directory, seed=seed, scale=scale, misassign=misassign)
     if not quiet:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from .options import library_errors
+from obsprep.cli.options import library_errors
 
 
 def describe_table(path, table) -> list[str]:
@@ -37,7 +37,7 @@ def source_reading(config, source_name, kind):
         raise click.UsageError("--config and --source go together")
     if config is None:
         return kind or "auto", {}, None
-    from ..config import load_config
+    from obsprep.settings.config import load_config
 
     sources = {s.sensor: s for s in load_config(config).sources}
     if source_name not in sources:
@@ -71,8 +71,8 @@ def inspect_command(files, kind, config, source_name):
     or, with a source's reader options and profile: obsprep inspect FILE --config nightly.toml
     --source sst_l3
     """
-    from .. import read
-    from ..exceptions import InputFileError
+    from obsprep import read
+    from obsprep.exceptions import InputFileError
 
     kind, options, profile = source_reading(config, source_name, kind)
     failed = 0

@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import click
 
-from .. import __version__
-from .audit import audit_command
-from .build import build_command
-from .demo import demo_command
-from .inspect import inspect_command
-from .read import read_command
+from obsprep import __version__
+from obsprep.cli.audit import audit_command
+from obsprep.cli.build import build_command
+from obsprep.cli.demo import demo_command
+from obsprep.cli.inspect import inspect_command
+from obsprep.cli.read import read_command
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})

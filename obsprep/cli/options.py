@@ -6,7 +6,7 @@ import functools
 
 import click
 
-from ..exceptions import ConfigError, ObsprepError
+from obsprep.exceptions import ConfigError, ObsprepError
 
 date_opt = click.option("--date", "date", metavar="YYYY-MM-DD", default=None,
                         help="Run date (replaces {date} in the config); default: window.date of the config.")

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import click
 
-from .inspect import config_opt, source_opt, source_reading
-from .options import library_errors
+from obsprep.cli.inspect import config_opt, source_opt, source_reading
+from obsprep.cli.options import library_errors
 
 
 @click.command("read")
@@ -25,9 +25,9 @@ def read_command(files, kind, sensor, output, config, source_name):
     Example: obsprep read alt_a_20261119.nc -o table.parquet
     (with --config nightly.toml --source NAME: as that source reads them)
     """
-    from .. import read
-    from ..table import concat_tables
-    from ..writers import atomic_path
+    from obsprep import read
+    from obsprep.model.table import concat_tables
+    from obsprep.writers import atomic_path
 
     suffix = Path(output).suffix.lower()
     if suffix not in (".parquet", ".csv"):

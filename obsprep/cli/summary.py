@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..ledger import reason_totals
+from obsprep.run.ledger import reason_totals
 
 
 def summary_lines(result) -> list[str]:

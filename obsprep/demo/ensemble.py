@@ -32,11 +32,9 @@ import numpy as np
 import pyproj
 from scipy import ndimage
 
-from ..quantities import get_quantity
-from . import truth
-from .scenario import (MODEL_GRID, SLOT_HOURS, _create, _grid_mapping_variable,
-                       _lonlat_variables, _projected_axes, _time_number, _variable,
-                       model_grid_axes, model_grid_lonlat)
+from obsprep.model.quantities import get_quantity
+from obsprep.demo import truth
+from obsprep.demo.scenario import MODEL_GRID, SLOT_HOURS, _create, _grid_mapping_variable, _lonlat_variables, _projected_axes, _time_number, _variable, model_grid_axes, model_grid_lonlat
 
 MEMBERS = 20
 CORRELATION_CELLS = 3.0

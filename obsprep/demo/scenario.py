@@ -40,9 +40,9 @@ import numpy as np
 import pyproj
 from scipy import ndimage
 
-from ..exceptions import ConfigError
-from ..quantities import get_quantity
-from . import truth
+from obsprep.exceptions import ConfigError
+from obsprep.model.quantities import get_quantity
+from obsprep.demo import truth
 
 SCENARIO_NAME = "weddell-spring"
 CONFIG_NAME = "weddell_spring.toml"
@@ -289,7 +289,7 @@ CURVILINEAR_GRID = {"nx": 140, "ny": 120, "cell_m": 20000.0, "turn_deg": 30.0,
 
 def _write_example_grids(scn):
     """Mask and bathymetry on the regular example grid, and the curvilinear example grid file."""
-    from ..grid import write_grid_file
+    from obsprep.geo.grid import write_grid_file
 
     g = REGULAR_GRID
     lon = g["lon_min"] + (np.arange(g["nlon"]) + 0.5) * g["dlon"]
@@ -1093,7 +1093,7 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0, misass
         files[sensor], counts[sensor] = _write_altimetry(scn, sensor, index)
     files["sst_swath_ir"], counts["sst_swath_ir"] = _write_sst_swath(scn)
     files["sst_grid"], counts["sst_grid"] = _write_sst_grid(scn)
-    from .sst_microwave import write_sst_microwave
+    from obsprep.demo.sst_microwave import write_sst_microwave
 
     files["sst_microwave"], counts["sst_microwave"] = write_sst_microwave(scn)
     files["ice_concentration"], counts["ice_concentration"] = _write_ice_concentration(scn)
@@ -1102,7 +1102,7 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0, misass
     truth_path = _write_truth_on_grid(scn)
     ensemble_path = ensemble_record = None
     if ensemble:
-        from .ensemble import write_ensemble
+        from obsprep.demo.ensemble import write_ensemble
 
         ensemble_path, ensemble_record = write_ensemble(scn)
     example_grids = _write_example_grids(scn)

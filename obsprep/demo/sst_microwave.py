@@ -13,8 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import truth
-from .scenario import PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, write_daily_latlon_sst
+from obsprep.demo import truth
+from obsprep.demo.scenario import PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, write_daily_latlon_sst
 
 SENSOR = "sst_microwave"
 SIGMA_K = 0.6

@@ -21,7 +21,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from ..quantities import QUANTITIES, get_quantity
+from obsprep.model.quantities import QUANTITIES, get_quantity
 
 #: the model grid's map projection
 MODEL_CRS = "EPSG:3031"
@@ -371,7 +371,7 @@ def sea_water_salinity(lon, lat, depth, time):
 # --- one entry point --------------------------------------------------------------------------
 
 def truth_value(quantity, lon, lat, depth=None, time=None, time_end=None) -> np.ndarray:
-    """The true value of ``quantity`` (a name of :data:`obsprep.quantities.QUANTITIES`).
+    """The true value of ``quantity`` (a name of :data:`obsprep.model.quantities.QUANTITIES`).
 
     Parameters
     ----------
@@ -426,5 +426,5 @@ def truth_value(quantity, lon, lat, depth=None, time=None, time_end=None) -> np.
     raise KeyError(f"no truth defined for quantity '{quantity}'")  # pragma: no cover
 
 
-#: every quantity has a truth (checked by the tests against obsprep.quantities)
+#: every quantity has a truth (checked by the tests against obsprep.model.quantities)
 TRUTH_QUANTITIES = tuple(QUANTITIES)

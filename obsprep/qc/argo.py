@@ -14,8 +14,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..quantities import QUANTITIES
-from ..table import kept, reject
+from obsprep.model.quantities import QUANTITIES
+from obsprep.model.table import kept, reject
 
 #: global range test (test 6): quantity -> (min, max), canonical units (degC, PSU)
 GLOBAL_RANGE = {"sea_water_temperature": (-2.5, 40.0), "sea_water_salinity": (2.0, 41.0)}

@@ -9,8 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..quantities import QUANTITIES
-from ..table import reject
+from obsprep.model.quantities import QUANTITIES
+from obsprep.model.table import reject
 
 
 def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
@@ -26,7 +26,7 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
     - ``outside_window``: time outside [window.start, window.end); an interval observation must
       lie entirely inside [window.start, window.end];
     - ``out_of_range``: value outside the quantity's physically possible range
-      (:attr:`obsprep.quantities.Quantity.valid_range`), narrowed by ``valid_range`` {quantity:
+      (:attr:`obsprep.model.quantities.Quantity.valid_range`), narrowed by ``valid_range`` {quantity:
       [min, max]} (canonical units, inclusive); skipped with ``range_check=False``
       (:func:`gross_range_check` does it alone).
     """

@@ -21,9 +21,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..exceptions import InputFileError
-from ..grid.sphere import great_circle_distance
-from ..table import kept, reject
+from obsprep.exceptions import InputFileError
+from obsprep.geo.sphere import great_circle_distance
+from obsprep.model.table import kept, reject
 
 IDENTITY_COLUMNS = ("group", "platform", "time", "lon", "lat", "rank", "n_valid")
 
@@ -51,8 +51,8 @@ def file_identities(path, source) -> pd.DataFrame:
     Readers with an ``identities`` method (Argo) read only the per-profile variables; others are
     read in full and reduced with :func:`identities_from_table`.
     """
-    from ..readers import guess_kind, read, registered_readers
-    from ..readers.cf import open_dataset
+    from obsprep.readers import guess_kind, read, registered_readers
+    from obsprep.readers.cf import open_dataset
 
     options = dict(source.options)
     reader_profile = dict(source.reader or {})

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from ..table import kept
+from obsprep.model.table import kept
 
 
 def freezing_temperature(practical_salinity, pressure_dbar, lon, lat,
@@ -38,7 +38,7 @@ def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
     ``default_salinity``; the pressure comes from the depth (0 at the surface) with
     ``gsw.p_from_z``.
     """
-    from .argo import pressure_from_depth
+    from obsprep.qc.argo import pressure_from_depth
 
     fail = np.zeros(len(table), dtype=bool)
     live = kept(table)

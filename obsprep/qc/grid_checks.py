@@ -1,7 +1,7 @@
 """Model-grid checks beyond locating the cell: too shallow, too close to the coast.
 
 Outside the grid, land cell and below the bathymetry are decided by
-:meth:`obsprep.grid.ModelGrid.classify`; these two further checks are per-source options.
+:meth:`obsprep.geo.grid.ModelGrid.classify`; these two further checks are per-source options.
 
 Distance to the coast is measured from the observation to the centre of the nearest land cell
 of the model mask, on the mean Earth sphere: land-cell centres become unit vectors in a
@@ -18,8 +18,8 @@ import weakref
 import numpy as np
 import pandas as pd
 
-from ..grid.sphere import EARTH_MEAN_RADIUS_M, unit_vectors_from_lonlat
-from ..table import kept, reject
+from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M, unit_vectors_from_lonlat
+from obsprep.model.table import kept, reject
 
 _TREES: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 

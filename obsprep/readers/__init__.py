@@ -1,5 +1,5 @@
 """Observation readers: one module per product family, registered through
-:func:`obsprep.readers.base.register_reader`.  :func:`read` is the public entry point."""
+:func:`obsprep.readers.registry.register_reader`.  :func:`read` is the public entry point."""
 
 from __future__ import annotations
 
@@ -8,14 +8,24 @@ import os
 import numpy as np
 import pandas as pd
 
-from ..exceptions import InputFileError, NoReaderError
-from .base import Reader, register_reader, registered_readers
+from obsprep.exceptions import InputFileError, NoReaderError
+from obsprep.readers.registry import Reader, register_reader, registered_readers
 
-# Importing the modules registers their readers.  Guessing asks readers by descending
-# ``priority`` (the format-specific GHRSST GDS 2.0 and Argo readers first, since the CF-generic
-# ones would also claim their files), then in this import order.
-from . import ghrsst, argo  # noqa: E402,F401
-from . import alongtrack, sst_swath, sst_grid, ice_concentration, ice_drift, profiles  # noqa: E402,F401
+# Every module of obsprep.readers.products registers its reader on import; they are found on
+# disk, so a new product is one new module (no list to keep).  Guessing asks readers by
+# descending ``priority`` (format-specific readers such as GHRSST GDS 2.0 and Argo first, since
+# the CF-generic ones would also claim their files), then by module name.
+def _import_products() -> None:
+    import importlib
+    import pkgutil
+
+    from obsprep.readers import products
+
+    for module in sorted(m.name for m in pkgutil.iter_modules(products.__path__)):
+        importlib.import_module(f"{products.__name__}.{module}")
+
+
+_import_products()
 
 __all__ = ["read", "read_parts", "guess_kind", "available_kinds", "Reader", "register_reader"]
 
@@ -27,7 +37,7 @@ def available_kinds() -> list[str]:
 
 def guess_kind(path, ds=None) -> str:
     """Return the kind of the first reader whose ``guess_can_open`` accepts the file."""
-    from .cf import open_dataset
+    from obsprep.readers.cf import open_dataset
 
     own = ds is None
     if own:
@@ -52,10 +62,10 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
 
     Returns a list of ``row_slice`` arguments for :func:`read` (``[None]``: read the file
     whole), from the file's metadata only.  Files are cut only along the reader's
-    :meth:`~obsprep.readers.base.Reader.slice_dimension`, and at multiples of the variables'
+    :meth:`~obsprep.readers.registry.Reader.slice_dimension`, and at multiples of the variables'
     storage chunks along it, so no compressed chunk is decompressed twice.
     """
-    from .cf import open_dataset
+    from obsprep.readers.cf import open_dataset
 
     if max_values is None:
         return [None]
@@ -117,7 +127,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from .cf import READING_PART, leaving_out_rejected_rows, open_dataset, unreadable_data
+    from obsprep.readers.cf import READING_PART, leaving_out_rejected_rows, open_dataset, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -165,7 +175,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
 
 def _rows_of_whole_file(table, whole, part, dimension, start, path) -> None:
     """Map ``table["row"]`` (flat indices into the part's variable) to the whole file's."""
-    from .cf import ROW_VARIABLE
+    from obsprep.readers.cf import ROW_VARIABLE
 
     name = table.attrs.get(ROW_VARIABLE)
     if name is None or name not in part.variables:

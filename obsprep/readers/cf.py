@@ -23,11 +23,11 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..exceptions import InputFileError
-from ..grid.sphere import wrap_longitude  # noqa: F401  (part of this module's interface)
-from ..quantities import Quantity
-from ..reasons import REASONS
-from ..table import make_table
+from obsprep.exceptions import InputFileError
+from obsprep.geo.sphere import wrap_longitude  # noqa: F401  (part of this module's interface)
+from obsprep.model.quantities import Quantity
+from obsprep.model.reasons import REASONS
+from obsprep.model.table import make_table
 
 __all__ = [
     "COMMON_OPTIONS", "DEFAULT_GOOD_FLAG_MEANINGS", "ReaderOptions", "reader_options",
@@ -1042,7 +1042,7 @@ _COORDINATE_ROLES = ("latitude", "longitude", "time", "depth", "sea_water_pressu
 
 def reader_profile_roles() -> dict[str, str]:
     """Roles that set a standard_name: role -> the standard_name given to the variable."""
-    from ..quantities import QUANTITIES
+    from obsprep.model.quantities import QUANTITIES
 
     roles = {name: q.accepted_standard_names[0] for name, q in QUANTITIES.items()}
     roles.update({c: c for c in _COORDINATE_ROLES})
@@ -1129,7 +1129,7 @@ def apply_reader_profile(ds: xr.Dataset, profile: dict | None, path) -> xr.Datas
         quantity_role, kind = role.rsplit("_", 1)
         data = variables.get(quantity_role)
         if data is None:
-            from ..quantities import QUANTITIES
+            from obsprep.model.quantities import QUANTITIES
 
             data = find_variable(ds, QUANTITIES[quantity_role].accepted_standard_names)
         if data is None:

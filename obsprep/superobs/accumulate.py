@@ -43,9 +43,9 @@ import math
 
 import numpy as np
 
-from .errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
-from ..grid.sphere import cos_sin_degrees
-from .spherical import mean_position
+from obsprep.superobs.errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
+from obsprep.geo.sphere import cos_sin_degrees
+from obsprep.superobs.spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
 

@@ -20,7 +20,7 @@ For each group (super-observation) of n raw values:
   which term set it (0 instrument, 1 spread, 2 floor);
 - ``error_raw_rms`` = sqrt(sum sigma_i^2 / n), the typical assigned raw error (for audits);
 - ``error_origin``: the raw error rule(s) of the group's sensor and quantity
-  (:func:`obsprep.error_rules.origin_label`).
+  (:func:`obsprep.errors.rules.origin_label`).
 """
 
 from __future__ import annotations
@@ -29,11 +29,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..error_rules import origin_label
-from ..error_rules_config import DEFAULT_SPREAD_MIN_COUNT
-from ..quantities import QUANTITIES
-from .errors import (ERROR_BASIS, combine_instrument_and_spread, error_from_spread,
-                     spread_about_depth_line)
+from obsprep.errors.rules import origin_label
+from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
+from obsprep.model.quantities import QUANTITIES
+from obsprep.superobs.errors import ERROR_BASIS, combine_instrument_and_spread, error_from_spread, spread_about_depth_line
 
 
 @dataclass
@@ -79,10 +78,10 @@ def group_error_inputs(cfg, accumulator, sensor_names, correlations, grid=None,
     floor = np.array([floors.get(q, 0.0) for q in quantity_names])[q_code]
     variables = cfg.superobs.get("representation_error_variables", {})
     if variables:
-        from .representation import load_representation_fields, representation_at
+        from obsprep.superobs.representation import load_representation_fields, representation_at
 
         if grid is None:
-            from ..grid import grid_from_config
+            from obsprep.geo.grid import grid_from_config
 
             grid = grid_from_config(cfg.grid, cfg.base_dir)
         path = cfg.superobs["representation_error_file"]

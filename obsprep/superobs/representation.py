@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..exceptions import InputFileError
-from ..quantities import QUANTITIES
+from obsprep.exceptions import InputFileError
+from obsprep.model.quantities import QUANTITIES
 
 
 def load_representation_fields(path, variables: dict, grid_shape, nk: int) -> dict:
@@ -40,7 +40,7 @@ def load_representation_fields(path, variables: dict, grid_shape, nk: int) -> di
     """
     import xarray as xr
 
-    from ..readers.cf import values_in_units
+    from obsprep.readers.cf import values_in_units
 
     try:
         ds = xr.open_dataset(path, decode_times=False)

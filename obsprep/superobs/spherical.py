@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..grid.sphere import unit_vector_components
+from obsprep.geo.sphere import unit_vector_components
 
 
 def unit_vectors(lon, lat):
@@ -25,8 +25,8 @@ def unit_vectors(lon, lat):
         z = \\sin\\varphi
 
     (spherical to Cartesian coordinates, any geometry textbook); sines and cosines by
-    :func:`obsprep.grid.sphere.cos_sin_degrees` (tangent half-angle identities); the same as
-    :func:`obsprep.grid.sphere.unit_vector_components`.
+    :func:`obsprep.geo.sphere.cos_sin_degrees` (tangent half-angle identities); the same as
+    :func:`obsprep.geo.sphere.unit_vector_components`.
 
     Parameters
     ----------

@@ -5,8 +5,8 @@ Every file is written atomically (:mod:`obsprep.writers.atomic`).
 
 from __future__ import annotations
 
-from .atomic import atomic_path
-from .netcdf import superobs_dataset, write_netcdf
+from obsprep.writers.atomic import atomic_path
+from obsprep.writers.netcdf import superobs_dataset, write_netcdf
 
 
 def write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=None, version="", created=None) -> dict:

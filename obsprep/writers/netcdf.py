@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ..quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES
 
 
 def _iso(t) -> str:
@@ -110,7 +110,7 @@ def cf_flag_meaning(label: str) -> str:
 
 def _error_parts(var, sub, q) -> None:
     """The spread-based error, the basis and origin flags and the raw rms error of ``sub``."""
-    from ..superobs.errors import ERROR_BASIS
+    from obsprep.superobs.errors import ERROR_BASIS
 
     if "error_spread" not in sub:
         return

@@ -1,0 +1,123 @@
+"""Along-track sea level anomaly: a 1-D series of points with 1-D time, latitude, longitude.
+
+Longitudes in 0..360 or -180..180 (wrapped to -180..180).  The pass (``group``) comes from a
+``cf_role = "trajectory_id"`` variable or the variable named by option ``pass_variable``, else
+passes are split at time gaps.  Options ``add_corrections`` / ``subtract_corrections`` name
+variables on the same dimension (e.g. a tide or an atmospheric correction) that are converted
+to m and added to / subtracted from the sea level anomaly; where one is fill the value is
+rejected as ``missing_correction``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from obsprep.exceptions import InputFileError
+from obsprep.model.quantities import get_quantity
+from obsprep.model.table import reject
+from obsprep.readers import cf
+from obsprep.readers.registry import Reader, register_reader
+
+SEA_LEVEL_ANOMALY = get_quantity("sea_level_anomaly")
+
+
+def _data_variable(ds) -> str | None:
+    return cf.find_variable(ds, SEA_LEVEL_ANOMALY.accepted_standard_names, ndim=1)
+
+
+def pass_index_from_time_gaps(time, gap_seconds: float) -> np.ndarray:
+    """Pass number (0, 1, ...) of each point of a time series in file order.
+
+    A new pass starts where the time step is larger than ``gap_seconds`` (s) or negative
+    (the series restarts); a NaT neighbour does not start a pass.
+    """
+    time = np.asarray(time, dtype="datetime64[ns]")
+    ns = np.where(np.isnat(time), np.nan, time.astype(np.int64).astype(np.float64))
+    step = np.diff(ns) / 1e9
+    new_pass = (step > gap_seconds) | (step < 0)  # NaN compares False
+    return np.concatenate([[0], np.cumsum(new_pass)]).astype(np.int64)
+
+
+@register_reader
+class AlongTrackReader(Reader):
+    """Along-track altimetry: ``group`` is the ``cf_role = "trajectory_id"`` variable when
+    present, else ``"pass_<n>"`` with passes split at time gaps > ``pass_gap_seconds``."""
+
+    kind = "alongtrack"
+    description = "along-track sea level anomaly (1-D series with 1-D time/lat/lon)"
+    options = {**cf.COMMON_OPTIONS,
+               "pass_gap_seconds": "split passes at time gaps longer than this (s, default 60) "
+                                   "when the file has no trajectory_id variable",
+               "pass_variable": "variable holding the pass/track number (default: the "
+                                "cf_role = trajectory_id variable, else time gaps)",
+               "add_corrections": "variables (m, or any length unit) added to the value",
+               "subtract_corrections": "variables (m, or any length unit) subtracted from "
+                                       "the value"}
+
+    def guess_can_open(self, ds) -> bool:
+        name = _data_variable(ds)
+        if name is None or str(ds.attrs.get("featureType", "")).lower() == "profile":
+            return False
+        coords = [cf.find_coordinate(ds, name, k) for k in ("latitude", "longitude", "time")]
+        return all(c is not None and ds[c].dims == ds[name].dims for c in coords)
+
+    def read_dataset(self, ds, path, **options):
+        opts = cf.reader_options(self, options)
+        name = cf.require_variable(ds, path, SEA_LEVEL_ANOMALY.accepted_standard_names,
+                                   "sea level anomaly", ndim=1)
+        decoded = cf.decode_data_variable(ds, name, SEA_LEVEL_ANOMALY, path,
+                                          opts.good_flag_meanings)
+        cf.require_values(path, [decoded])
+        decoded, correction_missing, used = self._corrections(ds, name, decoded, path, options)
+        lon, lat = cf.horizontal_position(ds, name, path)
+        time = cf.observation_time(ds, name, path)
+        trajectory = [v for v in ds.variables
+                      if ds[v].attrs.get("cf_role") == "trajectory_id" and ds[v].ndim <= 1]
+        pass_variable = options.get("pass_variable")
+        if pass_variable is not None:
+            if pass_variable not in ds.variables:
+                raise InputFileError(path, "option pass_variable names a variable that is not "
+                                           "in the file", variable=str(pass_variable))
+            trajectory = [pass_variable]
+        if trajectory:
+            tid = ds[trajectory[0]]
+            if tid.ndim == 1 and tid.dims != ds[name].dims:
+                raise InputFileError(path, f"trajectory_id is on dimension {tid.dims}, expected "
+                                           f"the data dimension {ds[name].dims}",
+                                     variable=tid.name)
+            group = cf.labels_as_strings(tid.values)
+        else:
+            passes = pass_index_from_time_gaps(time, opts.pass_gap_seconds)
+            group = np.char.add("pass_", np.char.zfill(passes.astype(str), 4))
+        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
+                                     group=group, platform=cf.platform_attribute(ds, opts))
+        reject(table, correction_missing, "missing_correction")
+        names = [name] + [cf.find_coordinate(ds, name, k) for k in ("latitude", "longitude",
+                                                                     "time")]
+        table.attrs["variables"] = cf.variable_units(ds, names + trajectory[:1] + used)
+        return table
+
+    @staticmethod
+    def _corrections(ds, name, decoded, path, options):
+        """Add/subtract the named correction variables (converted to m)."""
+        values = decoded.values
+        missing = np.zeros(values.shape, dtype=bool)
+        used = []
+        for option, sign in (("add_corrections", 1.0), ("subtract_corrections", -1.0)):
+            names = options.get(option) or []
+            names = names.split() if isinstance(names, str) else list(names)
+            for correction in names:
+                if correction not in ds.variables:
+                    raise InputFileError(path, f"option {option} names a variable that is not "
+                                               f"in the file", variable=str(correction))
+                var = ds[correction]
+                if not set(var.dims) <= set(ds[name].dims):
+                    raise InputFileError(path, f"correction on dimensions {var.dims}, expected "
+                                               f"the data dimension {ds[name].dims}",
+                                         variable=correction)
+                metres = cf.broadcast_to_variable(cf.values_in_units(var, "m", path),
+                                                  var.dims, ds[name])
+                missing |= np.isfinite(values) & ~np.isfinite(metres)
+                values = values + sign * np.where(np.isfinite(metres), metres, 0.0)
+                used.append(correction)
+        return decoded.replace(values=values), missing, used

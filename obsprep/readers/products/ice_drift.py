@@ -1,0 +1,84 @@
+"""Sea-ice drift: displacement vectors over an interval, east/north or along projection axes.
+
+The table holds two rows per vector, ``sea_ice_drift_east`` and ``sea_ice_drift_north``, with
+the same ``row`` (the vector's flat index), ``time`` and ``time_end`` (from the time ``bounds``)
+and the start position.  Components along a grid_mapping's x/y axes are rotated to east/north
+with the CRS (:func:`obsprep.readers.cf.rotate_grid_vectors_to_east_north`); after rotation
+each output component depends on both inputs, so it is missing when either is missing and
+flagged when either is flagged.
+"""
+
+from __future__ import annotations
+
+from obsprep.exceptions import InputFileError
+from obsprep.model.quantities import get_quantity
+from obsprep.model.table import concat_tables
+from obsprep.readers import cf
+from obsprep.readers.registry import Reader, register_reader
+from obsprep.readers.products.sst_swath import _used_variables
+
+EAST, NORTH = get_quantity("sea_ice_drift_east"), get_quantity("sea_ice_drift_north")
+GRID_X, GRID_Y = get_quantity("sea_ice_drift_x"), get_quantity("sea_ice_drift_y")
+
+
+def _component_variables(ds):
+    """((east, north) quantities, variable names, along projection axes?) or None."""
+    for pair, projected in (((EAST, NORTH), False), ((GRID_X, GRID_Y), True)):
+        names = [cf.find_variable(ds, q.accepted_standard_names) for q in pair]
+        if any(names):
+            return pair, names, projected
+    return None
+
+
+@register_reader
+class IceDriftReader(Reader):
+    """Vectors as a 1-D list or a 2-D grid (flattened), with an interval from time bounds."""
+
+    kind = "ice_drift"
+    description = "sea-ice drift vectors (east/north or projection x/y displacements)"
+    options = dict(cf.COMMON_OPTIONS)
+
+    def guess_can_open(self, ds) -> bool:
+        return _component_variables(ds) is not None
+
+    def read_dataset(self, ds, path, **options):
+        opts = cf.reader_options(self, options)
+        found = _component_variables(ds)
+        if found is None:
+            raise InputFileError(path, "no sea-ice drift variables: expected standard_name "
+                                       "eastward/northward_sea_ice_displacement or "
+                                       "sea_ice_x/y_displacement")
+        quantities, names, projected = found
+        for q, n in zip(quantities, names):
+            if n is None:
+                raise InputFileError(path, f"one drift component found ({[x for x in names if x]}) "
+                                           f"but no variable with standard_name "
+                                           f"'{q.accepted_standard_names[0]}'")
+        if ds[names[0]].dims != ds[names[1]].dims:
+            raise InputFileError(path, f"drift components have different dimensions "
+                                       f"{ds[names[0]].dims} and {ds[names[1]].dims}",
+                                 variable=names[1])
+        u, v = (cf.decode_data_variable(ds, n, q, path, opts.good_flag_meanings)
+                for n, q in zip(names, quantities))
+        cf.require_values(path, [u, v])
+        lon, lat = cf.horizontal_position(ds, names[0], path)
+        start, end = cf.observation_interval(ds, names[0], path)
+        if projected:
+            crs = cf.crs_for_variable(ds, names[0], path)
+            east, north, *sigma = cf.rotate_grid_vectors_to_east_north(
+                crs, lon, lat, u.values, v.values,
+                *((u.error, v.error) if u.error is not None or v.error is not None else ()))
+            good = None if u.good is None and v.good is None else (
+                (True if u.good is None else u.good) & (True if v.good is None else v.good))
+            u = u.replace(quantity=EAST, values=east, error=sigma[0] if sigma else None,
+                          good=good)
+            v = v.replace(quantity=NORTH, values=north, error=sigma[1] if sigma else None,
+                          good=good)
+        platform = cf.platform_attribute(ds, opts)
+        table = concat_tables([
+            cf.observation_table(path, opts, component, lon=lon, lat=lat, time=start,
+                                 time_end=end, platform=platform)
+            for component in (u, v)])
+        table.attrs["variables"] = cf.variable_units(
+            ds, _used_variables(ds, names[0]) + _used_variables(ds, names[1]))
+        return table

@@ -1,0 +1,72 @@
+"""Satellite SST swath (L2): SST on two spatial dimensions with 2-D latitude/longitude."""
+
+from __future__ import annotations
+
+import os
+
+from obsprep.model.quantities import get_quantity
+from obsprep.readers import cf
+from obsprep.readers.registry import Reader, register_reader
+
+SST = get_quantity("sea_surface_temperature")
+
+
+def sst_variable_with_latitude_ndim(ds, latitude_ndim: int) -> str | None:
+    """The SST variable whose latitude coordinate has ``latitude_ndim`` dimensions, or None."""
+    for standard_name in SST.accepted_standard_names:
+        name = cf.find_variable(ds, [standard_name])
+        if name is None:
+            continue
+        lat = cf.find_coordinate(ds, name, "latitude")
+        if lat is not None and ds[lat].ndim == latitude_ndim \
+                and cf.find_coordinate(ds, name, "longitude") is not None:
+            return name
+    return None
+
+
+@register_reader
+class SstSwathReader(Reader):
+    """SST granule: pixel time from a 2-D ``standard_name = "time"`` variable when present
+    (absolute, or an offset in seconds from the reference time), else the scalar/length-1
+    time; ``group`` is the global ``id`` attribute, else the file name."""
+
+    kind = "sst_swath"
+    description = "satellite SST swath (2-D latitude/longitude, per-pixel time)"
+    options = dict(cf.COMMON_OPTIONS)
+    #: dimensions of the latitude coordinate that tell this layout from the others
+    latitude_ndim = 2
+
+    def guess_can_open(self, ds) -> bool:
+        return sst_variable_with_latitude_ndim(ds, self.latitude_ndim) is not None
+
+    def group(self, ds, path) -> str:
+        """The granule identifier: global ``id`` attribute, else the file name."""
+        return str(ds.attrs.get("id", "")).strip() or os.path.basename(path)
+
+    def slice_dimension(self, ds):
+        """Rows of the swath or grid (pixels are independent observations)."""
+        return cf.rows_dimension(ds, sst_variable_with_latitude_ndim(ds, self.latitude_ndim))
+
+    def read_dataset(self, ds, path, **options):
+        opts = cf.reader_options(self, options)
+        name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
+            ds, path, SST.accepted_standard_names, "sea surface temperature")
+        decoded = cf.decode_data_variable(ds, name, SST, path, opts.good_flag_meanings)
+        cf.require_values(path, [decoded])
+        lon, lat = cf.horizontal_position(ds, name, path)
+        time = cf.observation_time(ds, name, path)
+        table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
+                                     group=self.group(ds, path),
+                                     platform=cf.platform_attribute(ds, opts))
+        table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
+        return table
+
+
+def _used_variables(ds, name) -> list:
+    """The data variable, its ancillary variables and its coordinates (for reporting)."""
+    used = [name] + cf.ancillary_variable_names(ds, name)
+    for kind in ("latitude", "longitude", "time", "projection_x_coordinate",
+                 "projection_y_coordinate", "depth", "sea_water_pressure"):
+        used += cf.find_coordinates(ds, name, kind, anywhere=kind in ("depth",
+                                                                        "sea_water_pressure"))
+    return list(dict.fromkeys(used))

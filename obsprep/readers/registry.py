@@ -1,0 +1,73 @@
+"""The reader seam.
+
+A reader is one small class in one module::
+
+    @register_reader
+    class AlongTrackReader(Reader):
+        kind = "alongtrack"
+        description = "along-track altimetry (CF point/trajectory series)"
+
+        def guess_can_open(self, ds) -> bool: ...
+        def read_dataset(self, ds, path, **options) -> pandas.DataFrame: ...
+
+``guess_can_open`` and ``read_dataset`` receive the file already opened by
+:func:`obsprep.readers.cf.open_dataset` (CF packing and fill decoded, times *not* decoded), so
+readers never repeat the CF decoding; they find variables by standard_name and return an
+observation table (:func:`obsprep.model.table.make_table`).
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+import xarray as xr
+
+
+class Reader:
+    """Base class of observation readers; subclasses set ``kind`` and ``description``."""
+
+    kind: str = ""
+    description: str = ""
+    #: reader options a config may pass, name -> meaning (shown in errors and docs)
+    options: dict[str, str] = {}
+    #: order of guessing: readers of a specific format (higher) are asked before CF-generic ones
+    priority: int = 0
+
+    def guess_can_open(self, ds: xr.Dataset) -> bool:  # pragma: no cover - interface
+        """Return True when this reader recognises ``ds`` from its metadata alone."""
+        raise NotImplementedError
+
+    def read_dataset(self, ds: xr.Dataset, path: str, **options) -> pd.DataFrame:  # pragma: no cover
+        """Return the observation table for ``ds`` (opened from ``path``)."""
+        raise NotImplementedError
+
+    def slice_dimension(self, ds: xr.Dataset) -> str | None:
+        """A dimension along which ``ds`` may be read in parts, or None (read it whole).
+
+        The rows of a swath or a grid are independent observations: a reader that says so here
+        gets each part as ``ds.isel({dimension: slice})`` and reads it like a whole file, so
+        one huge file (a global L3 grid, a full-orbit swath) is read, checked and accumulated
+        a part at a time within the build's memory.  The ``row`` numbers are mapped back to
+        the whole file by :func:`obsprep.readers.read`.  Not for readers whose rows depend on
+        each other (passes split at time gaps, profiles).
+        """
+        return None
+
+
+_REGISTRY: dict[str, Reader] = {}
+
+
+def register_reader(cls):
+    """Class decorator: register a :class:`Reader` subclass under its ``kind``."""
+    if not cls.kind:
+        raise ValueError(f"reader {cls.__name__} has no kind")
+    if cls.kind in _REGISTRY and type(_REGISTRY[cls.kind]) is not cls:
+        raise ValueError(f"reader kind '{cls.kind}' is registered twice")
+    _REGISTRY[cls.kind] = cls()
+    return cls
+
+
+def registered_readers() -> dict[str, Reader]:
+    """Mapping kind -> reader instance, in guessing order: by descending ``priority``, then in
+    registration order."""
+    ordered = sorted(_REGISTRY.items(), key=lambda item: -item[1].priority)
+    return dict(ordered)

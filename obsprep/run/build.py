@@ -1,0 +1,402 @@
+"""The nightly build: sources -> observation tables -> QC and errors -> grid -> super-observations
+-> writers, with a ledger of every raw observation.
+
+Per-file work (:func:`process_file`) is independent and returns a mergeable
+:class:`~obsprep.superobs.Accumulator`; partial results are always merged in the order of the
+task list, so the output does not depend on how the files were distributed over processes.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from obsprep import __version__
+from obsprep.settings.config import Config, load_config
+from obsprep.errors.rules import assign_errors
+from obsprep.exceptions import ConfigError, InputFileError, ObsprepError
+from obsprep.run.execution import FileTask, FixedTreeReducer, run_tasks
+from obsprep.geo.grid import grid_from_config
+from obsprep.geo.grid.base import CLASSIFY_REASONS
+from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
+from obsprep.qc import find_duplicates, grid_checks, table_checks
+from obsprep.model.quantities import QUANTITIES
+from obsprep.readers import read, read_parts
+from obsprep.readers.cf import NOT_IN_TABLE
+from obsprep.superobs import Accumulator
+from obsprep.model.table import kept, reject
+from obsprep.superobs.timeslots import seconds_since, slot_index
+
+QUANTITY_NAMES = list(QUANTITIES)
+#: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
+ACCUMULATE_CHUNK_ROWS = 1 << 19
+#: values per variable above which a file is read in parts (readers that can; see
+#: process_file): bounds the memory of one huge file whatever its size (a 50-million-pixel
+#: granule builds within 0.8 GiB, benchmarks/README.md)
+READ_PART_VALUES = 1 << 22
+
+
+@dataclass
+class FileResult:
+    """What processing one file yields."""
+
+    entry: LedgerEntry
+    accumulator: Accumulator | None = None
+    profile_names: dict = field(default_factory=dict)
+
+
+@dataclass
+class BuildResult:
+    """What :func:`build` returns."""
+
+    config: Config
+    superobs: pd.DataFrame
+    ledger: Ledger
+    outputs: dict
+    inputs: list
+
+
+def output_sensors(cfg: Config) -> list[str]:
+    """Sorted output sensor names (after merging); their index is the sensor key."""
+    return sorted({cfg.output_sensor(s.sensor) for s in cfg.sources})
+
+
+def sensor_correlations(cfg: Config) -> dict:
+    """Within-sensor error correlation per output sensor; merged sources must agree."""
+    out: dict[str, float] = {}
+    for s in cfg.sources:
+        name = cfg.output_sensor(s.sensor)
+        if name in out and out[name] != s.correlation:
+            raise ConfigError(f"sources[{s.index}].correlation",
+                              f"sources merged into '{name}' have different correlations "
+                              f"({out[name]} and {s.correlation})")
+        out[name] = s.correlation
+    return out
+
+
+def _quantity_mask(table: pd.DataFrame, name: str) -> np.ndarray:
+    """Rows of quantity ``name``, from the categorical codes (no string comparison per row)."""
+    categories = table["quantity"].cat.categories
+    if name not in categories:
+        return np.zeros(len(table), dtype=bool)
+    return table["quantity"].cat.codes.to_numpy() == categories.get_loc(name)
+
+
+def _quantity_codes(table: pd.DataFrame) -> np.ndarray:
+    """Position of each row's quantity in QUANTITY_NAMES (int64; -1 for an unknown name)."""
+    categories = [str(c) for c in table["quantity"].cat.categories]
+    lookup = np.array([QUANTITY_NAMES.index(c) if c in QUANTITY_NAMES else -1 for c in categories]
+                      + [-1], dtype=np.int64)
+    return lookup[table["quantity"].cat.codes.to_numpy().astype(np.int64)]
+
+
+def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray) -> None:
+    """Pair east/north drift components of one file by ``row`` and rotate them onto the grid axes.
+
+    A component whose partner is missing or rejected is rejected as ``vector_incomplete``.  With
+    ``a`` the angle of the grid +i axis counterclockwise from east (see
+    :meth:`obsprep.geo.grid.ModelGrid.east_north_to_grid`):
+    ``u_x = u cos a + v sin a``, ``v_y = -u sin a + v cos a``; component errors rotate as
+    variances, ``sx^2 = cos^2 a se^2 + sin^2 a sn^2``, ``sy^2 = sin^2 a se^2 + cos^2 a sn^2``
+    (independent component errors, common practice).
+    """
+    east = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_east"))
+    north = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_north"))
+    if len(east) == 0 and len(north) == 0:
+        return
+    rows = table["row"].to_numpy()
+    ok = kept(table)
+    east = east[np.argsort(rows[east], kind="stable")]
+    north = north[np.argsort(rows[north], kind="stable")]
+    common, ie, in_ = np.intersect1d(rows[east], rows[north], assume_unique=False, return_indices=True)
+    pair_e, pair_n = east[ie], north[in_]
+    paired = np.zeros(len(table), dtype=bool)
+    both = ok[pair_e] & ok[pair_n]
+    paired[pair_e[both]] = True
+    paired[pair_n[both]] = True
+    is_drift = np.zeros(len(table), dtype=bool)
+    is_drift[east] = True
+    is_drift[north] = True
+    reject(table, is_drift & ~paired, "vector_incomplete")
+    pe, pn = pair_e[both], pair_n[both]
+    if len(pe) == 0:
+        return
+    u, v = table["value"].to_numpy()[pe], table["value"].to_numpy()[pn]
+    ux, vy = grid.east_north_to_grid(u, v, i[pe], j[pe])
+    a = grid.axis_angle(i[pe], j[pe])
+    se, sn = table["error"].to_numpy()[pe], table["error"].to_numpy()[pn]
+    c2, s2 = np.cos(a) ** 2, np.sin(a) ** 2
+    values = table["value"].to_numpy(copy=True)
+    errors = table["error"].to_numpy(copy=True)
+    values[pe], values[pn] = ux, vy
+    errors[pe], errors[pn] = np.sqrt(c2 * se**2 + s2 * sn**2), np.sqrt(s2 * se**2 + c2 * sn**2)
+    table["value"], table["error"] = values, errors
+    quantity = table["quantity"].cat.add_categories(
+        [c for c in ("sea_ice_drift_x", "sea_ice_drift_y") if c not in table["quantity"].cat.categories])
+    quantity[pe] = "sea_ice_drift_x"
+    quantity[pn] = "sea_ice_drift_y"
+    table["quantity"] = quantity
+
+
+def _rows(array: np.ndarray, selected: np.ndarray) -> np.ndarray:
+    """``array[selected]`` for a boolean ``selected``; the array itself when every row is."""
+    return array if selected.all() else array[selected]
+
+
+def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_names: list[str],
+                 strict: bool = False, duplicate_groups=None) -> FileResult:
+    """Read, check, assign errors, locate and accumulate one file of one source.
+
+    A file bigger than :data:`READ_PART_VALUES` values per variable is read in parts along its
+    reader's slice dimension (:func:`obsprep.readers.read_parts`), each part processed like a
+    file, their ledger counts added and their accumulators merged in order.  When any part
+    cannot be read, the whole file is listed as unreadable and nothing of it is used.
+
+    ``duplicate_groups``: the file's profiles that lost the cross-file duplicate check
+    (default: looked up in ``cfg.duplicate_groups``, filled by :func:`build`).
+    """
+    size = os.path.getsize(path) if os.path.exists(path) else 0
+    if duplicate_groups is None:
+        duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
+    results = []
+    try:
+        if not os.path.exists(path):
+            raise InputFileError(path, "file not found")
+        parts = read_parts(path, kind=source.kind, reader_profile=source.reader,
+                           max_values=READ_PART_VALUES)
+        for part in parts:
+            table = read(path, kind=source.kind, reader_profile=source.reader,
+                         leave_out_rejected=True, row_slice=part, sensor=source.sensor,
+                         **source.options)
+            results.append(_process_table(cfg, grid, source, path, table, file_index,
+                                          sensor_names, size, duplicate_groups))
+            del table
+    except InputFileError as exc:
+        if strict:
+            raise
+        message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
+        return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
+                                      status="unreadable", message=message, size_bytes=size))
+    return results[0] if len(results) == 1 else _combine_parts(results)
+
+
+def _combine_parts(results: list[FileResult]) -> FileResult:
+    """One file's result from the results of its parts (ledger counts added, accumulators
+    merged in part order)."""
+    first = results[0].entry
+    rejected: dict = {}
+    for r in results:
+        for reason, count in r.entry.rejected.items():
+            rejected[reason] = rejected.get(reason, 0) + count
+    entry = LedgerEntry(file=first.file, sensor=first.sensor, kind=first.kind,
+                        size_bytes=first.size_bytes, read=sum(r.entry.read for r in results),
+                        kept=sum(r.entry.kept for r in results), rejected=rejected)
+    entry.check()
+    reducer = FixedTreeReducer()
+    profile_names: dict = {}
+    for r in results:
+        if r.accumulator is not None:
+            reducer.add(r.accumulator)
+        profile_names.update(r.profile_names)
+    return FileResult(entry=entry, accumulator=reducer.result(), profile_names=profile_names)
+
+
+def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, file_index: int,
+                   sensor_names: list[str], size: int, duplicate_groups) -> FileResult:
+    """Everything after reading, for one file or one part of it (see :func:`process_file`)."""
+    kind = table.attrs.get("kind", source.kind)
+    # Rows the reader rejected (fill, provider flags, quality level) are counted for the ledger
+    # now and not carried through the later stages: on a cloudy swath they are most rows.
+    counted_by_reader = rejected_counts(table)
+    if counted_by_reader:
+        table = table.loc[kept(table)].reset_index(drop=True)
+    for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():  # left out by the reader
+        counted_by_reader[reason] = counted_by_reader.get(reason, 0) + count
+    n = len(table)
+    qc_settings = source.qc
+    table_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range,
+                 settings=qc_settings, duplicate_groups=duplicate_groups)
+    assign_errors(table, source.error, f"sources[{source.index}].error")
+
+    # Model-grid checks on the rows still kept.
+    live = kept(table)
+    i = np.full(n, -1, dtype=np.int64)
+    j = np.full(n, -1, dtype=np.int64)
+    k = np.full(n, -1, dtype=np.int64)
+    if live.any():
+        li, lj, lk, reason = grid.classify_codes(*(_rows(table[c].to_numpy(), live)
+                                                   for c in ("lon", "lat", "depth")))
+        i[live], j[live], k[live] = li, lj, lk
+        full_reason = np.zeros(n, dtype=np.int8)
+        full_reason[live] = reason
+        for position, code in enumerate(CLASSIFY_REASONS, start=1):
+            reject(table, full_reason == position, code)
+        if qc_settings is not None:
+            grid_checks(table, grid, i, j, qc_settings)
+    rotate_drift_to_grid(table, grid, i, j)
+
+    live = kept(table)
+    result = FileResult(entry=None)
+    if live.any():
+        live_rows = np.flatnonzero(live)
+        q_all = _quantity_codes(table)
+        sensor_code = sensor_names.index(cfg.output_sensor(source.sensor))
+        per_profile = cfg.superobs.get("profiles", "per_profile") == "per_profile"
+        is_profile_quantity = np.array([not QUANTITIES[name].surface for name in QUANTITY_NAMES])
+        group_codes = table["group"].cat.codes.to_numpy().astype(np.int64)
+        if per_profile:
+            profile_rows = live_rows[is_profile_quantity[q_all[live_rows]]]
+            categories = table["group"].cat.categories
+            for code in np.unique(group_codes[profile_rows]):
+                result.profile_names[int((file_index << 32) + code)] = str(categories[code])
+        columns = {name: table[name].to_numpy() for name in
+                   ("value", "error", "lon", "lat", "depth", "time", "time_end", "row")}
+        thinning = cfg.superobs.get("mode", "mean") == "thin"  # the score is costly: only then
+        reducer = FixedTreeReducer()
+        # Row chunks bound the temporary memory of a big file; they are merged in a fixed
+        # order, so the result does not depend on how files are spread over processes.
+        for start in range(0, live_rows.size, ACCUMULATE_CHUNK_ROWS):
+            rows = live_rows[start:start + ACCUMULATE_CHUNK_ROWS]
+            m = rows.size
+            if m and rows[-1] - rows[0] == m - 1:
+                rows = slice(int(rows[0]), int(rows[-1]) + 1)  # consecutive rows: views, no copies
+
+            def constant(value):
+                return np.broadcast_to(np.int64(value), (m,))  # no memory per row
+
+            q_code = q_all[rows]
+            profile = constant(-1)
+            if per_profile:
+                is_profile = is_profile_quantity[q_code]
+                if is_profile.any():
+                    profile = np.where(is_profile, (np.int64(file_index) << 32) + group_codes[rows],
+                                       np.int64(-1))
+            t = seconds_since(columns["time"][rows], cfg.window.analysis_time)
+            t_end = seconds_since(columns["time_end"][rows], cfg.window.analysis_time)
+            interval = np.isfinite(t_end)
+            if interval.any():
+                t_start_key = np.where(interval, np.round(np.nan_to_num(t)), 0).astype(np.int64)
+                t_end_key = np.where(interval, np.round(np.nan_to_num(t_end)), 0).astype(np.int64)
+            else:
+                t_start_key = t_end_key = constant(0)
+            lon, lat = columns["lon"][rows], columns["lat"][rows]
+            ii, jj = i[rows], j[rows]
+            keys = {"quantity": q_code, "sensor": constant(sensor_code),
+                    "slot": slot_index(columns["time"][rows], cfg.window), "j": jj, "i": ii,
+                    "k": k[rows], "profile": profile, "t_start": t_start_key, "t_end": t_end_key}
+            reducer.add(Accumulator.from_observations(
+                keys, columns["value"][rows], columns["error"][rows], t, lon, lat,
+                columns["depth"][rows],
+                score=grid.cell_center_distance(lon, lat, ii, jj) if thinning else None,
+                tiebreak=((np.int64(file_index) << 40) + columns["row"][rows].astype(np.int64)
+                          if thinning else None),
+            ))
+        result.accumulator = reducer.result()
+    result.entry = entry_from_table(table, path, source.sensor, kind, size,
+                                    counted_earlier=counted_by_reader)
+    return result
+
+
+def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
+                      grid=None) -> pd.DataFrame:
+    """Turn the merged accumulator into the super-observation table (one row per group).
+
+    Errors part by part: :mod:`obsprep.superobs.complete`.  ``grid`` is used for
+    representation-error fields only (built from the configuration when not given).
+    """
+    from obsprep.superobs.complete import complete_errors, group_error_inputs
+
+    mode = cfg.superobs.get("mode", "mean")
+    if accumulator is None or accumulator.n_groups == 0:
+        return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
+    inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_correlations(cfg), grid=grid,
+                                quantity_names=QUANTITY_NAMES)
+    frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
+                                 representation_error=inputs.representation, floor=inputs.floor)
+    out = pd.DataFrame({
+        "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
+        "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
+        "slot": frame["slot"].to_numpy(), "i": frame["i"].to_numpy(), "j": frame["j"].to_numpy(),
+        "k": frame["k"].to_numpy(),
+    })
+    out["profile"] = [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()]
+    for col in ("count", "value", "spread", "value_min", "value_max", "error", "error_instrument",
+                "error_representation", "lon", "lat", "depth"):
+        out[col] = frame[col].to_numpy()
+    for col, values in complete_errors(cfg, accumulator, frame, inputs, sensor_names,
+                                       QUANTITY_NAMES).items():
+        out[col] = values
+    offset = frame["time"].to_numpy()
+    out["time_offset"] = offset
+    out["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
+    interval = frame["t_end"].to_numpy() != frame["t_start"].to_numpy()
+    t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
+    out["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
+    return out
+
+
+def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
+          scheduler=None) -> BuildResult:
+    """Run the nightly build and write its outputs.
+
+    Parameters
+    ----------
+    config : path of a TOML file or dict (see ``schemas/config.schema.json``)
+    date : 'YYYY-MM-DD' or datetime.date, optional
+        Run date; defaults to ``window.date``.
+    out : path, optional
+        Output directory overriding ``output.directory``.
+    strict : bool
+        Stop at the first unreadable file instead of listing it in the ledger.
+    progress : bool
+        Show a progress bar over the files.
+    jobs : int
+        Number of local processes for the per-file work.
+    scheduler : str or distributed.Client, optional
+        Run the per-file work on this Dask cluster instead (needs ``obsprep[dask]``); see
+        :mod:`obsprep.run.execution`.  Results are bit-for-bit those of ``jobs=1``.
+
+    Returns
+    -------
+    BuildResult
+    """
+    from obsprep.writers import write_outputs
+
+    cfg = load_config(config, date)
+    grid = grid_from_config(cfg.grid, cfg.base_dir)
+    sensor_names = output_sensors(cfg)
+    sensor_correlations(cfg)
+    days = cfg.window.days()
+    tasks = []
+    for source in cfg.sources:
+        for path in source.files(cfg.base_dir, days):
+            tasks.append(FileTask(source, path, len(tasks)))
+    # the one cross-file step: decide duplicate profiles before the independent per-file work
+    cfg.duplicate_groups = find_duplicates(tasks)
+    executed = run_tasks(cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
+                         scheduler=scheduler, progress=progress)
+
+    ledger = Ledger()
+    for entry in executed.entries:
+        ledger.add(entry)
+    ledger.check()
+    profile_names = executed.profile_names
+    merged, executed.accumulator = executed.accumulator, None
+    superobs = finalize_superobs(cfg, merged, sensor_names, profile_names, grid=grid)
+    del merged  # the sums are in the table now: free them before the writers need memory
+    kept_total = sum(e.kept for e in ledger.entries)
+    counted = int(superobs["count"].sum()) if len(superobs) else 0
+    if counted != kept_total:
+        raise ObsprepError(f"internal error: {kept_total} observations kept but {counted} in super-observations")
+    inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
+              for e in ledger.entries]
+    outputs = write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=out, version=__version__,
+                            created=dt.datetime.now(dt.timezone.utc))
+    return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs)
+
+
+__all__ = ["build", "process_file", "finalize_superobs", "BuildResult"]

@@ -1,0 +1,401 @@
+"""Where the per-file work runs, and how its partial results are combined.
+
+The per-file work (:func:`obsprep.run.build.process_file`) is independent from file to file and
+returns a mergeable accumulator.  It can run
+
+- in this process (``jobs=1``),
+- in local worker processes (``jobs=N``, :class:`concurrent.futures.ProcessPoolExecutor`), or
+- on an existing Dask distributed cluster (``scheduler="tcp://host:8786"``, or a
+  ``distributed.Client``), with the optional extra ``pip install obsprep[dask]``.  Dask is
+  imported only here and only on that path.
+
+Determinism.  Floating-point merging is not associative, so results are made independent of
+where and when the work ran by always combining the per-file accumulators in one fixed tree:
+the list of files in task order is cut into consecutive groups of :data:`MERGE_FAN_IN`, each
+group is merged (in task order) into one accumulator, and the same is repeated on the merged
+list until one is left (:func:`reduce_in_fixed_tree`).  Locally the tree is evaluated
+incrementally as results arrive (:class:`FixedTreeReducer`, holding at most
+``MERGE_FAN_IN - 1`` partial results per level, so memory does not grow with the number of
+files); on a cluster each group is one task running on the workers.  Both give the same tree, so
+the super-observations are bit-for-bit identical for any ``jobs``, on a cluster, and on reruns.
+
+A file with the same bytes as an earlier file of the same source is not read again; the ledger
+lists it as ``duplicate_file`` (:func:`identical_files`).
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+
+from obsprep.superobs import Accumulator
+
+#: number of partial accumulators merged by one node of the reduction tree
+MERGE_FAN_IN = 8
+#: ledger status of a file skipped because an earlier file of the source has the same bytes
+DUPLICATE_FILE = "duplicate_file"
+
+
+@dataclass(frozen=True)
+class FileTask:
+    """One file of one source, with its position in the task list (the merge order)."""
+
+    source: object
+    path: str
+    file_index: int
+
+
+@dataclass
+class ExecutionResult:
+    """What running every task gives: ledger entries and profile names in task order, and the
+    accumulator of all files (None when no file kept anything)."""
+
+    entries: list = field(default_factory=list)
+    profile_names: dict = field(default_factory=dict)
+    accumulator: Accumulator | None = None
+
+
+# --------------------------------------------------------------------------------------------
+# the fixed reduction tree
+
+def merge_group(items):
+    """Merge one node of the tree: the accumulators of ``items`` in their order.
+
+    ``items`` may hold accumulators, per-file results (their ``accumulator`` is taken) and None
+    (files that kept nothing), which are skipped.  A group with one accumulator returns it
+    unchanged (no re-rounding); with none, None.
+    """
+    present = []
+    for item in items:
+        accumulator = getattr(item, "accumulator", item)
+        if accumulator is not None:
+            present.append(accumulator)
+    if not present:
+        return None
+    if len(present) == 1:
+        return present[0]
+    return Accumulator.merge(present)
+
+
+def reduce_in_fixed_tree(items, fan_in: int | None = None):
+    """Reduce ``items`` (task order) with :func:`merge_group` over consecutive groups of
+    ``fan_in`` (default :data:`MERGE_FAN_IN`), level by level, until one is left.  None for an
+    empty list."""
+    fan_in = MERGE_FAN_IN if fan_in is None else fan_in
+    if fan_in < 2:
+        raise ValueError(f"fan_in must be at least 2, got {fan_in}")
+    level = list(items)
+    if not level:
+        return None
+    while len(level) > 1:
+        level = [merge_group(level[start:start + fan_in]) for start in range(0, len(level), fan_in)]
+    return merge_group(level)
+
+
+class FixedTreeReducer:
+    """The tree of :func:`reduce_in_fixed_tree`, evaluated as the items arrive in task order.
+
+    ``add`` items one by one, then ``result()``.  A node is merged as soon as its ``fan_in``
+    children are known, so at most ``fan_in - 1`` partial results wait on each level.
+    """
+
+    def __init__(self, fan_in: int | None = None):
+        fan_in = MERGE_FAN_IN if fan_in is None else fan_in
+        if fan_in < 2:
+            raise ValueError(f"fan_in must be at least 2, got {fan_in}")
+        self.fan_in = fan_in
+        self._levels: list[list] = []
+        self._count = 0
+
+    def add(self, item) -> None:
+        """Add the next item (in task order)."""
+        self._count += 1
+        self._push(0, getattr(item, "accumulator", item))
+
+    def _push(self, depth, item):
+        while len(self._levels) <= depth:
+            self._levels.append([])
+        level = self._levels[depth]
+        level.append(item)
+        if len(level) == self.fan_in:
+            self._levels[depth] = []
+            self._push(depth + 1, merge_group(level))
+
+    def result(self):
+        """The reduced accumulator (None when nothing was added or nothing was kept)."""
+        if self._count == 0:
+            return None
+        # Close the last, incomplete group of each level from the bottom up, exactly as the
+        # level-by-level loop of reduce_in_fixed_tree does.
+        depth = 0
+        while True:
+            above = any(self._levels[d] for d in range(depth + 1, len(self._levels)))
+            level = self._levels[depth] if depth < len(self._levels) else []
+            if not above:
+                return merge_group(level)
+            if level:
+                self._levels[depth] = []
+                self._push(depth + 1, merge_group(level))
+            depth += 1
+
+
+# --------------------------------------------------------------------------------------------
+# the same file given twice
+
+def identical_files(tasks) -> dict:
+    """Tasks whose file has the same content as an earlier file of the same source.
+
+    A re-delivered granule under a new name would otherwise be counted twice.  Only files of
+    equal size are compared: first by SHA-256 of their first and last MiB, then, where those
+    agree, of all their bytes; so a night of distinct files costs one ``stat`` each, or little
+    more for products of fixed size.  (The same path listed twice never gets this far: the
+    file list of a source has each path once.)  Returns ``{file_index: path of the first
+    copy}``.
+    """
+    import hashlib
+
+    def digest(path, size, whole):
+        h = hashlib.sha256()
+        with open(path, "rb") as fh:
+            if whole or size <= 2 << 20:
+                for block in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(block)
+            else:
+                h.update(fh.read(1 << 20))
+                fh.seek(size - (1 << 20))
+                h.update(fh.read(1 << 20))
+        return h.hexdigest()
+
+    by_size: dict = {}
+    for task in tasks:
+        try:
+            size = os.path.getsize(task.path)
+        except OSError:
+            continue  # missing: the per-file work lists it as unreadable
+        if size:
+            by_size.setdefault((task.source.index, size), []).append(task)
+    duplicates = {}
+    for (_, size), same_size in by_size.items():
+        if len(same_size) < 2:
+            continue
+        candidates: dict = {}
+        for task in same_size:
+            try:
+                candidates.setdefault(digest(task.path, size, whole=False), []).append(task)
+            except OSError:
+                continue
+        for same_ends in candidates.values():
+            if len(same_ends) < 2:
+                continue
+            first_by_digest = {}
+            for task in same_ends:  # in task order: the first copy is read, later ones not
+                try:
+                    key = digest(task.path, size, whole=True)
+                except OSError:
+                    continue
+                if key in first_by_digest:
+                    duplicates[task.file_index] = first_by_digest[key]
+                else:
+                    first_by_digest[key] = task.path
+    return duplicates
+
+
+def _duplicate_result(task: FileTask, first: str):
+    from obsprep.run.ledger import LedgerEntry
+    from obsprep.run.build import FileResult
+
+    return FileResult(LedgerEntry(file=task.path, sensor=task.source.sensor, kind=task.source.kind,
+                                  status=DUPLICATE_FILE, message=f"same content as {first}; "
+                                  "not read again", size_bytes=os.path.getsize(task.path)))
+
+
+# --------------------------------------------------------------------------------------------
+# running the tasks
+
+_WORKER_CONTEXT: dict = {}
+
+
+def _init_worker(cfg, grid, sensor_names, strict):
+    """Process-pool initializer: keep the config and the grid (with its cached search tables)
+    in the worker, so each task ships only (source, path, file index)."""
+    _WORKER_CONTEXT.update(cfg=cfg, grid=grid, sensor_names=sensor_names, strict=strict)
+
+
+def _run_in_worker(task: FileTask):
+    from obsprep.run.build import process_file
+
+    c = _WORKER_CONTEXT
+    return process_file(c["cfg"], c["grid"], task.source, task.path, task.file_index,
+                        c["sensor_names"], c["strict"])
+
+
+def _run_here(cfg, grid, sensor_names, strict, task: FileTask):
+    from obsprep.run.build import process_file
+
+    return process_file(cfg, grid, task.source, task.path, task.file_index, sensor_names, strict)
+
+
+def _in_task_order(tasks, duplicates, ran):
+    """Results of every task in task order: those that ran, and the skipped duplicates."""
+    ran = iter(ran)
+    for task in tasks:
+        if task.file_index in duplicates:
+            yield _duplicate_result(task, duplicates[task.file_index])
+        else:
+            yield next(ran)
+
+
+def _collect(results, reducer, outcome, bar):
+    for result in results:
+        outcome.entries.append(result.entry)
+        outcome.profile_names.update(result.profile_names)
+        reducer.add(result)
+        if bar is not None:
+            bar.update()
+
+
+def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler=None,
+              progress=False) -> ExecutionResult:
+    """Run :func:`~obsprep.run.build.process_file` for every task and reduce the accumulators.
+
+    Parameters
+    ----------
+    cfg, grid, sensor_names, strict
+        As for :func:`~obsprep.run.build.process_file`.
+    tasks : list of FileTask
+        In merge order (``file_index`` is the position).
+    jobs : int
+        Local worker processes (1: in this process).  Ignored when ``scheduler`` is given.
+    scheduler : str or distributed.Client, optional
+        Address of a running Dask scheduler (or a client) to run the tasks on.
+    progress : bool
+        Show a progress bar over the files.
+
+    Returns
+    -------
+    ExecutionResult
+    """
+    bar = None
+    if progress and tasks:
+        from tqdm import tqdm
+
+        class Bar(tqdm):
+            monitor_interval = 0  # no monitor thread: worker processes are forked later
+
+        # disable=None: no bar when stderr is not a terminal (a nightly log gets no \r litter)
+        bar = Bar(total=len(tasks), unit="file", desc="obsprep build", leave=False, disable=None)
+    duplicates = identical_files(tasks)
+    to_run = [t for t in tasks if t.file_index not in duplicates]
+    try:
+        if scheduler is not None:
+            return _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
+                                bar)
+        outcome = ExecutionResult()
+        reducer = FixedTreeReducer()
+        if jobs and jobs > 1 and len(to_run) > 1:
+            from obsprep.readers.cf import preload
+
+            preload()  # before the workers are forked, so each inherits it
+            with ProcessPoolExecutor(max_workers=min(jobs, len(to_run)), initializer=_init_worker,
+                                     initargs=(cfg, grid, sensor_names, strict)) as pool:
+                _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),
+                         reducer, outcome, bar)
+        else:
+            ran = (_run_here(cfg, grid, sensor_names, strict, t) for t in to_run)
+            _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)
+        outcome.accumulator = reducer.result()
+        return outcome
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+# --------------------------------------------------------------------------------------------
+# Dask distributed
+
+def _summary(result):
+    return result.entry, result.profile_names
+
+
+#: one file at a time per worker process: the HDF5 library under netCDF4 is not thread-safe,
+#: and a Dask worker may run several tasks in threads of one process
+_FILE_LOCK = threading.Lock()
+
+
+def _process_file_on_worker(*args):
+    from obsprep.run.build import process_file
+
+    with _FILE_LOCK:
+        return process_file(*args)
+
+
+def _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
+                 bar) -> ExecutionResult:
+    """Submit the per-file tasks and the fixed merge tree to a Dask cluster.
+
+    Input files must be readable under the same paths on the workers (a shared filesystem).
+    """
+    from obsprep.exceptions import ConfigError
+
+    try:
+        from distributed import Client, as_completed
+    except ImportError as exc:
+        raise ConfigError("--scheduler", "running on a Dask cluster needs the optional "
+                          "dependency: pip install 'obsprep[dask]'") from exc
+    if isinstance(scheduler, Client):
+        client, own = scheduler, False
+    else:
+        import dask
+
+        try:
+            # the connect timeout of the Dask configuration (distributed.comm.timeouts.connect)
+            timeout = dask.config.get("distributed.comm.timeouts.connect")
+            client, own = Client(str(scheduler), timeout=timeout), True
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise ConfigError("--scheduler", f"cannot connect to the Dask scheduler at "
+                              f"{scheduler!r}: {exc}") from exc
+    try:
+        outcome = ExecutionResult()
+        if not tasks:
+            return outcome
+        import uuid
+
+        run = uuid.uuid4().hex  # task keys unique to this run on a shared cluster
+        # the config and grid go to the cluster once, not once per task
+        shared = client.scatter([cfg, grid, sensor_names], broadcast=True)
+        cfg_f, grid_f, names_f = shared
+        files = [client.submit(_process_file_on_worker, cfg_f, grid_f, t.source, t.path,
+                               t.file_index, names_f, strict,
+                               key=f"obsprep-file-{t.file_index}-{run}", pure=False)
+                 if t.file_index not in duplicates
+                 else client.submit(_duplicate_result, t, duplicates[t.file_index], pure=False,
+                                    key=f"obsprep-duplicate-{t.file_index}-{run}")
+                 for t in tasks]
+        summaries = [client.submit(_summary, f, pure=False) for f in files]
+        # the same tree as reduce_in_fixed_tree / FixedTreeReducer, one task per node
+        fan_in = MERGE_FAN_IN
+        level = files
+        depth = 0
+        while len(level) > 1:
+            level = [client.submit(merge_group, level[s:s + fan_in], pure=False,
+                                   key=f"obsprep-merge-{depth}-{s}-{run}")
+                     for s in range(0, len(level), fan_in)]
+            depth += 1
+        root = client.submit(merge_group, level, pure=False, key=f"obsprep-root-{run}")
+        if bar is not None:
+            for _ in as_completed(summaries):
+                bar.update()
+        for entry, names in client.gather(summaries):
+            outcome.entries.append(entry)
+            outcome.profile_names.update(names)
+        outcome.accumulator = root.result()
+        return outcome
+    finally:
+        if own:
+            client.close()
+
+
+__all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "ExecutionResult", "merge_group",
+           "reduce_in_fixed_tree", "FixedTreeReducer", "identical_files", "run_tasks"]

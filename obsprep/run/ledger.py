@@ -1,0 +1,123 @@
+"""The ledger: for every input file and sensor, raw observations read, kept and rejected per reason.
+
+Invariant, checked on every run: ``read == kept + sum(rejected)`` for every entry.  Files that
+could not be read are listed with their reason (and 0 observations).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from obsprep.exceptions import LedgerError
+from obsprep.model.reasons import REASONS
+
+
+@dataclass
+class LedgerEntry:
+    """Accounting of one (file, sensor)."""
+
+    file: str
+    sensor: str
+    kind: str = ""
+    status: str = "ok"          # "ok" or "unreadable"
+    message: str = ""           # why a file is unreadable
+    size_bytes: int = 0
+    read: int = 0
+    kept: int = 0
+    rejected: dict = field(default_factory=dict)
+
+    def check(self) -> None:
+        """Raise LedgerError unless read == kept + sum(rejected)."""
+        total = self.kept + sum(self.rejected.values())
+        if total != self.read:
+            raise LedgerError(f"ledger does not balance for {self.file} ({self.sensor}): "
+                              f"read {self.read} != kept {self.kept} + rejected {total - self.kept}")
+
+
+def rejected_counts(table: pd.DataFrame) -> dict:
+    """{reason: number of rows} of the rejected rows of ``table``."""
+    counts = table["rejected"].value_counts(dropna=True)
+    return {str(k): int(v) for k, v in counts.items() if v > 0}
+
+
+def entry_from_table(table: pd.DataFrame, file: str, sensor: str, kind: str, size_bytes: int,
+                     counted_earlier: dict | None = None) -> LedgerEntry:
+    """Count a fully processed table: kept rows have no ``rejected`` code.
+
+    ``counted_earlier``: {reason: rows} rejected and removed from the table before (they count
+    as read and rejected).
+    """
+    rejected = rejected_counts(table)
+    for reason, count in (counted_earlier or {}).items():
+        rejected[reason] = rejected.get(reason, 0) + int(count)
+    read = len(table) + sum((counted_earlier or {}).values())
+    entry = LedgerEntry(file=file, sensor=sensor, kind=kind, size_bytes=size_bytes,
+                        read=read, kept=int(table["rejected"].isna().sum()), rejected=rejected)
+    entry.check()
+    return entry
+
+
+class Ledger:
+    """All entries of one run."""
+
+    def __init__(self):
+        self.entries: list[LedgerEntry] = []
+
+    def add(self, entry: LedgerEntry) -> None:
+        entry.check()
+        self.entries.append(entry)
+
+    def check(self) -> None:
+        """Check the invariant for every entry (raises LedgerError)."""
+        for e in self.entries:
+            e.check()
+
+    @property
+    def unreadable(self) -> list[LedgerEntry]:
+        return [e for e in self.entries if e.status != "ok"]
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per (file, sensor); one column per rejection reason that occurred."""
+        reasons = [r for r in REASONS if any(r in e.rejected for e in self.entries)]
+        rows = []
+        for e in self.entries:
+            row = {"file": e.file, "sensor": e.sensor, "kind": e.kind, "status": e.status,
+                   "message": e.message, "size_bytes": e.size_bytes, "read": e.read, "kept": e.kept}
+            row.update({f"rejected_{r}": e.rejected.get(r, 0) for r in reasons})
+            rows.append(row)
+        return pd.DataFrame(rows, columns=["file", "sensor", "kind", "status", "message", "size_bytes",
+                                           "read", "kept"] + [f"rejected_{r}" for r in reasons])
+
+    def by_sensor(self) -> pd.DataFrame:
+        """Totals per sensor (files, unreadable files, read, kept, rejected per reason)."""
+        frame = self.to_frame()
+        if frame.empty:
+            return frame
+        frame["files"] = 1
+        frame["unreadable"] = (frame["status"] != "ok").astype(int)
+        numeric = ["files", "unreadable", "read", "kept"] + [c for c in frame if c.startswith("rejected_")]
+        return frame.groupby("sensor", sort=False)[numeric].sum().reset_index()
+
+    def to_json(self) -> str:
+        return json.dumps({"reasons": REASONS, "entries": [e.__dict__ for e in self.entries]}, indent=1)
+
+    def write(self, csv_path, json_path) -> None:
+        """Write the ledger as CSV (one row per file and sensor) and JSON."""
+        self.to_frame().to_csv(csv_path, index=False)
+        with open(json_path, "w") as fh:
+            fh.write(self.to_json())
+
+
+def reason_totals(entries) -> dict:
+    """Sum of rejected counts per reason over entries."""
+    tot: dict[str, int] = {}
+    for e in entries:
+        for k, v in e.rejected.items():
+            tot[k] = tot.get(k, 0) + int(v)
+    return dict(sorted(tot.items(), key=lambda kv: -kv[1]))
+
+
+__all__ = ["Ledger", "LedgerEntry", "entry_from_table", "reason_totals"]

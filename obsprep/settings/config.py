@@ -1,0 +1,284 @@
+"""Build configuration: TOML read, validated against ``schemas/config.schema.json``, resolved.
+
+A bad configuration raises :class:`~obsprep.exceptions.ConfigError` whose message names the
+offending key as a dotted path (``sources[2].error.rule``) and says what is wrong, with a
+suggestion when a key looks like a typo of a known one.
+"""
+
+from __future__ import annotations
+
+import copy
+import datetime as dt
+import difflib
+import glob
+import json
+import os
+import re
+import tomllib
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+
+import jsonschema
+import numpy as np
+
+from obsprep.exceptions import ConfigError
+from obsprep.settings.qc import QcSettings
+from obsprep.model.quantities import QUANTITIES
+
+
+def load_schema(name: str = "config") -> dict:
+    """Return the JSON schema ``schemas/<name>.schema.json`` shipped with the package."""
+    text = resources.files("obsprep").joinpath("schemas", f"{name}.schema.json").read_text()
+    return json.loads(text)
+
+
+def _dotted(path) -> str:
+    out = ""
+    for part in path:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out
+
+
+def _schema_at(schema: dict, path) -> dict:
+    node = schema
+    for part in path:
+        if isinstance(part, int):
+            node = node.get("items", {})
+        else:
+            node = node.get("properties", {}).get(part, {})
+    return node
+
+
+def validate_config_dict(raw: dict, source: str | None = None) -> None:
+    """Validate a parsed configuration against the schema; raise ConfigError on the first problem."""
+    schema = load_schema("config")
+    validator = jsonschema.Draft202012Validator(schema)
+    errors = sorted(validator.iter_errors(raw), key=lambda e: (list(map(str, e.absolute_path)), e.validator))
+    if not errors:
+        return
+    err = errors[0]
+    path = list(err.absolute_path)
+    if err.validator == "additionalProperties":
+        known = list(_schema_at(schema, path).get("properties", {}))
+        extra = [k for k in err.instance if k not in known]
+        key = _dotted(path + [extra[0]])
+        hint = difflib.get_close_matches(extra[0], known, n=1)
+        msg = "unknown key" + (f"; did you mean '{hint[0]}'?" if hint else f"; known keys: {', '.join(known)}")
+        raise ConfigError(key, msg, source)
+    if err.validator == "required":
+        missing = re.findall(r"'([^']+)' is a required property", err.message)
+        key = _dotted(path + missing[:1])
+        raise ConfigError(key, "required key is missing", source)
+    raise ConfigError(_dotted(path), err.message, source)
+
+
+@dataclass
+class ErrorRule:
+    """How the raw error of one source is set (see :func:`obsprep.errors.rules.assign_errors`)."""
+
+    rule: str
+    value: float | dict | None = None
+    factor: float = 1.0
+    floor: float = 0.0
+    table: dict | None = None
+    add_in_quadrature: float | list | dict | None = None
+    cap: float | None = None
+
+
+@dataclass
+class Source:
+    """One observation source of the configuration."""
+
+    sensor: str
+    paths: list[str]
+    kind: str = "auto"
+    quantities: list[str] | None = None
+    correlation: float = 0.0
+    valid_range: dict = field(default_factory=dict)
+    error: ErrorRule = None
+    options: dict = field(default_factory=dict)
+    index: int = 0
+    #: reader profile (``[sources.reader]``, see obsprep.readers.cf.READER_PROFILE_KEYS)
+    reader: dict = field(default_factory=dict)
+    #: quality-control settings (``[sources.qc]``, obsprep.qc.QcSettings)
+    qc: object = None
+
+    def files(self, base_dir: Path, days) -> list[str]:
+        """Expand the path patterns for the given UTC days; sorted, de-duplicated, absolute."""
+        found = []
+        for pattern in self.paths:
+            expanded = {pattern.format(date=day) for day in days} if "{" in pattern else {pattern}
+            for pat in sorted(expanded):
+                full = pat if os.path.isabs(pat) else str(base_dir / pat)
+                matches = sorted(glob.glob(full))
+                if not matches and not glob.has_magic(full):
+                    matches = [full]  # listed as unreadable in the ledger, not silently dropped
+                found.extend(matches)
+        seen, out = set(), []
+        for f in found:
+            f = os.path.normpath(f)
+            if f not in seen:
+                seen.add(f)
+                out.append(f)
+        return out
+
+
+@dataclass
+class Window:
+    """Assimilation window: analysis time, start/end (UTC datetime64[ns]) and slot length (s)."""
+
+    analysis_time: np.datetime64
+    start: np.datetime64
+    end: np.datetime64
+    slot_seconds: float
+
+    @property
+    def n_slots(self) -> int:
+        span = (self.end - self.start) / np.timedelta64(1, "s")
+        return max(1, int(np.ceil(span / self.slot_seconds - 1e-9)))
+
+    def days(self) -> list[dt.datetime]:
+        """UTC calendar days (as datetimes at 00:00) overlapping [start, end)."""
+        first = self.start.astype("datetime64[D]")
+        last = (self.end - np.timedelta64(1, "ns")).astype("datetime64[D]")
+        days = np.arange(first, last + np.timedelta64(1, "D"), np.timedelta64(1, "D"))
+        return [dt.datetime.fromisoformat(str(d)) for d in days]
+
+
+@dataclass
+class Config:
+    """A validated, resolved build configuration."""
+
+    raw: dict
+    path: Path | None
+    base_dir: Path
+    date: dt.date
+    window: Window
+    grid: dict
+    sources: list[Source]
+    superobs: dict
+    output: dict
+    #: {(source index, file): group labels rejected as ``duplicate``}, set by the build's
+    #: cross-file pre-pass (:func:`obsprep.qc.find_duplicates`) before the per-file work
+    duplicate_groups: dict = field(default_factory=dict)
+
+    def output_sensor(self, sensor: str) -> str:
+        """The sensor name a source's super-observations are written under (after merging)."""
+        for merged, members in self.superobs.get("merge_sensors", {}).items():
+            if sensor in members:
+                return merged
+        return sensor
+
+    def output_path(self, out_dir=None) -> Path:
+        directory = Path(out_dir) if out_dir else self.base_dir / self.output.get("directory", "out")
+        name = self.output.get("name", "superobs_{date:%Y%m%d}.nc").format(
+            date=dt.datetime.combine(self.date, dt.time()))
+        return directory / name
+
+
+def _parse_date(text: str, key: str, source) -> dt.date:
+    try:
+        return dt.date.fromisoformat(text)
+    except (TypeError, ValueError):
+        raise ConfigError(key, f"expected a date YYYY-MM-DD, got '{text}'", source) from None
+
+
+def load_config(config, date: str | dt.date | None = None) -> Config:
+    """Read, validate and resolve a build configuration.
+
+    Parameters
+    ----------
+    config : str, path-like or dict
+        Path of a TOML file, or an already parsed dict (relative paths then resolve against the
+        current directory).
+    date : str or datetime.date, optional
+        Run date (YYYY-MM-DD); defaults to ``window.date`` of the config, else today (UTC).
+    """
+    if isinstance(config, dict):
+        raw, path, base_dir, src = copy.deepcopy(config), None, Path.cwd(), None
+    else:
+        path = Path(config)
+        src = str(path)
+        try:
+            with open(path, "rb") as fh:
+                raw = tomllib.load(fh)
+        except FileNotFoundError:
+            raise ConfigError(None, "configuration file not found", src) from None
+        except tomllib.TOMLDecodeError as exc:
+            raise ConfigError(None, f"not valid TOML: {exc}", src) from None
+        base_dir = path.resolve().parent
+    validate_config_dict(raw, src)
+
+    win = raw["window"]
+    if date is None:
+        date = win.get("date") or dt.datetime.now(dt.timezone.utc).date().isoformat()
+    run_date = date if isinstance(date, dt.date) else _parse_date(date, "--date", src)
+    text = win["analysis_time"].replace("{date}", run_date.isoformat())
+    try:
+        analysis = np.datetime64(text.rstrip("Z").replace("+00:00", ""), "ns")
+    except ValueError:
+        raise ConfigError("window.analysis_time", f"expected ISO 8601 UTC time, got '{text}'", src) from None
+    start_h, end_h = float(win.get("start_hours", -24.0)), float(win.get("end_hours", 0.0))
+    if end_h <= start_h:
+        raise ConfigError("window.end_hours", f"must be after start_hours ({start_h}), got {end_h}", src)
+    to_ns = lambda h: np.timedelta64(int(round(h * 3600e9)), "ns")  # noqa: E731
+    window = Window(analysis, analysis + to_ns(start_h), analysis + to_ns(end_h),
+                    float(win.get("slot_hours", 24.0)) * 3600.0)
+
+    sources, seen = [], set()
+    for n, s in enumerate(raw["sources"]):
+        key = f"sources[{n}]"
+        if s["sensor"] in seen:
+            raise ConfigError(f"{key}.sensor", f"sensor name '{s['sensor']}' is used twice", src)
+        seen.add(s["sensor"])
+        for q in list(s.get("quantities", [])) + list(s.get("valid_range", {})):
+            if q not in QUANTITIES:
+                raise ConfigError(f"{key}.quantities", f"unknown quantity '{q}'; known: {', '.join(QUANTITIES)}", src)
+        err = s["error"]
+        if err["rule"] == "constant" and "value" not in err:
+            raise ConfigError(f"{key}.error.value", "rule 'constant' needs a value", src)
+        if isinstance(err.get("value"), dict):
+            for q in err["value"]:
+                if q not in QUANTITIES:
+                    raise ConfigError(f"{key}.error.value.{q}", f"unknown quantity; known: {', '.join(QUANTITIES)}", src)
+        reader = s.get("reader", {})
+        if "good_flag_meanings" in reader and "good_flag_meanings" in s.get("options", {}) \
+                and reader["good_flag_meanings"] != s["options"]["good_flag_meanings"]:
+            raise ConfigError(f"{key}.reader.good_flag_meanings", "also given, differently, as "
+                              f"{key}.options.good_flag_meanings; keep one", src)
+        from obsprep.settings.errors import check_error_rule
+
+        check_error_rule(err, f"{key}.error", src)
+        sources.append(Source(
+            sensor=s["sensor"], paths=list(s["paths"]), kind=s.get("kind", "auto"),
+            quantities=s.get("quantities"), correlation=float(s.get("correlation", 0.0)),
+            valid_range=dict(s.get("valid_range", {})),
+            error=ErrorRule(err["rule"], err.get("value"), float(err.get("factor", 1.0)), float(err.get("floor", 0.0)),
+                            table=err.get("table"), add_in_quadrature=err.get("add_in_quadrature"),
+                            cap=float(err["cap"]) if "cap" in err else None),
+            options=dict(s.get("options", {})), index=n,
+            reader=dict(s.get("reader", {})),
+            qc=QcSettings.from_dict(s.get("qc"), f"{key}.qc", src),
+        ))
+    from obsprep.readers import available_kinds
+
+    for s in sources:
+        if s.kind != "auto" and s.kind not in available_kinds():
+            raise ConfigError(f"sources[{s.index}].kind", f"unknown reader kind '{s.kind}'; known: auto, {', '.join(available_kinds())}", src)
+
+    superobs = dict(raw.get("superobs", {}))
+    for merged, members in superobs.get("merge_sensors", {}).items():
+        for m in members:
+            if m not in seen:
+                raise ConfigError(f"superobs.merge_sensors.{merged}", f"'{m}' is not a source sensor", src)
+    for table in ("representation_error", "error_floor"):
+        for q in superobs.get(table, {}):
+            if q not in QUANTITIES:
+                raise ConfigError(f"superobs.{table}.{q}", f"unknown quantity; known: {', '.join(QUANTITIES)}", src)
+    from obsprep.settings.errors import check_superobs_error_settings
+
+    check_superobs_error_settings(superobs, src)
+    return Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
+                  grid=dict(raw["grid"]), sources=sources, superobs=superobs,
+                  output=dict(raw.get("output", {})))
