@@ -60,7 +60,7 @@ def median_time(function, repeats):
 def interleaved(functions: dict, repeats: int) -> dict:
     """Median seconds of each function, run A B C A B C ... (after one warm-up round)."""
     times = {name: [] for name in functions}
-    for name, function in functions.items():
+    for function in functions.values():
         function()  # warm-up: caches, lazily built tables, imports
     for _ in range(repeats):
         for name, function in functions.items():
@@ -275,11 +275,11 @@ def build_command(toml, jobs=1, out=None):
 
 
 def read_command(paths, processes=1):
-    call = ("synthetic.read_needed_variables(%r)" % [str(p) for p in paths] if processes == 1 else
-            "synthetic.read_needed_variables_in_processes(%r, %d)"
-            % ([str(p) for p in paths], processes))
-    code = ("import sys; sys.path.insert(0, %r); import synthetic\n"
-            "if __name__ == '__main__':\n    %s" % (str(HERE), call))
+    names = [str(p) for p in paths]
+    call = (f"synthetic.read_needed_variables({names!r})" if processes == 1 else
+            f"synthetic.read_needed_variables_in_processes({names!r}, {processes:d})")
+    code = (f"import sys; sys.path.insert(0, {str(HERE)!r}); import synthetic\n"
+            f"if __name__ == '__main__':\n    {call}")
     return [sys.executable, "-c", code]
 
 
@@ -354,7 +354,7 @@ def main(argv=None):
     only = {s.strip() for s in args.only.split(",") if s.strip()} or {
         "accumulation", "geolocation", "build"}
     rows = []  # (benchmark, obsprep, reference, ratio, goal, met)
-    started = dt.datetime.now(dt.timezone.utc)
+    started = dt.datetime.now(dt.UTC)
 
     def log(text):
         print(text, file=sys.stderr, flush=True)

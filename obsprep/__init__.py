@@ -1,6 +1,7 @@
 """obsprep: ocean and sea-ice observations to model-grid super-observations."""
 
-from importlib.metadata import PackageNotFoundError, version as _version
+from importlib.metadata import PackageNotFoundError
+from importlib.metadata import version as _version
 
 try:
     __version__ = _version("obsprep")

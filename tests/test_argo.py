@@ -15,11 +15,11 @@ import gsw
 import netCDF4
 import numpy as np
 import pytest
-
 from formats import ARGO_EPOCH, write_argo
+
 from obsprep.exceptions import InputFileError
-from obsprep.readers import guess_kind, read
 from obsprep.model.table import validate_table
+from obsprep.readers import guess_kind, read
 
 NAN = np.nan
 GOOD = set("1258")

@@ -11,12 +11,12 @@ import netCDF4
 import numpy as np
 import pytest
 from click.testing import CliRunner
-
 from formats import GDS2_EPOCH, write_argo, write_gds2
+
 from obsprep.cli.main import cli
 from obsprep.exceptions import InputFileError
-from obsprep.run.build import build
 from obsprep.readers import read
+from obsprep.run.build import build
 
 DAY = np.datetime64("2026-11-19T12:00:00", "ns")
 REFERENCE = int((DAY - GDS2_EPOCH) / np.timedelta64(1, "s"))

@@ -15,11 +15,11 @@ import gsw
 import numpy as np
 import pyproj
 import pytest
-
 from test_readers import TIME_1950, polar_grid_mapping, var, write_nc
+
 from obsprep.exceptions import InputFileError
-from obsprep.readers import read
 from obsprep.model.table import validate_table
+from obsprep.readers import read
 
 NAN = np.nan
 

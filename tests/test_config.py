@@ -6,8 +6,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from obsprep.settings.config import load_config, load_schema
 from obsprep.exceptions import ConfigError
+from obsprep.settings.config import load_config, load_schema
 
 ROOT = Path(__file__).parents[1]
 

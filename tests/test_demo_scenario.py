@@ -27,8 +27,8 @@ import pyproj
 import pytest
 import xarray as xr
 
-from obsprep.demo import truth_value, write_demo
 from obsprep.demo import truth as demo_truth
+from obsprep.demo import truth_value, write_demo
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 

@@ -11,10 +11,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pyproj
-
 from formats import ARGO_EPOCH, write_argo
-from obsprep.run.build import build
+
 from obsprep.qc.duplicates import decide_duplicates, file_identities
+from obsprep.run.build import build
 from obsprep.settings.config import load_config
 
 NAN = np.nan

@@ -4,10 +4,10 @@ in quadrature, floor and cap, the origin labels, and the configuration checks.""
 import numpy as np
 import pytest
 
-from obsprep.settings.config import ErrorRule, load_config
 from obsprep.errors.rules import assign_errors, origin_label
 from obsprep.exceptions import ConfigError
 from obsprep.model.table import make_table
+from obsprep.settings.config import ErrorRule, load_config
 
 
 def test_table_of_value_interpolates_linearly_and_holds_the_ends():

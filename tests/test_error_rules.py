@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from obsprep.settings.config import ErrorRule
 from obsprep.errors.rules import assign_errors
 from obsprep.exceptions import ConfigError
 from obsprep.model.table import make_table
+from obsprep.settings.config import ErrorRule
 
 
 def test_constant_per_quantity_with_factor_and_floor():

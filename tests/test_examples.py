@@ -7,11 +7,11 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from obsprep.settings.config import load_config
 from obsprep.demo import write_demo
 from obsprep.demo.truth import truth_value
 from obsprep.geo.grid import grid_from_config
 from obsprep.run.build import build
+from obsprep.settings.config import load_config
 
 EXAMPLES = Path(__file__).parents[1] / "examples"
 

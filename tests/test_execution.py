@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 import xarray as xr
 from click.testing import CliRunner
+from formats import REGULAR_GRID_TOML, write_alongtrack
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from obsprep.run import execution
-from formats import REGULAR_GRID_TOML, write_alongtrack
 from obsprep.cli.main import cli
-from obsprep.run.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
+from obsprep.run import execution
 from obsprep.run.build import build
+from obsprep.run.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
 from obsprep.superobs import Accumulator
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")

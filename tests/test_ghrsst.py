@@ -12,11 +12,11 @@ from __future__ import annotations
 import netCDF4
 import numpy as np
 import pytest
-
 from formats import GDS2_EPOCH, write_gds2
+
 from obsprep.exceptions import InputFileError
-from obsprep.readers import cf, guess_kind, read, registered_readers
 from obsprep.model.table import validate_table
+from obsprep.readers import cf, guess_kind, read, registered_readers
 
 NAN = np.nan
 

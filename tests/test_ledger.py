@@ -3,8 +3,8 @@
 import pytest
 
 from obsprep.exceptions import LedgerError
-from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table
 from obsprep.model.table import make_table, reject
+from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table
 
 
 def test_entry_from_table_balances():

@@ -15,15 +15,14 @@ import numpy as np
 import pyproj
 import pytest
 
-from obsprep.settings.config import Window
 from obsprep.exceptions import ConfigError
 from obsprep.geo.grid import RegularGrid
+from obsprep.model.table import make_table
 from obsprep.qc import QcSettings, grid_checks, table_checks
-from obsprep.qc.argo import (global_range_test, pressure_increasing_test, spike_test,
-                             pressure_from_depth)
+from obsprep.qc.argo import global_range_test, pressure_from_depth, pressure_increasing_test, spike_test
 from obsprep.qc.freezing import below_freezing_test, freezing_temperature
 from obsprep.qc.grid_checks import distance_to_land, too_shallow_test
-from obsprep.model.table import make_table
+from obsprep.settings.config import Window
 
 T0 = np.datetime64("2026-11-19T12:00:00", "ns")
 WINDOW = Window(np.datetime64("2026-11-20T00:00:00", "ns"), np.datetime64("2026-11-19T00:00:00", "ns"),

@@ -11,12 +11,12 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-
 from formats import REGULAR_GRID_TOML, write_gds2
 from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
+
+from obsprep.readers import read, read_parts
 from obsprep.run import build as pipeline
 from obsprep.run.build import build
-from obsprep.readers import read, read_parts
 
 
 def gds_swath(tmp_path, rows=90, columns=40, seed=5):

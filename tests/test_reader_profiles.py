@@ -11,12 +11,12 @@ from __future__ import annotations
 import netCDF4
 import numpy as np
 import pytest
-
 from formats import write_gds2
+
 from obsprep.exceptions import ConfigError, InputFileError
-from obsprep.settings.config import load_config
-from obsprep.run.build import build
 from obsprep.readers import read
+from obsprep.run.build import build
+from obsprep.settings.config import load_config
 
 RAW = np.array([[[2685, 2690, -999], [2700, 2710, 2720]]], dtype=np.int16)  # stored int16
 
@@ -140,9 +140,9 @@ def test_profile_in_a_build_config(tmp_path):
 
 def test_inspect_with_a_source_of_a_config(tmp_path):
     from click.testing import CliRunner
+    from test_pipeline import _to_toml
 
     from obsprep.cli.main import cli
-    from test_pipeline import _to_toml
 
     path = bent_product(tmp_path / "bent.nc")
     cfg = {

@@ -16,13 +16,13 @@ import numpy as np
 import pyproj
 import pytest
 from cf_xarray.units import units as cf_units
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from obsprep.exceptions import InputFileError, NoReaderError
-from obsprep.readers import guess_kind, read, registered_readers
-from obsprep.readers import cf
-from obsprep.readers.products.profiles import depth_from_pressure
 from obsprep.model.table import validate_table
+from obsprep.readers import cf, guess_kind, read, registered_readers
+from obsprep.readers.products.profiles import depth_from_pressure
 
 # --------------------------------------------------------------------------------------------
 # helpers: a tiny netCDF writer and a checked read

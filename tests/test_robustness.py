@@ -19,8 +19,8 @@ from pathlib import Path
 import cftime
 import numpy as np
 import xarray as xr
-
 from formats import write_alongtrack
+
 from obsprep.run.build import build
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")

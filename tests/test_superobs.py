@@ -13,9 +13,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.stats import binned_statistic_dd
 
-from obsprep.superobs import (Accumulator, apply_floor, combine_in_quadrature, error_of_mean,
-                              error_of_weighted_mean, mean_position, merge_accumulators,
-                              unit_vectors)
+from obsprep.superobs import (
+    Accumulator,
+    apply_floor,
+    combine_in_quadrature,
+    error_of_mean,
+    error_of_weighted_mean,
+    mean_position,
+    merge_accumulators,
+    unit_vectors,
+)
 from obsprep.superobs.accumulate import _packed_code  # to assert which grouping path runs
 
 STAT_COLUMNS = ["count", "value", "spread", "value_min", "value_max", "time", "lon", "lat",

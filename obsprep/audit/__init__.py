@@ -22,12 +22,12 @@ from pathlib import Path
 
 import pandas as pd
 
-from obsprep.exceptions import InputFileError
 from obsprep.audit.collocation import collocation_table
 from obsprep.audit.innovations import add_innovations, innovation_table
 from obsprep.audit.rundir import RunData, load_run
 from obsprep.audit.summary import sensor_summary
 from obsprep.audit.triple import triple_collocation_table
+from obsprep.exceptions import InputFileError
 
 DEFAULT_TOLERANCE = 1.5
 

@@ -26,15 +26,26 @@ and ice drift have no ensemble counterpart here (a 3-D ensemble would not be sma
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 
 import numpy as np
 import pyproj
 from scipy import ndimage
 
-from obsprep.model.quantities import get_quantity
 from obsprep.demo import truth
-from obsprep.demo.scenario import MODEL_GRID, SLOT_HOURS, _create, _grid_mapping_variable, _lonlat_variables, _projected_axes, _time_number, _variable, model_grid_axes, model_grid_lonlat
+from obsprep.demo.scenario import (
+    MODEL_GRID,
+    SLOT_HOURS,
+    _create,
+    _grid_mapping_variable,
+    _lonlat_variables,
+    _projected_axes,
+    _time_number,
+    _variable,
+    model_grid_axes,
+    model_grid_lonlat,
+)
+from obsprep.model.quantities import get_quantity
 
 MEMBERS = 20
 CORRELATION_CELLS = 3.0
@@ -56,7 +67,7 @@ def unit_random_field(rng, shape, correlation_cells=CORRELATION_CELLS) -> np.nda
     return smooth / _kernel_norm(correlation_cells)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _kernel_norm(correlation_cells) -> float:
     """L2 norm of the Gaussian kernel scipy applies (its response to a unit impulse)."""
     size = int(8 * correlation_cells) * 2 + 1

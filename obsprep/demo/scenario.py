@@ -40,9 +40,9 @@ import numpy as np
 import pyproj
 from scipy import ndimage
 
+from obsprep.demo import truth
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import get_quantity
-from obsprep.demo import truth
 
 SCENARIO_NAME = "weddell-spring"
 CONFIG_NAME = "weddell_spring.toml"
@@ -448,7 +448,7 @@ def _write_sst_swath(scn):
     columns = max(40, int(round(SWATH_COLUMNS * np.sqrt(scn.scale))))
     nadir, edge = SST_SWATH_SIGMA_K
     paths, counts = [], {}
-    for day_index, day in enumerate(scn.days):
+    for day_index, _day in enumerate(scn.days):
         lon, lat, times, view = _swath_granule(scn, day_index, rows, columns)
         rng = scn.rng(2, day_index)
         lon64, lat64 = lon.astype(np.float64), lat.astype(np.float64)

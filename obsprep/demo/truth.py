@@ -17,7 +17,7 @@ Geometry is computed in the model's map projection, south polar stereographic EP
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 
 import numpy as np
 
@@ -62,7 +62,7 @@ EDDY_EXCURSION_KM = 60.0
 EDDY_PERIOD_DAYS = 40.0
 
 
-@lru_cache(maxsize=None)
+@cache
 def _lonlat_to_map():
     import pyproj
 
@@ -91,13 +91,13 @@ def _coast_latitude(lon):
     return -70.3 - 7.0 * np.exp(-(((np.asarray(lon) + 50.0) / 25.0) ** 2))
 
 
-@lru_cache(maxsize=None)
+@cache
 def _peninsula_km():
     lon, lat = np.array(PENINSULA_LINE).T
     return np.stack(map_xy_km(lon, lat), axis=1)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _point_km(lon, lat):
     x, y = map_xy_km(lon, lat)
     return float(x), float(y)

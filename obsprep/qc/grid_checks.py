@@ -21,7 +21,7 @@ import pandas as pd
 from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M, unit_vectors_from_lonlat
 from obsprep.model.table import kept, reject
 
-_TREES: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+_TREES: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
 def _land_tree(grid):

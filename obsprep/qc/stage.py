@@ -20,12 +20,12 @@ from __future__ import annotations
 
 import pandas as pd
 
+from obsprep.model.table import reject
 from obsprep.qc.argo import argo_real_time_tests
 from obsprep.qc.basic import basic_checks, gross_range_check
 from obsprep.qc.duplicates import reject_duplicates
 from obsprep.qc.freezing import below_freezing_test
 from obsprep.settings.qc import QcSettings
-from obsprep.model.table import reject
 
 
 def table_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,

@@ -11,6 +11,7 @@ import pandas as pd
 from obsprep.exceptions import InputFileError, NoReaderError
 from obsprep.readers.registry import Reader, register_reader, registered_readers
 
+
 # Every module of obsprep.readers.products registers its reader on import; they are found on
 # disk, so a new product is one new module (no list to keep).  Guessing asks readers by
 # descending ``priority`` (format-specific readers such as GHRSST GDS 2.0 and Argo first, since

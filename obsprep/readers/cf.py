@@ -848,7 +848,7 @@ class DecodedVariable:
     error: np.ndarray | None = None
     good: np.ndarray | None = None
 
-    def replace(self, **changes) -> "DecodedVariable":
+    def replace(self, **changes) -> DecodedVariable:
         """A copy with some fields changed."""
         return dataclasses.replace(self, **changes)
 

@@ -16,19 +16,19 @@ import numpy as np
 import pandas as pd
 
 from obsprep import __version__
-from obsprep.settings.config import Config, load_config
 from obsprep.errors.rules import assign_errors
 from obsprep.exceptions import ConfigError, InputFileError, ObsprepError
-from obsprep.run.execution import FileTask, FixedTreeReducer, run_tasks
 from obsprep.geo.grid import grid_from_config
 from obsprep.geo.grid.base import CLASSIFY_REASONS
-from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
-from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.model.quantities import QUANTITIES
+from obsprep.model.table import kept, reject
+from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE
+from obsprep.run.execution import FileTask, FixedTreeReducer, run_tasks
+from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
+from obsprep.settings.config import Config, load_config
 from obsprep.superobs import Accumulator
-from obsprep.model.table import kept, reject
 from obsprep.superobs.timeslots import seconds_since, slot_index
 
 QUANTITY_NAMES = list(QUANTITIES)
@@ -395,7 +395,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
               for e in ledger.entries]
     outputs = write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=out, version=__version__,
-                            created=dt.datetime.now(dt.timezone.utc))
+                            created=dt.datetime.now(dt.UTC))
     return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs)
 
 

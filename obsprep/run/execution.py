@@ -203,8 +203,8 @@ def identical_files(tasks) -> dict:
 
 
 def _duplicate_result(task: FileTask, first: str):
-    from obsprep.run.ledger import LedgerEntry
     from obsprep.run.build import FileResult
+    from obsprep.run.ledger import LedgerEntry
 
     return FileResult(LedgerEntry(file=task.path, sensor=task.source.sensor, kind=task.source.kind,
                                   status=DUPLICATE_FILE, message=f"same content as {first}; "

@@ -23,8 +23,8 @@ import jsonschema
 import numpy as np
 
 from obsprep.exceptions import ConfigError
-from obsprep.settings.qc import QcSettings
 from obsprep.model.quantities import QUANTITIES
+from obsprep.settings.qc import QcSettings
 
 
 def load_schema(name: str = "config") -> dict:
@@ -212,7 +212,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
 
     win = raw["window"]
     if date is None:
-        date = win.get("date") or dt.datetime.now(dt.timezone.utc).date().isoformat()
+        date = win.get("date") or dt.datetime.now(dt.UTC).date().isoformat()
     run_date = date if isinstance(date, dt.date) else _parse_date(date, "--date", src)
     text = win["analysis_time"].replace("{date}", run_date.isoformat())
     try:
@@ -265,7 +265,8 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
 
     for s in sources:
         if s.kind != "auto" and s.kind not in available_kinds():
-            raise ConfigError(f"sources[{s.index}].kind", f"unknown reader kind '{s.kind}'; known: auto, {', '.join(available_kinds())}", src)
+            raise ConfigError(f"sources[{s.index}].kind",
+                              f"unknown reader kind '{s.kind}'; known: auto, {', '.join(available_kinds())}", src)
 
     superobs = dict(raw.get("superobs", {}))
     for merged, members in superobs.get("merge_sensors", {}).items():

@@ -46,7 +46,7 @@ class QcSettings:
     duplicate_distance_km: float = 1.0
 
     @classmethod
-    def from_dict(cls, raw: dict | None, key: str = "qc", source=None) -> "QcSettings":
+    def from_dict(cls, raw: dict | None, key: str = "qc", source=None) -> QcSettings:
         """Build from a config table; raise :class:`ConfigError` naming ``key.<name>``."""
         raw = dict(raw or {})
         known = {f.name for f in fields(cls)}

@@ -6,7 +6,14 @@
 - :mod:`.spherical`: unit vectors and mean positions on the sphere.
 """
 
-from obsprep.superobs.accumulate import MODES, OUTPUT_COLUMNS, REPRESENTATIVE_FIELDS, STATE_FIELDS, Accumulator, merge_accumulators
+from obsprep.superobs.accumulate import (
+    MODES,
+    OUTPUT_COLUMNS,
+    REPRESENTATIVE_FIELDS,
+    STATE_FIELDS,
+    Accumulator,
+    merge_accumulators,
+)
 from obsprep.superobs.errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
 from obsprep.superobs.spherical import mean_position, unit_vectors
 

@@ -43,8 +43,8 @@ import math
 
 import numpy as np
 
-from obsprep.superobs.errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
 from obsprep.geo.sphere import cos_sin_degrees
+from obsprep.superobs.errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
 from obsprep.superobs.spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
@@ -548,7 +548,7 @@ class Accumulator:
     # ---- construction ------------------------------------------------------------------------
     @classmethod
     def from_observations(cls, keys, value, error, time, lon, lat, depth, *,
-                          score=None, tiebreak=None) -> "Accumulator":
+                          score=None, tiebreak=None) -> Accumulator:
         """Accumulate one batch of raw observations.
 
         Parameters
@@ -688,7 +688,7 @@ class Accumulator:
         return cls(key_names, group_keys, state, score is not None)
 
     @classmethod
-    def merge(cls, accumulators) -> "Accumulator":
+    def merge(cls, accumulators) -> Accumulator:
         """Combine accumulators of the same keys into one, exactly.
 
         The result equals (to rounding) the accumulator of all their observations at once, for

@@ -30,9 +30,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from obsprep.errors.rules import origin_label
-from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
 from obsprep.model.quantities import QUANTITIES
-from obsprep.superobs.errors import ERROR_BASIS, combine_instrument_and_spread, error_from_spread, spread_about_depth_line
+from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
+from obsprep.superobs.errors import (
+    ERROR_BASIS,
+    combine_instrument_and_spread,
+    error_from_spread,
+    spread_about_depth_line,
+)
 
 
 @dataclass

@@ -12,14 +12,14 @@ Three kinds of horizontal grid share one interface (:class:`ModelGrid`):
 """
 
 from obsprep.geo.grid.base import BELOW_BATHYMETRY, BELOW_DEEPEST_LAYER, LAND, OUTSIDE_GRID, ModelGrid
-from obsprep.settings.grid import grid_from_config
 from obsprep.geo.grid.curvilinear import CurvilinearGrid
 from obsprep.geo.grid.gridfile import grid_dataset, read_grid_file, write_grid_file
 from obsprep.geo.grid.projected import ProjectedGrid
 from obsprep.geo.grid.regular import RegularGrid
+from obsprep.geo.grid.vertical import layer_index_from_depth, layer_interfaces_from_depths
 from obsprep.geo.rotation import axis_angle_from_centres, east_north_to_grid, grid_to_east_north
 from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M, great_circle_distance
-from obsprep.geo.grid.vertical import layer_index_from_depth, layer_interfaces_from_depths
+from obsprep.settings.grid import grid_from_config
 
 __all__ = [
     "ModelGrid", "RegularGrid", "ProjectedGrid", "CurvilinearGrid", "grid_from_config",

@@ -12,9 +12,9 @@ import xarray as xr
 
 from obsprep.exceptions import GridError, InputFileError
 from obsprep.geo.grid.gridfile import grid_dataset, read_grid_file
+from obsprep.geo.grid.vertical import DEFAULT_LAYER_INTERFACES_M, layer_index_from_depth, layer_interfaces_from_depths
 from obsprep.geo.rotation import east_north_to_grid, grid_to_east_north
 from obsprep.geo.sphere import great_circle_distance
-from obsprep.geo.grid.vertical import DEFAULT_LAYER_INTERFACES_M, layer_index_from_depth, layer_interfaces_from_depths
 
 #: rejection codes of :meth:`ModelGrid.classify` (see obsprep.model.reasons), in test order
 OUTSIDE_GRID = "outside_grid"

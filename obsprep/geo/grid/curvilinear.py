@@ -165,7 +165,7 @@ class CurvilinearGrid(ModelGrid):
         self.source = None if source is None else str(source)
 
     @classmethod
-    def from_file(cls, path, *, layer_interfaces=None) -> "CurvilinearGrid":
+    def from_file(cls, path, *, layer_interfaces=None) -> CurvilinearGrid:
         """Read a netCDF grid file (layout: :mod:`obsprep.geo.grid.gridfile`).
 
         Cell centres by standard_name ``longitude``/``latitude``; mask ``sea_binary_mask``

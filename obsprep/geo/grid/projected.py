@@ -12,7 +12,13 @@ from pyproj.exceptions import CRSError
 from obsprep.exceptions import GridError
 from obsprep.geo.grid.base import ModelGrid
 from obsprep.geo.grid.regular import _finite_number
-from obsprep.geo.sphere import WGS84_FLATTENING, WGS84_SEMI_MAJOR_AXIS_M, direction_from_east, ellipsoid_ecef_from_lonlat, wrap_longitude
+from obsprep.geo.sphere import (
+    WGS84_FLATTENING,
+    WGS84_SEMI_MAJOR_AXIS_M,
+    direction_from_east,
+    ellipsoid_ecef_from_lonlat,
+    wrap_longitude,
+)
 
 #: step of the centred differences of the inverse projection, as a fraction of dx
 _STEP_FRACTION = 1e-4

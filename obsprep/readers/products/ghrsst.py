@@ -31,8 +31,8 @@ import numpy as np
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
 from obsprep.readers import cf
-from obsprep.readers.registry import Reader, register_reader
 from obsprep.readers.products.sst_swath import sst_variable_with_latitude_ndim
+from obsprep.readers.registry import Reader, register_reader
 
 SST = get_quantity("sea_surface_temperature")
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 from obsprep.model.quantities import get_quantity
 from obsprep.readers import cf
-from obsprep.readers.registry import Reader, register_reader
 from obsprep.readers.products.sst_swath import _used_variables
+from obsprep.readers.registry import Reader, register_reader
 
 SEA_ICE_CONCENTRATION = get_quantity("sea_ice_concentration")
 

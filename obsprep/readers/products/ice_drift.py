@@ -14,8 +14,8 @@ from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
 from obsprep.model.table import concat_tables
 from obsprep.readers import cf
-from obsprep.readers.registry import Reader, register_reader
 from obsprep.readers.products.sst_swath import _used_variables
+from obsprep.readers.registry import Reader, register_reader
 
 EAST, NORTH = get_quantity("sea_ice_drift_east"), get_quantity("sea_ice_drift_north")
 GRID_X, GRID_Y = get_quantity("sea_ice_drift_x"), get_quantity("sea_ice_drift_y")

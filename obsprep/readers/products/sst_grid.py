@@ -3,8 +3,8 @@ and time, fill cells included as ``missing_value``.  Same decoding as the swath 
 
 from __future__ import annotations
 
-from obsprep.readers.registry import register_reader
 from obsprep.readers.products.sst_swath import SstSwathReader
+from obsprep.readers.registry import register_reader
 
 
 @register_reader
