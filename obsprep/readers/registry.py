@@ -71,3 +71,33 @@ def registered_readers() -> dict[str, Reader]:
     registration order."""
     ordered = sorted(_REGISTRY.items(), key=lambda item: -item[1].priority)
     return dict(ordered)
+
+
+def validate_options(kind: str, options: dict, key: str, source=None) -> None:
+    """Check a source's reader options at configuration load, before any file is opened.
+
+    ``kind`` is a registered kind, or ``"auto"``: then each option must be one that some
+    registered reader declares.  Raises :class:`~obsprep.exceptions.ConfigError` naming
+    ``<key>.<option>`` and what was expected.
+    """
+    from obsprep.exceptions import ConfigError
+    from obsprep.readers.cf import reader_options
+
+    readers = registered_readers()
+    candidates = list(readers.values()) if kind == "auto" else [readers[kind]]
+    accepted = sorted({name for reader in candidates for name in reader.options})
+    for name in options:
+        if name not in accepted:
+            import difflib
+
+            hint = difflib.get_close_matches(name, accepted, n=1)
+            raise ConfigError(f"{key}.{name}", "unknown reader option"
+                              + (f"; did you mean '{hint[0]}'?" if hint else "")
+                              + f"; reader '{kind}' accepts: {', '.join(accepted)}", source)
+    for reader in candidates:
+        declared = {k: v for k, v in options.items() if k in reader.options}
+        try:
+            reader_options(reader, declared)
+        except (TypeError, ValueError) as exc:
+            bad = next((k for k in declared if k in str(exc)), None)
+            raise ConfigError(f"{key}.{bad}" if bad else key, str(exc), source) from None
