@@ -229,3 +229,32 @@ def test_qc_settings_errors_name_the_key():
         QcSettings.from_dict({"freezing_point_quantities": ["sea_level_anomaly"]}, "qc")
     s = QcSettings.from_dict({"min_depth": 300, "coast_distance_km": 20})
     assert (s.min_depth, s.coast_distance_km, s.argo_tests) == (300.0, 20.0, True)
+
+
+# --- the registry: one declaration per check ----------------------------------------------
+
+def test_registry_declarations_feed_settings_reasons_and_order():
+    from obsprep.model.reasons import REASONS
+    from obsprep.qc.registry import CHECKS
+    from obsprep.settings.qc import QC_KEYS
+
+    # every reason a check rejects under is a ledger reason, every setting a [sources.qc] key
+    for check in CHECKS:
+        assert set(check.reasons) <= set(REASONS), check.name
+        for setting in check.settings:
+            assert setting.key in QC_KEYS and getattr(QcSettings(), setting.key) == setting.default
+    # the grid checks come last (they run after the model grid has placed the rows)
+    needs_grid = [c.needs_grid for c in CHECKS]
+    assert needs_grid == sorted(needs_grid) and any(needs_grid)
+
+
+def test_registry_refuses_a_table_check_after_a_grid_check():
+    from obsprep.qc.check import QcCheck
+    from obsprep.qc.registry import _checked_order
+
+    table_check = QcCheck(name="late", reasons={}, apply=lambda t, c, s: {})
+    grid_check = QcCheck(name="grid", reasons={}, apply=lambda t, c, s: {}, needs_grid=True)
+    with pytest.raises(ValueError, match="'late' needs no grid but is listed after"):
+        _checked_order((grid_check, table_check))
+    with pytest.raises(ValueError, match="listed twice"):
+        _checked_order((table_check, table_check))

@@ -29,15 +29,7 @@ REASONS: dict[str, str] = {
     "argo_qc_flag": "Argo level QC flag (of the value or its pressure) not in the kept set",
     "position_qc": "Argo POSITION_QC not in the kept set",
     "time_qc": "Argo JULD_QC not in the kept set",
-    # quality-control stage (obsprep.qc)
-    "argo_global_range": "outside the Argo real-time global range (T -2.5..40 degC, S 2..41)",
-    "argo_spike": "fails the Argo real-time spike test",
-    "argo_pressure_not_increasing": "pressure not greater than at every shallower level "
-                                    "(Argo real-time pressure increasing test)",
-    "below_freezing_point": "temperature below the TEOS-10 freezing point minus the tolerance",
-    "too_shallow": "model bathymetry shallower than the source's minimum depth",
-    "near_coast": "closer to a model land cell than the source's coast distance",
-    "duplicate": "a better copy of the same profile (platform, time, position) is in another file",
+    # the quality-control checks register theirs (obsprep.qc.registry)
 }
 
 

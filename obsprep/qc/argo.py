@@ -16,6 +16,7 @@ import pandas as pd
 
 from obsprep.model.quantities import QUANTITIES
 from obsprep.model.table import kept, reject
+from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
 
 #: global range test (test 6): quantity -> (min, max), canonical units (degC, PSU)
 GLOBAL_RANGE = {"sea_water_temperature": (-2.5, 40.0), "sea_water_salinity": (2.0, 41.0)}
@@ -132,24 +133,49 @@ def spike_test(table: pd.DataFrame, rows=None) -> np.ndarray:
     return fail
 
 
-def argo_real_time_tests(table: pd.DataFrame, *, range_only: bool = False,
-                         skip_range: bool = False) -> dict:
-    """Apply the tests in the manual's order (global range 6, pressure increasing 8, spike 9)
-    to the profile rows still kept, in place; return {reason: newly rejected count}.
+#: the one switch of the three Argo checks
+ARGO_TESTS = QcSetting("argo_tests", "boolean", True,
+                       "Argo real-time tests (global range, pressure increasing, spike) on "
+                       "profile quantities")
 
-    ``range_only`` runs only the global range test, ``skip_range`` only the other two (the QC
-    stage runs the range test before the gross range check and the others after it).
-    """
-    counts = {}
+
+def _argo_enabled(settings) -> bool:
+    return settings.argo_tests
+
+
+def _apply_global_range(table: pd.DataFrame, context, settings) -> dict:
     profile = profile_quantity_rows(table)
     if not profile.any():
-        return counts
-    if not skip_range:
-        counts["argo_global_range"] = reject(table, profile & global_range_test(table),
-                                             "argo_global_range")
-    if range_only:
-        return counts
-    counts["argo_pressure_not_increasing"] = reject(table, pressure_increasing_test(table),
-                                                    "argo_pressure_not_increasing")
-    counts["argo_spike"] = reject(table, spike_test(table), "argo_spike")
-    return counts
+        return {}
+    return {"argo_global_range": reject(table, profile & global_range_test(table),
+                                        "argo_global_range")}
+
+
+def _apply_pressure_increasing(table: pd.DataFrame, context, settings) -> dict:
+    if not profile_quantity_rows(table).any():
+        return {}
+    return {"argo_pressure_not_increasing": reject(table, pressure_increasing_test(table),
+                                                   "argo_pressure_not_increasing")}
+
+
+def _apply_spike(table: pd.DataFrame, context, settings) -> dict:
+    if not profile_quantity_rows(table).any():
+        return {}
+    return {"argo_spike": reject(table, spike_test(table), "argo_spike")}
+
+
+GLOBAL_RANGE_CHECK = QcCheck(
+    name="argo_global_range",
+    reasons={"argo_global_range": "outside the Argo real-time global range "
+                                  "(T -2.5..40 degC, S 2..41)"},
+    apply=_apply_global_range, settings=(ARGO_TESTS,), enabled=_argo_enabled)
+PRESSURE_INCREASING_CHECK = QcCheck(
+    name="argo_pressure_increasing",
+    reasons={"argo_pressure_not_increasing": "pressure not greater than at every shallower "
+                                             "level (Argo real-time pressure increasing test)"},
+    apply=_apply_pressure_increasing, enabled=_argo_enabled)
+SPIKE_CHECK = QcCheck(
+    name="argo_spike", reasons={"argo_spike": "fails the Argo real-time spike test"},
+    apply=_apply_spike, enabled=_argo_enabled)
+# registration order is the ledger's column order
+declare_reasons(GLOBAL_RANGE_CHECK, SPIKE_CHECK, PRESSURE_INCREASING_CHECK)

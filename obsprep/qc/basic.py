@@ -10,7 +10,9 @@ import numpy as np
 import pandas as pd
 
 from obsprep.model.quantities import QUANTITIES
+from obsprep.model.reasons import REASONS
 from obsprep.model.table import reject
+from obsprep.qc.check import QcCheck
 
 
 def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
@@ -75,3 +77,22 @@ def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
     low, high = low_of[codes], high_of[codes]   # code -1 (missing) takes the last slot
     with np.errstate(invalid="ignore"):
         return reject(table, (value < low) | (value > high), "out_of_range")
+
+
+def _apply_basic(table: pd.DataFrame, context, settings) -> dict:
+    return basic_checks(table, context.window, quantities=context.quantities,
+                        valid_range=context.valid_range, range_check=False)
+
+
+def _apply_gross_range(table: pd.DataFrame, context, settings) -> dict:
+    return {"out_of_range": gross_range_check(table, context.valid_range)}
+
+
+_BASIC_REASONS = ("missing_value", "quantity_not_selected", "bad_position", "bad_time",
+                  "outside_window")
+#: missing value, quantity selection, position, time, window (reasons shared with the readers)
+BASIC_CHECK = QcCheck(name="basic", reasons={code: REASONS[code] for code in _BASIC_REASONS},
+                      apply=_apply_basic)
+#: the physical range of the quantity, narrowed by the source's ``valid_range``
+GROSS_RANGE_CHECK = QcCheck(name="gross_range", reasons={"out_of_range": REASONS["out_of_range"]},
+                            apply=_apply_gross_range)

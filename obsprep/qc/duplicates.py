@@ -24,6 +24,7 @@ import pandas as pd
 from obsprep.exceptions import InputFileError
 from obsprep.geo.sphere import great_circle_distance
 from obsprep.model.table import kept, reject
+from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
 
 IDENTITY_COLUMNS = ("group", "platform", "time", "lon", "lat", "rank", "n_valid")
 
@@ -180,3 +181,25 @@ def reject_duplicates(table: pd.DataFrame, groups) -> int:
         return 0
     mask = np.isin(table["group"].astype(str).to_numpy(), list(groups))
     return reject(table, mask, "duplicate")
+
+
+def _apply_duplicates(table: pd.DataFrame, context, settings) -> dict:
+    return {"duplicate": reject_duplicates(table, context.duplicate_groups)}
+
+
+# Always applied: a file's losing groups are only non-empty when the pre-pass ran for it.
+DUPLICATE_CHECK = QcCheck(
+    name="duplicate",
+    reasons={"duplicate": "a better copy of the same profile (platform, time, position) is in "
+                          "another file"},
+    apply=_apply_duplicates,
+    settings=(
+        QcSetting("duplicates", "boolean", False,
+                  "check profiles against the other files of the sources that enable it; the "
+                  "worse copy is rejected as duplicate"),
+        QcSetting("duplicate_time_seconds", "non_negative_number", 60.0,
+                  "time tolerance of the duplicate check, s"),
+        QcSetting("duplicate_distance_km", "non_negative_number", 1.0,
+                  "position tolerance of the duplicate check, km"),
+    ))
+declare_reasons(DUPLICATE_CHECK)

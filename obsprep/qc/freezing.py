@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from obsprep.model.table import kept
+from obsprep.model.table import kept, reject
+from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
 
 
 def freezing_temperature(practical_salinity, pressure_dbar, lon, lat,
@@ -68,3 +69,33 @@ def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
     t_freeze = freezing_temperature(salinity, pressure, lon, lat)
     fail[idx] = table["value"].to_numpy()[idx] < t_freeze - tolerance
     return fail
+
+
+#: temperature quantities the freezing point check can apply to
+TEMPERATURE_QUANTITIES = ("sea_water_temperature", "sea_surface_temperature")
+
+
+def _apply_below_freezing(table: pd.DataFrame, context, settings) -> dict:
+    return {"below_freezing_point": reject(
+        table, below_freezing_test(table, settings.freezing_point_quantities,
+                                   settings.freezing_point_tolerance,
+                                   settings.freezing_point_salinity),
+        "below_freezing_point")}
+
+
+BELOW_FREEZING_CHECK = QcCheck(
+    name="below_freezing_point",
+    reasons={"below_freezing_point": "temperature below the TEOS-10 freezing point minus the "
+                                     "tolerance"},
+    apply=_apply_below_freezing,
+    settings=(
+        QcSetting("freezing_point_quantities", "choices", ("sea_water_temperature",),
+                  "temperature quantities checked against the TEOS-10 freezing point; [] off",
+                  choices=TEMPERATURE_QUANTITIES),
+        QcSetting("freezing_point_tolerance", "non_negative_number", 0.1,
+                  "degC below the freezing point still accepted"),
+        QcSetting("freezing_point_salinity", "non_negative_number", 35.0,
+                  "practical salinity used where no salinity was measured at the same level"),
+    ),
+    enabled=lambda settings: bool(settings.freezing_point_quantities))
+declare_reasons(BELOW_FREEZING_CHECK)

@@ -1,7 +1,8 @@
 """Model-grid checks beyond locating the cell: too shallow, too close to the coast.
 
 Outside the grid, land cell and below the bathymetry are decided by
-:meth:`obsprep.geo.grid.ModelGrid.classify`; these two further checks are per-source options.
+:meth:`obsprep.geo.grid.ModelGrid.classify`; these two further checks are per-source options
+(:data:`TOO_SHALLOW_CHECK`, :data:`NEAR_COAST_CHECK`, run by :func:`obsprep.qc.registry.grid_checks`).
 
 Distance to the coast is measured from the observation to the centre of the nearest land cell
 of the model mask, on the mean Earth sphere: land-cell centres become unit vectors in a
@@ -20,6 +21,7 @@ import pandas as pd
 
 from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M, unit_vectors_from_lonlat
 from obsprep.model.table import kept, reject
+from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
 
 _TREES: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
@@ -76,22 +78,37 @@ def too_shallow_test(grid, i, j, min_depth: float) -> np.ndarray:
     return out
 
 
-def grid_checks(table: pd.DataFrame, grid, i, j, settings) -> dict:
-    """Apply ``too_shallow`` then ``near_coast`` to the kept rows, in place (``i``, ``j``: the
-    cell of every row, -1 where none).  Returns {reason: newly rejected count}."""
-    counts = {}
-    if settings.min_depth > 0:
-        live = kept(table)
-        mask = np.zeros(len(table), dtype=bool)
-        mask[live] = too_shallow_test(grid, np.asarray(i)[live], np.asarray(j)[live],
-                                      settings.min_depth)
-        counts["too_shallow"] = reject(table, mask, "too_shallow")
-    if settings.coast_distance_km > 0:
-        live = kept(table)
-        mask = np.zeros(len(table), dtype=bool)
-        if live.any():
-            distance = distance_to_land(grid, table["lon"].to_numpy()[live],
-                                        table["lat"].to_numpy()[live])
-            mask[live] = distance < settings.coast_distance_km * 1000.0
-        counts["near_coast"] = reject(table, mask, "near_coast")
-    return counts
+def _apply_too_shallow(table: pd.DataFrame, context, settings) -> dict:
+    live = kept(table)
+    mask = np.zeros(len(table), dtype=bool)
+    mask[live] = too_shallow_test(context.grid, np.asarray(context.i)[live],
+                                  np.asarray(context.j)[live], settings.min_depth)
+    return {"too_shallow": reject(table, mask, "too_shallow")}
+
+
+def _apply_near_coast(table: pd.DataFrame, context, settings) -> dict:
+    live = kept(table)
+    mask = np.zeros(len(table), dtype=bool)
+    if live.any():
+        distance = distance_to_land(context.grid, table["lon"].to_numpy()[live],
+                                    table["lat"].to_numpy()[live])
+        mask[live] = distance < settings.coast_distance_km * 1000.0
+    return {"near_coast": reject(table, mask, "near_coast")}
+
+
+TOO_SHALLOW_CHECK = QcCheck(
+    name="too_shallow",
+    reasons={"too_shallow": "model bathymetry shallower than the source's minimum depth"},
+    apply=_apply_too_shallow, needs_grid=True,
+    settings=(QcSetting("min_depth", "non_negative_number", 0.0,
+                        "reject where the model bathymetry is shallower than this, m; 0 off"),),
+    enabled=lambda settings: settings.min_depth > 0)
+NEAR_COAST_CHECK = QcCheck(
+    name="near_coast",
+    reasons={"near_coast": "closer to a model land cell than the source's coast distance"},
+    apply=_apply_near_coast, needs_grid=True,
+    settings=(QcSetting("coast_distance_km", "non_negative_number", 0.0,
+                        "reject within this distance of the centre of a model land cell, km; "
+                        "0 off"),),
+    enabled=lambda settings: settings.coast_distance_km > 0)
+declare_reasons(TOO_SHALLOW_CHECK, NEAR_COAST_CHECK)
