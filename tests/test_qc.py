@@ -17,10 +17,11 @@ import pytest
 
 from obsprep.exceptions import ConfigError
 from obsprep.geo.grid import RegularGrid
+from obsprep.geo.seawater import depth_from_pressure, freezing_temperature, pressure_from_depth
 from obsprep.model.table import make_table
 from obsprep.qc import QcSettings, grid_checks, table_checks
-from obsprep.qc.argo import global_range_test, pressure_from_depth, pressure_increasing_test, spike_test
-from obsprep.qc.freezing import below_freezing_test, freezing_temperature
+from obsprep.qc.argo import global_range_test, pressure_increasing_test, spike_test
+from obsprep.qc.freezing import below_freezing_test
 from obsprep.qc.grid_checks import distance_to_land, too_shallow_test
 from obsprep.settings.config import Window
 
@@ -110,6 +111,15 @@ def test_pressure_increasing_flags_repeats_and_reversals():
 def test_pressure_from_depth_inverts_teos10():
     p = np.array([0.0, 10.0, 500.0, 2000.0])
     np.testing.assert_allclose(pressure_from_depth(depth_at(p, 45.0), 45.0), p, atol=1e-8)
+
+
+def test_depth_from_pressure_against_unesco_1983_and_teos10():
+    # Fofonoff & Millard (1983), UNESCO Tech. Pap. Mar. Sci. 44 (from memory): 10 000 dbar at
+    # 30 deg -> 9712.653 m; TEOS-10 is about 1.1 m deeper, within 1.5 m
+    assert depth_from_pressure(10000.0, 30.0) == pytest.approx(9712.653, abs=1.5)
+    # TEOS-10 via gsw (library as reference)
+    p = np.array([0.0, 100.0, 1000.0, 6000.0])
+    np.testing.assert_allclose(depth_from_pressure(p, -65.0), -gsw.z_from_p(p, -65.0), rtol=1e-12)
 
 
 # --- freezing point ------------------------------------------------------------------------

@@ -34,7 +34,6 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-import gsw
 import netCDF4
 import numpy as np
 import pyproj
@@ -42,6 +41,7 @@ from scipy import ndimage
 
 from obsprep.demo import truth
 from obsprep.exceptions import ConfigError
+from obsprep.geo.seawater import depth_from_pressure, pressure_from_depth
 from obsprep.model.quantities import get_quantity
 
 SCENARIO_NAME = "weddell-spring"
@@ -790,11 +790,11 @@ def _write_profiles(scn):
         depth_nominal[k, :len(levels)] = levels
     present = np.isfinite(depth_nominal)
     # pressure from the nominal depth with TEOS-10, stored in float32; the truth is evaluated at
-    # the depth that the stored pressure gives back (gsw.z_from_p), i.e. what a reader computes
+    # the depth that the stored pressure gives back, i.e. what a reader computes
     lat2 = np.broadcast_to(lat[:, None], depth_nominal.shape)
-    pressure = np.where(present, gsw.p_from_z(-np.nan_to_num(depth_nominal), lat2), np.nan)
+    pressure = np.where(present, pressure_from_depth(np.nan_to_num(depth_nominal), lat2), np.nan)
     pressure = pressure.astype(np.float32)
-    depth = np.where(present, -gsw.z_from_p(np.nan_to_num(pressure).astype(np.float64), lat2),
+    depth = np.where(present, depth_from_pressure(np.nan_to_num(pressure).astype(np.float64), lat2),
                      np.nan)
     lon2 = np.broadcast_to(lon[:, None], depth.shape)
     time2 = np.broadcast_to(times[:, None], depth.shape)

@@ -6,7 +6,7 @@ They apply to the depth-resolved quantities (``sea_water_temperature``,
 (``file_id``, ``group``) in ``row`` order (the level order of the file); each quantity is tested
 on its own.  The spike and pressure tests look only at rows still kept, so a value the provider
 already flagged does not make its neighbours fail.  Pressure is recovered from depth with
-TEOS-10 (``gsw.p_from_z``), the inverse of what the readers did.
+TEOS-10 (:func:`obsprep.geo.seawater.pressure_from_depth`), the inverse of what the readers did.
 """
 
 from __future__ import annotations
@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from obsprep.geo.seawater import pressure_from_depth
 from obsprep.model.quantities import QUANTITIES
 from obsprep.model.table import kept, reject
 from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
@@ -56,14 +57,6 @@ def _profile_levels(table: pd.DataFrame, column: str, rows):
         rows = kept(table) & profile_quantity_rows(table) & np.isfinite(values)
     idx, segment = profile_order(table, rows)
     return values, idx, segment
-
-
-def pressure_from_depth(depth, lat) -> np.ndarray:
-    """Sea pressure (dbar) from depth (m, positive down) and latitude (degrees):
-    ``gsw.p_from_z(-depth, lat)`` (TEOS-10, IOC et al. 2010, eq. 3.32.3 inverted)."""
-    import gsw
-
-    return np.asarray(gsw.p_from_z(-np.asarray(depth, dtype=np.float64), lat), dtype=np.float64)
 
 
 def global_range_test(table: pd.DataFrame) -> np.ndarray:

@@ -1,32 +1,13 @@
-"""Temperatures below the freezing point of seawater (TEOS-10, through ``gsw``)."""
+"""Temperatures below the freezing point of seawater (TEOS-10, :mod:`obsprep.geo.seawater`)."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
+from obsprep.geo.seawater import freezing_temperature, pressure_from_depth
 from obsprep.model.table import kept, reject
 from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
-
-
-def freezing_temperature(practical_salinity, pressure_dbar, lon, lat,
-                         saturation_fraction=1.0) -> np.ndarray:
-    """In-situ freezing temperature of seawater, degC (ITS-90).
-
-    .. math:: S_A = S_A(S_P, p, \\lambda, \\varphi), \\qquad t_f = t_f(S_A, p, s)
-
-    with ``gsw.SA_from_SP`` (Absolute Salinity from Practical Salinity, g/kg) and
-    ``gsw.t_freezing`` (IOC, SCOR and IAPSO 2010, *TEOS-10 manual*, section 3.33, via the
-    polynomial of McDougall et al. 2014).  ``pressure_dbar`` is sea pressure, ``lon``/``lat``
-    in degrees, ``saturation_fraction`` s of dissolved air (1: air-saturated, usual for
-    seawater; 0: air-free).  For S_P = 40, p = 500 dbar, air-saturated, this is within a few
-    mK of the UNESCO 1983 formula (-2.588567 degC).
-    """
-    import gsw
-
-    absolute_salinity = gsw.SA_from_SP(practical_salinity, pressure_dbar, lon, lat)
-    return np.asarray(gsw.t_freezing(absolute_salinity, pressure_dbar, saturation_fraction),
-                      dtype=np.float64)
 
 
 def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
@@ -37,10 +18,8 @@ def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
     ``sea_surface_temperature``).  The salinity is the kept ``sea_water_salinity`` row of the
     same file, group and ``row`` (the same level of the same profile) where there is one, else
     ``default_salinity``; the pressure comes from the depth (0 at the surface) with
-    ``gsw.p_from_z``.
+    :func:`obsprep.geo.seawater.pressure_from_depth`.
     """
-    from obsprep.qc.argo import pressure_from_depth
-
     fail = np.zeros(len(table), dtype=bool)
     live = kept(table)
     temperature = live & table["quantity"].isin(list(quantities)).to_numpy() & np.isfinite(

@@ -13,7 +13,7 @@ What the reader does with it:
 
 - per profile, the ``_ADJUSTED`` value, QC flag and ``_ADJUSTED_ERROR`` (as ``error``) where
   ``DATA_MODE`` is A or D, the raw value and QC flag otherwise (pressure likewise);
-- depth from pressure with TEOS-10 (:func:`obsprep.readers.products.profiles.depth_from_pressure`);
+- depth from pressure with TEOS-10 (:func:`obsprep.geo.seawater.depth_from_pressure`);
 - ``group`` = ``<PLATFORM_NUMBER>_<CYCLE_NUMBER>`` (3 digits), with a ``D`` suffix for a
   descending profile, and ``_2``, ``_3``... for further profiles of the same cycle in the file
   (other vertical sampling schemes); ``platform`` = ``PLATFORM_NUMBER``;
@@ -251,7 +251,7 @@ class ArgoProfileReader(Reader):
         cf.require_values(path, decoded)
         shape = (argo.n_prof, argo.n_levels)
         lat = np.broadcast_to(argo.lat[:, None], shape)
-        from obsprep.readers.products.profiles import depth_from_pressure
+        from obsprep.geo.seawater import depth_from_pressure
 
         depth = depth_from_pressure(pressure, lat)
         padding = ~np.isfinite(pressure)

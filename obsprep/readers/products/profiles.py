@@ -16,29 +16,13 @@ from __future__ import annotations
 import numpy as np
 
 from obsprep.exceptions import InputFileError
+from obsprep.geo.seawater import depth_from_pressure
 from obsprep.model.quantities import get_quantity
 from obsprep.model.table import concat_tables
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
 PROFILE_QUANTITIES = (get_quantity("sea_water_temperature"), get_quantity("sea_water_salinity"))
-
-
-def depth_from_pressure(pressure_dbar, latitude_deg) -> np.ndarray:
-    """Depth (m, positive down) from sea pressure (dbar) and latitude (degrees north).
-
-    .. math:: depth = -z(p, \\varphi)
-
-    with z the height (negative in the ocean) from TEOS-10 ``gsw.z_from_p(p, lat)``, which
-    solves eq. (3.32.3) of IOC, SCOR and IAPSO (2010), *The international thermodynamic
-    equation of seawater - 2010*, Manuals and Guides 56, for a standard ocean (SA = 35.16504
-    g/kg, CT = 0 degC) with the 75-term specific volume of Roquet et al. (2015); no dynamic
-    height or sea-surface geopotential term.  Within about 1 m of the UNESCO 1983 formula
-    (Fofonoff and Millard 1983) at 10 000 dbar.
-    """
-    import gsw
-
-    return -np.asarray(gsw.z_from_p(pressure_dbar, latitude_deg), dtype=np.float64)
 
 
 def _quantity_variables(ds) -> dict:
