@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from obsprep.errors.rules import assign_errors
+from obsprep.errors.rules import ERROR_RULE_KEYS, ERROR_TABLE_KEYS, assign_errors, raw_error_from_parts
 from obsprep.exceptions import ConfigError
 from obsprep.model.table import make_table
 from obsprep.settings.config import ErrorRule
@@ -30,3 +30,27 @@ def test_missing_quantity_in_table_of_values_is_a_config_error():
     t = make_table(1, quantity=["sea_water_salinity"])
     with pytest.raises(ConfigError, match="sea_water_salinity"):
         assign_errors(t, ErrorRule("constant", {"sea_water_temperature": 0.01}), "sources[0].error")
+
+
+def test_raw_error_from_parts_matches_the_formula():
+    # hand computation of sigma = min(cap, max(floor, sqrt((factor * base)^2 + sum term^2)))
+    base = np.array([0.3, 0.01, 4.0, np.nan])
+    everywhere = np.ones(4, dtype=bool)
+    sigma = raw_error_from_parts(base, 2.0, [(everywhere, np.full(4, 0.8))], floor=0.5, cap=2.0)
+    np.testing.assert_allclose(sigma, [1.0, 0.8002499610, 2.0, np.nan], rtol=1e-9)
+    # without extra terms only the factor, floor and cap act
+    np.testing.assert_array_equal(raw_error_from_parts(base, 1.0, None, 0.1, None),
+                                  [0.3, 0.1, 4.0, np.nan])
+
+
+def test_error_rule_keys_are_the_schema_keys():
+    # the configuration JSON schema shipped with the package (obsprep/schemas) lists the keys
+    import json
+    from pathlib import Path
+
+    import obsprep
+
+    schema = json.loads((Path(obsprep.__file__).parent / "schemas" / "config.schema.json").read_text())
+    error = schema["properties"]["sources"]["items"]["properties"]["error"]
+    assert set(error["properties"]) == set(ERROR_RULE_KEYS)
+    assert set(schema["$defs"]["error_table"]["properties"]) == set(ERROR_TABLE_KEYS)

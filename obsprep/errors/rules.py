@@ -12,10 +12,10 @@ steps, all vectorised over the observation table:
      ice-concentration error by concentration) or of the depth (``of = "depth"``, e.g. profile
      errors through the thermocline), one table or one per quantity;
 
-2. times ``factor``;
-3. extra terms ``add_in_quadrature`` (numbers or tables as above), independent of the base
-   error, so variances add: sigma = sqrt((factor * base)^2 + sum_k term_k^2);
-4. kept within ``[floor, cap]``: sigma <- min(cap, max(floor, sigma)).
+2. times ``factor``, 3. extra terms ``add_in_quadrature`` (numbers or tables as above), 4.
+   kept within ``[floor, cap]``: the formula of :func:`raw_error_from_parts`.
+
+The keys of a rule and their meaning are :data:`ERROR_RULE_KEYS`.
 
 A piecewise-linear table with points x_0 < ... < x_m and errors e_0 .. e_m gives
 e(x) = e_k + (e_{k+1} - e_k) (x - x_k) / (x_{k+1} - x_k) on [x_k, x_{k+1}], held constant
@@ -41,6 +41,50 @@ from obsprep.model.table import category_masks, reject
 
 BASE_RULES = ("constant", "file", "table")
 TABLE_OF = ("value", "depth")
+
+#: key of ``[sources.error]`` -> meaning (the settings check, schema and README read these)
+ERROR_RULE_KEYS: dict[str, str] = {
+    "rule": "`constant`, `file` (the file's `standard_error` variable) or `table`",
+    "value": "constant error, a number or a table per quantity",
+    "table": "rule `table`: `{ of = \"value\" | \"depth\", points = [...], errors = [...] }`, "
+             "piecewise linear, constant beyond the ends; or one per quantity",
+    "factor": "multiplies the error (default 1)",
+    "add_in_quadrature": "extra terms after the factor: a number, a table (as above), a list of "
+                         "them, or those per quantity",
+    "floor": "minimum raw error (default 0)",
+    "cap": "maximum raw error (applied last; default none)",
+}
+#: key of one piecewise-linear error table -> meaning
+ERROR_TABLE_KEYS: dict[str, str] = {
+    "of": "`value` (the observed value) or `depth` (m, positive down); default `value`",
+    "points": "strictly increasing arguments of the table (canonical units, or m for depth)",
+    "errors": "error (>= 0, canonical units) at each point",
+}
+
+
+def raw_error_from_parts(base, factor: float, quadrature_terms, floor: float,
+                         cap: float | None) -> np.ndarray:
+    """The raw error (1-sigma, canonical units) from its parts.
+
+    .. math:: \\sigma = \\min\\left(cap, \\max\\left(floor,
+              \\sqrt{(factor \\cdot base)^2 + \\sum_k term_k^2}\\right)\\right)
+
+    Extra terms are independent of the base error, so variances add (common practice).
+    ``base``: the base error per row; ``quadrature_terms``: ``(mask, term)`` pairs, each
+    adding ``term**2`` to the variance of the rows of ``mask``, in the order given; None when
+    the rule has no extra terms (then no square root is taken).
+    ``cap`` None: no cap.  NaN stays NaN.
+    """
+    sigma = np.asarray(base, dtype=np.float64) * factor
+    if quadrature_terms is not None:
+        variance = sigma * sigma
+        for mask, term in quadrature_terms:
+            variance[mask] += term * term
+        sigma = np.sqrt(variance)
+    sigma = np.maximum(sigma, floor)
+    if cap is not None:
+        sigma = np.minimum(sigma, cap)
+    return sigma
 
 
 def is_table(spec) -> bool:
@@ -154,23 +198,19 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     else:  # the schema prevents this
         raise ConfigError(f"{source_key}.rule", f"unknown error rule '{rule.rule}'")
 
-    sigma = sigma * rule.factor
     # A non-positive or missing base error is invalid input; floor and extra terms must not
     # disguise it.
-    bad = ~(np.isfinite(sigma) & (sigma > 0))
+    scaled = sigma * rule.factor
+    bad = ~(np.isfinite(scaled) & (scaled > 0))
     extra = rule.add_in_quadrature
+    terms = []
     if extra is not None:
-        variance = sigma * sigma
         for q, mask in masks.items():
             for term in _terms(_for_quantity(extra, q)):  # a few terms per quantity
-                part = (piecewise_linear_error(term, values[mask], depth[mask]) if is_table(term)
-                        else np.full(int(mask.sum()), float(term)))
-                variance[mask] += part * part
-        sigma = np.sqrt(variance)
-    cap = rule.cap
-    sigma = np.maximum(sigma, rule.floor)
-    if cap is not None:
-        sigma = np.minimum(sigma, cap)
+                terms.append((mask, piecewise_linear_error(term, values[mask], depth[mask])
+                              if is_table(term) else np.full(int(mask.sum()), float(term))))
+    sigma = raw_error_from_parts(sigma, rule.factor, terms if extra is not None else None,
+                                 rule.floor, rule.cap)
     sigma = np.where(bad, np.nan, sigma)
     table["error"] = sigma
     labels = {q: origin_label(rule, q) for q in present}

@@ -5,19 +5,26 @@ errors as points, known quantities in per-quantity settings, ``cap >= floor``, a
 ``table``.  Super-observation error settings (``superobs``): a field file and its variables
 together, no quantity given both a constant and a field representation error.  Every problem
 raises :class:`~obsprep.exceptions.ConfigError` naming the dotted key.
+
+The keys of a rule and of an error table, with their meaning, are declared once with the rule
+itself (:data:`obsprep.errors.rules.ERROR_RULE_KEYS`, :data:`~obsprep.errors.rules.ERROR_TABLE_KEYS`)
+and re-exported here for the settings loader and its schema.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from obsprep.errors.rules import is_table
+from obsprep.errors.rules import ERROR_RULE_KEYS, ERROR_TABLE_KEYS, is_table
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 
 #: ways of combining the instrument-based and spread-based super-observation errors
 SPREAD_COMBINATIONS = ("instrument", "max", "spread_when_n_ge")
 DEFAULT_SPREAD_MIN_COUNT = 5
+
+__all__ = ["ERROR_RULE_KEYS", "ERROR_TABLE_KEYS", "check_error_rule", "check_table",
+           "check_superobs_error_settings", "SPREAD_COMBINATIONS", "DEFAULT_SPREAD_MIN_COUNT"]
 
 
 def _check_quantity(q, key, src):
