@@ -268,3 +268,21 @@ def test_registry_refuses_a_table_check_after_a_grid_check():
         _checked_order((grid_check, table_check))
     with pytest.raises(ValueError, match="listed twice"):
         _checked_order((table_check, table_check))
+
+
+def test_qc_schema_from_the_declarations_matches_the_shipped_schema():
+    # the configuration JSON schema shipped with the package (obsprep/schemas): same keys,
+    # types, defaults and constraints as the declarations
+    import json
+    from pathlib import Path
+
+    import obsprep
+    from obsprep.settings.qc import qc_json_schema
+
+    shipped = json.loads((Path(obsprep.__file__).parent / "schemas" / "config.schema.json")
+                         .read_text())["properties"]["sources"]["items"]["properties"]["qc"]
+    built = qc_json_schema()
+    assert set(built["properties"]) == set(shipped["properties"])
+    for key, prop in built["properties"].items():
+        expected = {k: v for k, v in shipped["properties"][key].items() if k != "description"}
+        assert {k: v for k, v in prop.items() if k != "description"} == expected, key

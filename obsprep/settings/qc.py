@@ -63,3 +63,21 @@ QcSettings = make_dataclass(
     namespace={"from_dict": classmethod(_from_dict), "__module__": __name__,
                "__doc__": "Validated ``[sources.qc]`` settings (see :data:`QC_KEYS`; units in "
                           "the meanings)."})
+
+
+def qc_json_schema() -> dict:
+    """The JSON schema of ``[sources.qc]`` from the declarations: type, default, constraints
+    and description of every key (for the configuration schema)."""
+    properties = {}
+    for s in _DECLARED:
+        if s.kind == "boolean":
+            prop = {"type": "boolean", "default": s.default}
+        elif s.kind == "non_negative_number":
+            prop = {"type": "number", "minimum": 0, "default": s.default}
+        else:
+            prop = {"type": "array", "items": {"enum": list(s.choices)},
+                    "default": list(s.default)}
+        prop["description"] = s.meaning[:1].upper() + s.meaning[1:] + "."
+        properties[s.key] = prop
+    return {"type": "object", "description": "Quality-control settings of this source.",
+            "additionalProperties": False, "properties": properties}
