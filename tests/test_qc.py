@@ -286,3 +286,18 @@ def test_qc_schema_from_the_declarations_matches_the_shipped_schema():
     for key, prop in built["properties"].items():
         expected = {k: v for k, v in shipped["properties"][key].items() if k != "description"}
         assert {k: v for k, v in prop.items() if k != "description"} == expected, key
+
+
+def test_reason_order_does_not_depend_on_which_check_module_is_imported_first():
+    # the ledger lists reasons in REASONS order; a fresh interpreter importing one check
+    # module directly must register the same codes in the same order as the registry does
+    import subprocess
+    import sys
+
+    code = ("import {module}; from obsprep.model.reasons import REASONS; "
+            "print(','.join(REASONS))")
+    orders = {subprocess.run([sys.executable, "-c", code.format(module=m)], check=True,
+                             capture_output=True, text=True).stdout
+              for m in ("obsprep.qc", "obsprep.qc.duplicates", "obsprep.qc.grid_checks",
+                        "obsprep.settings.qc")}
+    assert len(orders) == 1 and "near_coast,duplicate" in orders.pop()
