@@ -706,12 +706,13 @@ def test_alongtrack_trajectory_id_is_the_group(tmp_path):
 
 def test_unknown_option_is_named(tmp_path):
     path = alongtrack_file(tmp_path / "a.nc")
-    with pytest.raises(InputFileError, match="'sensr'") as info:
+    # a wrong option is a mistake of the caller, not a problem of the file
+    with pytest.raises(TypeError, match="'sensr'") as info:
         read(path, sensr="x")
-    assert "accepted options" in str(info.value) and path in str(info.value)
-    with pytest.raises(InputFileError, match="pass_gap_seconds"):
+    assert "accepted options" in str(info.value)
+    with pytest.raises(TypeError, match="pass_gap_seconds"):
         read(sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0)), pass_gap_seconds=10)
-    with pytest.raises(InputFileError, match="positive"):
+    with pytest.raises(ValueError, match="positive"):
         read(path, pass_gap_seconds=-1)
 
 
@@ -811,3 +812,18 @@ def test_gridded_rows_account_for_every_value(tmp_path):
     assert (table["rejected"].astype(object) == "missing_value").sum() == 3
     np.testing.assert_allclose(table["lat"], [50.0] * 3 + [51.0] * 3)
     np.testing.assert_allclose(table["lon"], [0.0, 1.0, 2.0] * 2)
+
+
+def test_programming_error_inside_a_reader_is_not_called_a_bad_file(tmp_path, monkeypatch):
+    # only real file problems become InputFileError; a bug must surface as itself so the
+    # build reports an internal error instead of a silently missing sensor (common practice)
+    path = alongtrack_file(tmp_path / "a.nc")
+    reader = registered_readers()["alongtrack"]
+
+    def broken(*args, **kwargs):
+        raise KeyError("a key the code got wrong")
+
+    monkeypatch.setattr(reader, "read_dataset", broken)
+    with pytest.raises(KeyError, match="a key the code got wrong") as info:
+        read(path, kind="alongtrack")
+    assert not isinstance(info.value, InputFileError)

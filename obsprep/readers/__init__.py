@@ -165,8 +165,6 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         raise
     except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
         raise unreadable_data(path, exc) from exc
-    except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:
-        raise InputFileError(path, f"reader '{kind}' failed: {exc}") from exc
     finally:
         ds.close()
     table.attrs["kind"] = kind

@@ -586,18 +586,22 @@ def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity |
 # positions and map projections
 # --------------------------------------------------------------------------------------------
 
-def broadcast_to_variable(values, dims, var: xr.DataArray) -> np.ndarray:
+def broadcast_to_variable(values, dims, var: xr.DataArray, *, path=None) -> np.ndarray:
     """Broadcast ``values`` (an array with dimension names ``dims``) to ``var``'s shape.
 
     ``dims`` must be a subset of ``var.dims`` (in any order); scalars broadcast everywhere.
     Returns a view when no copy is needed: read-only where values are repeated, a plain
-    (writeable) reshape when ``values`` already has one value per element.
+    (writeable) reshape when ``values`` already has one value per element.  With ``path``
+    (the values come from that file) a mismatch is the file's: :class:`InputFileError`.
     """
     dims = tuple(dims)
     extra = set(dims) - set(var.dims)
     if extra:
-        raise ValueError(f"dimensions {sorted(extra)} are not dimensions of variable "
-                         f"'{var.name}' {var.dims}")
+        reason = (f"dimensions {sorted(extra)} are not dimensions of variable "
+                  f"'{var.name}' {var.dims}; expected a subset of them")
+        if path is not None:
+            raise InputFileError(path, reason, variable=var.name)
+        raise ValueError(reason)
     values = np.asarray(values)
     order = [d for d in var.dims if d in dims]
     values = np.transpose(values, [dims.index(d) for d in order])
@@ -640,7 +644,7 @@ def _projection_xy(ds: xr.Dataset, name: str, crs, path) -> tuple[np.ndarray, np
             raise InputFileError(path, f"grid_mapping given but no {kind} coordinate on the "
                                        f"variable's dimensions {var.dims}", variable=name)
         metres = values_in_units(ds[coord], "m", path, default_units="m")
-        out.append(broadcast_to_variable(metres, ds[coord].dims, var))
+        out.append(broadcast_to_variable(metres, ds[coord].dims, var, path=path))
     factors = [axis.unit_conversion_factor for axis in crs.axis_info[:2]]
     return out[0] / factors[0], out[1] / factors[1]
 
@@ -735,8 +739,8 @@ def horizontal_position(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np
     lat_name = find_coordinate(ds, name, "latitude")
     lon_name = find_coordinate(ds, name, "longitude")
     if lat_name and lon_name:
-        lat = broadcast_to_variable(ds[lat_name].values.astype(np.float64), ds[lat_name].dims, var)
-        lon = broadcast_to_variable(ds[lon_name].values.astype(np.float64), ds[lon_name].dims, var)
+        lat = broadcast_to_variable(ds[lat_name].values.astype(np.float64), ds[lat_name].dims, var, path=path)
+        lon = broadcast_to_variable(ds[lon_name].values.astype(np.float64), ds[lon_name].dims, var, path=path)
         checked = ((lat_name, lat), (lon_name, lon))
     else:
         crs = crs_for_variable(ds, name, path)
@@ -772,12 +776,12 @@ def observation_time(ds: xr.Dataset, name: str, path) -> np.ndarray:
     var = ds[name]
     absolute, offsets = _absolute_and_offset_times(ds, name, path)
     chosen = max(absolute, key=lambda t: ds[t].ndim)
-    time = broadcast_to_variable(decode_time_variable(ds[chosen], path), ds[chosen].dims, var)
+    time = broadcast_to_variable(decode_time_variable(ds[chosen], path), ds[chosen].dims, var, path=path)
     offsets = [o for o in offsets if ds[o].ndim > ds[chosen].ndim]
     if offsets:
         offset = max(offsets, key=lambda t: ds[t].ndim)
         seconds = values_in_units(ds[offset], "s", path)
-        offset_ns = np.round(broadcast_to_variable(seconds, ds[offset].dims, var) * 1e9)
+        offset_ns = np.round(broadcast_to_variable(seconds, ds[offset].dims, var, path=path) * 1e9)
         time = time + offset_ns.astype("timedelta64[ns]")  # NaN -> NaT
     return time
 
@@ -800,8 +804,8 @@ def observation_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, n
     decoded = decode_time_variable(bounds, path, units=ds[time].attrs.get("units"),
                                    calendar=ds[time].attrs.get("calendar"))
     dims = bounds.dims[:-1]
-    return (broadcast_to_variable(decoded[..., 0], dims, var),
-            broadcast_to_variable(decoded[..., 1], dims, var))
+    return (broadcast_to_variable(decoded[..., 0], dims, var, path=path),
+            broadcast_to_variable(decoded[..., 1], dims, var, path=path))
 
 
 def labels_as_strings(values) -> np.ndarray:
@@ -865,11 +869,11 @@ def decode_data_variable(ds: xr.Dataset, name: str, quantity: Quantity, path,
     if error_name is not None:
         sigma = values_in_units(ds[error_name], quantity.units, path, quantity=quantity,
                                 difference=True, default_units=var.attrs.get("units"))
-        error = np.array(broadcast_to_variable(sigma, ds[error_name].dims, var))
+        error = np.array(broadcast_to_variable(sigma, ds[error_name].dims, var, path=path))
     good = None
     for flag_name in find_flag_variables(ds, name):
         mask = broadcast_to_variable(
-            good_flag_mask(ds[flag_name], good_flag_meanings, path), ds[flag_name].dims, var)
+            good_flag_mask(ds[flag_name], good_flag_meanings, path), ds[flag_name].dims, var, path=path)
         good = mask.copy() if good is None else good & mask
     return DecodedVariable(quantity, name, values, error, good)
 

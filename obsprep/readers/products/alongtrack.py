@@ -116,7 +116,7 @@ class AlongTrackReader(Reader):
                                                f"the data dimension {ds[name].dims}",
                                          variable=correction)
                 metres = cf.broadcast_to_variable(cf.values_in_units(var, "m", path),
-                                                  var.dims, ds[name])
+                                                  var.dims, ds[name], path=path)
                 missing |= np.isfinite(values) & ~np.isfinite(metres)
                 values = values + sign * np.where(np.isfinite(metres), metres, 0.0)
                 used.append(correction)

@@ -93,7 +93,7 @@ def reference_time(ds, name, path) -> np.ndarray:
     units = tvar.attrs.get("units") or GDS2_TIME_UNITS
     decoded = cf.decode_time(tvar.values, units, tvar.attrs.get("calendar"), path,
                              variable=tvar.name)
-    return cf.broadcast_to_variable(decoded, tvar.dims, ds[name])
+    return cf.broadcast_to_variable(decoded, tvar.dims, ds[name], path=path)
 
 
 class _GhrsstReader(Reader):
@@ -131,13 +131,13 @@ class _GhrsstReader(Reader):
         used = [name]
 
         def broadcast(var):
-            return np.asarray(cf.broadcast_to_variable(var.values, var.dims, sst))
+            return np.asarray(cf.broadcast_to_variable(var.values, var.dims, sst, path=path))
 
         def kelvin_difference(var):
             # GDS 2.0 SSES are kelvin differences; units default to the SST's
             converted = cf.values_in_units(var, SST.units, path, quantity=SST, difference=True,
                                            default_units=sst.attrs.get("units"))
-            return np.asarray(cf.broadcast_to_variable(converted, var.dims, sst))
+            return np.asarray(cf.broadcast_to_variable(converted, var.dims, sst, path=path))
 
         bias_missing = None
         bias_var = self._pixel(ds, name, "sses_bias", path)
@@ -163,7 +163,7 @@ class _GhrsstReader(Reader):
         dtime_var = self._pixel(ds, name, "sst_dtime", path)
         if dtime_var is not None:
             seconds = cf.values_in_units(dtime_var, "s", path, default_units="s")
-            offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst) * 1e9)
+            offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path) * 1e9)
             time = time + offset.astype("timedelta64[ns]")  # NaN -> NaT -> bad_time later
             used.append("sst_dtime")
         # the reader's own rejections, in this order (a pixel counts under the first)
@@ -176,7 +176,7 @@ class _GhrsstReader(Reader):
             ordered = [m for m in L2P_FLAG_REASONS if m in chosen] + sorted(
                 chosen - set(L2P_FLAG_REASONS))
             for meaning in ordered:
-                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst)
+                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst, path=path)
                 rejections.append((mask, L2P_FLAG_REASONS.get(meaning, "l2p_flag_other")))
         level_var = self._pixel(ds, name, "quality_level", path)
         if level_var is not None:

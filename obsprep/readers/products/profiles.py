@@ -55,6 +55,7 @@ class _Layout:
 
     def __init__(self, ds, var, path):
         self.var = var
+        self.path = path
         counts = [c for c in ds.variables
                   if ds[c].attrs.get("sample_dimension") in var.dims and ds[c].ndim == 1]
         indices = [c for c in ds.variables
@@ -90,7 +91,7 @@ class _Layout:
         """``values`` (on ``dims``) as an array of the data variables' shape."""
         if self.ragged and tuple(dims) == (self.profile_dim,):
             return np.asarray(values)[self.profile_of_sample]
-        return cf.broadcast_to_variable(values, dims, self.var)
+        return cf.broadcast_to_variable(values, dims, self.var, path=self.path)
 
     def profile_index(self) -> np.ndarray:
         if self.profile_dim is None:
