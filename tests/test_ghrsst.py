@@ -160,7 +160,8 @@ def test_options_minimum_quality_flags_and_bias_switch(l2p):
     with pytest.raises(ValueError, match="min_quality_level"):
         read(path, min_quality_level=6)
     with pytest.raises(TypeError, match="good_flag_meanings"):
-        read(path, good_flag_meanings="good")  # not an option of the GDS 2.0 reader
+        # not an option of the GDS 2.0 reader
+        read(path, kind="ghrsst_l2p", good_flag_meanings="good")
 
 
 def test_l3_grid_with_one_dimensional_coordinates(tmp_path):

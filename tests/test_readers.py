@@ -711,7 +711,8 @@ def test_unknown_option_is_named(tmp_path):
         read(path, sensr="x")
     assert "accepted options" in str(info.value)
     with pytest.raises(TypeError, match="pass_gap_seconds"):
-        read(sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0)), pass_gap_seconds=10)
+        read(sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0)), kind="sst_grid",
+             pass_gap_seconds=10)
     with pytest.raises(ValueError, match="positive"):
         read(path, pass_gap_seconds=-1)
 
@@ -827,3 +828,29 @@ def test_programming_error_inside_a_reader_is_not_called_a_bad_file(tmp_path, mo
     with pytest.raises(KeyError, match="a key the code got wrong") as info:
         read(path, kind="alongtrack")
     assert not isinstance(info.value, InputFileError)
+
+
+def test_auto_kind_gives_a_reader_only_the_options_it_declares(tmp_path):
+    # one source with kind auto may mix files of several readers: each reader takes its own
+    # options (validated against all readers at configuration load)
+    path = sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0))
+    plain = read(path, sensor="sst_a")
+    mixed = read(path, sensor="sst_a", pass_gap_seconds=10)
+    assert mixed.attrs["kind"] == "sst_grid"
+    assert mixed.equals(plain) and set(mixed["sensor"]) == {"sst_a"}
+    with pytest.raises(TypeError, match="'pass_gap_secs'"):
+        read(path, pass_gap_secs=10)
+
+
+def test_reader_options_mapping_is_derived_from_the_options_dataclass():
+    import dataclasses
+
+    for reader in registered_readers().values():
+        fields = dataclasses.fields(reader.Options)
+        assert list(reader.options) == [f.name for f in fields]
+        assert all(reader.options[f.name] == f.metadata["meaning"] for f in fields)
+    options = cf.reader_options(registered_readers()["alongtrack"],
+                                {"add_corrections": "tide dac", "pass_gap_seconds": 30})
+    assert options.add_corrections == ("tide", "dac") and options.pass_gap_seconds == 30.0
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        options.sensor = "x"

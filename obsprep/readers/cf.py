@@ -12,8 +12,6 @@ Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`;
 
 from __future__ import annotations
 
-import contextlib
-import contextvars
 import dataclasses
 import os
 import tokenize
@@ -30,7 +28,8 @@ from obsprep.model.reasons import REASONS
 from obsprep.model.table import make_table
 
 __all__ = [
-    "COMMON_OPTIONS", "DEFAULT_GOOD_FLAG_MEANINGS", "ReaderOptions", "reader_options",
+    "DEFAULT_GOOD_FLAG_MEANINGS", "SourceOptions", "CfOptions", "option", "option_meanings",
+    "parse_string", "parse_names", "parse_lowercase_set", "parse_positive_seconds", "reader_options",
     "open_dataset", "find_variable", "require_variable", "find_coordinate", "find_coordinates",
     "ancillary_variable_names", "find_standard_error", "find_flag_variables",
     "good_flag_mask", "decode_time", "decode_time_variable", "convert_units",
@@ -42,16 +41,6 @@ __all__ = [
     "reader_profile_roles", "variable_units",
 ]
 
-#: reader options every CF-generic reader accepts, name -> meaning
-COMMON_OPTIONS: dict[str, str] = {
-    "sensor": "source name written to the 'sensor' column (default: empty)",
-    "platform": "platform identifier written to every row, overriding the file's own "
-                "(default: the file's 'platform' global attribute)",
-    "good_flag_meanings": "flag meanings whose rows are kept (list of str, or one "
-                          "space-separated str; default: good good_data nominal ok valid "
-                          "probably_good)",
-}
-
 #: flag meanings kept by default (docs/file-conventions.md)
 DEFAULT_GOOD_FLAG_MEANINGS = frozenset(
     ("good", "good_data", "nominal", "ok", "valid", "probably_good"))
@@ -61,51 +50,89 @@ DEFAULT_GOOD_FLAG_MEANINGS = frozenset(
 # reader options
 # --------------------------------------------------------------------------------------------
 
+def option(default, meaning: str, parse=None):
+    """A reader option: a dataclass field with its ``meaning`` (shown in errors and docs) and
+    ``parse(name, value)``, which checks a given value and returns it in the field's type
+    (raising ``ValueError`` naming the option)."""
+    return dataclasses.field(default=default, metadata={"meaning": meaning, "parse": parse})
+
+
+def parse_string(name, value) -> str:
+    """A str option."""
+    if not isinstance(value, str):
+        raise ValueError(f"option '{name}' must be a string, got {value!r}")
+    return value
+
+
+def parse_names(name, value) -> tuple:
+    """A list of str, or one space-separated str, as a tuple."""
+    names = value.split() if isinstance(value, str) else value
+    if isinstance(names, (bytes, dict)) or not hasattr(names, "__iter__"):
+        raise ValueError(f"option '{name}' must be strings, got {value!r}")
+    names = tuple(names)
+    if not all(isinstance(n, str) for n in names):
+        raise ValueError(f"option '{name}' must be strings, got {value!r}")
+    return names
+
+
+def parse_lowercase_set(name, value) -> frozenset:
+    """A list of str, or one space-separated str, as a set of lowercase str."""
+    return frozenset(n.lower() for n in parse_names(name, value))
+
+
+def parse_positive_seconds(name, value) -> float:
+    """A positive number of seconds as float."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
+        raise ValueError(f"option '{name}' must be a positive number of seconds, got {value!r}")
+    return float(value)
+
+
 @dataclass(frozen=True)
-class ReaderOptions:
-    """Validated reader options (see :data:`COMMON_OPTIONS` and each reader's ``options``).
+class SourceOptions:
+    """Options every reader accepts."""
 
-    ``pass_gap_seconds`` (s) is only accepted by readers that list it.
-    """
-
-    sensor: str = ""
-    platform: str | None = None
-    good_flag_meanings: frozenset = DEFAULT_GOOD_FLAG_MEANINGS
-    pass_gap_seconds: float = 60.0
+    sensor: str = option("", "source name written to the 'sensor' column (default: empty)",
+                         parse_string)
+    platform: str | None = option(
+        None, "platform identifier written to every row, overriding the file's own "
+              "(default: the file's 'platform' global attribute)", lambda name, value: str(value))
 
 
-def reader_options(reader, options: dict) -> ReaderOptions:
-    """Check ``options`` against ``reader.options`` and return them as :class:`ReaderOptions`.
+@dataclass(frozen=True)
+class CfOptions(SourceOptions):
+    """Options of the CF-generic readers, which keep rows by their flag meanings."""
+
+    good_flag_meanings: frozenset = option(
+        DEFAULT_GOOD_FLAG_MEANINGS, "flag meanings whose rows are kept (list of str, or one "
+                                    "space-separated str; default: good good_data nominal ok "
+                                    "valid probably_good)", parse_lowercase_set)
+
+
+def option_meanings(options_class) -> dict[str, str]:
+    """Name -> meaning of the options of a reader's options dataclass, in declaration order."""
+    return {f.name: f.metadata["meaning"] for f in dataclasses.fields(options_class)}
+
+
+def reader_options(reader, options: dict):
+    """Check ``options`` against ``reader.Options`` and return an instance of it.
 
     Raises ``TypeError`` naming an unknown option and listing the accepted ones, and
     ``ValueError`` for a value of the wrong kind, so a typo in a configuration fails at once.
+    A value of None means the option's default.
     """
-    unknown = sorted(set(options) - set(reader.options))
+    fields = {f.name: f for f in dataclasses.fields(reader.Options)}
+    unknown = sorted(set(options) - set(fields))
     if unknown:
         raise TypeError(
             f"unknown option(s) {', '.join(repr(u) for u in unknown)} for reader "
-            f"'{reader.kind}'; accepted options: {', '.join(reader.options)}")
+            f"'{reader.kind}'; accepted options: {', '.join(fields)}")
     values = {}
-    if options.get("sensor") is not None:
-        if not isinstance(options["sensor"], str):
-            raise ValueError(f"option 'sensor' must be a string, got {options['sensor']!r}")
-        values["sensor"] = options["sensor"]
-    if options.get("platform") is not None:
-        values["platform"] = str(options["platform"])
-    if options.get("good_flag_meanings") is not None:
-        meanings = options["good_flag_meanings"]
-        if isinstance(meanings, str):
-            meanings = meanings.split()
-        if not all(isinstance(m, str) for m in meanings):
-            raise ValueError(f"option 'good_flag_meanings' must be strings, got {meanings!r}")
-        values["good_flag_meanings"] = frozenset(m.lower() for m in meanings)
-    if options.get("pass_gap_seconds") is not None:
-        gap = options["pass_gap_seconds"]
-        if isinstance(gap, bool) or not isinstance(gap, (int, float)) or not gap > 0:
-            raise ValueError(f"option 'pass_gap_seconds' must be a positive number of "
-                             f"seconds, got {gap!r}")
-        values["pass_gap_seconds"] = float(gap)
-    return ReaderOptions(**values)
+    for name, value in options.items():
+        if value is None:
+            continue
+        parse = fields[name].metadata.get("parse")
+        values[name] = parse(name, value) if parse is not None else value
+    return reader.Options(**values)
 
 
 # --------------------------------------------------------------------------------------------
@@ -728,12 +755,14 @@ def rotate_grid_vectors_to_east_north(crs, lon, lat, u, v, sigma_u=None, sigma_v
     return east, north, sigma_east, sigma_north
 
 
-def horizontal_position(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
+def horizontal_position(ds: xr.Dataset, name: str, path, *,
+                        reading_part: bool) -> tuple[np.ndarray, np.ndarray]:
     """Longitude in [-180, 180) and latitude (degrees) of every value of variable ``name``.
 
     From latitude/longitude coordinates (``coordinates`` attribute, dimensions, or any variable
     on a subset of the dimensions); when there are none, from ``projection_x/y_coordinate`` and
     the CF ``grid_mapping`` through ``pyproj.CRS.from_cf``.  Arrays have ``name``'s shape.
+    A whole file (not ``reading_part``) without one finite position is an error.
     """
     var = ds[name]
     lat_name = find_coordinate(ds, name, "latitude")
@@ -748,7 +777,7 @@ def horizontal_position(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np
         lon, lat = lonlat_from_projection(crs, x, y)
         checked = ((name, lat),)
     for variable, values in checked:
-        if values.size and not READING_PART.get() and not np.isfinite(values).any():
+        if values.size and not reading_part and not np.isfinite(values).any():
             raise InputFileError(path, "every position value is fill/NaN", variable=variable)
     return wrap_longitude(lon), np.asarray(lat, dtype=np.float64)
 
@@ -826,7 +855,7 @@ def labels_as_strings(values) -> np.ndarray:
     return np.array([str(v).strip() for v in values.ravel()], dtype=str).reshape(values.shape)
 
 
-def platform_attribute(ds: xr.Dataset, opts: ReaderOptions) -> str:
+def platform_attribute(ds: xr.Dataset, opts: SourceOptions) -> str:
     """Platform from the option, else the ``platform`` global attribute, else ""."""
     if opts.platform is not None:
         return opts.platform
@@ -878,17 +907,14 @@ def decode_data_variable(ds: xr.Dataset, name: str, quantity: Quantity, path,
     return DecodedVariable(quantity, name, values, error, good)
 
 
-#: True while a reader reads one part of a file (see obsprep.readers.read, ``row_slice``)
-READING_PART = contextvars.ContextVar("obsprep_reading_part", default=False)
-
-
-def require_values(path, decoded: list[DecodedVariable]) -> None:
+def require_values(path, decoded: list[DecodedVariable], *, reading_part: bool) -> None:
     """Raise :class:`InputFileError` when the data variables hold values but every one is fill
     (an all-fill file is a broken product, not a night without data).
 
-    Not for a part of a file (:data:`READING_PART`): rows of fill at the edge of a swath or the
-    polar rows of a global grid are ordinary; their values are counted as ``missing_value``."""
-    if READING_PART.get():
+    Not for a part of a file (``reading_part``, see ``row_slice`` of
+    :func:`obsprep.readers.read`): rows of fill at the edge of a swath or the polar rows of a
+    global grid are ordinary; their values are counted as ``missing_value``."""
+    if reading_part:
         return
     total = sum(d.values.size for d in decoded)
     if total and not any(np.isfinite(d.values).any() for d in decoded):
@@ -902,28 +928,10 @@ NOT_IN_TABLE = "rejected_not_in_table"
 #: table attribute: the variable whose flat index the ``row`` column is
 ROW_VARIABLE = "row_variable"
 
-_LEAVE_OUT_REJECTED = contextvars.ContextVar("obsprep_leave_out_rejected", default=False)
-
-
-@contextlib.contextmanager
-def leaving_out_rejected_rows(enabled: bool = True):
-    """Within this context, :func:`observation_table` calls marked ``final`` leave the rows
-    they reject out of the table and count them in ``table.attrs[NOT_IN_TABLE]`` instead.
-
-    For the nightly build, which only counts those rows: on a cloudy swath they are most rows,
-    and building, checking and then dropping them costs more than reading them.  ``obsprep
-    read`` and ``inspect`` keep every row with its reason.
-    """
-    token = _LEAVE_OUT_REJECTED.set(bool(enabled))
-    try:
-        yield
-    finally:
-        _LEAVE_OUT_REJECTED.reset(token)
-
-
-def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lon, lat, time,
+def observation_table(path, opts: SourceOptions, decoded: DecodedVariable, *, lon, lat, time,
                       time_end=None, depth=None, group="", platform="", row=None, keep=None,
-                      missing=None, rejections=(), final=False) -> pd.DataFrame:
+                      missing=None, rejections=(),
+                      leave_out_rejected=False) -> pd.DataFrame:
     """The observation table for one decoded variable.
 
     Every array argument is broadcast to the variable's shape and flattened in source order.
@@ -936,9 +944,10 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     shape), the first reason of a row winning.  ``file_id`` is ``path``, ``sensor`` the option,
     ``error`` the file's standard_error where finite (``error_origin`` "file", else "unset").
 
-    ``final=True`` declares that the reader changes no rows afterwards: then, inside
-    :func:`leaving_out_rejected_rows`, the rejected rows are counted in
-    ``table.attrs[NOT_IN_TABLE]`` and left out.
+    ``leave_out_rejected=True`` (for the nightly build, which only counts those rows: on a
+    cloudy swath they are most rows) counts the rejected rows in ``table.attrs[NOT_IN_TABLE]``
+    and leaves them out; only for a reader that changes no rows afterwards.  ``obsprep read``
+    and ``inspect`` keep every row with its reason.
     """
     shape = decoded.values.shape
 
@@ -962,7 +971,7 @@ def observation_table(path, opts: ReaderOptions, decoded: DecodedVariable, *, lo
     ordered += [(flat(mask, bool), reason) for mask, reason in rejections]
     for mask, reason in ordered:  # loop over the few reasons, not the rows
         code[mask & (code < 0)] = reasons.index(reason)
-    leave_out = final and _LEAVE_OUT_REJECTED.get()
+    leave_out = bool(leave_out_rejected)
     select = None
     not_in_table = {}
     if leave_out:

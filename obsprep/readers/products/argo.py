@@ -24,6 +24,8 @@ What the reader does with it:
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
@@ -43,13 +45,6 @@ DEFAULT_GOOD_QC_FLAGS = frozenset("1258")
 DATA_MODE_RANK = {"R": 0, "A": 1, "D": 2}
 _PER_PROFILE = ("PLATFORM_NUMBER", "JULD", "LATITUDE", "LONGITUDE", "DATA_MODE")
 
-ARGO_OPTIONS = {
-    "sensor": cf.COMMON_OPTIONS["sensor"],
-    "platform": cf.COMMON_OPTIONS["platform"],
-    "good_qc_flags": "Argo QC flags kept for levels, POSITION_QC and JULD_QC (list, or a str "
-                     "such as \"1258\" or \"1 2 5 8\"; default 1 2 5 8)",
-}
-
 
 def good_qc_flags(value) -> frozenset:
     """The kept QC flags as a set of one-character strings."""
@@ -61,6 +56,16 @@ def good_qc_flags(value) -> frozenset:
     if not flags or not all(len(f) == 1 and f.isdigit() for f in flags):
         raise ValueError(f"option 'good_qc_flags' must be Argo flags 0-9, got {value!r}")
     return frozenset(flags)
+
+
+@dataclass(frozen=True)
+class ArgoOptions(cf.SourceOptions):
+    """Options of the Argo reader (Argo QC flags instead of CF flag meanings)."""
+
+    good_qc_flags: frozenset = cf.option(
+        DEFAULT_GOOD_QC_FLAGS, "Argo QC flags kept for levels, POSITION_QC and JULD_QC (list, or "
+                               "a str such as \"1258\" or \"1 2 5 8\"; default 1 2 5 8)",
+        lambda name, value: good_qc_flags(value))
 
 
 def _as_bytes(values, width: int) -> np.ndarray:
@@ -228,14 +233,14 @@ class ArgoProfileReader(Reader):
     kind = "argo"
     priority = 10
     description = "Argo profile netCDF (PRES/TEMP/PSAL, DATA_MODE, QC flags, JULD)"
-    options = ARGO_OPTIONS
+    Options = ArgoOptions
 
     def guess_can_open(self, ds) -> bool:
         return is_argo_profile_file(ds)
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
-        good = good_qc_flags(options.get("good_qc_flags"))
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
+        good = opts.good_qc_flags
         argo = _ArgoFile(ds, path)
         names = [p for p in ARGO_PARAMETERS if p in ds.variables]
         if not names:
@@ -248,7 +253,7 @@ class ArgoProfileReader(Reader):
                                                ARGO_PARAMETERS[name])
             decoded.append(cf.DecodedVariable(ARGO_PARAMETERS[name], name, values, error))
             qcs.append(qc)
-        cf.require_values(path, decoded)
+        cf.require_values(path, decoded, reading_part=reading_part)
         shape = (argo.n_prof, argo.n_levels)
         lat = np.broadcast_to(argo.lat[:, None], shape)
         from obsprep.readers.products.profiles import depth_from_pressure
@@ -285,7 +290,8 @@ class ArgoProfileReader(Reader):
     def identities(self, ds, path, **options) -> pd.DataFrame:
         """One row per profile for the duplicate check, from the per-profile variables only:
         ``group``, ``platform``, ``time``, ``lon``, ``lat``, ``rank`` (DATA_MODE: D 2, A 1,
-        R 0) and ``n_valid`` (levels with a finite pressure)."""
+        R 0) and ``n_valid`` (levels with a finite pressure).  ``options`` (the source's) are
+        checked as for :func:`obsprep.readers.read`; none changes the identities."""
         cf.reader_options(self, options)
         argo = _ArgoFile(ds, path)
         pressure = np.asarray(ds["PRES"].values, dtype=np.float64)

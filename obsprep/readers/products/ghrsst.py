@@ -25,6 +25,7 @@ What the readers do with it:
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -44,14 +45,33 @@ DEFAULT_REJECT_L2P_FLAGS = ("land", "ice", "lake", "river")
 L2P_FLAG_REASONS = {"land": "l2p_flag_land", "ice": "l2p_flag_ice", "lake": "l2p_flag_lake",
                     "river": "l2p_flag_river"}
 
-GHRSST_OPTIONS = {
-    "sensor": cf.COMMON_OPTIONS["sensor"],
-    "platform": cf.COMMON_OPTIONS["platform"],
-    "min_quality_level": "lowest quality_level kept, 0-5 (default 4: acceptable and best)",
-    "subtract_sses_bias": "subtract sses_bias from the SST (default true, as GDS 2.0 intends)",
-    "reject_l2p_flags": "l2p_flags meanings whose rows are rejected (list or space-separated "
-                        "str; default: land ice lake river)",
-}
+def parse_quality_level(name, value) -> int:
+    """A GDS 2.0 quality level, an integer 0-5."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not 0 <= value <= 5:
+        raise ValueError(f"option '{name}' must be an integer 0-5, got {value!r}")
+    return int(value)
+
+
+def parse_switch(name, value) -> bool:
+    """A true/false option."""
+    if not isinstance(value, bool):
+        raise ValueError(f"option '{name}' must be true or false, got {value!r}")
+    return value
+
+
+@dataclass(frozen=True)
+class GhrsstOptions(cf.SourceOptions):
+    """Options of the GDS 2.0 readers (quality levels and l2p_flags instead of flag meanings)."""
+
+    min_quality_level: int = cf.option(
+        DEFAULT_MIN_QUALITY_LEVEL, "lowest quality_level kept, 0-5 (default 4: acceptable and "
+                                   "best)", parse_quality_level)
+    subtract_sses_bias: bool = cf.option(
+        True, "subtract sses_bias from the SST (default true, as GDS 2.0 intends)", parse_switch)
+    reject_l2p_flags: tuple = cf.option(
+        DEFAULT_REJECT_L2P_FLAGS, "l2p_flags meanings whose rows are rejected (list or "
+                                  "space-separated str; default: land ice lake river)",
+        lambda name, value: tuple(n.lower() for n in cf.parse_names(name, value)))
 
 
 def is_gds2(ds) -> bool:
@@ -61,22 +81,6 @@ def is_gds2(ds) -> bool:
     if version:
         return version.startswith("2")
     return "sst_dtime" in ds.variables and "quality_level" in ds.variables
-
-
-def ghrsst_options(options: dict) -> tuple[int, bool, tuple]:
-    """(min_quality_level, subtract_sses_bias, reject_l2p_flags) from reader options, checked."""
-    level = options.get("min_quality_level", DEFAULT_MIN_QUALITY_LEVEL)
-    if isinstance(level, bool) or not isinstance(level, (int, np.integer)) or not 0 <= level <= 5:
-        raise ValueError(f"option 'min_quality_level' must be an integer 0-5, got {level!r}")
-    subtract = options.get("subtract_sses_bias", True)
-    if not isinstance(subtract, bool):
-        raise ValueError(f"option 'subtract_sses_bias' must be true or false, got {subtract!r}")
-    flags = options.get("reject_l2p_flags", DEFAULT_REJECT_L2P_FLAGS)
-    if isinstance(flags, str):
-        flags = flags.split()
-    if not all(isinstance(f, str) for f in flags):
-        raise ValueError(f"option 'reject_l2p_flags' must be strings, got {flags!r}")
-    return int(level), subtract, tuple(f.lower() for f in flags)
 
 
 def reference_time(ds, name, path) -> np.ndarray:
@@ -97,7 +101,7 @@ def reference_time(ds, name, path) -> np.ndarray:
 
 
 class _GhrsstReader(Reader):
-    options = GHRSST_OPTIONS
+    Options = GhrsstOptions
     latitude_ndim = 2
     priority = 10
 
@@ -121,9 +125,10 @@ class _GhrsstReader(Reader):
                                        f"{ds[name].dims}", variable=variable)
         return var
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
-        min_level, subtract_bias, reject_flags = ghrsst_options(options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
+        min_level, subtract_bias, reject_flags = (opts.min_quality_level, opts.subtract_sses_bias,
+                                                  opts.reject_l2p_flags)
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
             ds, path, SST.accepted_standard_names, "sea surface temperature")
         sst = ds[name]
@@ -156,9 +161,9 @@ class _GhrsstReader(Reader):
             error = kelvin_difference(sd_var)
             used.append("sses_standard_deviation")
         decoded = cf.DecodedVariable(SST, name, values, error)
-        cf.require_values(path, [decoded])
+        cf.require_values(path, [decoded], reading_part=reading_part)
 
-        lon, lat = cf.horizontal_position(ds, name, path)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = reference_time(ds, name, path)
         dtime_var = self._pixel(ds, name, "sst_dtime", path)
         if dtime_var is not None:
@@ -190,7 +195,8 @@ class _GhrsstReader(Reader):
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
                                      platform=cf.platform_attribute(ds, opts),
-                                     rejections=rejections, final=True)
+                                     rejections=rejections,
+                                     leave_out_rejected=leave_out_rejected)
         lat_name = cf.find_coordinate(ds, name, "latitude")
         lon_name = cf.find_coordinate(ds, name, "longitude")
         table.attrs["variables"] = cf.variable_units(ds, used + [lat_name, lon_name, "time"])

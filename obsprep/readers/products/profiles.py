@@ -108,14 +108,14 @@ class ProfileReader(Reader):
 
     kind = "profiles"
     description = "T/S profiles (CF featureType profile: multidimensional or ragged arrays)"
-    options = dict(cf.COMMON_OPTIONS)
+    Options = cf.CfOptions
 
     def guess_can_open(self, ds) -> bool:
         return (str(ds.attrs.get("featureType", "")).lower() == "profile"
                 and bool(_quantity_variables(ds)))
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         names = _quantity_variables(ds)
         if not names:
             raise InputFileError(path, "no profile variables: expected standard_name "
@@ -127,7 +127,7 @@ class ProfileReader(Reader):
                                            f"{first.dims} of '{first.name}'", variable=name)
         decoded = [cf.decode_data_variable(ds, n, q, path, opts.good_flag_meanings)
                    for q, n in names.items()]
-        cf.require_values(path, decoded)
+        cf.require_values(path, decoded, reading_part=reading_part)
         layout = _Layout(ds, first, path)
 
         def coordinate(kind):
