@@ -854,3 +854,15 @@ def test_reader_options_mapping_is_derived_from_the_options_dataclass():
     assert options.add_corrections == ("tide", "dac") and options.pass_gap_seconds == 30.0
     with pytest.raises(dataclasses.FrozenInstanceError):
         options.sensor = "x"
+
+
+def test_leaving_out_rejected_rows_counts_what_the_full_table_holds(tmp_path):
+    # the build's lean read must account for exactly the rows the full read rejects
+    # (never silent: every dropped raw value is counted under its reason)
+    path = alongtrack_file(tmp_path / "a.nc", sla=[0.1, np.nan, 0.2, np.nan, np.nan, 0.3])
+    full = read(path)
+    lean = read(path, leave_out_rejected=True)
+    counted = full["rejected"].value_counts()
+    assert lean.attrs[cf.NOT_IN_TABLE] == {str(k): int(v) for k, v in counted.items() if v}
+    assert lean.attrs[cf.NOT_IN_TABLE] == {"missing_value": 3}
+    assert lean["row"].tolist() == [0, 2, 5]

@@ -16,7 +16,6 @@ import numpy as np
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
-from obsprep.model.table import reject
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
@@ -101,8 +100,9 @@ class AlongTrackReader(Reader):
             passes = pass_index_from_time_gaps(time, opts.pass_gap_seconds)
             group = np.char.add("pass_", np.char.zfill(passes.astype(str), 4))
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                     group=group, platform=cf.platform_attribute(ds, opts))
-        reject(table, correction_missing, "missing_correction")
+                                     group=group, platform=cf.platform_attribute(ds, opts),
+                                     rejections=[(correction_missing, "missing_correction")],
+                                     leave_out_rejected=leave_out_rejected)
         names = [name] + [cf.find_coordinate(ds, name, k) for k in ("latitude", "longitude",
                                                                      "time")]
         table.attrs["variables"] = cf.variable_units(ds, names + trajectory[:1] + used)

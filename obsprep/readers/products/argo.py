@@ -31,7 +31,7 @@ import pandas as pd
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
-from obsprep.model.table import concat_tables, reject
+from obsprep.model.table import concat_tables
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
@@ -263,13 +263,8 @@ class ArgoProfileReader(Reader):
         for d in decoded:
             padding &= ~np.isfinite(d.values)
         keep = ~padding
-        keep_flat = keep.ravel()
-
-        def flat(a):
-            return np.broadcast_to(a, shape).ravel()[keep_flat]
-
-        position_bad = flat(~np.isin(argo.qc("POSITION_QC"), list(good))[:, None])
-        time_bad = flat(~np.isin(argo.qc("JULD_QC"), list(good))[:, None])
+        position_bad = ~np.isin(argo.qc("POSITION_QC"), list(good))[:, None]
+        time_bad = ~np.isin(argo.qc("JULD_QC"), list(good))[:, None]
         pressure_bad = ~np.isin(pressure_qc, list(good))
         tables = []
         platform = argo.platform if opts.platform is None else opts.platform
@@ -278,10 +273,9 @@ class ArgoProfileReader(Reader):
                 path, opts, d, lon=argo.lon[:, None], lat=lat, time=argo.time[:, None],
                 depth=depth, group=argo.group[:, None],
                 platform=platform if np.ndim(platform) == 0 else platform[:, None],
-                keep=keep, missing=~np.isfinite(depth))
-            reject(table, position_bad, "position_qc")
-            reject(table, time_bad, "time_qc")
-            reject(table, flat(~np.isin(qc, list(good)) | pressure_bad), "argo_qc_flag")
+                keep=keep, missing=~np.isfinite(depth),
+                rejections=[(position_bad, "position_qc"), (time_bad, "time_qc"),
+                            (~np.isin(qc, list(good)) | pressure_bad, "argo_qc_flag")])
             tables.append(table)
         table = concat_tables(tables)
         table.attrs["variables"] = cf.variable_units(ds, argo.used_variables(["PRES"] + names))

@@ -36,6 +36,7 @@ class IceConcentrationReader(Reader):
         lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                     platform=cf.platform_attribute(ds, opts))
+                                     platform=cf.platform_attribute(ds, opts),
+                                     leave_out_rejected=leave_out_rejected)
         table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
         return table

@@ -57,7 +57,8 @@ class SstSwathReader(Reader):
         time = cf.observation_time(ds, name, path)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
-                                     platform=cf.platform_attribute(ds, opts))
+                                     platform=cf.platform_attribute(ds, opts),
+                                     leave_out_rejected=leave_out_rejected)
         table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
         return table
 
