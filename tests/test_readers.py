@@ -866,3 +866,20 @@ def test_leaving_out_rejected_rows_counts_what_the_full_table_holds(tmp_path):
     assert lean.attrs[cf.NOT_IN_TABLE] == {str(k): int(v) for k, v in counted.items() if v}
     assert lean.attrs[cf.NOT_IN_TABLE] == {"missing_value": 3}
     assert lean["row"].tolist() == [0, 2, 5]
+
+
+def test_reader_reasons_are_registered_by_their_modules_in_stage_order():
+    # the ledger lists reasons in REASONS order: common ones, then the readers', then QC
+    # (GDS 2.0 quality_level and l2p_flags, Argo QC flags: the reasons their readers produce)
+    from obsprep.model import reasons
+
+    order = list(reasons.REASONS)
+    for code in ("quality_level", "l2p_flag_ice", "missing_correction", "argo_qc_flag",
+                 "position_qc", "time_qc"):
+        assert order.index("quantity_not_selected") < order.index(code) \
+            < order.index("argo_global_range")
+    with pytest.raises(ValueError, match="already registered"):
+        reasons.register_reason("quality_level", "something else", stage="reader")
+    with pytest.raises(ValueError, match="unknown stage"):
+        reasons.register_reason("a_new_code", "a new reason", stage="writer")
+    assert "a_new_code" not in reasons.REASONS

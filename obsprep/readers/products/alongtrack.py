@@ -16,10 +16,13 @@ import numpy as np
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
+from obsprep.model.reasons import register_reason
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
 SEA_LEVEL_ANOMALY = get_quantity("sea_level_anomaly")
+register_reason("missing_correction", "a correction named in the configuration is fill for "
+                                      "this value", stage="reader")
 
 
 def _data_variable(ds) -> str | None:

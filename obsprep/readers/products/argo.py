@@ -31,6 +31,7 @@ import pandas as pd
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
+from obsprep.model.reasons import register_reason
 from obsprep.model.table import concat_tables
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
@@ -41,6 +42,11 @@ ARGO_PARAMETERS = {"TEMP": get_quantity("sea_water_temperature"),
 #: QC flags kept by default: good, probably good, value changed, estimated (Argo user's manual,
 #: from memory)
 DEFAULT_GOOD_QC_FLAGS = frozenset("1258")
+register_reason("argo_qc_flag", "Argo level QC flag (of the value or its pressure) not in the "
+                                "kept set", stage="reader")
+register_reason("position_qc", "Argo POSITION_QC not in the kept set", stage="reader")
+register_reason("time_qc", "Argo JULD_QC not in the kept set", stage="reader")
+
 #: DATA_MODE -> preference when the same profile comes twice (delayed > adjusted > real time)
 DATA_MODE_RANK = {"R": 0, "A": 1, "D": 2}
 _PER_PROFILE = ("PLATFORM_NUMBER", "JULD", "LATITUDE", "LONGITUDE", "DATA_MODE")

@@ -31,6 +31,7 @@ import numpy as np
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
+from obsprep.model.reasons import register_reason
 from obsprep.readers import cf
 from obsprep.readers.products.sst_swath import sst_variable_with_latitude_ndim
 from obsprep.readers.registry import Reader, register_reader
@@ -41,6 +42,15 @@ SST = get_quantity("sea_surface_temperature")
 GDS2_TIME_UNITS = "seconds since 1981-01-01 00:00:00"
 DEFAULT_MIN_QUALITY_LEVEL = 4
 DEFAULT_REJECT_L2P_FLAGS = ("land", "ice", "lake", "river")
+register_reason("quality_level", "GHRSST quality_level below the source's minimum "
+                                 "(GDS 2.0: 0 no data .. 5 best)", stage="reader")
+register_reason("missing_bias", "bias correction requested but the file's sses_bias is fill",
+                stage="reader")
+for _meaning in ("land", "ice", "lake", "river"):
+    register_reason(f"l2p_flag_{_meaning}", f"GHRSST l2p_flags bit '{_meaning}' set", stage="reader")
+register_reason("l2p_flag_other", "another GHRSST l2p_flags bit named in the source's reject "
+                                  "list set", stage="reader")
+
 #: l2p_flags meaning -> rejection reason; other meanings give ``l2p_flag_other``
 L2P_FLAG_REASONS = {"land": "l2p_flag_land", "ice": "l2p_flag_ice", "lake": "l2p_flag_lake",
                     "river": "l2p_flag_river"}
