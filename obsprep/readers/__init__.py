@@ -78,7 +78,7 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
         reader = registered_readers().get(kind)
         try:
             dimension = reader.slice_dimension(ds) if reader is not None else None
-        except (KeyError, ValueError, TypeError, IndexError):
+        except InputFileError:
             dimension = None  # read whole: the reader itself will say what is wrong
         if dimension is None or dimension not in ds.sizes:
             return [None]
