@@ -146,7 +146,7 @@ def test_kept_flags_are_configurable(argo_file):
     default = reasons(read(argo_file))
     assert sum(r == "argo_qc_flag" for r in reasons(table)) == sum(
         r == "argo_qc_flag" for r in default) + 2
-    with pytest.raises(InputFileError, match="good_qc_flags"):
+    with pytest.raises(ValueError, match="good_qc_flags"):
         read(argo_file, good_qc_flags=["good"])
 
 

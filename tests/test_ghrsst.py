@@ -157,10 +157,11 @@ def test_options_minimum_quality_flags_and_bias_switch(l2p):
     # without the bias correction the value is the file's SST (netCDF4 unpacking)
     np.testing.assert_allclose(table["value"], netcdf4_decoded(path, "sea_surface_temperature")
                                .ravel() - 273.15, atol=1e-9)
-    with pytest.raises(InputFileError, match="min_quality_level"):
+    with pytest.raises(ValueError, match="min_quality_level"):
         read(path, min_quality_level=6)
-    with pytest.raises(InputFileError, match="good_flag_meanings"):
-        read(path, good_flag_meanings="good")  # not an option of the GDS 2.0 reader
+    with pytest.raises(TypeError, match="good_flag_meanings"):
+        # not an option of the GDS 2.0 reader
+        read(path, kind="ghrsst_l2p", good_flag_meanings="good")
 
 
 def test_l3_grid_with_one_dimensional_coordinates(tmp_path):

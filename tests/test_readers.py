@@ -706,12 +706,14 @@ def test_alongtrack_trajectory_id_is_the_group(tmp_path):
 
 def test_unknown_option_is_named(tmp_path):
     path = alongtrack_file(tmp_path / "a.nc")
-    with pytest.raises(InputFileError, match="'sensr'") as info:
+    # a wrong option is a mistake of the caller, not a problem of the file
+    with pytest.raises(TypeError, match="'sensr'") as info:
         read(path, sensr="x")
-    assert "accepted options" in str(info.value) and path in str(info.value)
-    with pytest.raises(InputFileError, match="pass_gap_seconds"):
-        read(sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0)), pass_gap_seconds=10)
-    with pytest.raises(InputFileError, match="positive"):
+    assert "accepted options" in str(info.value)
+    with pytest.raises(TypeError, match="pass_gap_seconds"):
+        read(sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0)), kind="sst_grid",
+             pass_gap_seconds=10)
+    with pytest.raises(ValueError, match="positive"):
         read(path, pass_gap_seconds=-1)
 
 
@@ -811,3 +813,73 @@ def test_gridded_rows_account_for_every_value(tmp_path):
     assert (table["rejected"].astype(object) == "missing_value").sum() == 3
     np.testing.assert_allclose(table["lat"], [50.0] * 3 + [51.0] * 3)
     np.testing.assert_allclose(table["lon"], [0.0, 1.0, 2.0] * 2)
+
+
+def test_programming_error_inside_a_reader_is_not_called_a_bad_file(tmp_path, monkeypatch):
+    # only real file problems become InputFileError; a bug must surface as itself so the
+    # build reports an internal error instead of a silently missing sensor (common practice)
+    path = alongtrack_file(tmp_path / "a.nc")
+    reader = registered_readers()["alongtrack"]
+
+    def broken(*args, **kwargs):
+        raise KeyError("a key the code got wrong")
+
+    monkeypatch.setattr(reader, "read_dataset", broken)
+    with pytest.raises(KeyError, match="a key the code got wrong") as info:
+        read(path, kind="alongtrack")
+    assert not isinstance(info.value, InputFileError)
+
+
+def test_auto_kind_gives_a_reader_only_the_options_it_declares(tmp_path):
+    # one source with kind auto may mix files of several readers: each reader takes its own
+    # options (validated against all readers at configuration load)
+    path = sst_grid_file(tmp_path / "s.nc", np.full(6, 290.0))
+    plain = read(path, sensor="sst_a")
+    mixed = read(path, sensor="sst_a", pass_gap_seconds=10)
+    assert mixed.attrs["kind"] == "sst_grid"
+    assert mixed.equals(plain) and set(mixed["sensor"]) == {"sst_a"}
+    with pytest.raises(TypeError, match="'pass_gap_secs'"):
+        read(path, pass_gap_secs=10)
+
+
+def test_reader_options_mapping_is_derived_from_the_options_dataclass():
+    import dataclasses
+
+    for reader in registered_readers().values():
+        fields = dataclasses.fields(reader.Options)
+        assert list(reader.options) == [f.name for f in fields]
+        assert all(reader.options[f.name] == f.metadata["meaning"] for f in fields)
+    options = cf.reader_options(registered_readers()["alongtrack"],
+                                {"add_corrections": "tide dac", "pass_gap_seconds": 30})
+    assert options.add_corrections == ("tide", "dac") and options.pass_gap_seconds == 30.0
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        options.sensor = "x"
+
+
+def test_leaving_out_rejected_rows_counts_what_the_full_table_holds(tmp_path):
+    # the build's lean read must account for exactly the rows the full read rejects
+    # (never silent: every dropped raw value is counted under its reason)
+    path = alongtrack_file(tmp_path / "a.nc", sla=[0.1, np.nan, 0.2, np.nan, np.nan, 0.3])
+    full = read(path)
+    lean = read(path, leave_out_rejected=True)
+    counted = full["rejected"].value_counts()
+    assert lean.attrs[cf.NOT_IN_TABLE] == {str(k): int(v) for k, v in counted.items() if v}
+    assert lean.attrs[cf.NOT_IN_TABLE] == {"missing_value": 3}
+    assert lean["row"].tolist() == [0, 2, 5]
+
+
+def test_reader_reasons_are_registered_by_their_modules_in_stage_order():
+    # the ledger lists reasons in REASONS order: common ones, then the readers', then QC
+    # (GDS 2.0 quality_level and l2p_flags, Argo QC flags: the reasons their readers produce)
+    from obsprep.model import reasons
+
+    order = list(reasons.REASONS)
+    for code in ("quality_level", "l2p_flag_ice", "missing_correction", "argo_qc_flag",
+                 "position_qc", "time_qc"):
+        assert order.index("quantity_not_selected") < order.index(code) \
+            < order.index("argo_global_range")
+    with pytest.raises(ValueError, match="already registered"):
+        reasons.register_reason("quality_level", "something else", stage="reader")
+    with pytest.raises(ValueError, match="unknown stage"):
+        reasons.register_reason("a_new_code", "a new reason", stage="writer")
+    assert "a_new_code" not in reasons.REASONS

@@ -17,24 +17,29 @@ REASONS: dict[str, str] = {
     "below_deepest_layer": "deeper than the deepest model layer interface",
     "vector_incomplete": "the other component of the vector was missing or rejected",
     "quantity_not_selected": "quantity not selected for this source in the configuration",
-    # format-specific reader verdicts (issue 3)
-    "quality_level": "GHRSST quality_level below the source's minimum (GDS 2.0: 0 no data .. 5 best)",
-    "missing_bias": "bias correction requested but the file's sses_bias is fill",
-    "l2p_flag_land": "GHRSST l2p_flags bit 'land' set",
-    "l2p_flag_ice": "GHRSST l2p_flags bit 'ice' set",
-    "l2p_flag_lake": "GHRSST l2p_flags bit 'lake' set",
-    "l2p_flag_river": "GHRSST l2p_flags bit 'river' set",
-    "l2p_flag_other": "another GHRSST l2p_flags bit named in the source's reject list set",
-    "missing_correction": "a correction named in the configuration is fill for this value",
-    "argo_qc_flag": "Argo level QC flag (of the value or its pressure) not in the kept set",
-    "position_qc": "Argo POSITION_QC not in the kept set",
-    "time_qc": "Argo JULD_QC not in the kept set",
-    # the quality-control checks register theirs (obsprep.qc.registry)
+    # readers and quality-control checks register their own (register_reason)
 }
 
 
-def register_reason(code: str, description: str) -> None:
-    """Add a rejection reason (used by QC modules that define their own tests)."""
-    if code in REASONS and REASONS[code] != description:
-        raise ValueError(f"rejection reason '{code}' is already registered")
-    REASONS[code] = description
+#: the stages in the order their reasons are listed (ledger columns follow this order)
+STAGES = ("common", "reader", "qc")
+_STAGE_OF = {code: "common" for code in REASONS}
+
+
+def register_reason(code: str, description: str, stage: str = "qc") -> None:
+    """Add a rejection reason (used by readers and QC modules that define their own tests).
+
+    ``REASONS`` stays ordered by stage (:data:`STAGES`), then by registration, so a reader's
+    reasons come after the common ones and before the quality-control ones whatever the
+    order of imports between stages."""
+    if stage not in STAGES:
+        raise ValueError(f"unknown stage '{stage}' of rejection reason '{code}'; known: {STAGES}")
+    if code in REASONS:
+        if REASONS[code] != description or _STAGE_OF[code] != stage:
+            raise ValueError(f"rejection reason '{code}' is already registered")
+        return
+    _STAGE_OF[code] = stage
+    items = list(REASONS.items()) + [(code, description)]
+    REASONS.clear()  # in place: modules hold this dict by name
+    for stage_name in STAGES:
+        REASONS.update((c, d) for c, d in items if _STAGE_OF[c] == stage_name)

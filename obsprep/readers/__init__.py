@@ -78,7 +78,7 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
         reader = registered_readers().get(kind)
         try:
             dimension = reader.slice_dimension(ds) if reader is not None else None
-        except (KeyError, ValueError, TypeError, IndexError):
+        except InputFileError:
             dimension = None  # read whole: the reader itself will say what is wrong
         if dimension is None or dimension not in ds.sizes:
             return [None]
@@ -98,7 +98,7 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
         ds.close()
 
 
-def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_slice=None,
+def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_slice=None,
          **options) -> pd.DataFrame:
     """Read one observation file into the observation table.
 
@@ -113,14 +113,18 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         conventions (:data:`obsprep.readers.cf.READER_PROFILE_KEYS`); its
         ``good_flag_meanings`` becomes the reader option of that name.
     leave_out_rejected : bool
-        Readers that can (:func:`obsprep.readers.cf.leaving_out_rejected_rows`) leave the rows
+        Readers that can (``leave_out_rejected`` of :func:`obsprep.readers.cf.observation_table`)
+        leave the rows
         they reject out of the table and count them in ``attrs["rejected_not_in_table"]``
         ({reason: rows}); the build uses this, ``obsprep read`` and ``inspect`` do not.
     row_slice : slice, optional
         Read only this part of the reader's slice dimension (see :func:`read_parts`); the
         ``row`` column still numbers the values of the whole file.
     **options
-        Reader options, e.g. ``sensor="alt_a"``.
+        Reader options, e.g. ``sensor="alt_a"``, parsed into the reader's ``Options``; an
+        unknown option raises ``TypeError``, an ill-typed one ``ValueError``.  With kind auto,
+        an option no registered reader declares is unknown, and the reader chosen receives the
+        options it declares.
 
     Returns
     -------
@@ -128,7 +132,7 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from obsprep.readers.cf import READING_PART, leaving_out_rejected_rows, open_dataset, unreadable_data
+    from obsprep.readers.cf import open_dataset, reader_options, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -141,32 +145,38 @@ def read(path, kind=None, reader_profile=None, leave_out_rejected=False, row_sli
                                        "and in the reader profile, with different values")
         options["good_flag_meanings"] = profile.pop("good_flag_meanings")
     profile.pop("good_flag_meanings", None)
+    auto = kind in (None, "auto")
+    if auto:
+        declared = {name for reader in readers.values() for name in reader.options}
+        unknown = sorted(set(options) - declared)
+        if unknown:
+            raise TypeError(f"unknown option(s) {', '.join(repr(u) for u in unknown)}; no "
+                            f"reader accepts them; accepted options: {', '.join(sorted(declared))}")
+    else:
+        parsed = reader_options(readers[kind], options)
     # lazy: a variable is read (once, then cached) when the reader first uses it, so the
     # many variables of a product that obsprep does not need are never read or decoded
     ds = open_dataset(path, profile=profile or None, load=False)
     try:
-        if kind in (None, "auto"):
+        if auto:
             kind = guess_kind(path, ds)
+            parsed = reader_options(readers[kind], {k: v for k, v in options.items()
+                                                    if k in readers[kind].options})
         whole = ds
         if row_slice is not None:
             dimension = readers[kind].slice_dimension(ds)
             if dimension is None:
                 raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
             ds = ds.isel({dimension: row_slice})
-        part = READING_PART.set(row_slice is not None)
-        try:
-            with leaving_out_rejected_rows(leave_out_rejected):
-                table = readers[kind].read_dataset(ds, path, **options)
-        finally:
-            READING_PART.reset(part)
+        table = readers[kind].read_dataset(ds, path, options=parsed,
+                                           leave_out_rejected=bool(leave_out_rejected),
+                                           reading_part=row_slice is not None)
         if row_slice is not None:
             _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
     except InputFileError:
         raise
     except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
         raise unreadable_data(path, exc) from exc
-    except (KeyError, ValueError, TypeError, IndexError, OverflowError) as exc:
-        raise InputFileError(path, f"reader '{kind}' failed: {exc}") from exc
     finally:
         ds.close()
     table.attrs["kind"] = kind

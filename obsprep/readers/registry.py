@@ -7,13 +7,17 @@ A reader is one small class in one module::
         kind = "alongtrack"
         description = "along-track altimetry (CF point/trajectory series)"
 
+        Options = AlongTrackOptions  # a frozen dataclass of cf.option fields
+
         def guess_can_open(self, ds) -> bool: ...
-        def read_dataset(self, ds, path, **options) -> pandas.DataFrame: ...
+        def read_dataset(self, ds, path, *, options, leave_out_rejected,
+                         reading_part) -> pandas.DataFrame: ...
 
 ``guess_can_open`` and ``read_dataset`` receive the file already opened by
 :func:`obsprep.readers.cf.open_dataset` (CF packing and fill decoded, times *not* decoded), so
 readers never repeat the CF decoding; they find variables by standard_name and return an
-observation table (:func:`obsprep.model.table.make_table`).
+observation table (:func:`obsprep.model.table.make_table`).  ``options`` is an instance of
+the reader's ``Options`` (parsed once by :func:`obsprep.readers.read`).
 """
 
 from __future__ import annotations
@@ -21,23 +25,38 @@ from __future__ import annotations
 import pandas as pd
 import xarray as xr
 
+from obsprep.readers.cf import CfOptions, option_meanings
+
 
 class Reader:
     """Base class of observation readers; subclasses set ``kind`` and ``description``."""
 
     kind: str = ""
     description: str = ""
-    #: reader options a config may pass, name -> meaning (shown in errors and docs)
-    options: dict[str, str] = {}
+    #: the reader's options: a frozen dataclass of :func:`obsprep.readers.cf.option` fields
+    Options: type = CfOptions
+    #: reader options a config may pass, name -> meaning (shown in errors and docs); derived
+    #: from ``Options``
+    options: dict[str, str] = option_meanings(CfOptions)
     #: order of guessing: readers of a specific format (higher) are asked before CF-generic ones
     priority: int = 0
+
+    def __init_subclass__(cls, **kwargs):
+        super().__init_subclass__(**kwargs)
+        cls.options = option_meanings(cls.Options)
 
     def guess_can_open(self, ds: xr.Dataset) -> bool:  # pragma: no cover - interface
         """Return True when this reader recognises ``ds`` from its metadata alone."""
         raise NotImplementedError
 
-    def read_dataset(self, ds: xr.Dataset, path: str, **options) -> pd.DataFrame:  # pragma: no cover
-        """Return the observation table for ``ds`` (opened from ``path``)."""
+    def read_dataset(self, ds: xr.Dataset, path: str, *, options, leave_out_rejected: bool,
+                     reading_part: bool) -> pd.DataFrame:  # pragma: no cover - interface
+        """Return the observation table for ``ds`` (opened from ``path``).
+
+        ``options`` is an instance of :attr:`Options`; with ``leave_out_rejected`` the rows
+        the reader rejects may be left out and counted (``leave_out_rejected`` of
+        :func:`obsprep.readers.cf.observation_table`); ``reading_part`` says ``ds`` is one part
+        of a file (see :meth:`slice_dimension`), where rows all of fill are ordinary."""
         raise NotImplementedError
 
     def slice_dimension(self, ds: xr.Dataset) -> str | None:

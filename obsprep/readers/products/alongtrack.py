@@ -10,15 +10,19 @@ rejected as ``missing_correction``.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
-from obsprep.model.table import reject
+from obsprep.model.reasons import register_reason
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
 SEA_LEVEL_ANOMALY = get_quantity("sea_level_anomaly")
+register_reason("missing_correction", "a correction named in the configuration is fill for "
+                                      "this value", stage="reader")
 
 
 def _data_variable(ds) -> str | None:
@@ -38,6 +42,22 @@ def pass_index_from_time_gaps(time, gap_seconds: float) -> np.ndarray:
     return np.concatenate([[0], np.cumsum(new_pass)]).astype(np.int64)
 
 
+@dataclass(frozen=True)
+class AlongTrackOptions(cf.CfOptions):
+    """Options of the along-track reader."""
+
+    pass_gap_seconds: float = cf.option(
+        60.0, "split passes at time gaps longer than this (s, default 60) when the file has no "
+              "trajectory_id variable", cf.parse_positive_seconds)
+    pass_variable: str | None = cf.option(
+        None, "variable holding the pass/track number (default: the cf_role = trajectory_id "
+              "variable, else time gaps)", cf.parse_string)
+    add_corrections: tuple = cf.option(
+        (), "variables (m, or any length unit) added to the value", cf.parse_names)
+    subtract_corrections: tuple = cf.option(
+        (), "variables (m, or any length unit) subtracted from the value", cf.parse_names)
+
+
 @register_reader
 class AlongTrackReader(Reader):
     """Along-track altimetry: ``group`` is the ``cf_role = "trajectory_id"`` variable when
@@ -45,14 +65,7 @@ class AlongTrackReader(Reader):
 
     kind = "alongtrack"
     description = "along-track sea level anomaly (1-D series with 1-D time/lat/lon)"
-    options = {**cf.COMMON_OPTIONS,
-               "pass_gap_seconds": "split passes at time gaps longer than this (s, default 60) "
-                                   "when the file has no trajectory_id variable",
-               "pass_variable": "variable holding the pass/track number (default: the "
-                                "cf_role = trajectory_id variable, else time gaps)",
-               "add_corrections": "variables (m, or any length unit) added to the value",
-               "subtract_corrections": "variables (m, or any length unit) subtracted from "
-                                       "the value"}
+    Options = AlongTrackOptions
 
     def guess_can_open(self, ds) -> bool:
         name = _data_variable(ds)
@@ -61,19 +74,19 @@ class AlongTrackReader(Reader):
         coords = [cf.find_coordinate(ds, name, k) for k in ("latitude", "longitude", "time")]
         return all(c is not None and ds[c].dims == ds[name].dims for c in coords)
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         name = cf.require_variable(ds, path, SEA_LEVEL_ANOMALY.accepted_standard_names,
                                    "sea level anomaly", ndim=1)
         decoded = cf.decode_data_variable(ds, name, SEA_LEVEL_ANOMALY, path,
                                           opts.good_flag_meanings)
-        cf.require_values(path, [decoded])
-        decoded, correction_missing, used = self._corrections(ds, name, decoded, path, options)
-        lon, lat = cf.horizontal_position(ds, name, path)
+        cf.require_values(path, [decoded], reading_part=reading_part)
+        decoded, correction_missing, used = self._corrections(ds, name, decoded, path, opts)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
         trajectory = [v for v in ds.variables
                       if ds[v].attrs.get("cf_role") == "trajectory_id" and ds[v].ndim <= 1]
-        pass_variable = options.get("pass_variable")
+        pass_variable = opts.pass_variable
         if pass_variable is not None:
             if pass_variable not in ds.variables:
                 raise InputFileError(path, "option pass_variable names a variable that is not "
@@ -90,23 +103,22 @@ class AlongTrackReader(Reader):
             passes = pass_index_from_time_gaps(time, opts.pass_gap_seconds)
             group = np.char.add("pass_", np.char.zfill(passes.astype(str), 4))
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                     group=group, platform=cf.platform_attribute(ds, opts))
-        reject(table, correction_missing, "missing_correction")
+                                     group=group, platform=cf.platform_attribute(ds, opts),
+                                     rejections=[(correction_missing, "missing_correction")],
+                                     leave_out_rejected=leave_out_rejected)
         names = [name] + [cf.find_coordinate(ds, name, k) for k in ("latitude", "longitude",
                                                                      "time")]
         table.attrs["variables"] = cf.variable_units(ds, names + trajectory[:1] + used)
         return table
 
     @staticmethod
-    def _corrections(ds, name, decoded, path, options):
+    def _corrections(ds, name, decoded, path, opts):
         """Add/subtract the named correction variables (converted to m)."""
         values = decoded.values
         missing = np.zeros(values.shape, dtype=bool)
         used = []
         for option, sign in (("add_corrections", 1.0), ("subtract_corrections", -1.0)):
-            names = options.get(option) or []
-            names = names.split() if isinstance(names, str) else list(names)
-            for correction in names:
+            for correction in getattr(opts, option):
                 if correction not in ds.variables:
                     raise InputFileError(path, f"option {option} names a variable that is not "
                                                f"in the file", variable=str(correction))
@@ -116,7 +128,7 @@ class AlongTrackReader(Reader):
                                                f"the data dimension {ds[name].dims}",
                                          variable=correction)
                 metres = cf.broadcast_to_variable(cf.values_in_units(var, "m", path),
-                                                  var.dims, ds[name])
+                                                  var.dims, ds[name], path=path)
                 missing |= np.isfinite(values) & ~np.isfinite(metres)
                 values = values + sign * np.where(np.isfinite(metres), metres, 0.0)
                 used.append(correction)

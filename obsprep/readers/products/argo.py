@@ -24,12 +24,15 @@ What the reader does with it:
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
-from obsprep.model.table import concat_tables, reject
+from obsprep.model.reasons import register_reason
+from obsprep.model.table import concat_tables
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
@@ -39,16 +42,14 @@ ARGO_PARAMETERS = {"TEMP": get_quantity("sea_water_temperature"),
 #: QC flags kept by default: good, probably good, value changed, estimated (Argo user's manual,
 #: from memory)
 DEFAULT_GOOD_QC_FLAGS = frozenset("1258")
+register_reason("argo_qc_flag", "Argo level QC flag (of the value or its pressure) not in the "
+                                "kept set", stage="reader")
+register_reason("position_qc", "Argo POSITION_QC not in the kept set", stage="reader")
+register_reason("time_qc", "Argo JULD_QC not in the kept set", stage="reader")
+
 #: DATA_MODE -> preference when the same profile comes twice (delayed > adjusted > real time)
 DATA_MODE_RANK = {"R": 0, "A": 1, "D": 2}
 _PER_PROFILE = ("PLATFORM_NUMBER", "JULD", "LATITUDE", "LONGITUDE", "DATA_MODE")
-
-ARGO_OPTIONS = {
-    "sensor": cf.COMMON_OPTIONS["sensor"],
-    "platform": cf.COMMON_OPTIONS["platform"],
-    "good_qc_flags": "Argo QC flags kept for levels, POSITION_QC and JULD_QC (list, or a str "
-                     "such as \"1258\" or \"1 2 5 8\"; default 1 2 5 8)",
-}
 
 
 def good_qc_flags(value) -> frozenset:
@@ -61,6 +62,16 @@ def good_qc_flags(value) -> frozenset:
     if not flags or not all(len(f) == 1 and f.isdigit() for f in flags):
         raise ValueError(f"option 'good_qc_flags' must be Argo flags 0-9, got {value!r}")
     return frozenset(flags)
+
+
+@dataclass(frozen=True)
+class ArgoOptions(cf.SourceOptions):
+    """Options of the Argo reader (Argo QC flags instead of CF flag meanings)."""
+
+    good_qc_flags: frozenset = cf.option(
+        DEFAULT_GOOD_QC_FLAGS, "Argo QC flags kept for levels, POSITION_QC and JULD_QC (list, or "
+                               "a str such as \"1258\" or \"1 2 5 8\"; default 1 2 5 8)",
+        lambda name, value: good_qc_flags(value))
 
 
 def _as_bytes(values, width: int) -> np.ndarray:
@@ -228,14 +239,14 @@ class ArgoProfileReader(Reader):
     kind = "argo"
     priority = 10
     description = "Argo profile netCDF (PRES/TEMP/PSAL, DATA_MODE, QC flags, JULD)"
-    options = ARGO_OPTIONS
+    Options = ArgoOptions
 
     def guess_can_open(self, ds) -> bool:
         return is_argo_profile_file(ds)
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
-        good = good_qc_flags(options.get("good_qc_flags"))
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
+        good = opts.good_qc_flags
         argo = _ArgoFile(ds, path)
         names = [p for p in ARGO_PARAMETERS if p in ds.variables]
         if not names:
@@ -248,7 +259,7 @@ class ArgoProfileReader(Reader):
                                                ARGO_PARAMETERS[name])
             decoded.append(cf.DecodedVariable(ARGO_PARAMETERS[name], name, values, error))
             qcs.append(qc)
-        cf.require_values(path, decoded)
+        cf.require_values(path, decoded, reading_part=reading_part)
         shape = (argo.n_prof, argo.n_levels)
         lat = np.broadcast_to(argo.lat[:, None], shape)
         from obsprep.geo.seawater import depth_from_pressure
@@ -258,13 +269,8 @@ class ArgoProfileReader(Reader):
         for d in decoded:
             padding &= ~np.isfinite(d.values)
         keep = ~padding
-        keep_flat = keep.ravel()
-
-        def flat(a):
-            return np.broadcast_to(a, shape).ravel()[keep_flat]
-
-        position_bad = flat(~np.isin(argo.qc("POSITION_QC"), list(good))[:, None])
-        time_bad = flat(~np.isin(argo.qc("JULD_QC"), list(good))[:, None])
+        position_bad = ~np.isin(argo.qc("POSITION_QC"), list(good))[:, None]
+        time_bad = ~np.isin(argo.qc("JULD_QC"), list(good))[:, None]
         pressure_bad = ~np.isin(pressure_qc, list(good))
         tables = []
         platform = argo.platform if opts.platform is None else opts.platform
@@ -273,10 +279,9 @@ class ArgoProfileReader(Reader):
                 path, opts, d, lon=argo.lon[:, None], lat=lat, time=argo.time[:, None],
                 depth=depth, group=argo.group[:, None],
                 platform=platform if np.ndim(platform) == 0 else platform[:, None],
-                keep=keep, missing=~np.isfinite(depth))
-            reject(table, position_bad, "position_qc")
-            reject(table, time_bad, "time_qc")
-            reject(table, flat(~np.isin(qc, list(good)) | pressure_bad), "argo_qc_flag")
+                keep=keep, missing=~np.isfinite(depth),
+                rejections=[(position_bad, "position_qc"), (time_bad, "time_qc"),
+                            (~np.isin(qc, list(good)) | pressure_bad, "argo_qc_flag")])
             tables.append(table)
         table = concat_tables(tables)
         table.attrs["variables"] = cf.variable_units(ds, argo.used_variables(["PRES"] + names))
@@ -285,7 +290,8 @@ class ArgoProfileReader(Reader):
     def identities(self, ds, path, **options) -> pd.DataFrame:
         """One row per profile for the duplicate check, from the per-profile variables only:
         ``group``, ``platform``, ``time``, ``lon``, ``lat``, ``rank`` (DATA_MODE: D 2, A 1,
-        R 0) and ``n_valid`` (levels with a finite pressure)."""
+        R 0) and ``n_valid`` (levels with a finite pressure).  ``options`` (the source's) are
+        checked as for :func:`obsprep.readers.read`; none changes the identities."""
         cf.reader_options(self, options)
         argo = _ArgoFile(ds, path)
         pressure = np.asarray(ds["PRES"].values, dtype=np.float64)

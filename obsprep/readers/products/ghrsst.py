@@ -25,11 +25,13 @@ What the readers do with it:
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 
 import numpy as np
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import get_quantity
+from obsprep.model.reasons import register_reason
 from obsprep.readers import cf
 from obsprep.readers.products.sst_swath import sst_variable_with_latitude_ndim
 from obsprep.readers.registry import Reader, register_reader
@@ -40,18 +42,46 @@ SST = get_quantity("sea_surface_temperature")
 GDS2_TIME_UNITS = "seconds since 1981-01-01 00:00:00"
 DEFAULT_MIN_QUALITY_LEVEL = 4
 DEFAULT_REJECT_L2P_FLAGS = ("land", "ice", "lake", "river")
+register_reason("quality_level", "GHRSST quality_level below the source's minimum "
+                                 "(GDS 2.0: 0 no data .. 5 best)", stage="reader")
+register_reason("missing_bias", "bias correction requested but the file's sses_bias is fill",
+                stage="reader")
+for _meaning in ("land", "ice", "lake", "river"):
+    register_reason(f"l2p_flag_{_meaning}", f"GHRSST l2p_flags bit '{_meaning}' set", stage="reader")
+register_reason("l2p_flag_other", "another GHRSST l2p_flags bit named in the source's reject "
+                                  "list set", stage="reader")
+
 #: l2p_flags meaning -> rejection reason; other meanings give ``l2p_flag_other``
 L2P_FLAG_REASONS = {"land": "l2p_flag_land", "ice": "l2p_flag_ice", "lake": "l2p_flag_lake",
                     "river": "l2p_flag_river"}
 
-GHRSST_OPTIONS = {
-    "sensor": cf.COMMON_OPTIONS["sensor"],
-    "platform": cf.COMMON_OPTIONS["platform"],
-    "min_quality_level": "lowest quality_level kept, 0-5 (default 4: acceptable and best)",
-    "subtract_sses_bias": "subtract sses_bias from the SST (default true, as GDS 2.0 intends)",
-    "reject_l2p_flags": "l2p_flags meanings whose rows are rejected (list or space-separated "
-                        "str; default: land ice lake river)",
-}
+def parse_quality_level(name, value) -> int:
+    """A GDS 2.0 quality level, an integer 0-5."""
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not 0 <= value <= 5:
+        raise ValueError(f"option '{name}' must be an integer 0-5, got {value!r}")
+    return int(value)
+
+
+def parse_switch(name, value) -> bool:
+    """A true/false option."""
+    if not isinstance(value, bool):
+        raise ValueError(f"option '{name}' must be true or false, got {value!r}")
+    return value
+
+
+@dataclass(frozen=True)
+class GhrsstOptions(cf.SourceOptions):
+    """Options of the GDS 2.0 readers (quality levels and l2p_flags instead of flag meanings)."""
+
+    min_quality_level: int = cf.option(
+        DEFAULT_MIN_QUALITY_LEVEL, "lowest quality_level kept, 0-5 (default 4: acceptable and "
+                                   "best)", parse_quality_level)
+    subtract_sses_bias: bool = cf.option(
+        True, "subtract sses_bias from the SST (default true, as GDS 2.0 intends)", parse_switch)
+    reject_l2p_flags: tuple = cf.option(
+        DEFAULT_REJECT_L2P_FLAGS, "l2p_flags meanings whose rows are rejected (list or "
+                                  "space-separated str; default: land ice lake river)",
+        lambda name, value: tuple(n.lower() for n in cf.parse_names(name, value)))
 
 
 def is_gds2(ds) -> bool:
@@ -61,22 +91,6 @@ def is_gds2(ds) -> bool:
     if version:
         return version.startswith("2")
     return "sst_dtime" in ds.variables and "quality_level" in ds.variables
-
-
-def ghrsst_options(options: dict) -> tuple[int, bool, tuple]:
-    """(min_quality_level, subtract_sses_bias, reject_l2p_flags) from reader options, checked."""
-    level = options.get("min_quality_level", DEFAULT_MIN_QUALITY_LEVEL)
-    if isinstance(level, bool) or not isinstance(level, (int, np.integer)) or not 0 <= level <= 5:
-        raise ValueError(f"option 'min_quality_level' must be an integer 0-5, got {level!r}")
-    subtract = options.get("subtract_sses_bias", True)
-    if not isinstance(subtract, bool):
-        raise ValueError(f"option 'subtract_sses_bias' must be true or false, got {subtract!r}")
-    flags = options.get("reject_l2p_flags", DEFAULT_REJECT_L2P_FLAGS)
-    if isinstance(flags, str):
-        flags = flags.split()
-    if not all(isinstance(f, str) for f in flags):
-        raise ValueError(f"option 'reject_l2p_flags' must be strings, got {flags!r}")
-    return int(level), subtract, tuple(f.lower() for f in flags)
 
 
 def reference_time(ds, name, path) -> np.ndarray:
@@ -93,11 +107,11 @@ def reference_time(ds, name, path) -> np.ndarray:
     units = tvar.attrs.get("units") or GDS2_TIME_UNITS
     decoded = cf.decode_time(tvar.values, units, tvar.attrs.get("calendar"), path,
                              variable=tvar.name)
-    return cf.broadcast_to_variable(decoded, tvar.dims, ds[name])
+    return cf.broadcast_to_variable(decoded, tvar.dims, ds[name], path=path)
 
 
 class _GhrsstReader(Reader):
-    options = GHRSST_OPTIONS
+    Options = GhrsstOptions
     latitude_ndim = 2
     priority = 10
 
@@ -121,9 +135,10 @@ class _GhrsstReader(Reader):
                                        f"{ds[name].dims}", variable=variable)
         return var
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
-        min_level, subtract_bias, reject_flags = ghrsst_options(options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
+        min_level, subtract_bias, reject_flags = (opts.min_quality_level, opts.subtract_sses_bias,
+                                                  opts.reject_l2p_flags)
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
             ds, path, SST.accepted_standard_names, "sea surface temperature")
         sst = ds[name]
@@ -131,13 +146,13 @@ class _GhrsstReader(Reader):
         used = [name]
 
         def broadcast(var):
-            return np.asarray(cf.broadcast_to_variable(var.values, var.dims, sst))
+            return np.asarray(cf.broadcast_to_variable(var.values, var.dims, sst, path=path))
 
         def kelvin_difference(var):
             # GDS 2.0 SSES are kelvin differences; units default to the SST's
             converted = cf.values_in_units(var, SST.units, path, quantity=SST, difference=True,
                                            default_units=sst.attrs.get("units"))
-            return np.asarray(cf.broadcast_to_variable(converted, var.dims, sst))
+            return np.asarray(cf.broadcast_to_variable(converted, var.dims, sst, path=path))
 
         bias_missing = None
         bias_var = self._pixel(ds, name, "sses_bias", path)
@@ -156,14 +171,14 @@ class _GhrsstReader(Reader):
             error = kelvin_difference(sd_var)
             used.append("sses_standard_deviation")
         decoded = cf.DecodedVariable(SST, name, values, error)
-        cf.require_values(path, [decoded])
+        cf.require_values(path, [decoded], reading_part=reading_part)
 
-        lon, lat = cf.horizontal_position(ds, name, path)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = reference_time(ds, name, path)
         dtime_var = self._pixel(ds, name, "sst_dtime", path)
         if dtime_var is not None:
             seconds = cf.values_in_units(dtime_var, "s", path, default_units="s")
-            offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst) * 1e9)
+            offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path) * 1e9)
             time = time + offset.astype("timedelta64[ns]")  # NaN -> NaT -> bad_time later
             used.append("sst_dtime")
         # the reader's own rejections, in this order (a pixel counts under the first)
@@ -176,7 +191,7 @@ class _GhrsstReader(Reader):
             ordered = [m for m in L2P_FLAG_REASONS if m in chosen] + sorted(
                 chosen - set(L2P_FLAG_REASONS))
             for meaning in ordered:
-                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst)
+                mask = cf.broadcast_to_variable(masks[meaning], flags_var.dims, sst, path=path)
                 rejections.append((mask, L2P_FLAG_REASONS.get(meaning, "l2p_flag_other")))
         level_var = self._pixel(ds, name, "quality_level", path)
         if level_var is not None:
@@ -190,7 +205,8 @@ class _GhrsstReader(Reader):
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
                                      platform=cf.platform_attribute(ds, opts),
-                                     rejections=rejections, final=True)
+                                     rejections=rejections,
+                                     leave_out_rejected=leave_out_rejected)
         lat_name = cf.find_coordinate(ds, name, "latitude")
         lon_name = cf.find_coordinate(ds, name, "longitude")
         table.attrs["variables"] = cf.variable_units(ds, used + [lat_name, lon_name, "time"])

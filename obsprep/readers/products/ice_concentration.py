@@ -17,7 +17,7 @@ class IceConcentrationReader(Reader):
 
     kind = "ice_concentration"
     description = "gridded sea-ice concentration (lat/lon or projected grid)"
-    options = dict(cf.COMMON_OPTIONS)
+    Options = cf.CfOptions
 
     def guess_can_open(self, ds) -> bool:
         return cf.find_variable(ds, SEA_ICE_CONCENTRATION.accepted_standard_names) is not None
@@ -26,16 +26,17 @@ class IceConcentrationReader(Reader):
         """Rows of the grid (cells are independent observations)."""
         return cf.rows_dimension(ds, cf.find_variable(ds, SEA_ICE_CONCENTRATION.accepted_standard_names))
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         name = cf.require_variable(ds, path, SEA_ICE_CONCENTRATION.accepted_standard_names,
                                    "sea-ice concentration")
         decoded = cf.decode_data_variable(ds, name, SEA_ICE_CONCENTRATION, path,
                                           opts.good_flag_meanings)
-        cf.require_values(path, [decoded])
-        lon, lat = cf.horizontal_position(ds, name, path)
+        cf.require_values(path, [decoded], reading_part=reading_part)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
-                                     platform=cf.platform_attribute(ds, opts))
+                                     platform=cf.platform_attribute(ds, opts),
+                                     leave_out_rejected=leave_out_rejected)
         table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
         return table

@@ -36,13 +36,13 @@ class IceDriftReader(Reader):
 
     kind = "ice_drift"
     description = "sea-ice drift vectors (east/north or projection x/y displacements)"
-    options = dict(cf.COMMON_OPTIONS)
+    Options = cf.CfOptions
 
     def guess_can_open(self, ds) -> bool:
         return _component_variables(ds) is not None
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         found = _component_variables(ds)
         if found is None:
             raise InputFileError(path, "no sea-ice drift variables: expected standard_name "
@@ -60,8 +60,8 @@ class IceDriftReader(Reader):
                                  variable=names[1])
         u, v = (cf.decode_data_variable(ds, n, q, path, opts.good_flag_meanings)
                 for n, q in zip(names, quantities))
-        cf.require_values(path, [u, v])
-        lon, lat = cf.horizontal_position(ds, names[0], path)
+        cf.require_values(path, [u, v], reading_part=reading_part)
+        lon, lat = cf.horizontal_position(ds, names[0], path, reading_part=reading_part)
         start, end = cf.observation_interval(ds, names[0], path)
         if projected:
             crs = cf.crs_for_variable(ds, names[0], path)

@@ -39,6 +39,7 @@ class _Layout:
 
     def __init__(self, ds, var, path):
         self.var = var
+        self.path = path
         counts = [c for c in ds.variables
                   if ds[c].attrs.get("sample_dimension") in var.dims and ds[c].ndim == 1]
         indices = [c for c in ds.variables
@@ -74,7 +75,7 @@ class _Layout:
         """``values`` (on ``dims``) as an array of the data variables' shape."""
         if self.ragged and tuple(dims) == (self.profile_dim,):
             return np.asarray(values)[self.profile_of_sample]
-        return cf.broadcast_to_variable(values, dims, self.var)
+        return cf.broadcast_to_variable(values, dims, self.var, path=self.path)
 
     def profile_index(self) -> np.ndarray:
         if self.profile_dim is None:
@@ -91,14 +92,14 @@ class ProfileReader(Reader):
 
     kind = "profiles"
     description = "T/S profiles (CF featureType profile: multidimensional or ragged arrays)"
-    options = dict(cf.COMMON_OPTIONS)
+    Options = cf.CfOptions
 
     def guess_can_open(self, ds) -> bool:
         return (str(ds.attrs.get("featureType", "")).lower() == "profile"
                 and bool(_quantity_variables(ds)))
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         names = _quantity_variables(ds)
         if not names:
             raise InputFileError(path, "no profile variables: expected standard_name "
@@ -110,7 +111,7 @@ class ProfileReader(Reader):
                                            f"{first.dims} of '{first.name}'", variable=name)
         decoded = [cf.decode_data_variable(ds, n, q, path, opts.good_flag_meanings)
                    for q, n in names.items()]
-        cf.require_values(path, decoded)
+        cf.require_values(path, decoded, reading_part=reading_part)
         layout = _Layout(ds, first, path)
 
         def coordinate(kind):

@@ -32,7 +32,7 @@ class SstSwathReader(Reader):
 
     kind = "sst_swath"
     description = "satellite SST swath (2-D latitude/longitude, per-pixel time)"
-    options = dict(cf.COMMON_OPTIONS)
+    Options = cf.CfOptions
     #: dimensions of the latitude coordinate that tell this layout from the others
     latitude_ndim = 2
 
@@ -47,17 +47,18 @@ class SstSwathReader(Reader):
         """Rows of the swath or grid (pixels are independent observations)."""
         return cf.rows_dimension(ds, sst_variable_with_latitude_ndim(ds, self.latitude_ndim))
 
-    def read_dataset(self, ds, path, **options):
-        opts = cf.reader_options(self, options)
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        opts = options
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
             ds, path, SST.accepted_standard_names, "sea surface temperature")
         decoded = cf.decode_data_variable(ds, name, SST, path, opts.good_flag_meanings)
-        cf.require_values(path, [decoded])
-        lon, lat = cf.horizontal_position(ds, name, path)
+        cf.require_values(path, [decoded], reading_part=reading_part)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
-                                     platform=cf.platform_attribute(ds, opts))
+                                     platform=cf.platform_attribute(ds, opts),
+                                     leave_out_rejected=leave_out_rejected)
         table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
         return table
 

@@ -1,0 +1,140 @@
+"""The shared CF decoding layer: every reader finds and decodes its variables through here.
+
+A reader finds its data variable by ``standard_name``, asks this module for positions, times,
+errors and flags, and hands plain numpy arrays to :func:`observation_table`.  Nothing in here
+knows about a particular product: only the CF conventions (packing, ``standard_name``,
+``coordinates``, ``ancillary_variables``, flags, ``grid_mapping``, ``bounds``, time units and
+calendars) as described in ``docs/file-conventions.md``.
+
+Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`; times with
+:mod:`cftime`; map projections with :mod:`pyproj` (PROJ).
+
+One module per topic: :mod:`~obsprep.readers.cf.open`, :mod:`~obsprep.readers.cf.find`,
+:mod:`~obsprep.readers.cf.units`, :mod:`~obsprep.readers.cf.time`,
+:mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.positions`,
+:mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`
+and :mod:`~obsprep.readers.cf.table`; their public names are re-exported here so readers
+write ``cf.<name>``.
+"""
+
+from __future__ import annotations
+
+from obsprep.readers.cf.find import (  # noqa: F401
+    ancillary_variable_names,
+    find_coordinate,
+    find_coordinates,
+    find_flag_variables,
+    find_standard_error,
+    find_variable,
+    require_variable,
+    rows_dimension,
+)
+from obsprep.readers.cf.flags import (  # noqa: F401
+    flag_meaning_masks,
+    good_flag_mask,
+)
+from obsprep.readers.cf.open import (  # noqa: F401
+    open_dataset,
+    unreadable_data,
+)
+from obsprep.readers.cf.options import (  # noqa: F401
+    DEFAULT_GOOD_FLAG_MEANINGS,
+    CfOptions,
+    SourceOptions,
+    option,
+    option_meanings,
+    parse_lowercase_set,
+    parse_names,
+    parse_positive_seconds,
+    parse_string,
+    reader_options,
+)
+from obsprep.readers.cf.overrides import (  # noqa: F401
+    READER_PROFILE_KEYS,
+    apply_reader_profile,
+    reader_profile_roles,
+)
+from obsprep.readers.cf.positions import (  # noqa: F401
+    broadcast_to_variable,
+    crs_for_variable,
+    grid_axis_azimuths,
+    horizontal_position,
+    lonlat_from_projection,
+    rotate_grid_vectors_to_east_north,
+    wrap_longitude,
+)
+from obsprep.readers.cf.table import (  # noqa: F401
+    NOT_IN_TABLE,
+    ROW_VARIABLE,
+    DecodedVariable,
+    decode_data_variable,
+    labels_as_strings,
+    observation_table,
+    platform_attribute,
+    require_values,
+    variable_units,
+)
+from obsprep.readers.cf.time import (  # noqa: F401
+    decode_time,
+    decode_time_variable,
+    observation_interval,
+    observation_time,
+)
+from obsprep.readers.cf.units import (  # noqa: F401
+    PRACTICAL_SALINITY_UNITS,
+    convert_units,
+    preload,
+    values_in_units,
+)
+
+__all__ = [
+    "DEFAULT_GOOD_FLAG_MEANINGS",
+    "option",
+    "parse_string",
+    "parse_names",
+    "parse_lowercase_set",
+    "parse_positive_seconds",
+    "SourceOptions",
+    "CfOptions",
+    "option_meanings",
+    "reader_options",
+    "open_dataset",
+    "unreadable_data",
+    "find_variable",
+    "rows_dimension",
+    "require_variable",
+    "find_coordinates",
+    "find_coordinate",
+    "ancillary_variable_names",
+    "find_standard_error",
+    "find_flag_variables",
+    "good_flag_mask",
+    "flag_meaning_masks",
+    "decode_time",
+    "decode_time_variable",
+    "observation_time",
+    "observation_interval",
+    "PRACTICAL_SALINITY_UNITS",
+    "preload",
+    "convert_units",
+    "values_in_units",
+    "broadcast_to_variable",
+    "crs_for_variable",
+    "lonlat_from_projection",
+    "grid_axis_azimuths",
+    "rotate_grid_vectors_to_east_north",
+    "horizontal_position",
+    "wrap_longitude",
+    "labels_as_strings",
+    "platform_attribute",
+    "DecodedVariable",
+    "decode_data_variable",
+    "require_values",
+    "NOT_IN_TABLE",
+    "ROW_VARIABLE",
+    "observation_table",
+    "variable_units",
+    "READER_PROFILE_KEYS",
+    "reader_profile_roles",
+    "apply_reader_profile",
+]

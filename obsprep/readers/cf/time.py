@@ -1,0 +1,162 @@
+"""CF times: units and calendars decoded with cftime to datetime64[ns] UTC; observation times and intervals."""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from obsprep.exceptions import InputFileError
+from obsprep.readers.cf.find import find_coordinates
+from obsprep.readers.cf.messages import one_line
+from obsprep.readers.cf.positions import broadcast_to_variable
+from obsprep.readers.cf.units import values_in_units
+
+_SECONDS_PER_UNIT = {
+    **dict.fromkeys(("days", "day", "d"), 86400.0),
+    **dict.fromkeys(("hours", "hour", "hr", "hrs", "h"), 3600.0),
+    **dict.fromkeys(("minutes", "minute", "min", "mins"), 60.0),
+    **dict.fromkeys(("seconds", "second", "sec", "secs", "s"), 1.0),
+    **dict.fromkeys(("milliseconds", "millisecond", "msec", "msecs", "ms"), 1e-3),
+    **dict.fromkeys(("microseconds", "microsecond", "usec", "usecs", "us"), 1e-6),
+}
+
+
+_NS_PER_DAY = 86_400 * 10**9
+
+
+def _seconds_per_unit(unit: str, path, variable) -> float:
+    try:
+        return _SECONDS_PER_UNIT[unit.strip().lower()]
+    except KeyError:
+        raise InputFileError(
+            path, f"time unit '{unit}' not understood; expected days, hours, minutes, seconds, "
+                  f"milliseconds or microseconds (months and years are not fixed lengths)",
+            variable=variable) from None
+
+
+def _label_to_datetime64_ns(label) -> np.int64:
+    """A cftime date label -> int64 nanoseconds since 1970 in the proleptic Gregorian calendar,
+    or NaT's integer when the year is outside datetime64[ns] (1678-2261)."""
+    if not 1678 <= label.year <= 2261:
+        return np.datetime64("NaT", "ns").astype(np.int64)
+    stamp = np.datetime64(
+        f"{label.year:04d}-{label.month:02d}-{label.day:02d}T{label.hour:02d}:"
+        f"{label.minute:02d}:{label.second:02d}", "ns")
+    return (stamp + np.timedelta64(label.microsecond, "us")).astype(np.int64)
+
+
+def decode_time(values, units: str, calendar: str | None, path, variable=None) -> np.ndarray:
+    """Decode CF times ``"<unit> since <epoch>"`` in any CF calendar to UTC ``datetime64[ns]``.
+
+    The calendar date each value denotes (cftime's ``num2date``) is written as the same
+    year-month-day hh:mm:ss in ``datetime64``; for the non-standard calendars (``noleap``,
+    ``360_day``, ...) that keeps the date label the file means.  A time zone offset in the
+    epoch ("... +02:00") is applied by cftime, so the result is UTC.
+
+    Vectorised: values are split into whole days since the epoch and a remainder (s); cftime
+    decodes only the distinct days (every CF calendar has 86 400-s days), and the remainder is
+    added in numpy.  NaN gives NaT, as do dates outside 1678-2261 (the ``datetime64[ns]`` range).
+
+    Parameters
+    ----------
+    values : array-like
+        Numbers of ``unit`` since the epoch, any shape.
+    units, calendar : str
+        The CF ``units`` and ``calendar`` attributes (calendar default "standard").
+
+    Raises
+    ------
+    InputFileError
+        Units not of the form "<unit> since <epoch>", unknown calendar, or a date that has no
+        equivalent in the real calendar (e.g. 30 February in the ``360_day`` calendar).
+    """
+    import cftime
+
+    units = str(units or "")
+    if " since " not in units:
+        raise InputFileError(path, f"time units '{units}' are not of the CF form "
+                                   f"'<unit> since <epoch>'", variable=variable)
+    unit, epoch = units.split(" since ", 1)
+    seconds = np.asarray(values, dtype=np.float64) * _seconds_per_unit(unit, path, variable)
+    finite = np.isfinite(seconds)
+    days = np.floor(seconds[finite] / 86400.0)
+    remainder_ns = np.round((seconds[finite] - days * 86400.0) * 1e9).astype(np.int64)
+    unique_days, inverse = np.unique(days, return_inverse=True)
+    try:
+        labels = cftime.num2date(unique_days, f"days since {epoch}",
+                                 calendar=calendar or "standard",
+                                 only_use_cftime_datetimes=True)
+        day_ns = np.array([_label_to_datetime64_ns(lab) for lab in np.atleast_1d(labels)],
+                          dtype=np.int64)
+    except (ValueError, TypeError, OverflowError) as exc:
+        raise InputFileError(path, f"cannot decode times with units '{units}' and calendar "
+                                   f"'{calendar or 'standard'}': {one_line(exc)}",
+                             variable=variable) from exc
+    nat = np.datetime64("NaT", "ns").astype(np.int64)
+    out = np.full(seconds.shape, nat, dtype=np.int64)
+    decoded = day_ns[inverse.ravel()]
+    out[finite] = np.where(decoded == nat, nat, decoded + remainder_ns)
+    return out.view("datetime64[ns]")
+
+
+def decode_time_variable(da: xr.DataArray, path, units=None, calendar=None) -> np.ndarray:
+    """:func:`decode_time` for a variable, using its own ``units``/``calendar`` unless given
+    (CF 7.1: a ``bounds`` variable inherits them from its parent)."""
+    units = units if units is not None else da.attrs.get("units")
+    calendar = calendar if calendar is not None else da.attrs.get("calendar")
+    return decode_time(da.values, units, calendar, path, variable=da.name)
+
+
+def _absolute_and_offset_times(ds, name, path):
+    """(absolute time variables, duration variables) on ``name``'s dimensions."""
+    found = find_coordinates(ds, name, "time")
+    absolute = [t for t in found if " since " in str(ds[t].attrs.get("units", ""))]
+    offsets = [t for t in found if t not in absolute
+               and str(ds[t].attrs.get("units", "")).strip().lower() in _SECONDS_PER_UNIT]
+    if not absolute:
+        raise InputFileError(path, "no time coordinate: expected a variable with "
+                                   "standard_name 'time' and units '<unit> since <epoch>' on the "
+                                   f"variable's dimensions {ds[name].dims}", variable=name)
+    return absolute, offsets
+
+
+def observation_time(ds: xr.Dataset, name: str, path) -> np.ndarray:
+    """UTC ``datetime64[ns]`` time of every value of ``name`` (its shape).
+
+    The time variable with the most dimensions wins (per-pixel time over the scalar or
+    length-1 ``time`` coordinate).  A ``standard_name = "time"`` variable with duration units
+    ("seconds", no "since", like a per-pixel offset) is added to the reference time.
+    """
+    var = ds[name]
+    absolute, offsets = _absolute_and_offset_times(ds, name, path)
+    chosen = max(absolute, key=lambda t: ds[t].ndim)
+    time = broadcast_to_variable(decode_time_variable(ds[chosen], path), ds[chosen].dims, var, path=path)
+    offsets = [o for o in offsets if ds[o].ndim > ds[chosen].ndim]
+    if offsets:
+        offset = max(offsets, key=lambda t: ds[t].ndim)
+        seconds = values_in_units(ds[offset], "s", path)
+        offset_ns = np.round(broadcast_to_variable(seconds, ds[offset].dims, var, path=path) * 1e9)
+        time = time + offset_ns.astype("timedelta64[ns]")  # NaN -> NaT
+    return time
+
+
+def observation_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
+    """(start, end) UTC ``datetime64[ns]`` of every value of ``name`` from the time variable's
+    CF ``bounds`` (CF 7.1: last dimension of length 2, units/calendar of the parent)."""
+    var = ds[name]
+    absolute, _ = _absolute_and_offset_times(ds, name, path)
+    with_bounds = [t for t in absolute if ds[t].attrs.get("bounds") in ds.variables]
+    if not with_bounds:
+        raise InputFileError(path, f"no interval: the time variable(s) {', '.join(absolute)} "
+                                   f"have no 'bounds' variable giving start and end",
+                             variable=name)
+    time = max(with_bounds, key=lambda t: ds[t].ndim)
+    bounds = ds[ds[time].attrs["bounds"]]
+    if bounds.ndim == 0 or bounds.shape[-1] != 2:
+        raise InputFileError(path, f"time bounds have shape {bounds.shape}, expected a last "
+                                   f"dimension of length 2", variable=bounds.name)
+    decoded = decode_time_variable(bounds, path, units=ds[time].attrs.get("units"),
+                                   calendar=ds[time].attrs.get("calendar"))
+    dims = bounds.dims[:-1]
+    return (broadcast_to_variable(decoded[..., 0], dims, var, path=path),
+            broadcast_to_variable(decoded[..., 1], dims, var, path=path))
