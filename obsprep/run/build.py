@@ -29,6 +29,7 @@ from obsprep.run.execution import FileTask, FixedTreeReducer, run_tasks
 from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
 from obsprep.settings.config import Config, load_config
 from obsprep.superobs import Accumulator
+from obsprep.superobs.finalize import finalize_superobs
 from obsprep.superobs.timeslots import seconds_since, slot_index
 
 QUANTITY_NAMES = list(QUANTITIES)
@@ -299,44 +300,6 @@ def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, fi
     result.entry = entry_from_table(table, path, source.sensor, kind, size,
                                     counted_earlier=counted_by_reader)
     return result
-
-
-def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
-                      grid=None) -> pd.DataFrame:
-    """Turn the merged accumulator into the super-observation table (one row per group).
-
-    Errors part by part: :mod:`obsprep.superobs.complete`.  ``grid`` is used for
-    representation-error fields only (built from the configuration when not given).
-    """
-    from obsprep.superobs.complete import complete_errors, group_error_inputs
-
-    mode = cfg.superobs.get("mode", "mean")
-    if accumulator is None or accumulator.n_groups == 0:
-        return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
-    inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_correlations(cfg), grid=grid,
-                                quantity_names=QUANTITY_NAMES)
-    frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
-                                 representation_error=inputs.representation, floor=inputs.floor)
-    out = pd.DataFrame({
-        "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
-        "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
-        "slot": frame["slot"].to_numpy(), "i": frame["i"].to_numpy(), "j": frame["j"].to_numpy(),
-        "k": frame["k"].to_numpy(),
-    })
-    out["profile"] = [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()]
-    for col in ("count", "value", "spread", "value_min", "value_max", "error", "error_instrument",
-                "error_representation", "lon", "lat", "depth"):
-        out[col] = frame[col].to_numpy()
-    for col, values in complete_errors(cfg, accumulator, frame, inputs, sensor_names,
-                                       QUANTITY_NAMES).items():
-        out[col] = values
-    offset = frame["time"].to_numpy()
-    out["time_offset"] = offset
-    out["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
-    interval = frame["t_end"].to_numpy() != frame["t_start"].to_numpy()
-    t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
-    out["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
-    return out
 
 
 def build(config, date=None, out=None, strict=False, progress=False, jobs=1,

@@ -1,0 +1,53 @@
+"""The super-observation table: the merged accumulator finalised, keys decoded, errors added."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from obsprep.settings.config import Config
+from obsprep.superobs.accumulate import Accumulator
+from obsprep.superobs.complete import complete_errors, group_error_inputs
+
+
+def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
+                      grid=None) -> pd.DataFrame:
+    """Turn the merged accumulator into the super-observation table (one row per group).
+
+    Errors part by part: :mod:`obsprep.superobs.complete`.  ``grid`` is used for
+    representation-error fields only (built from the configuration when not given).
+    """
+    # imported here: the build module imports this one
+    from obsprep.run.build import QUANTITY_NAMES, sensor_correlations
+
+
+    mode = cfg.superobs.get("mode", "mean")
+    if accumulator is None or accumulator.n_groups == 0:
+        return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
+    inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_correlations(cfg), grid=grid,
+                                quantity_names=QUANTITY_NAMES)
+    frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
+                                 representation_error=inputs.representation, floor=inputs.floor)
+    out = pd.DataFrame({
+        "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
+        "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
+        "slot": frame["slot"].to_numpy(), "i": frame["i"].to_numpy(), "j": frame["j"].to_numpy(),
+        "k": frame["k"].to_numpy(),
+    })
+    out["profile"] = [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()]
+    for col in ("count", "value", "spread", "value_min", "value_max", "error", "error_instrument",
+                "error_representation", "lon", "lat", "depth"):
+        out[col] = frame[col].to_numpy()
+    for col, values in complete_errors(cfg, accumulator, frame, inputs, sensor_names,
+                                       QUANTITY_NAMES).items():
+        out[col] = values
+    offset = frame["time"].to_numpy()
+    out["time_offset"] = offset
+    out["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
+    interval = frame["t_end"].to_numpy() != frame["t_start"].to_numpy()
+    t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
+    out["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
+    return out
+
+
+__all__ = ["finalize_superobs"]
