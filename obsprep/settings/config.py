@@ -26,6 +26,7 @@ from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 from obsprep.settings import placeholders
 from obsprep.settings.qc import QcSettings
+from obsprep.settings.stages import OutputSettings, SuperobsSettings, from_table
 
 
 def load_schema(name: str = "config") -> dict:
@@ -158,22 +159,22 @@ class Config:
     window: Window
     grid: dict
     sources: list[Source]
-    superobs: dict
-    output: dict
+    superobs: SuperobsSettings
+    output: OutputSettings
     #: {(source index, file): group labels rejected as ``duplicate``}, set by the build's
     #: cross-file pre-pass (:func:`obsprep.qc.find_duplicates`) before the per-file work
     duplicate_groups: dict = field(default_factory=dict)
 
     def output_sensor(self, sensor: str) -> str:
         """The sensor name a source's super-observations are written under (after merging)."""
-        for merged, members in self.superobs.get("merge_sensors", {}).items():
+        for merged, members in self.superobs.merge_sensors.items():
             if sensor in members:
                 return merged
         return sensor
 
     def output_path(self, out_dir=None) -> Path:
-        directory = Path(out_dir) if out_dir else self.base_dir / self.output.get("directory", "out")
-        name = placeholders.expand_path(self.output.get("name", "superobs_{date:%Y%m%d}.nc"),
+        directory = Path(out_dir) if out_dir else self.base_dir / self.output.directory
+        name = placeholders.expand_path(self.output.name,
                                         dt.datetime.combine(self.date, dt.time()))
         return directory / name
 
@@ -281,8 +282,8 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
 
         validate_options(s.kind, s.options, f"sources[{s.index}].options", src)
 
-    placeholders.check_path_pattern(raw.get("output", {}).get("name", "superobs_{date:%Y%m%d}.nc"),
-                                    "output.name", src)
+    output = from_table(OutputSettings, raw.get("output"))
+    placeholders.check_path_pattern(output.name, "output.name", src)
     superobs = dict(raw.get("superobs", {}))
     for merged, members in superobs.get("merge_sensors", {}).items():
         for m in members:
@@ -296,5 +297,5 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
 
     check_superobs_error_settings(superobs, src)
     return Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
-                  grid=dict(raw["grid"]), sources=sources, superobs=superobs,
-                  output=dict(raw.get("output", {})))
+                  grid=dict(raw["grid"]), sources=sources,
+                  superobs=from_table(SuperobsSettings, superobs), output=output)
