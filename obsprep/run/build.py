@@ -246,7 +246,7 @@ def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, fi
         live_rows = np.flatnonzero(live)
         q_all = _quantity_codes(table)
         sensor_code = sensor_names.index(cfg.output_sensor(source.sensor))
-        per_profile = cfg.superobs.get("profiles", "per_profile") == "per_profile"
+        per_profile = cfg.superobs.profiles == "per_profile"
         is_profile_quantity = np.array([not QUANTITIES[name].surface for name in QUANTITY_NAMES])
         group_codes = table["group"].cat.codes.to_numpy().astype(np.int64)
         if per_profile:
@@ -256,7 +256,7 @@ def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, fi
                 result.profile_names[int((file_index << 32) + code)] = str(categories[code])
         columns = {name: table[name].to_numpy() for name in
                    ("value", "error", "lon", "lat", "depth", "time", "time_end", "row")}
-        thinning = cfg.superobs.get("mode", "mean") == "thin"  # the score is costly: only then
+        thinning = cfg.superobs.mode == "thin"  # the score is costly: only then
         reducer = FixedTreeReducer()
         # Row chunks bound the temporary memory of a big file; they are merged in a fixed
         # order, so the result does not depend on how files are spread over processes.

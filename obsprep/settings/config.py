@@ -24,7 +24,9 @@ import numpy as np
 
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
+from obsprep.settings import placeholders
 from obsprep.settings.qc import QcSettings
+from obsprep.settings.stages import OutputSettings, SuperobsSettings, from_table
 
 
 def load_schema(name: str = "config") -> dict:
@@ -108,7 +110,7 @@ class Source:
         """Expand the path patterns for the given UTC days; sorted, de-duplicated, absolute."""
         found = []
         for pattern in self.paths:
-            expanded = {pattern.format(date=day) for day in days} if "{" in pattern else {pattern}
+            expanded = {placeholders.expand_path(pattern, day) for day in days}
             for pat in sorted(expanded):
                 full = pat if os.path.isabs(pat) else str(base_dir / pat)
                 matches = sorted(glob.glob(full))
@@ -157,23 +159,23 @@ class Config:
     window: Window
     grid: dict
     sources: list[Source]
-    superobs: dict
-    output: dict
+    superobs: SuperobsSettings
+    output: OutputSettings
     #: {(source index, file): group labels rejected as ``duplicate``}, set by the build's
     #: cross-file pre-pass (:func:`obsprep.qc.find_duplicates`) before the per-file work
     duplicate_groups: dict = field(default_factory=dict)
 
     def output_sensor(self, sensor: str) -> str:
         """The sensor name a source's super-observations are written under (after merging)."""
-        for merged, members in self.superobs.get("merge_sensors", {}).items():
+        for merged, members in self.superobs.merge_sensors.items():
             if sensor in members:
                 return merged
         return sensor
 
     def output_path(self, out_dir=None) -> Path:
-        directory = Path(out_dir) if out_dir else self.base_dir / self.output.get("directory", "out")
-        name = self.output.get("name", "superobs_{date:%Y%m%d}.nc").format(
-            date=dt.datetime.combine(self.date, dt.time()))
+        directory = Path(out_dir) if out_dir else self.base_dir / self.output.directory
+        name = placeholders.expand_path(self.output.name,
+                                        dt.datetime.combine(self.date, dt.time()))
         return directory / name
 
 
@@ -214,17 +216,24 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     if date is None:
         date = win.get("date") or dt.datetime.now(dt.UTC).date().isoformat()
     run_date = date if isinstance(date, dt.date) else _parse_date(date, "--date", src)
-    text = win["analysis_time"].replace("{date}", run_date.isoformat())
+    placeholders.check_time_text(win["analysis_time"], "window.analysis_time", src)
+    text = placeholders.expand_time(win["analysis_time"], run_date)
     try:
         analysis = np.datetime64(text.rstrip("Z").replace("+00:00", ""), "ns")
     except ValueError:
         raise ConfigError("window.analysis_time", f"expected ISO 8601 UTC time, got '{text}'", src) from None
     start_h, end_h = float(win.get("start_hours", -24.0)), float(win.get("end_hours", 0.0))
+    slot_h = float(win.get("slot_hours", 24.0))
+    for name, value in (("start_hours", start_h), ("end_hours", end_h), ("slot_hours", slot_h)):
+        if not np.isfinite(value):
+            raise ConfigError(f"window.{name}", f"expected a finite number of hours, got {value}", src)
+    if slot_h <= 0:
+        raise ConfigError("window.slot_hours", f"expected a number of hours > 0, got {slot_h}", src)
     if end_h <= start_h:
         raise ConfigError("window.end_hours", f"must be after start_hours ({start_h}), got {end_h}", src)
     to_ns = lambda h: np.timedelta64(int(round(h * 3600e9)), "ns")  # noqa: E731
     window = Window(analysis, analysis + to_ns(start_h), analysis + to_ns(end_h),
-                    float(win.get("slot_hours", 24.0)) * 3600.0)
+                    slot_h * 3600.0)
 
     sources, seen = [], set()
     for n, s in enumerate(raw["sources"]):
@@ -247,6 +256,8 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
                 and reader["good_flag_meanings"] != s["options"]["good_flag_meanings"]:
             raise ConfigError(f"{key}.reader.good_flag_meanings", "also given, differently, as "
                               f"{key}.options.good_flag_meanings; keep one", src)
+        for i, pattern in enumerate(s["paths"]):
+            placeholders.check_path_pattern(pattern, f"{key}.paths[{i}]", src)
         from obsprep.settings.errors import check_error_rule
 
         check_error_rule(err, f"{key}.error", src)
@@ -267,7 +278,12 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         if s.kind != "auto" and s.kind not in available_kinds():
             raise ConfigError(f"sources[{s.index}].kind",
                               f"unknown reader kind '{s.kind}'; known: auto, {', '.join(available_kinds())}", src)
+        from obsprep.readers.registry import validate_options
 
+        validate_options(s.kind, s.options, f"sources[{s.index}].options", src)
+
+    output = from_table(OutputSettings, raw.get("output"))
+    placeholders.check_path_pattern(output.name, "output.name", src)
     superobs = dict(raw.get("superobs", {}))
     for merged, members in superobs.get("merge_sensors", {}).items():
         for m in members:
@@ -281,5 +297,5 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
 
     check_superobs_error_settings(superobs, src)
     return Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
-                  grid=dict(raw["grid"]), sources=sources, superobs=superobs,
-                  output=dict(raw.get("output", {})))
+                  grid=dict(raw["grid"]), sources=sources,
+                  superobs=from_table(SuperobsSettings, superobs), output=output)

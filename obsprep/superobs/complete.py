@@ -31,7 +31,6 @@ import numpy as np
 
 from obsprep.errors.rules import origin_label
 from obsprep.model.quantities import QUANTITIES
-from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
 from obsprep.superobs.errors import (
     ERROR_BASIS,
     combine_instrument_and_spread,
@@ -77,11 +76,11 @@ def group_error_inputs(cfg, accumulator, sensor_names, correlations, grid=None,
     keys = accumulator.keys
     q_code = keys["quantity"]
     correlation = np.array([correlations[s] for s in sensor_names])[keys["sensor"]]
-    constants = cfg.superobs.get("representation_error", {})
-    floors = cfg.superobs.get("error_floor", {})
+    constants = cfg.superobs.representation_error
+    floors = cfg.superobs.error_floor
     representation = np.array([constants.get(q, 0.0) for q in quantity_names])[q_code]
     floor = np.array([floors.get(q, 0.0) for q in quantity_names])[q_code]
-    variables = cfg.superobs.get("representation_error_variables", {})
+    variables = cfg.superobs.representation_error_variables
     if variables:
         from obsprep.superobs.representation import load_representation_fields, representation_at
 
@@ -89,7 +88,7 @@ def group_error_inputs(cfg, accumulator, sensor_names, correlations, grid=None,
             from obsprep.geo.grid import grid_from_config
 
             grid = grid_from_config(cfg.grid, cfg.base_dir)
-        path = cfg.superobs["representation_error_file"]
+        path = cfg.superobs.representation_error_file
         fields = load_representation_fields(cfg.base_dir / path, variables, grid.shape, grid.nk)
         for q, field in fields.items():
             rows = q_code == quantity_names.index(q)
@@ -111,7 +110,7 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
     state = accumulator.state
     keys = accumulator.keys
     count = state["count"]
-    mode = cfg.superobs.get("mode", "mean")
+    mode = cfg.superobs.mode
     sub_surface = np.array([not QUANTITIES[q].surface for q in quantity_names])[keys["quantity"]]
     spread_line = spread_about_depth_line(state["value_m2"], state["depth_m2"],
                                           state["depth_value_c2"], count)
@@ -122,8 +121,8 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
                                     spread / np.sqrt(1.0 - inputs.correlation), np.nan)
     else:
         spread_error = error_from_spread(spread, count, inputs.correlation)
-    rule = cfg.superobs.get("spread_combination", "instrument")
-    min_count = int(cfg.superobs.get("spread_min_count", DEFAULT_SPREAD_MIN_COUNT))
+    rule = cfg.superobs.spread_combination
+    min_count = int(cfg.superobs.spread_min_count)
     observation, basis = combine_instrument_and_spread(
         frame["error_instrument"].to_numpy(), spread_error, count, rule, min_count)
     total = np.sqrt(observation * observation + inputs.representation ** 2)

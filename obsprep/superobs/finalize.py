@@ -21,7 +21,7 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     from obsprep.run.build import QUANTITY_NAMES, sensor_correlations
 
 
-    mode = cfg.superobs.get("mode", "mean")
+    mode = cfg.superobs.mode
     if accumulator is None or accumulator.n_groups == 0:
         return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
     inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_correlations(cfg), grid=grid,

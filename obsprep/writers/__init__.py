@@ -21,7 +21,7 @@ def write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=None, version="",
     with atomic_path(path) as tmp:
         write_netcdf(ds, encoding, tmp)
     written["netcdf"] = path
-    if cfg.output.get("parquet", False):
+    if cfg.output.parquet:
         pq = path.with_suffix(".parquet")
         with atomic_path(pq) as tmp:
             superobs.to_parquet(tmp, index=False)
