@@ -54,13 +54,27 @@ source_opt = click.option("--source", "source_name", metavar="SENSOR", default=N
                           help="Source (sensor name) of --config to read the files as.")
 
 
+def describe_readers() -> list[str]:
+    """Lines listing the registered reader kinds in guessing order, with their description and
+    their options (name: meaning), read from the readers' own declarations."""
+    from obsprep.readers import registered_readers
+
+    lines = []
+    for kind, reader in registered_readers().items():
+        lines.append(f"{kind}: {reader.description}")
+        lines.extend(f"  option {name}: {meaning}" for name, meaning in reader.options.items())
+    return lines
+
+
 @click.command("inspect")
-@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=False))
+@click.argument("files", nargs=-1, type=click.Path(dir_okay=False))
 @click.option("--kind", default=None, help="Reader kind (default: auto, or the source's).")
+@click.option("--kinds", "list_kinds", is_flag=True,
+              help="List the reader kinds (in the order auto asks them) and their options.")
 @config_opt
 @source_opt
 @library_errors
-def inspect_command(files, kind, config, source_name):
+def inspect_command(files, kind, list_kinds, config, source_name):
     """Show what obsprep reads from observation FILES: the reader kind, the variables used and
     their units, the time range and the rows kept or rejected by the reader, per reason.
 
@@ -74,6 +88,12 @@ def inspect_command(files, kind, config, source_name):
     from obsprep import read
     from obsprep.exceptions import InputFileError
 
+    if list_kinds:
+        for line in describe_readers():
+            click.echo(line)
+        return
+    if not files:
+        raise click.UsageError("give one or more FILES (or --kinds)")
     kind, options, profile = source_reading(config, source_name, kind)
     failed = 0
     for path in files:
