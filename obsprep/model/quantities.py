@@ -33,6 +33,12 @@ class Quantity:
         For vector components: the name of the vector ("sea_ice_drift") it belongs to.
     component : str or None
         "east"/"north" (geographic) or "x"/"y" (model grid axes).
+    surface : bool
+        True for quantities of the sea surface (one value per cell), False for profile
+        quantities (one value per cell and model layer).
+    averaging : str
+        How super-observations average the quantity, one of :data:`AVERAGING_SPACES`:
+        ``"linear"``, the (equal- or inverse-variance-weighted) mean of the values as they are.
     """
 
     name: str
@@ -44,7 +50,18 @@ class Quantity:
     vector: str | None = None
     component: str | None = None
     surface: bool = True
+    averaging: str = "linear"
 
+    def __post_init__(self):
+        if self.averaging not in AVERAGING_SPACES:
+            raise ValueError(f"quantity '{self.name}': averaging '{self.averaging}' is not one of "
+                             f"{', '.join(AVERAGING_SPACES)}")
+
+
+#: the averaging spaces the super-observation stage implements.  A quantity averaged in a
+#: transformed space (chlorophyll-a in log10, say) needs its forward and inverse maps, and the
+#: propagation of its errors, added to obsprep/superobs before it can be declared here.
+AVERAGING_SPACES = ("linear",)
 
 QUANTITIES: dict[str, Quantity] = {
     q.name: q
