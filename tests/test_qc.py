@@ -226,7 +226,7 @@ def test_stage_order_and_first_reason_wins():
     table_checks(off, WINDOW, settings=QcSettings(argo_tests=False, freezing_point_quantities=()))
     assert reasons(off) == [None, "out_of_range", None, None, None, None]
     dup = profile_table([3.0, 3.1], depth[:2], group="6900001_010")
-    table_checks(dup, WINDOW, duplicate_groups=frozenset({"6900001_010"}))
+    table_checks(dup, WINDOW, settings=QcSettings(), duplicate_groups=frozenset({"6900001_010"}))
     assert reasons(dup) == ["duplicate", "duplicate"]
 
 

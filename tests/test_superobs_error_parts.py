@@ -13,10 +13,11 @@ import pytest
 import xarray as xr
 
 from obsprep.exceptions import InputFileError
-from obsprep.run.build import QUANTITY_NAMES, finalize_superobs
+from obsprep.model.quantities import QUANTITY_NAMES
 from obsprep.settings.config import load_config
 from obsprep.superobs import Accumulator
 from obsprep.superobs.errors import combine_instrument_and_spread, error_from_spread, spread_about_depth_line
+from obsprep.superobs.finalize import finalize_superobs
 
 STANDARD_ERRORS = 5.0
 

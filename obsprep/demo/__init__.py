@@ -6,7 +6,8 @@ configuration and a manifest.  :func:`truth_value` evaluates the known truth any
 super-observations built from the demo can be compared with it exactly.
 """
 
-from obsprep.demo.scenario import CONFIG_NAME, MANIFEST_NAME, SCENARIO_NAME, write_demo
+from obsprep.demo.scenario import CONFIG_NAME, MANIFEST_NAME, SCENARIO_NAME
 from obsprep.demo.truth import truth_value
+from obsprep.demo.write import write_demo
 
 __all__ = ["write_demo", "truth_value", "SCENARIO_NAME", "CONFIG_NAME", "MANIFEST_NAME"]

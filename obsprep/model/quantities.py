@@ -127,6 +127,9 @@ QUANTITIES: dict[str, Quantity] = {
     ]
 }
 
+#: the quantity names in declaration order; a name's position is its code in the group keys
+QUANTITY_NAMES: tuple = tuple(QUANTITIES)
+
 
 def get_quantity(name: str) -> Quantity:
     """Return the :class:`Quantity` called ``name``; raise KeyError listing the known names."""

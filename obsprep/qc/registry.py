@@ -122,14 +122,11 @@ def _run(table: pd.DataFrame, context: QcContext, settings, needs_grid: bool) ->
 
 
 def table_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
-                 settings=None, duplicate_groups=()) -> dict:
+                 settings, duplicate_groups=()) -> dict:
     """Apply the checks without ``needs_grid`` to one file's observation table in place, in
     :data:`CHECKS` order; return {reason: newly rejected count}.  ``settings``: the source's
-    :class:`~obsprep.settings.qc.QcSettings` (default: all defaults)."""
-    if settings is None:
-        from obsprep.settings.qc import QcSettings
-
-        settings = QcSettings()
+    :class:`~obsprep.settings.qc.QcSettings` (built from this module's declarations, so
+    passed in rather than made here)."""
     context = QcContext(window=window, quantities=quantities, valid_range=valid_range,
                         duplicate_groups=duplicate_groups)
     return _run(table, context, settings, needs_grid=False)

@@ -10,44 +10,35 @@ from __future__ import annotations
 
 import datetime as dt
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from obsprep import __version__
 from obsprep.errors.rules import assign_errors
-from obsprep.exceptions import ConfigError, InputFileError, ObsprepError
+from obsprep.exceptions import InputFileError, ObsprepError
 from obsprep.geo.grid import grid_from_config
 from obsprep.geo.grid.base import CLASSIFY_REASONS
-from obsprep.model.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES, QUANTITY_NAMES
 from obsprep.model.table import kept, reject
 from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE
-from obsprep.run.execution import FileTask, FixedTreeReducer, run_tasks
+from obsprep.run.execution import FixedTreeReducer, run_tasks
 from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
-from obsprep.settings.config import Config, load_config
+from obsprep.run.tasks import FileResult, FileTask
+from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
 from obsprep.superobs.finalize import finalize_superobs
 from obsprep.superobs.timeslots import seconds_since, slot_index
 
-QUANTITY_NAMES = list(QUANTITIES)
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
 #: values per variable above which a file is read in parts (readers that can; see
 #: process_file): bounds the memory of one huge file whatever its size (a 50-million-pixel
 #: granule builds within 0.8 GiB, benchmarks/README.md)
 READ_PART_VALUES = 1 << 22
-
-
-@dataclass
-class FileResult:
-    """What processing one file yields."""
-
-    entry: LedgerEntry
-    accumulator: Accumulator | None = None
-    profile_names: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -59,24 +50,6 @@ class BuildResult:
     ledger: Ledger
     outputs: dict
     inputs: list
-
-
-def output_sensors(cfg: Config) -> list[str]:
-    """Sorted output sensor names (after merging); their index is the sensor key."""
-    return sorted({cfg.output_sensor(s.sensor) for s in cfg.sources})
-
-
-def sensor_correlations(cfg: Config) -> dict:
-    """Within-sensor error correlation per output sensor; merged sources must agree."""
-    out: dict[str, float] = {}
-    for s in cfg.sources:
-        name = cfg.output_sensor(s.sensor)
-        if name in out and out[name] != s.correlation:
-            raise ConfigError(f"sources[{s.index}].correlation",
-                              f"sources merged into '{name}' have different correlations "
-                              f"({out[name]} and {s.correlation})")
-        out[name] = s.correlation
-    return out
 
 
 def _quantity_mask(table: pd.DataFrame, name: str) -> np.ndarray:
@@ -332,7 +305,6 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     cfg = load_config(config, date)
     grid = grid_from_config(cfg.grid, cfg.base_dir)
     sensor_names = output_sensors(cfg)
-    sensor_correlations(cfg)
     days = cfg.window.days()
     tasks = []
     for source in cfg.sources:
@@ -340,7 +312,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
             tasks.append(FileTask(source, path, len(tasks)))
     # the one cross-file step: decide duplicate profiles before the independent per-file work
     cfg.duplicate_groups = find_duplicates(tasks)
-    executed = run_tasks(cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
+    executed = run_tasks(process_file, cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
                          scheduler=scheduler, progress=progress)
 
     ledger = Ledger()

@@ -28,33 +28,15 @@ from __future__ import annotations
 import os
 import threading
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass, field
 
+from obsprep.run.ledger import LedgerEntry
+from obsprep.run.tasks import ExecutionResult, FileResult, FileTask
 from obsprep.superobs import Accumulator
 
 #: number of partial accumulators merged by one node of the reduction tree
 MERGE_FAN_IN = 8
 #: ledger status of a file skipped because an earlier file of the source has the same bytes
 DUPLICATE_FILE = "duplicate_file"
-
-
-@dataclass(frozen=True)
-class FileTask:
-    """One file of one source, with its position in the task list (the merge order)."""
-
-    source: object
-    path: str
-    file_index: int
-
-
-@dataclass
-class ExecutionResult:
-    """What running every task gives: ledger entries and profile names in task order, and the
-    accumulator of all files (None when no file kept anything)."""
-
-    entries: list = field(default_factory=list)
-    profile_names: dict = field(default_factory=dict)
-    accumulator: Accumulator | None = None
 
 
 # --------------------------------------------------------------------------------------------
@@ -80,32 +62,33 @@ def merge_group(items):
 
 
 def reduce_in_fixed_tree(items, fan_in: int | None = None):
-    """Reduce ``items`` (task order) with :func:`merge_group` over consecutive groups of
-    ``fan_in`` (default :data:`MERGE_FAN_IN`), level by level, until one is left.  None for an
-    empty list."""
-    fan_in = MERGE_FAN_IN if fan_in is None else fan_in
-    if fan_in < 2:
-        raise ValueError(f"fan_in must be at least 2, got {fan_in}")
-    level = list(items)
-    if not level:
-        return None
-    while len(level) > 1:
-        level = [merge_group(level[start:start + fan_in]) for start in range(0, len(level), fan_in)]
-    return merge_group(level)
+    """Reduce ``items`` (task order) over the fixed tree: consecutive groups of ``fan_in``
+    (default :data:`MERGE_FAN_IN`) merged with :func:`merge_group`, level by level, until one
+    is left.  None for an empty list.  (The tree is :class:`FixedTreeReducer`'s.)"""
+    reducer = FixedTreeReducer(fan_in)
+    for item in items:
+        reducer.add(item)
+    return reducer.result()
 
 
 class FixedTreeReducer:
-    """The tree of :func:`reduce_in_fixed_tree`, evaluated as the items arrive in task order.
+    """The one merge tree of the build, evaluated as the items arrive in task order.
 
-    ``add`` items one by one, then ``result()``.  A node is merged as soon as its ``fan_in``
-    children are known, so at most ``fan_in - 1`` partial results wait on each level.
+    The items in task order are cut into consecutive groups of ``fan_in``, each group merged
+    into one node, and the same repeated on the nodes until one is left.  ``add`` items one
+    by one, then ``result()``.  A node is merged as soon as its ``fan_in`` children are known,
+    so at most ``fan_in - 1`` partial results wait on each level.
+
+    ``merge(items)`` merges one node (default :func:`merge_group`); on a Dask cluster it
+    submits that merge as a task, so the cluster evaluates the same tree.
     """
 
-    def __init__(self, fan_in: int | None = None):
+    def __init__(self, fan_in: int | None = None, merge=None):
         fan_in = MERGE_FAN_IN if fan_in is None else fan_in
         if fan_in < 2:
             raise ValueError(f"fan_in must be at least 2, got {fan_in}")
         self.fan_in = fan_in
+        self._merge = merge_group if merge is None else merge
         self._levels: list[list] = []
         self._count = 0
 
@@ -121,7 +104,7 @@ class FixedTreeReducer:
         level.append(item)
         if len(level) == self.fan_in:
             self._levels[depth] = []
-            self._push(depth + 1, merge_group(level))
+            self._push(depth + 1, self._merge(level))
 
     def result(self):
         """The reduced accumulator (None when nothing was added or nothing was kept)."""
@@ -134,10 +117,10 @@ class FixedTreeReducer:
             above = any(self._levels[d] for d in range(depth + 1, len(self._levels)))
             level = self._levels[depth] if depth < len(self._levels) else []
             if not above:
-                return merge_group(level)
+                return self._merge(level)
             if level:
                 self._levels[depth] = []
-                self._push(depth + 1, merge_group(level))
+                self._push(depth + 1, self._merge(level))
             depth += 1
 
 
@@ -203,9 +186,6 @@ def identical_files(tasks) -> dict:
 
 
 def _duplicate_result(task: FileTask, first: str):
-    from obsprep.run.build import FileResult
-    from obsprep.run.ledger import LedgerEntry
-
     return FileResult(LedgerEntry(file=task.path, sensor=task.source.sensor, kind=task.source.kind,
                                   status=DUPLICATE_FILE, message=f"same content as {first}; "
                                   "not read again", size_bytes=os.path.getsize(task.path)))
@@ -214,27 +194,29 @@ def _duplicate_result(task: FileTask, first: str):
 # --------------------------------------------------------------------------------------------
 # running the tasks
 
+#: one file at a time per worker process: the HDF5 library under netCDF4 is not thread-safe,
+#: and a Dask worker may run several tasks in threads of one process
+_FILE_LOCK = threading.Lock()
+
+
+def run_one_task(process, cfg, grid, sensor_names, strict, task: FileTask) -> FileResult:
+    """The per-file work of one task, wherever it runs (here, a local worker, a Dask worker):
+    ``process(cfg, grid, source, path, file_index, sensor_names, strict)``."""
+    with _FILE_LOCK:
+        return process(cfg, grid, task.source, task.path, task.file_index, sensor_names, strict)
+
+
 _WORKER_CONTEXT: dict = {}
 
 
-def _init_worker(cfg, grid, sensor_names, strict):
-    """Process-pool initializer: keep the config and the grid (with its cached search tables)
-    in the worker, so each task ships only (source, path, file index)."""
-    _WORKER_CONTEXT.update(cfg=cfg, grid=grid, sensor_names=sensor_names, strict=strict)
+def _init_worker(*context):
+    """Process-pool initializer: keep the per-file function, the config and the grid (with
+    its cached search tables) in the worker, so each task ships only (source, path, index)."""
+    _WORKER_CONTEXT["context"] = context
 
 
-def _run_in_worker(task: FileTask):
-    from obsprep.run.build import process_file
-
-    c = _WORKER_CONTEXT
-    return process_file(c["cfg"], c["grid"], task.source, task.path, task.file_index,
-                        c["sensor_names"], c["strict"])
-
-
-def _run_here(cfg, grid, sensor_names, strict, task: FileTask):
-    from obsprep.run.build import process_file
-
-    return process_file(cfg, grid, task.source, task.path, task.file_index, sensor_names, strict)
+def _run_in_worker(task: FileTask) -> FileResult:
+    return run_one_task(*_WORKER_CONTEXT["context"], task)
 
 
 def _in_task_order(tasks, duplicates, ran):
@@ -256,14 +238,18 @@ def _collect(results, reducer, outcome, bar):
             bar.update()
 
 
-def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler=None,
+def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler=None,
               progress=False) -> ExecutionResult:
-    """Run :func:`~obsprep.run.build.process_file` for every task and reduce the accumulators.
+    """Run the per-file work for every task and reduce the accumulators in the fixed tree.
 
     Parameters
     ----------
+    process : callable
+        The per-file work, ``process(cfg, grid, source, path, file_index, sensor_names,
+        strict) -> FileResult`` (:func:`obsprep.run.build.process_file`); a module-level
+        function, so that it can be sent to worker processes.
     cfg, grid, sensor_names, strict
-        As for :func:`~obsprep.run.build.process_file`.
+        Passed to ``process``.
     tasks : list of FileTask
         In merge order (``file_index`` is the position).
     jobs : int
@@ -290,8 +276,8 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
     to_run = [t for t in tasks if t.file_index not in duplicates]
     try:
         if scheduler is not None:
-            return _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
-                                bar)
+            return _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict,
+                                scheduler, bar)
         outcome = ExecutionResult()
         reducer = FixedTreeReducer()
         if jobs and jobs > 1 and len(to_run) > 1:
@@ -299,11 +285,11 @@ def run_tasks(cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler
 
             preload()  # before the workers are forked, so each inherits it
             with ProcessPoolExecutor(max_workers=min(jobs, len(to_run)), initializer=_init_worker,
-                                     initargs=(cfg, grid, sensor_names, strict)) as pool:
+                                     initargs=(process, cfg, grid, sensor_names, strict)) as pool:
                 _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),
                          reducer, outcome, bar)
         else:
-            ran = (_run_here(cfg, grid, sensor_names, strict, t) for t in to_run)
+            ran = (run_one_task(process, cfg, grid, sensor_names, strict, t) for t in to_run)
             _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)
         outcome.accumulator = reducer.result()
         return outcome
@@ -319,19 +305,7 @@ def _summary(result):
     return result.entry, result.profile_names
 
 
-#: one file at a time per worker process: the HDF5 library under netCDF4 is not thread-safe,
-#: and a Dask worker may run several tasks in threads of one process
-_FILE_LOCK = threading.Lock()
-
-
-def _process_file_on_worker(*args):
-    from obsprep.run.build import process_file
-
-    with _FILE_LOCK:
-        return process_file(*args)
-
-
-def _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
+def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
                  bar) -> ExecutionResult:
     """Submit the per-file tasks and the fixed merge tree to a Dask cluster.
 
@@ -366,24 +340,20 @@ def _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
         # the config and grid go to the cluster once, not once per task
         shared = client.scatter([cfg, grid, sensor_names], broadcast=True)
         cfg_f, grid_f, names_f = shared
-        files = [client.submit(_process_file_on_worker, cfg_f, grid_f, t.source, t.path,
-                               t.file_index, names_f, strict,
+        files = [client.submit(run_one_task, process, cfg_f, grid_f, names_f, strict, t,
                                key=f"obsprep-file-{t.file_index}-{run}", pure=False)
                  if t.file_index not in duplicates
                  else client.submit(_duplicate_result, t, duplicates[t.file_index], pure=False,
                                     key=f"obsprep-duplicate-{t.file_index}-{run}")
                  for t in tasks]
         summaries = [client.submit(_summary, f, pure=False) for f in files]
-        # the same tree as reduce_in_fixed_tree / FixedTreeReducer, one task per node
-        fan_in = MERGE_FAN_IN
-        level = files
-        depth = 0
-        while len(level) > 1:
-            level = [client.submit(merge_group, level[s:s + fan_in], pure=False,
-                                   key=f"obsprep-merge-{depth}-{s}-{run}")
-                     for s in range(0, len(level), fan_in)]
-            depth += 1
-        root = client.submit(merge_group, level, pure=False, key=f"obsprep-root-{run}")
+        # the one merge tree, each node a task on the cluster
+        nodes = iter(range(len(files) + 1))
+        reducer = FixedTreeReducer(merge=lambda items: client.submit(
+            merge_group, items, pure=False, key=f"obsprep-merge-{next(nodes)}-{run}"))
+        for file in files:
+            reducer.add(file)
+        root = reducer.result()
         if bar is not None:
             for _ in as_completed(summaries):
                 bar.update()
@@ -397,5 +367,5 @@ def _run_on_dask(cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
             client.close()
 
 
-__all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "ExecutionResult", "merge_group",
-           "reduce_in_fixed_tree", "FixedTreeReducer", "identical_files", "run_tasks"]
+__all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "FileResult", "ExecutionResult", "merge_group",
+           "reduce_in_fixed_tree", "FixedTreeReducer", "identical_files", "run_one_task", "run_tasks"]

@@ -296,6 +296,26 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     from obsprep.settings.errors import check_superobs_error_settings
 
     check_superobs_error_settings(superobs, src)
-    return Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
+    config = Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
                   grid=dict(raw["grid"]), sources=sources,
                   superobs=from_table(SuperobsSettings, superobs), output=output)
+    sensor_correlations(config)  # sources merged into one sensor must agree
+    return config
+
+
+def output_sensors(cfg: Config) -> list[str]:
+    """Sorted output sensor names (after merging); their index is the sensor key."""
+    return sorted({cfg.output_sensor(s.sensor) for s in cfg.sources})
+
+
+def sensor_correlations(cfg: Config) -> dict:
+    """Within-sensor error correlation per output sensor; merged sources must agree."""
+    out: dict[str, float] = {}
+    for s in cfg.sources:
+        name = cfg.output_sensor(s.sensor)
+        if name in out and out[name] != s.correlation:
+            raise ConfigError(f"sources[{s.index}].correlation",
+                              f"sources merged into '{name}' have different correlations "
+                              f"({out[name]} and {s.correlation})")
+        out[name] = s.correlation
+    return out

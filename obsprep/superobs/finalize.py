@@ -18,7 +18,8 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     representation-error fields only (built from the configuration when not given).
     """
     # imported here: the build module imports this one
-    from obsprep.run.build import QUANTITY_NAMES, sensor_correlations
+    from obsprep.model.quantities import QUANTITY_NAMES
+    from obsprep.settings.config import sensor_correlations
 
 
     mode = cfg.superobs.mode
