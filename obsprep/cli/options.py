@@ -22,7 +22,10 @@ scheduler_opt = click.option("--scheduler", "scheduler", metavar="ADDRESS", defa
 
 
 def library_errors(func):
-    """Turn library errors into one clear line: config errors exit 2 (bad usage), others 1."""
+    """Turn errors into one clear line on stderr: configuration errors exit 2 (bad usage),
+    other obsprep errors and operating-system errors 1.  Anything else is a fault of obsprep
+    itself, not of the input: it exits 1 with a line saying so, and the traceback goes to a
+    log file named in that line (:func:`report_internal_error`)."""
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
@@ -34,5 +37,28 @@ def library_errors(func):
             raise click.ClickException(str(exc)) from exc
         except OSError as exc:
             raise click.ClickException(f"{exc.filename or ''}: {exc.strerror or exc}") from exc
+        except (click.exceptions.ClickException, click.exceptions.Exit, click.exceptions.Abort):
+            raise
+        except Exception as exc:  # noqa: BLE001 - the edge where internal errors are reported
+            raise click.ClickException(report_internal_error(exc)) from exc
 
     return wrapper
+
+
+def report_internal_error(exc: BaseException) -> str:
+    """Write the traceback of ``exc`` to a new log file; return the one-line message naming it.
+
+    The file goes to the system's temporary directory (``TMPDIR``), since an internal error
+    may happen before the output directory is known."""
+    import tempfile
+    import traceback
+
+    from obsprep import __version__
+
+    handle, path = tempfile.mkstemp(prefix="obsprep-internal-error-", suffix=".log")
+    with open(handle, "w", encoding="utf-8") as log:
+        log.write(f"obsprep {__version__}: internal error\n")
+        log.write("".join(traceback.format_exception(exc)))
+    first_line = (str(exc).splitlines() or [""])[0]
+    return (f"internal error (a fault of obsprep, not of the input): {type(exc).__name__}: "
+            f"{first_line} (traceback in {path})")
