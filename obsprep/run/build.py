@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -179,42 +179,90 @@ def _combine_parts(results: list[FileResult]) -> FileResult:
     return FileResult(entry=entry, accumulator=reducer.result(), profile_names=profile_names)
 
 
-def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, file_index: int,
-                   sensor_names: list[str], size: int, duplicate_groups) -> FileResult:
-    """Everything after reading, for one file or one part of it (see :func:`process_file`)."""
-    kind = table.attrs.get("kind", source.kind)
-    # Rows the reader rejected (fill, provider flags, quality level) are counted for the ledger
-    # now and not carried through the later stages: on a cloudy swath they are most rows.
-    counted_by_reader = rejected_counts(table)
-    if counted_by_reader:
+@dataclass
+class FileWork:
+    """One file (or one part of it) on its way through :data:`PER_FILE_STEPS`.
+
+    ``table`` is the observation table (rows the reader rejected are dropped by the first
+    step and counted in ``counted_by_reader``); ``i``, ``j``, ``k`` the model cell and layer
+    of each row once located (-1 where none); ``result`` what the file yields.
+    """
+
+    cfg: Config
+    grid: object
+    source: object
+    path: str
+    file_index: int
+    sensor_names: list
+    duplicate_groups: object
+    table: pd.DataFrame
+    counted_by_reader: dict = field(default_factory=dict)
+    i: np.ndarray | None = None
+    j: np.ndarray | None = None
+    k: np.ndarray | None = None
+    result: FileResult = field(default_factory=lambda: FileResult(entry=None))
+
+
+def count_reader_rejections(work: FileWork) -> None:
+    """Count the rows the reader rejected (fill, provider flags, quality level) and those it
+    left out of the table, for the ledger, and drop them: on a cloudy swath they are most
+    rows, and no later step needs them."""
+    table = work.table
+    counted = rejected_counts(table)
+    if counted:
         table = table.loc[kept(table)].reset_index(drop=True)
-    for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():  # left out by the reader
-        counted_by_reader[reason] = counted_by_reader.get(reason, 0) + count
+    for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():
+        counted[reason] = counted.get(reason, 0) + count
+    work.table, work.counted_by_reader = table, counted
+
+
+def check_table(work: FileWork) -> None:
+    """The quality-control checks that need no model grid (:func:`obsprep.qc.table_checks`)."""
+    source = work.source
+    table_checks(work.table, work.cfg.window, quantities=source.quantities,
+                 valid_range=source.valid_range, settings=source.qc,
+                 duplicate_groups=work.duplicate_groups)
+
+
+def assign_raw_errors(work: FileWork) -> None:
+    """The raw error of every row from the source's error rule (:mod:`obsprep.errors`)."""
+    assign_errors(work.table, work.source.error, f"sources[{work.source.index}].error")
+
+
+def locate_on_grid(work: FileWork) -> None:
+    """Model cell and layer of the rows still kept; outside the grid, land, below the
+    bathymetry or the deepest layer rejected; then the checks that need the grid."""
+    table, grid = work.table, work.grid
     n = len(table)
-    qc_settings = source.qc
-    table_checks(table, cfg.window, quantities=source.quantities, valid_range=source.valid_range,
-                 settings=qc_settings, duplicate_groups=duplicate_groups)
-    assign_errors(table, source.error, f"sources[{source.index}].error")
-
-    # Model-grid checks on the rows still kept.
     live = kept(table)
-    i = np.full(n, -1, dtype=np.int64)
-    j = np.full(n, -1, dtype=np.int64)
-    k = np.full(n, -1, dtype=np.int64)
-    if live.any():
-        li, lj, lk, reason = grid.classify_codes(*(_rows(table[c].to_numpy(), live)
-                                                   for c in ("lon", "lat", "depth")))
-        i[live], j[live], k[live] = li, lj, lk
-        full_reason = np.zeros(n, dtype=np.int8)
-        full_reason[live] = reason
-        for position, code in enumerate(CLASSIFY_REASONS, start=1):
-            reject(table, full_reason == position, code)
-        if qc_settings is not None:
-            grid_checks(table, grid, i, j, qc_settings)
-    rotate_drift_to_grid(table, grid, i, j)
+    work.i = np.full(n, -1, dtype=np.int64)
+    work.j = np.full(n, -1, dtype=np.int64)
+    work.k = np.full(n, -1, dtype=np.int64)
+    if not live.any():
+        return
+    li, lj, lk, reason = grid.classify_codes(*(_rows(table[c].to_numpy(), live)
+                                               for c in ("lon", "lat", "depth")))
+    work.i[live], work.j[live], work.k[live] = li, lj, lk
+    full_reason = np.zeros(n, dtype=np.int8)
+    full_reason[live] = reason
+    for position, code in enumerate(CLASSIFY_REASONS, start=1):
+        reject(table, full_reason == position, code)
+    if work.source.qc is not None:
+        grid_checks(table, grid, work.i, work.j, work.source.qc)
 
+
+def rotate_drift(work: FileWork) -> None:
+    """Drift vectors from east/north onto the model grid axes (:func:`rotate_drift_to_grid`)."""
+    rotate_drift_to_grid(work.table, work.grid, work.i, work.j)
+
+
+def accumulate(work: FileWork) -> None:
+    """The kept rows into the file's mergeable super-observation sums, a chunk of rows at a
+    time (bounded temporary memory), merged in a fixed order."""
+    table, cfg, source, file_index = work.table, work.cfg, work.source, work.file_index
+    i, j, k, grid, sensor_names = work.i, work.j, work.k, work.grid, work.sensor_names
     live = kept(table)
-    result = FileResult(entry=None)
+    result = work.result
     if live.any():
         live_rows = np.flatnonzero(live)
         q_all = _quantity_codes(table)
@@ -270,9 +318,26 @@ def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, fi
                           if thinning else None),
             ))
         result.accumulator = reducer.result()
-    result.entry = entry_from_table(table, path, source.sensor, kind, size,
-                                    counted_earlier=counted_by_reader)
-    return result
+
+
+#: the per-file work after reading, in order; each step reads and updates one :class:`FileWork`
+PER_FILE_STEPS = (count_reader_rejections, check_table, assign_raw_errors, locate_on_grid,
+                  rotate_drift, accumulate)
+
+
+def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, file_index: int,
+                   sensor_names: list[str], size: int, duplicate_groups) -> FileResult:
+    """Everything after reading, for one file or one part of it (see :func:`process_file`):
+    :data:`PER_FILE_STEPS` in order, then the file's ledger entry."""
+    kind = table.attrs.get("kind", source.kind)
+    work = FileWork(cfg=cfg, grid=grid, source=source, path=path, file_index=file_index,
+                    sensor_names=sensor_names, duplicate_groups=duplicate_groups, table=table)
+    del table  # the steps may replace the table; hold no second reference
+    for step in PER_FILE_STEPS:
+        step(work)
+    work.result.entry = entry_from_table(work.table, path, source.sensor, kind, size,
+                                         counted_earlier=work.counted_by_reader)
+    return work.result
 
 
 def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
