@@ -13,7 +13,7 @@ from obsprep.geo.grid import grid_from_config
 from obsprep.run.build import build
 from obsprep.settings.config import load_config
 
-EXAMPLES = Path(__file__).parents[1] / "examples"
+EXAMPLES = Path(__file__).parents[2] / "examples"
 
 
 @pytest.fixture(scope="module")

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pyproj
-from formats import ARGO_EPOCH, write_argo
+from sample_files import ARGO_EPOCH, write_argo
 
 from obsprep.qc.duplicates import decide_duplicates, file_identities
 from obsprep.run.build import build

@@ -9,7 +9,7 @@ import pytest
 from obsprep.exceptions import ConfigError
 from obsprep.settings.config import load_config, load_schema
 
-ROOT = Path(__file__).parents[1]
+ROOT = Path(__file__).parents[2]
 
 
 def minimal(**over):

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from formats import REGULAR_GRID_TOML, write_gds2
+from sample_files import REGULAR_GRID_TOML, write_gds2
 from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
 
 from obsprep.readers import read, read_parts

@@ -10,7 +10,7 @@ from obsprep.cli.main import cli
 from obsprep.exceptions import ConfigError
 from obsprep.settings.config import load_config
 
-EXAMPLE = Path(__file__).parents[1] / "examples" / "regular_grid.toml"
+EXAMPLE = Path(__file__).parents[2] / "examples" / "regular_grid.toml"
 
 
 def _write(tmp_path, edit):

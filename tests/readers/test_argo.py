@@ -15,7 +15,7 @@ import gsw
 import netCDF4
 import numpy as np
 import pytest
-from formats import ARGO_EPOCH, write_argo
+from sample_files import ARGO_EPOCH, write_argo
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.table import validate_table

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 from click.testing import CliRunner
-from formats import write_alongtrack
+from sample_files import write_alongtrack
 
 from obsprep.cli.main import cli
 from obsprep.readers import registered_readers

@@ -11,7 +11,7 @@ import netCDF4
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from formats import GDS2_EPOCH, write_argo, write_gds2
+from sample_files import GDS2_EPOCH, write_argo, write_gds2
 
 from obsprep.cli.main import cli
 from obsprep.exceptions import InputFileError

@@ -12,7 +12,7 @@ from __future__ import annotations
 import netCDF4
 import numpy as np
 import pytest
-from formats import GDS2_EPOCH, write_gds2
+from sample_files import GDS2_EPOCH, write_gds2
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.table import validate_table

@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 import xarray as xr
 from click.testing import CliRunner
-from formats import REGULAR_GRID_TOML, write_alongtrack
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from sample_files import REGULAR_GRID_TOML, write_alongtrack
 
 from obsprep.cli.main import cli
 from obsprep.run import execution

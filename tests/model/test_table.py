@@ -10,7 +10,7 @@ import pytest
 
 from obsprep.model.table import COLUMNS, concat_tables, kept, make_table, reject, validate_table
 
-SCHEMA = json.loads((Path(__file__).parents[1] / "schemas" / "observation.schema.json").read_text())
+SCHEMA = json.loads((Path(__file__).parents[2] / "schemas" / "observation.schema.json").read_text())
 
 
 def test_schema_documents_every_column_with_its_dtype():

@@ -11,7 +11,7 @@ from __future__ import annotations
 import netCDF4
 import numpy as np
 import pytest
-from formats import write_gds2
+from sample_files import write_gds2
 
 from obsprep.exceptions import ConfigError, InputFileError
 from obsprep.readers import read

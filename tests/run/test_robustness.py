@@ -19,7 +19,7 @@ from pathlib import Path
 import cftime
 import numpy as np
 import xarray as xr
-from formats import write_alongtrack
+from sample_files import write_alongtrack
 
 from obsprep.run.build import build
 
@@ -203,7 +203,7 @@ def test_sigkill_while_writing_leaves_the_previous_output_intact(tmp_path):
     driver = tmp_path / "driver.py"
     driver.write_text(DRIVER)
     env = dict(os.environ, PYTHONPATH=os.pathsep.join(
-        [str(Path(__file__).resolve().parents[1])] + sys.path))
+        [str(Path(__file__).resolve().parents[2])] + sys.path))
     child = subprocess.Popen([sys.executable, str(driver), str(config), str(marker)], env=env,
                              stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     try:

@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 from click.testing import CliRunner
-from formats import write_alongtrack
+from sample_files import write_alongtrack
 
 from obsprep.cli.main import cli
 from obsprep.run.build import build
