@@ -8,9 +8,9 @@ look too small or too large and writes a report folder.
 - :mod:`.rundir`: reading the run directory (super-observations, ledgers, grid);
 - :mod:`.summary`: counts, the spread test, the verdict per sensor;
 - :mod:`.collocation`: pairs of sensors in the same cell and slot;
-- :mod:`.triple`: triple collocation (Stoffelen 1998);
+- :mod:`.triple`: triple collocation ([Stoffelen1998];
 - :mod:`.ensemble`: model equivalents from an ensemble or a background on the model grid;
-- :mod:`.innovations`: innovation statistics (Desroziers et al. 2005);
+- :mod:`.innovations`: innovation statistics ([Desroziers2005];
 - :mod:`.figures`, :mod:`.report`: the PNG figures and the report files.
 """
 

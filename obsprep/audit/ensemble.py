@@ -22,7 +22,7 @@ Model equivalent H(x) of a super-observation, for each member:
 
 Interval quantities (ice drift) have no equivalent here.  Members are read one at a time, so
 memory holds one member and the point values only; the ensemble mean and variance (ddof = 1)
-at the points are accumulated with Welford's update (Welford 1962, Technometrics 4, 419-420).
+at the points are accumulated with Welford's update ([Welford1962], Technometrics 4, 419-420).
 """
 
 from __future__ import annotations

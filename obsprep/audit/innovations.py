@@ -1,7 +1,7 @@
 """Innovation statistics per sensor: observation minus model, against the assigned errors.
 
 With the innovation d = y - H(x_mean) of a super-observation of assigned error sigma_o and the
-ensemble variance sigma_ens^2 of H(x) at it, a consistent system has (Desroziers et al. 2005,
+ensemble variance sigma_ens^2 of H(x) at it, a consistent system has ([Desroziers2005],
 Q. J. R. Meteorol. Soc. 131, 3385-3396, for d = y - H(x_b): E[d d^T] = H B H^T + R)
 
 .. math:: E[d^2] = \\sigma_o^2 + \\sigma_{ens}^2
@@ -24,7 +24,7 @@ With a single background (no ensemble) the background error is unknown: ``factor
 sqrt(var(d) / mean(sigma_o^2)) is an upper bound of alpha (background error >= 0).
 
 With an analysis as well, the residual d_a = y - H(x_a) gives the estimate
-E[d_a d] = sigma_o^2 (Desroziers et al. 2005, for an analysis using the true error
+E[d_a d] = sigma_o^2 ([Desroziers2005], for an analysis using the true error
 statistics): ``desroziers_factor`` = sqrt(mean(d_a d) / mean(sigma_o^2)).
 
 The standard errors assume independent innovations; neighbouring super-observations share

@@ -1,7 +1,7 @@
 """Triple collocation: each sensor's error from three collocated sensors of one quantity.
 
 For three collocated estimates x_k = t + e_k of the same truth t with mutually independent
-errors, independent of t, and a common calibration (Stoffelen 1998, J. Geophys. Res. 103(C4),
+errors, independent of t, and a common calibration ([Stoffelen1998], J. Geophys. Res. 103(C4),
 7755-7766):
 
 .. math::
@@ -44,7 +44,7 @@ def covariance_with_standard_error(u, v) -> tuple[float, float]:
 
 
 def triple_collocation(x1, x2, x3) -> dict:
-    """Error variances of three collocated series (Stoffelen 1998), with standard errors.
+    """Error variances of three collocated series ([Stoffelen1998], with standard errors.
 
     Parameters
     ----------

@@ -14,7 +14,7 @@ variance is exactly 1).  The ensemble mean error b is then drawn from the distri
 ensemble describes: E[b^2] = sigma^2 = E[sample variance of the members] (ddof = 1; the
 centring leaves the sample variance of e_m unchanged).  Hence, for an observation y = truth +
 eps with error variance sigma_o^2, the innovation d = y - H(mean) has E[d^2] = sigma_o^2 +
-sigma_ens^2, the consistency condition of Desroziers et al. (2005, QJRMS 131) for d = y - H(x_b),
+sigma_ens^2, the consistency condition of [Desroziers2005], QJRMS 131) for d = y - H(x_b),
 up to the horizontal interpolation of the truth (the truth is smooth on the 10 km grid) and the
 time between an observation and the nearest output time.
 

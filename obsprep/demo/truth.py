@@ -296,7 +296,7 @@ def sea_ice_displacement_map(lon, lat, time, time_end):
 def east_north_to_map_axes(east, north, lon, central_longitude=0.0):
     """Rotate east/north components onto the x/y axes of a south polar stereographic map.
 
-    For the south polar aspect x = rho sin(lon - lon0), y = rho cos(lon - lon0) (Snyder 1987,
+    For the south polar aspect x = rho sin(lon - lon0), y = rho cos(lon - lon0) ([Snyder1987],
     USGS Professional Paper 1395, polar stereographic, south aspect; from memory), so the
     local east unit vector is (cos a, -sin a) and north (sin a, cos a) with a = lon - lon0:
     x = e cos a + n sin a, y = -e sin a + n cos a.  Rotation only: no map scale factor.

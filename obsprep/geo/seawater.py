@@ -1,11 +1,11 @@
 """Seawater conversions: depth <-> sea pressure and the freezing point, all TEOS-10 through
 ``gsw`` (the reference implementation of the Gibbs SeaWater toolbox).
 
-Source: IOC, SCOR and IAPSO (2010), *The international thermodynamic equation of seawater -
+Source: [TEOS10], *The international thermodynamic equation of seawater -
 2010: calculation and use of thermodynamic properties*, Intergovernmental Oceanographic
 Commission, Manuals and Guides No. 56 (the TEOS-10 manual).  Depth is positive down, in m;
 pressure is sea pressure (absolute pressure minus 10.1325 dbar), in dbar; latitude and
-longitude in degrees north and east.  The UNESCO 1983 formulas (Fofonoff and Millard 1983,
+longitude in degrees north and east.  The UNESCO 1983 formulas ([FofonoffMillard1983],
 UNESCO Technical Papers in Marine Science 44) are not used; they are only check values.
 """
 
@@ -20,10 +20,10 @@ def depth_from_pressure(pressure_dbar, latitude_deg) -> np.ndarray:
     .. math:: depth = -z(p, \\varphi)
 
     with z the height (negative in the ocean) from TEOS-10 ``gsw.z_from_p(p, lat)``, which
-    solves eq. (3.32.3) of the TEOS-10 manual (IOC, SCOR and IAPSO 2010) for a standard ocean
+    solves eq. (3.32.3) of the TEOS-10 manual ([TEOS10] for a standard ocean
     (SA = 35.16504 g/kg, CT = 0 degC) with the 75-term specific volume of Roquet et al.
     (2015, Ocean Modelling 90); no dynamic height or sea-surface geopotential term.  Within
-    about 1 m of the UNESCO 1983 formula (Fofonoff and Millard 1983) at 10 000 dbar.
+    about 1 m of the UNESCO 1983 formula ([FofonoffMillard1983] at 10 000 dbar.
     """
     import gsw
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 #: Mean radius R1 = (2a + b) / 3 of the GRS 80 / WGS 84 ellipsoid, m
-#: (Moritz 2000, "Geodetic Reference System 1980", J. Geodesy 74, 128-133; from memory).
+#: ([Moritz2000], "Geodetic Reference System 1980", J. Geodesy 74, 128-133; from memory).
 EARTH_MEAN_RADIUS_M = 6_371_008.8
 
 
@@ -70,7 +70,7 @@ def cos_sin_degrees(angle, cos_out=None, sin_out=None):
 def great_circle_distance(lon1, lat1, lon2, lat2, radius=EARTH_MEAN_RADIUS_M):
     """Great-circle distance in m between points given in degrees, on a sphere of ``radius`` m.
 
-    Haversine formula (Sinnott 1984, "Virtues of the haversine", Sky and Telescope 68(2), 159;
+    Haversine formula ([Sinnott1984], "Virtues of the haversine", Sky and Telescope 68(2), 159;
     from memory), accurate for small and large separations alike:
 
     .. math:: d = 2 R \\arcsin\\sqrt{\\sin^2\\frac{\\Delta\\varphi}{2}

@@ -1,5 +1,5 @@
-"""Argo real-time quality-control tests on profiles (Argo Quality Control Manual for CTD and
-Trajectory Data; thresholds from memory, see ``../shared/REFERENCES.md``).
+"""Argo real-time quality-control tests on profiles ([ArgoQC], Argo Quality Control Manual for CTD and
+Trajectory Data; thresholds from memory, see docs/references.md).
 
 They apply to the depth-resolved quantities (``sea_water_temperature``,
 ``sea_water_salinity``) of any profile source, Argo or not.  A profile is the rows of one

@@ -411,7 +411,7 @@ def _grouped_mean(x, inverse, n_groups, weight_per_row, total_weight):
 
     Returns ``(mean, sum_sq)`` with ``sum_sq = sum w (x - mean)^2`` per group, computed as
     ``sum w d^2 - (sum w d)^2 / W`` with ``d = x - first-pass mean`` (the "corrected two-pass
-    algorithm" of Chan, Golub & LeVeque 1983), which stays accurate when the spread is tiny
+    algorithm" of [Chan1983]), which stays accurate when the spread is tiny
     compared with the mean.
     ``weight_per_row`` None means unit weights.
     """

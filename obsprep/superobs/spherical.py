@@ -52,7 +52,7 @@ def mean_position(sum_x, sum_y, sum_z):
         \\sqrt{(\\sum x)^2 + (\\sum y)^2}\\big)
 
     i.e. the direction of the resultant vector, the "mean direction" of directional statistics
-    (Mardia & Jupp, *Directional Statistics*, Wiley 2000, chapter on spherical data; from
+    ([MardiaJupp2000], *Directional Statistics*, Wiley 2000, chapter on spherical data; from
     memory).  ``atan2`` for latitude keeps
     full precision near the poles, where ``arcsin`` of the normalised z would not.
 

@@ -1,5 +1,5 @@
 """Audit statistics on synthetic data of known errors: collocation of pairs, triple collocation
-(Stoffelen 1998, J. Geophys. Res. 103(C4), 7755-7766), the innovation identities of Desroziers
+([Stoffelen1998], J. Geophys. Res. 103(C4), 7755-7766), the innovation identities of Desroziers
 et al. (2005, Q. J. R. Meteorol. Soc. 131, 3385-3396), the spread test and the verdict.
 
 Synthetic data are numpy Monte Carlo draws; each estimate is compared with the known value

@@ -2,7 +2,7 @@
 
 The demo files are checked with tools from outside the project: netCDF4's CF unpacking and
 xarray's decoding, PROJ through pyproj (grid cell centres, CRS from CF grid mappings, meridian
-convergence), pyproj.Geod (geodesics, Karney 2013, J. Geodesy 87), TEOS-10 through gsw
+convergence), pyproj.Geod (geodesics, [Karney2013], J. Geodesy 87), TEOS-10 through gsw
 (pressure to depth, freezing point) and pint through cf_xarray (units).
 
 Statistical tolerances: for n independent draws of N(0, sigma^2), the sample mean has standard

@@ -40,7 +40,7 @@ SNYDER_CRS = "+proj=stere +lat_0=-90 +lat_ts=-71 +lon_0=-100 +ellps=intl +units=
 
 
 def test_snyder_polar_stereographic_example():
-    # Snyder (1987), Map Projections: A Working Manual, USGS PP 1395, polar stereographic
+    # [Snyder1987], Map Projections: A Working Manual, USGS PP 1395, polar stereographic
     # ellipsoidal numerical example (from memory; PROJ reproduces it to 0.1 m):
     # International 1924 ellipsoid, standard parallel 71 S, central meridian 100 W,
     # 75 S 150 E -> x = -1 540 033.6 m, y = -560 526.4 m.
@@ -88,7 +88,7 @@ def test_projected_axis_angle_matches_proj_meridian_convergence():
     error = _wrapped_difference(grid.angle, -np.radians(gamma))
     assert np.abs(error).max() < 1e-8  # rad; both are finite differences of the same projection
     # a hand check of the sign: south polar stereographic with central meridian 0 has
-    # x = rho sin(lon), y = rho cos(lon) (Snyder 1987, polar stereographic formulas; from
+    # x = rho sin(lon), y = rho cos(lon) ([Snyder1987], polar stereographic formulas; from
     # memory), so north (radially outward) is at 90 deg - lon from +x and the +x axis at
     # a = lon from east; e.g. at 90 E, +x points north.
     expected = np.radians(grid.lon_center)
@@ -412,7 +412,7 @@ def test_rotation_preserves_length_and_matches_hand_rotation():
 
 
 def test_grid_rotation_matches_displacement_through_the_projection():
-    # Reference: pyproj.Geod (GeographicLib, Karney 2013) moves each cell centre 10 m along the
+    # Reference: pyproj.Geod (GeographicLib, [Karney2013]) moves each cell centre 10 m along the
     # vector's azimuth; PROJ projects start and end; on a conformal projection the map
     # displacement has the direction of the vector's grid components.
     grid = ProjectedGrid("EPSG:3031", x_min=-3.0e6, y_min=-3.0e6, dx=100e3, dy=100e3, nx=60,
@@ -481,7 +481,7 @@ def test_classify_reasons_in_order():
 # --- distances ---------------------------------------------------------------------------------
 
 def test_cell_center_distance_against_geodesics():
-    # Reference: pyproj.Geod (GeographicLib, Karney 2013): on a sphere of the mean radius the
+    # Reference: pyproj.Geod (GeographicLib, [Karney2013]): on a sphere of the mean radius the
     # haversine distance is the geodesic (agreement to 1e-9 relative).  Against the WGS 84
     # ellipsoid the ratio is bounded by the extreme radii of curvature, from the meridional
     # radius at the equator a (1 - e^2) to the polar radius a / sqrt(1 - e^2) (geodesy texts,

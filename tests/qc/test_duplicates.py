@@ -1,6 +1,6 @@
 """Duplicate profiles across files: the cross-file pre-pass and the ledger of a build.
 
-The rule (FIELD.md, "Duplicates: the same profile arriving in real-time and adjusted form"):
+The rule (common practice for profiles arriving in real-time and adjusted form):
 same platform, time and position within tolerances, in different files; keep the adjusted copy
 (Argo DATA_MODE D over A over R, Argo user's manual, from memory), else the one with more
 values, else the first file.  Distances are checked against pyproj.Geod (GeographicLib).

@@ -1,11 +1,11 @@
 """Quality-control stage: Argo real-time tests, TEOS-10 freezing point, grid checks, order.
 
 References: Argo Quality Control Manual for CTD and Trajectory Data (from memory, thresholds in
-../shared/REFERENCES.md): global range T -2.5..40 degC, S 2..41 PSU; spike test value
+[ArgoQC]): global range T -2.5..40 degC, S 2..41 PSU; spike test value
 |V2 - (V3 + V1)/2| - |(V3 - V1)/2| against 6 degC / 0.9 PSU above 500 dbar and 2 degC /
 0.3 PSU below; pressure must increase.  TEOS-10 through gsw (library as reference) and the
-UNESCO 1983 freezing-point check value (Fofonoff & Millard 1983, from memory).  Geodesic
-distances with pyproj.Geod (GeographicLib, Karney 2013) as the reference for coast distances.
+UNESCO 1983 freezing-point check value ([FofonoffMillard1983], from memory).  Geodesic
+distances with pyproj.Geod (GeographicLib, [Karney2013]) as the reference for coast distances.
 """
 
 from __future__ import annotations
@@ -114,7 +114,7 @@ def test_pressure_from_depth_inverts_teos10():
 
 
 def test_depth_from_pressure_against_unesco_1983_and_teos10():
-    # Fofonoff & Millard (1983), UNESCO Tech. Pap. Mar. Sci. 44 (from memory): 10 000 dbar at
+    # [FofonoffMillard1983], UNESCO Tech. Pap. Mar. Sci. 44 (from memory): 10 000 dbar at
     # 30 deg -> 9712.653 m; TEOS-10 is about 1.1 m deeper, within 1.5 m
     assert depth_from_pressure(10000.0, 30.0) == pytest.approx(9712.653, abs=1.5)
     # TEOS-10 via gsw (library as reference)
@@ -125,7 +125,7 @@ def test_depth_from_pressure_against_unesco_1983_and_teos10():
 # --- freezing point ------------------------------------------------------------------------
 
 def test_freezing_point_check_values():
-    # TEOS-10 via gsw (REFERENCES.md): SP 35, p 0, 0 E 0 N, air-free -> about -1.919 degC
+    # TEOS-10 via gsw [TEOS10]: SP 35, p 0, 0 E 0 N, air-free -> about -1.919 degC
     assert freezing_temperature(35.0, 0.0, 0.0, 0.0, saturation_fraction=0.0) == \
         pytest.approx(-1.919, abs=5e-4)
     sa = gsw.SA_from_SP(34.5, 100.0, -30.0, -65.0)

@@ -1,10 +1,10 @@
 """Argo profile reader on small multi-profile files written from the Argo format.
 
-References: Argo user's manual, core profile format 3.1 (from memory; ../shared/FIELD.md,
-REFERENCES.md): DATA_MODE R/A/D with adjusted fields for A and D, QC flags 0 none, 1 good,
+References: Argo user's manual, core profile format 3.1 (from memory; [ArgoUser]):
+DATA_MODE R/A/D with adjusted fields for A and D, QC flags 0 none, 1 good,
 2 probably good, 3 probably bad, 4 bad, 5 changed, 8 estimated, 9 missing (kept by default:
 1, 2, 5, 8), POSITION_QC and JULD_QC, JULD in days since 1950-01-01.  TEOS-10 via gsw for
-pressure to depth; Fofonoff & Millard (1983) for the UNESCO depth check value; numpy datetime64
+pressure to depth; [FofonoffMillard1983] for the UNESCO depth check value; numpy datetime64
 for times.  The expected table is built by a plain loop over profiles and levels that applies
 the manual's rules independently of the reader.
 """
@@ -156,7 +156,7 @@ def test_single_profile_at_10000_dbar_against_unesco_1983(tmp_path):
                       temp=[[1.5]], psal=[[34.7]], adjusted={"PRES": [[10000.0]]},
                       errors={"TEMP": [[0.002]], "PSAL": [[0.01]], "PRES": [[2.4]]})
     table = read(path)
-    # Fofonoff & Millard (1983), UNESCO Tech. Pap. Mar. Sci. 44 (from memory): 10 000 dbar at
+    # [FofonoffMillard1983], UNESCO Tech. Pap. Mar. Sci. 44 (from memory): 10 000 dbar at
     # 30 deg -> 9712.653 m; TEOS-10 is about 1.1 m deeper, within 1.5 m
     assert table["depth"].iloc[0] == pytest.approx(9712.653, abs=1.5)
     assert table["depth"].iloc[0] == pytest.approx(-gsw.z_from_p(10000.0, 30.0), rel=1e-12)

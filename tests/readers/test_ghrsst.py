@@ -1,6 +1,6 @@
 """GHRSST GDS 2.0 L2P and L3 readers on small files written from the specification.
 
-References: GHRSST Data Specification 2.0 (from memory; ../shared/REFERENCES.md): quality
+References: GHRSST Data Specification 2.0 (from memory; [GDS2]): quality
 levels 0 no data .. 5 best, bias-corrected SST = sea_surface_temperature - sses_bias, time
 reference 1981-01-01 00:00:00 UTC, l2p_flags bits from flag_masks/flag_meanings (CF 3.5).  The
 netCDF4 library's own unpacking (scale_factor/add_offset) and numpy datetime64 arithmetic are the

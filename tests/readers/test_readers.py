@@ -582,7 +582,7 @@ def test_grid_mapping_positions_equal_pyproj(tmp_path, epsg, xy_units):
 
 
 def test_grid_mapping_reproduces_snyder_polar_stereographic_example(tmp_path):
-    # Snyder (1987) USGS PP 1395, polar stereographic ellipsoidal example (from memory):
+    # [Snyder1987] USGS PP 1395, polar stereographic ellipsoidal example (from memory):
     # International 1924 ellipsoid, true scale at 71 S, central meridian 100 W;
     # 75 S, 150 E -> x = -1 540 033.6 m, y = -560 526.4 m (stated to 0.1 m)
     mapping = dict(grid_mapping_name="polar_stereographic", latitude_of_projection_origin=-90.0,
@@ -637,7 +637,7 @@ def test_polar_stereographic_grid_north_azimuth_is_the_longitude_difference(epsg
                                                                           central_meridian,
                                                                           hemisphere):
     # polar stereographic: meridians are straight lines through the pole, so the grid +y axis
-    # makes the angle +-(lon - lon0) with true north (Snyder 1987, USGS PP 1395, ch. 21,
+    # makes the angle +-(lon - lon0) with true north ([Snyder1987], USGS PP 1395, ch. 21,
     # from memory); +x is 90 deg clockwise from +y (conformal projection)
     lon = np.array([-170.0, -45.0, 0.0, 30.0, 100.0, 179.0])
     lat = hemisphere * np.array([61.0, 70.0, 75.0, 80.0, 85.0, 89.0])
@@ -748,7 +748,7 @@ def test_profiles_pressure_to_depth_and_padding(tmp_path):
 
 
 def test_profile_depth_at_10000_dbar_against_unesco_1983(tmp_path):
-    # Fofonoff & Millard (1983), UNESCO Tech. Pap. Mar. Sci. 44, depth check value
+    # [FofonoffMillard1983], UNESCO Tech. Pap. Mar. Sci. 44, depth check value
     # (from memory): 10 000 dbar at 30 deg latitude -> 9712.653 m; TEOS-10 differs by ~1.1 m
     assert depth_from_pressure(10000.0, 30.0) == pytest.approx(9712.653, abs=1.5)
     path = multidimensional_profiles_file(tmp_path / "deep.nc", [[10000.0]], [[1.5]], [[34.7]],

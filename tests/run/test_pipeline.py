@@ -181,7 +181,7 @@ def test_thinning_keeps_the_raw_value_nearest_the_cell_centre(tmp_path):
     df["j"] = np.floor(df["lat"] - 40.0).astype(int)
     df["slot"] = ((df["time"] - (ANALYSIS - np.timedelta64(72, "h"))) / np.timedelta64(24, "h")).astype(int)
     df = df[inside & ~land]
-    # distance to the cell centre with pyproj.Geod (GeographicLib, Karney 2013) as the reference;
+    # distance to the cell centre with pyproj.Geod (GeographicLib, [Karney2013]) as the reference;
     # the ranking is the same on the sphere for these separations
     _, _, df["dist"] = pyproj.Geod(ellps="WGS84").inv(df["lon"], df["lat"], -10.0 + df["i"] + 0.5, 40.0 + df["j"] + 0.5)
     nearest = df.sort_values("dist").groupby(["slot", "j", "i"]).first().reset_index()

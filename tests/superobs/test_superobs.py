@@ -445,7 +445,7 @@ def test_mean_across_the_dateline():
 
 
 def test_mean_of_two_points_is_the_great_circle_midpoint():
-    # Reference: pyproj.Geod on a sphere (GeographicLib, Karney 2013): half-way along the
+    # Reference: pyproj.Geod on a sphere (GeographicLib, [Karney2013]): half-way along the
     # geodesic equals the direction of the summed unit vectors.
     pyproj = pytest.importorskip("pyproj")
     sphere = pyproj.Geod(a=6_371_000.0, b=6_371_000.0)
