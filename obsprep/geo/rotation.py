@@ -1,17 +1,24 @@
 """Vector rotation between east/north and the local grid axes, and grid angles computed from
 cell centres.
 
-Convention (the same as the CF standard name ``angle_of_rotation_from_east_to_x``): the axis
-angle ``a`` of a cell is the angle of the grid's +i direction measured counterclockwise from
-local east, in radians.  The +j direction is taken to be 90 degrees counterclockwise from +i
-(a right-handed, orthogonal grid).
+Convention, the one used everywhere in obsprep (the same as the CF standard name
+``angle_of_rotation_from_east_to_x``): the angle of a direction is measured counterclockwise
+from local east, in radians.  For a model grid, the axis angle ``a`` of a cell is the angle of
+its +i direction, and +j is taken to be 90 degrees counterclockwise from +i (a right-handed,
+orthogonal grid).  For a map projection's axes, where x and y need not be perpendicular on the
+Earth, both angles are kept (:func:`projection_axis_angles`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from obsprep.geo.sphere import direction_from_east, ellipsoid_ecef_from_lonlat
+from obsprep.geo.sphere import (
+    WGS84_FLATTENING,
+    WGS84_SEMI_MAJOR_AXIS_M,
+    direction_from_east,
+    ellipsoid_ecef_from_lonlat,
+)
 
 
 def east_north_to_grid(u_east, v_north, angle):
@@ -67,3 +74,84 @@ def axis_angle_from_centres(lon, lat) -> np.ndarray:
         d[:, 0] = r[:, 1] - r[:, 0]
         d[:, -1] = r[:, -1] - r[:, -2]
     return direction_from_east(lon, lat, d)
+
+
+def crs_ellipsoid(crs) -> tuple[float, float]:
+    """(semi-major axis m, flattening) of a pyproj CRS's ellipsoid (WGS 84 if it has none)."""
+    ellipsoid = crs.ellipsoid
+    if ellipsoid is None:
+        return WGS84_SEMI_MAJOR_AXIS_M, WGS84_FLATTENING
+    inverse_flattening = ellipsoid.inverse_flattening
+    flattening = 0.0 if not inverse_flattening else 1.0 / inverse_flattening
+    return ellipsoid.semi_major_metre, flattening
+
+
+def projection_axis_angle(to_lonlat, x, y, step, axis, ellipsoid) -> np.ndarray:
+    """Angle (radians, counterclockwise from local east) of a map projection's +x (``axis``
+    "x") or +y ("y") direction at projected points ``(x, y)``.
+
+    ``to_lonlat(x, y) -> (lon, lat)`` is the inverse projection (degrees).  The points
+    ``P -+ step`` along the axis are placed on the ellipsoid (``(a, f)``) in Earth-centred
+    coordinates; their difference, resolved on local east and north
+    (:func:`obsprep.geo.sphere.direction_from_east`), is the axis direction: a centred
+    difference, whose error is second order, about (step/R)^2 rad.  ``step`` in the
+    projection's units (m).  On a conformal projection the +y angle is pi/2 minus the meridian
+    convergence PROJ reports (true north to grid north, clockwise positive).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    dx, dy = (step, 0.0) if axis == "x" else (0.0, step)
+    lon, lat = to_lonlat(x, y)
+    lon_ahead, lat_ahead = to_lonlat(x + dx, y + dy)
+    lon_behind, lat_behind = to_lonlat(x - dx, y - dy)
+    displacement = (ellipsoid_ecef_from_lonlat(lon_ahead, lat_ahead, *ellipsoid)
+                    - ellipsoid_ecef_from_lonlat(lon_behind, lat_behind, *ellipsoid))
+    return direction_from_east(lon, lat, displacement)
+
+
+def projection_axis_angles(crs, lon, lat, step=100.0) -> tuple[np.ndarray, np.ndarray]:
+    """Angles (radians, counterclockwise from local east) of the +x and +y axes of map
+    projection ``crs`` (a pyproj CRS) at geodetic ``lon``, ``lat`` (degrees), by
+    :func:`projection_axis_angle` with ``step`` m.  The default 100 m balances the
+    micrometre noise of PROJ's iterative inverse projections (larger for shorter steps)
+    against the second-order error of the centred difference (larger for longer ones):
+    at most 5e-12 rad on EPSG:3413 from 61 to 89 degrees north, against 2e-9 rad at 1 m and
+    7e-10 rad at 1 km (measured against the polar stereographic meridian geometry)."""
+    import pyproj
+
+    forward = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    inverse = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    x, y = forward.transform(np.asarray(lon, dtype=np.float64), np.asarray(lat, dtype=np.float64))
+
+    def to_lonlat(px, py):
+        return inverse.transform(px, py)
+
+    ellipsoid = crs_ellipsoid(crs)
+    return (projection_axis_angle(to_lonlat, x, y, step, "x", ellipsoid),
+            projection_axis_angle(to_lonlat, x, y, step, "y", ellipsoid))
+
+
+def projection_to_east_north(u, v, angle_x, angle_y, sigma_u=None, sigma_v=None):
+    r"""East/north components of a vector given along a map projection's axes.
+
+    With the vector ``u e_x + v e_y`` and the axes at angles ``angle_x``, ``angle_y`` from east
+    (:func:`projection_axis_angles`):
+
+    .. math:: east = u \cos a_x + v \cos a_y, \qquad north = u \sin a_x + v \sin a_y
+
+    For perpendicular axes (``a_y = a_x + pi/2``) this is :func:`grid_to_east_north`.  Errors
+    ``sigma_u``, ``sigma_v`` (same units) propagate as for independent component errors,
+    ``sigma_east^2 = (sigma_u cos a_x)^2 + (sigma_v cos a_y)^2`` and likewise north with sines
+    (common practice).  Returns ``(east, north)``, or ``(east, north, sigma_east,
+    sigma_north)`` when errors are given.
+    """
+    cos_x, sin_x = np.cos(angle_x), np.sin(angle_x)
+    cos_y, sin_y = np.cos(angle_y), np.sin(angle_y)
+    east = u * cos_x + v * cos_y
+    north = u * sin_x + v * sin_y
+    if sigma_u is None and sigma_v is None:
+        return east, north
+    sigma_u = np.full(np.shape(u), np.nan) if sigma_u is None else sigma_u
+    sigma_v = np.full(np.shape(v), np.nan) if sigma_v is None else sigma_v
+    return (east, north, np.hypot(sigma_u * cos_x, sigma_v * cos_y),
+            np.hypot(sigma_u * sin_x, sigma_v * sin_y))

@@ -20,6 +20,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from obsprep.exceptions import InputFileError, NoReaderError
+from obsprep.geo.rotation import projection_axis_angles, projection_to_east_north
 from obsprep.model.table import validate_table
 from obsprep.readers import cf, guess_kind, read, registered_readers
 from obsprep.readers.products.profiles import depth_from_pressure
@@ -637,15 +638,16 @@ def test_polar_stereographic_grid_north_azimuth_is_the_longitude_difference(epsg
                                                                           central_meridian,
                                                                           hemisphere):
     # polar stereographic: meridians are straight lines through the pole, so the grid +y axis
-    # makes the angle +-(lon - lon0) with true north ([Snyder1987], USGS PP 1395, ch. 21,
-    # from memory); +x is 90 deg clockwise from +y (conformal projection)
+    # makes the angle +-(lon - lon0) with true north, clockwise positive ([Snyder1987], USGS
+    # PP 1395, ch. 21, from memory); +x is 90 deg clockwise from +y (conformal projection).
+    # In obsprep's convention (counterclockwise from east) +y is at 90 deg minus that angle.
     lon = np.array([-170.0, -45.0, 0.0, 30.0, 100.0, 179.0])
     lat = hemisphere * np.array([61.0, 70.0, 75.0, 80.0, 85.0, 89.0])
-    azimuth_x, azimuth_y = cf.grid_axis_azimuths(pyproj.CRS(epsg), lon, lat)
-    expected = hemisphere * (lon - central_meridian)
+    angle_x, angle_y = projection_axis_angles(pyproj.CRS(epsg), lon, lat)
+    expected_y = 90.0 - hemisphere * (lon - central_meridian)
     wrap = lambda a: np.mod(a + 180.0, 360.0) - 180.0  # noqa: E731
-    np.testing.assert_allclose(wrap(azimuth_y - expected), 0.0, atol=1e-7)
-    np.testing.assert_allclose(wrap(azimuth_x - azimuth_y - 90.0), 0.0, atol=1e-7)
+    np.testing.assert_allclose(wrap(np.degrees(angle_y) - expected_y), 0.0, atol=1e-7)
+    np.testing.assert_allclose(wrap(np.degrees(angle_y - angle_x) - 90.0), 0.0, atol=1e-7)
 
 
 def test_projected_drift_missing_component_makes_both_rotated_rows_missing(tmp_path):
@@ -664,11 +666,10 @@ def test_grid_north_points_east_ninety_degrees_from_the_central_meridian():
     # on the 45 E meridian the +y axis is tangent to the parallel, pointing east, and +x points
     # away from the pole (south)
     crs = pyproj.CRS("EPSG:3413")
-    east, north = cf.rotate_grid_vectors_to_east_north(crs, np.array([45.0]), np.array([75.0]),
-                                                       np.array([1.0]), np.array([0.0]))
+    angles = projection_axis_angles(crs, np.array([45.0]), np.array([75.0]))
+    east, north = projection_to_east_north(np.array([1.0]), np.array([0.0]), *angles)
     assert east[0] == pytest.approx(0.0, abs=1e-6) and north[0] == pytest.approx(-1.0, abs=1e-9)
-    east, north = cf.rotate_grid_vectors_to_east_north(crs, np.array([45.0]), np.array([75.0]),
-                                                       np.array([0.0]), np.array([1.0]))
+    east, north = projection_to_east_north(np.array([0.0]), np.array([1.0]), *angles)
     assert east[0] == pytest.approx(1.0, abs=1e-9) and north[0] == pytest.approx(0.0, abs=1e-6)
 
 

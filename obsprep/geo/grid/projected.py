@@ -12,13 +12,8 @@ from pyproj.exceptions import CRSError
 from obsprep.exceptions import GridError
 from obsprep.geo.grid.base import ModelGrid
 from obsprep.geo.grid.regular import _finite_number
-from obsprep.geo.sphere import (
-    WGS84_FLATTENING,
-    WGS84_SEMI_MAJOR_AXIS_M,
-    direction_from_east,
-    ellipsoid_ecef_from_lonlat,
-    wrap_longitude,
-)
+from obsprep.geo.rotation import crs_ellipsoid, projection_axis_angle
+from obsprep.geo.sphere import wrap_longitude
 
 #: step of the centred differences of the inverse projection, as a fraction of dx
 _STEP_FRACTION = 1e-4
@@ -129,25 +124,14 @@ class ProjectedGrid(ModelGrid):
         """
         cells, inverse = np.unique(j * self.nx + i, return_inverse=True)
         jc, ic = np.divmod(cells, self.nx)
-        x, y = self.x_center[ic], self.y_center[jc]
-        delta = _STEP_FRACTION * self.dx
-        lon, lat = self.xy_to_lonlat(x, y)
-        lon_east, lat_east = self.xy_to_lonlat(x + delta, y)
-        lon_west, lat_west = self.xy_to_lonlat(x - delta, y)
-        displacement = (ellipsoid_ecef_from_lonlat(lon_east, lat_east, *self._ellipsoid)
-                        - ellipsoid_ecef_from_lonlat(lon_west, lat_west, *self._ellipsoid))
-        angle = direction_from_east(lon, lat, displacement)
+        angle = projection_axis_angle(self.xy_to_lonlat, self.x_center[ic], self.y_center[jc],
+                                      _STEP_FRACTION * self.dx, "x", self._ellipsoid)
         return angle[inverse.ravel()]
 
     @cached_property
     def _ellipsoid(self):
         """(semi-major axis m, flattening) of the CRS's ellipsoid (WGS 84 if unknown)."""
-        ellipsoid = self.crs.ellipsoid
-        if ellipsoid is None:
-            return WGS84_SEMI_MAJOR_AXIS_M, WGS84_FLATTENING
-        inverse_flattening = ellipsoid.inverse_flattening
-        flattening = 0.0 if not inverse_flattening else 1.0 / inverse_flattening
-        return ellipsoid.semi_major_metre, flattening
+        return crs_ellipsoid(self.crs)
 
     def _dataset_extras(self, ds: xr.Dataset) -> xr.Dataset:
         grid_mapping = self.crs.to_cf()

@@ -57,10 +57,8 @@ from obsprep.readers.cf.overrides import (  # noqa: F401
 from obsprep.readers.cf.positions import (  # noqa: F401
     broadcast_to_variable,
     crs_for_variable,
-    grid_axis_azimuths,
     horizontal_position,
     lonlat_from_projection,
-    rotate_grid_vectors_to_east_north,
     wrap_longitude,
 )
 from obsprep.readers.cf.table import (  # noqa: F401
@@ -121,8 +119,6 @@ __all__ = [
     "broadcast_to_variable",
     "crs_for_variable",
     "lonlat_from_projection",
-    "grid_axis_azimuths",
-    "rotate_grid_vectors_to_east_north",
     "horizontal_position",
     "wrap_longitude",
     "labels_as_strings",

@@ -3,7 +3,7 @@
 The table holds two rows per vector, ``sea_ice_drift_east`` and ``sea_ice_drift_north``, with
 the same ``row`` (the vector's flat index), ``time`` and ``time_end`` (from the time ``bounds``)
 and the start position.  Components along a grid_mapping's x/y axes are rotated to east/north
-with the CRS (:func:`obsprep.readers.cf.rotate_grid_vectors_to_east_north`); after rotation
+with the CRS (:func:`obsprep.geo.rotation.projection_to_east_north`); after rotation
 each output component depends on both inputs, so it is missing when either is missing and
 flagged when either is flagged.
 """
@@ -11,6 +11,7 @@ flagged when either is flagged.
 from __future__ import annotations
 
 from obsprep.exceptions import InputFileError
+from obsprep.geo.rotation import projection_axis_angles, projection_to_east_north
 from obsprep.model.quantities import get_quantity
 from obsprep.model.table import concat_tables
 from obsprep.readers import cf
@@ -65,8 +66,9 @@ class IceDriftReader(Reader):
         start, end = cf.observation_interval(ds, names[0], path)
         if projected:
             crs = cf.crs_for_variable(ds, names[0], path)
-            east, north, *sigma = cf.rotate_grid_vectors_to_east_north(
-                crs, lon, lat, u.values, v.values,
+            angle_x, angle_y = projection_axis_angles(crs, lon, lat)
+            east, north, *sigma = projection_to_east_north(
+                u.values, v.values, angle_x, angle_y,
                 *((u.error, v.error) if u.error is not None or v.error is not None else ()))
             good = None if u.good is None and v.good is None else (
                 (True if u.good is None else u.good) & (True if v.good is None else v.good))
