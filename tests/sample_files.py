@@ -232,3 +232,32 @@ def write_alongtrack(path, lon, lat, time_values, sla, *, units="m", packed=Fals
         v.standard_name, v.units = "sea_surface_height_above_sea_level", units
         v.coordinates = "time latitude longitude"
         v[:] = sla
+
+
+def write_alongtrack_config(path, paths, *, slot_hours=24.0):
+    """A build configuration for along-track files of one sensor ``alt`` on a small regular
+    grid (-10..-2 E, 40..46 N, 1 degree), window the 24 h before 2026-11-20T00:00 UTC, constant
+    raw error 0.03 m, outputs in ``out`` beside it.  ``paths``: the source's path patterns."""
+    patterns = ", ".join(f'"{p}"' for p in paths)
+    path.write_text(f"""
+[window]
+analysis_time = "2026-11-20T00:00:00"
+start_hours = -24.0
+slot_hours = {slot_hours}
+[grid]
+type = "regular"
+lon_min = -10.0
+lat_min = 40.0
+dlon = 1.0
+dlat = 1.0
+nlon = 8
+nlat = 6
+[[sources]]
+sensor = "alt"
+paths = [{patterns}]
+kind = "alongtrack"
+error = {{ rule = "constant", value = 0.03 }}
+[output]
+directory = "out"
+""")
+    return path

@@ -4,36 +4,14 @@ never disguised as an unreadable input file or a silently missing sensor."""
 from __future__ import annotations
 
 import re
-import textwrap
 from pathlib import Path
 
 import numpy as np
 from click.testing import CliRunner
-from sample_files import write_alongtrack
+from sample_files import write_alongtrack, write_alongtrack_config
 
 from obsprep.cli.main import cli
 from obsprep.readers import registered_readers
-
-CONFIG = """
-    [window]
-    analysis_time = "2026-11-20T00:00:00"
-    start_hours = -24.0
-    [grid]
-    type = "regular"
-    lon_min = -10.0
-    lat_min = 40.0
-    dlon = 1.0
-    dlat = 1.0
-    nlon = 8
-    nlat = 6
-    [[sources]]
-    sensor = "alt"
-    paths = ["obs/*.nc"]
-    kind = "alongtrack"
-    error = { rule = "constant", value = 0.03 }
-    [output]
-    directory = "out"
-    """
 
 
 def _scenario(tmp_path) -> Path:
@@ -45,9 +23,7 @@ def _scenario(tmp_path) -> Path:
     write_alongtrack(tmp_path / "obs" / "a.nc", rng.uniform(-9, -3, n), rng.uniform(41, 45, n),
                      days, rng.normal(0.0, 0.05, n), units="m",
                      time_units="days since 1950-01-01 00:00:00", platform=None)
-    config = tmp_path / "config.toml"
-    config.write_text(textwrap.dedent(CONFIG))
-    return config
+    return write_alongtrack_config(tmp_path / "config.toml", ["obs/*.nc"])
 
 
 def test_a_programming_error_in_a_reader_exits_1_as_an_internal_error(tmp_path, monkeypatch):

@@ -12,14 +12,13 @@ import os
 import signal
 import subprocess
 import sys
-import textwrap
 import time
 from pathlib import Path
 
 import cftime
 import numpy as np
 import xarray as xr
-from sample_files import write_alongtrack
+from sample_files import write_alongtrack, write_alongtrack_config
 
 from obsprep.run.build import build
 
@@ -107,29 +106,9 @@ def corpus(tmp_path):
     (d / "redelivered_good.nc").write_bytes(good)  # the same file delivered twice
     expect["redelivered_good.nc"] = ("duplicate_file", "same content as", 0)
 
-    config = tmp_path / "corpus.toml"
-    config.write_text(textwrap.dedent("""
-        [window]
-        analysis_time = "2026-11-20T00:00:00"
-        start_hours = -24.0
-        slot_hours = 6.0
-        [grid]
-        type = "regular"
-        lon_min = -10.0
-        lat_min = 40.0
-        dlon = 1.0
-        dlat = 1.0
-        nlon = 8
-        nlat = 6
-        [[sources]]
-        sensor = "alt"
-        # good.nc twice: by the pattern and by name (the same path is read once)
-        paths = ["obs/*.nc", "obs/good.nc"]
-        kind = "alongtrack"
-        error = { rule = "constant", value = 0.03 }
-        [output]
-        directory = "out"
-        """))
+    # good.nc twice: by the pattern and by name (the same path is read once)
+    config = write_alongtrack_config(tmp_path / "corpus.toml", ["obs/*.nc", "obs/good.nc"],
+                                     slot_hours=6.0)
     return config, expect, (lon, lat, times, sla)
 
 
