@@ -31,6 +31,7 @@ from obsprep.run.tasks import FileResult, FileTask
 from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
 from obsprep.superobs.finalize import finalize_superobs
+from obsprep.superobs.keys import NO_PROFILE, group_keys, interval_keys, profile_key, thinning_tiebreak
 from obsprep.superobs.timeslots import seconds_since, slot_index
 
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
@@ -274,7 +275,7 @@ def accumulate(work: FileWork) -> None:
             profile_rows = live_rows[is_profile_quantity[q_all[live_rows]]]
             categories = table["group"].cat.categories
             for code in np.unique(group_codes[profile_rows]):
-                result.profile_names[int((file_index << 32) + code)] = str(categories[code])
+                result.profile_names[int(profile_key(file_index, code))] = str(categories[code])
         columns = {name: table[name].to_numpy() for name in
                    ("value", "error", "lon", "lat", "depth", "time", "time_end", "row")}
         thinning = cfg.superobs.mode == "thin"  # the score is costly: only then
@@ -291,31 +292,25 @@ def accumulate(work: FileWork) -> None:
                 return np.broadcast_to(np.int64(value), (m,))  # no memory per row
 
             q_code = q_all[rows]
-            profile = constant(-1)
+            profile = constant(NO_PROFILE)
             if per_profile:
                 is_profile = is_profile_quantity[q_code]
                 if is_profile.any():
-                    profile = np.where(is_profile, (np.int64(file_index) << 32) + group_codes[rows],
-                                       np.int64(-1))
+                    profile = np.where(is_profile, profile_key(file_index, group_codes[rows]),
+                                       np.int64(NO_PROFILE))
             t = seconds_since(columns["time"][rows], cfg.window.analysis_time)
             t_end = seconds_since(columns["time_end"][rows], cfg.window.analysis_time)
-            interval = np.isfinite(t_end)
-            if interval.any():
-                t_start_key = np.where(interval, np.round(np.nan_to_num(t)), 0).astype(np.int64)
-                t_end_key = np.where(interval, np.round(np.nan_to_num(t_end)), 0).astype(np.int64)
-            else:
-                t_start_key = t_end_key = constant(0)
+            t_start_key, t_end_key = interval_keys(t, t_end, constant)
             lon, lat = columns["lon"][rows], columns["lat"][rows]
             ii, jj = i[rows], j[rows]
-            keys = {"quantity": q_code, "sensor": constant(sensor_code),
-                    "slot": slot_index(columns["time"][rows], cfg.window), "j": jj, "i": ii,
-                    "k": k[rows], "profile": profile, "t_start": t_start_key, "t_end": t_end_key}
+            keys = group_keys(quantity=q_code, sensor=constant(sensor_code),
+                              slot=slot_index(columns["time"][rows], cfg.window), j=jj, i=ii,
+                              k=k[rows], profile=profile, t_start=t_start_key, t_end=t_end_key)
             reducer.add(Accumulator.from_observations(
                 keys, columns["value"][rows], columns["error"][rows], t, lon, lat,
                 columns["depth"][rows],
                 score=grid.cell_center_distance(lon, lat, ii, jj) if thinning else None,
-                tiebreak=((np.int64(file_index) << 40) + columns["row"][rows].astype(np.int64)
-                          if thinning else None),
+                tiebreak=thinning_tiebreak(file_index, columns["row"][rows]) if thinning else None,
             ))
         result.accumulator = reducer.result()
 
