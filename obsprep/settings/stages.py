@@ -10,6 +10,7 @@ from dataclasses import dataclass, field, fields
 from types import MappingProxyType
 
 from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
+from obsprep.superobs.errors import COMBINATION_RULES
 
 
 def _key(default, meaning: str, **constraints):
@@ -47,7 +48,7 @@ class SuperobsSettings:
     representation_error_file: str | None = _key(None, "netCDF file of representation-error fields")
     representation_error_variables: MappingProxyType = _key({}, "quantity -> variable in that file")
     spread_combination: str = _key("instrument", "how instrument error and spread combine",
-                                   enum=["instrument", "max", "spread_when_n_ge"])
+                                   enum=list(COMBINATION_RULES))
     spread_min_count: int = _key(DEFAULT_SPREAD_MIN_COUNT, "count from which spread_when_n_ge uses "
                                  "the spread", minimum=2)
 

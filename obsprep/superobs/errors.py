@@ -239,6 +239,8 @@ def spread_about_depth_line(value_m2, depth_m2, depth_value_c2, n):
 
 #: ``error_basis`` codes: which term set a super-observation's total error
 ERROR_BASIS = {"instrument": 0, "spread": 1, "floor": 2}
+#: the rules of :func:`combine_instrument_and_spread` (``superobs.spread_combination``)
+COMBINATION_RULES = ("instrument", "max", "spread_when_n_ge")
 
 
 def combine_instrument_and_spread(instrument, spread_error, count, rule="instrument",
@@ -283,7 +285,7 @@ def combine_instrument_and_spread(instrument, spread_error, count, rule="instrum
     elif rule == "spread_when_n_ge":
         use_spread = usable
     else:
-        raise ValueError(f"spread combination rule must be one of 'instrument', 'max', "
-                         f"'spread_when_n_ge'; got {rule!r}")
+        raise ValueError(f"spread combination rule must be one of {', '.join(COMBINATION_RULES)}; "
+                         f"got {rule!r}")
     chosen = np.where(use_spread, spread_error, instrument)
     return chosen, np.where(use_spread, ERROR_BASIS["spread"], ERROR_BASIS["instrument"])
