@@ -119,3 +119,17 @@ def test_declarations_name_each_column_and_variable_once():
     suffixes = [d.suffix for d in NETCDF_VARIABLES]
     assert len(set(columns)) == len(columns) and len(set(suffixes)) == len(suffixes)
     assert sorted(TABLE_COLUMNS) == sorted(columns)
+
+
+def test_total_error_is_the_basis_part_and_representation_in_quadrature(built):
+    table = built.superobs
+    basis = table["error_basis"].to_numpy()
+    error = table["error"].to_numpy()
+    representation = table["error_representation"].to_numpy()
+    # independent errors add in variance (any statistics textbook); numpy's hypot as reference,
+    # a few ulp apart from sqrt(a^2 + b^2)
+    for code, part in ((0, "error_instrument"), (1, "error_spread")):
+        rows = basis == code
+        np.testing.assert_allclose(error[rows], np.hypot(table[part].to_numpy()[rows],
+                                                         representation[rows]), rtol=1e-15)
+    assert (basis == 0).any()
