@@ -17,14 +17,12 @@ import numpy as np
 import pandas as pd
 
 from obsprep.exceptions import InputFileError
+from obsprep.model.product import NETCDF_VARIABLES
 from obsprep.model.quantities import QUANTITIES
 
-#: per-quantity variable suffixes read into the long table (missing ones become NaN)
-SUFFIXES = ("error", "error_instrument", "error_representation", "error_spread", "error_raw_rms",
-            "error_basis", "error_origin", "spread", "spread_detrended", "count", "lon", "lat",
-            "depth", "time", "time_offset", "slot", "i", "j", "k", "sensor", "profile",
-            "time_end")
-
+#: per-quantity variables read into the long table (missing ones become NaN, NaT or "")
+READ_VARIABLES = tuple(v for v in NETCDF_VARIABLES if v.suffix)
+SUFFIXES = tuple(v.suffix for v in READ_VARIABLES)
 
 @dataclass
 class RunData:
@@ -81,23 +79,23 @@ class RunData:
 def _quantity_frame(ds, name) -> pd.DataFrame:
     n = ds.sizes[f"{name}_obs"]
     columns = {"quantity": np.full(n, name, dtype=object), "value": ds[name].to_numpy()}
-    for suffix in SUFFIXES:
-        key = f"{name}_{suffix}"
+    for declared in READ_VARIABLES:
+        key, column = declared.variable_name(name), declared.column
         if key in ds:
             values = ds[key].to_numpy()
-            if suffix == "error_origin":
+            if declared.flags_from_labels:
                 meanings = str(ds[key].attrs.get("flag_meanings", "")).split()
                 flags = np.atleast_1d(ds[key].attrs.get("flag_values", np.arange(len(meanings))))
                 order = np.argsort(flags)
                 position = np.clip(np.searchsorted(flags[order], values), 0, len(flags) - 1)
                 values = np.asarray(meanings, dtype=object)[order][position]
-            columns[suffix] = values
-        elif suffix in ("time", "time_end"):
-            columns[suffix] = np.full(n, np.datetime64("NaT", "ns"))
-        elif suffix in ("sensor", "profile", "error_origin"):
-            columns[suffix] = np.full(n, "", dtype=object)
+            columns[column] = values
+        elif declared.dtype.startswith("datetime64"):
+            columns[column] = np.full(n, np.datetime64("NaT", "ns"))
+        elif declared.dtype == "str" or declared.flags_from_labels:
+            columns[column] = np.full(n, "", dtype=object)
         else:
-            columns[suffix] = np.full(n, np.nan)
+            columns[column] = np.full(n, np.nan)
     return pd.DataFrame(columns)
 
 
@@ -113,7 +111,7 @@ def read_superobs_file(path) -> tuple[pd.DataFrame, dict]:
         frames = [_quantity_frame(ds, q) for q in QUANTITIES if f"{q}_obs" in ds.dims and q in ds]
         attrs = dict(ds.attrs)
     frame = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
-        columns=["quantity", "value", *SUFFIXES])
+        columns=["quantity", "value", *(v.column for v in READ_VARIABLES)])
     for col in ("sensor", "profile", "quantity", "error_origin"):
         frame[col] = frame[col].astype(object).astype(str)
     return frame, attrs

@@ -44,7 +44,8 @@ import math
 import numpy as np
 
 from obsprep.geo.sphere import cos_sin_degrees
-from obsprep.superobs.errors import apply_floor, combine_in_quadrature, error_of_mean, error_of_weighted_mean
+from obsprep.superobs.error_model import total_error
+from obsprep.superobs.errors import error_of_mean, error_of_weighted_mean
 from obsprep.superobs.spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
@@ -850,7 +851,7 @@ class Accumulator:
                 value = s["weighted_mean"]
                 error_instrument = error_of_weighted_mean(s["sum_inverse_variance"],
                                                           s["sum_inverse_sigma"], correlation)
-        error = apply_floor(combine_in_quadrature(error_instrument, representation), floor)
+        error, _ = total_error(error_instrument, representation, floor)
         columns = {name: np.array(self._keys[name]) for name in self._key_names}
         columns.update({
             "count": np.array(count, dtype=np.int64),

@@ -16,8 +16,8 @@ For each group (super-observation) of n raw values:
 - ``error_representation``: per quantity a constant (``superobs.representation_error``) or a
   field on the model grid looked up at the group's cell (``superobs.representation_error_file``
   and ``..._variables``; :mod:`obsprep.superobs.representation`);
-- ``error`` = max(floor, sqrt(observation part^2 + representation^2)); ``error_basis`` says
-  which term set it (0 instrument, 1 spread, 2 floor);
+- ``error`` = max(floor, sqrt(observation part^2 + representation^2))
+  (:func:`obsprep.superobs.error_model.total_error`); ``error_basis`` says which term set it (0 instrument, 1 spread, 2 floor);
 - ``error_raw_rms`` = sqrt(sum sigma_i^2 / n), the typical assigned raw error (for audits);
 - ``error_origin``: the raw error rule(s) of the group's sensor and quantity
   (:func:`obsprep.errors.rules.origin_label`).
@@ -31,6 +31,7 @@ import numpy as np
 
 from obsprep.errors.rules import origin_label
 from obsprep.model.quantities import QUANTITIES
+from obsprep.superobs.error_model import total_error
 from obsprep.superobs.errors import (
     ERROR_BASIS,
     combine_instrument_and_spread,
@@ -125,14 +126,13 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
     min_count = int(cfg.superobs.spread_min_count)
     observation, basis = combine_instrument_and_spread(
         frame["error_instrument"].to_numpy(), spread_error, count, rule, min_count)
-    total = np.sqrt(observation * observation + inputs.representation ** 2)
-    floored = inputs.floor > total
+    error, floored = total_error(observation, inputs.representation, inputs.floor)
     basis = np.where(floored, ERROR_BASIS["floor"], basis).astype(np.int8)
     origins = sensor_origins(cfg, sensor_names, quantity_names)
     with np.errstate(invalid="ignore", divide="ignore"):
         raw_rms = np.sqrt(state["sum_variance"] / count)
     return {
-        "error": np.maximum(total, inputs.floor),
+        "error": error,
         "error_spread": spread_error,
         "error_basis": basis,
         "error_raw_rms": raw_rms,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from obsprep.model.product import TABLE_COLUMNS
 from obsprep.settings.config import Config
 from obsprep.superobs.accumulate import Accumulator
 from obsprep.superobs.complete import complete_errors, group_error_inputs
@@ -29,25 +30,22 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
                                 quantity_names=QUANTITY_NAMES)
     frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
                                  representation_error=inputs.representation, floor=inputs.floor)
-    out = pd.DataFrame({
+    columns = {
         "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
         "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
-        "slot": frame["slot"].to_numpy(), "i": frame["i"].to_numpy(), "j": frame["j"].to_numpy(),
-        "k": frame["k"].to_numpy(),
-    })
-    out["profile"] = [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()]
-    for col in ("count", "value", "spread", "value_min", "value_max", "error", "error_instrument",
-                "error_representation", "lon", "lat", "depth"):
-        out[col] = frame[col].to_numpy()
-    for col, values in complete_errors(cfg, accumulator, frame, inputs, sensor_names,
-                                       QUANTITY_NAMES).items():
-        out[col] = values
+        "profile": [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()],
+    }
+    # the accumulator's columns, then the complete errors (overriding its total error)
+    columns.update((col, frame[col].to_numpy()) for col in TABLE_COLUMNS
+                   if col not in columns and col in frame and col != "time")
+    columns.update(complete_errors(cfg, accumulator, frame, inputs, sensor_names, QUANTITY_NAMES))
     offset = frame["time"].to_numpy()
-    out["time_offset"] = offset
-    out["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
+    columns["time_offset"] = offset
+    columns["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
     interval = frame["t_end"].to_numpy() != frame["t_start"].to_numpy()
     t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
-    out["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
+    columns["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
+    out = pd.DataFrame({col: columns[col] for col in TABLE_COLUMNS})
     return out
 
 

@@ -5,6 +5,7 @@ Every file is written atomically (:mod:`obsprep.writers.atomic`).
 
 from __future__ import annotations
 
+from obsprep.model.product import TABLE_COLUMNS
 from obsprep.writers.atomic import atomic_path
 from obsprep.writers.netcdf import superobs_dataset, write_netcdf
 
@@ -24,7 +25,8 @@ def write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=None, version="",
     if cfg.output.parquet:
         pq = path.with_suffix(".parquet")
         with atomic_path(pq) as tmp:
-            superobs.to_parquet(tmp, index=False)
+            # the declared columns, in the declared order (an empty table has fewer)
+            superobs[[c for c in TABLE_COLUMNS if c in superobs]].to_parquet(tmp, index=False)
         written["parquet"] = pq
     stem = path.with_suffix("")
     csv_path, json_path = stem.parent / f"{stem.name}_ledger.csv", stem.parent / f"{stem.name}_ledger.json"

@@ -1,13 +1,10 @@
 """CF netCDF super-observation file (featureType point), one dimension per quantity.
 
-Each quantity ``q`` present gets a dimension ``q_obs`` and variables ``q`` (the value, with its CF
-standard_name and canonical units), ``q_error`` (``<standard_name> standard_error``),
-``q_error_instrument``, ``q_error_representation``, ``q_error_spread``, ``q_error_raw_rms``,
-``q_error_basis`` and ``q_error_origin`` (flags), ``q_spread`` (and ``q_spread_detrended`` for
-profiles), ``q_count``, ``q_lon``,
-``q_lat``, ``q_depth``, ``q_time``, ``q_time_offset``, ``q_slot``, ``q_i``, ``q_j``, ``q_k``,
-``q_sensor``, ``q_profile`` and, for interval observations (drift), ``q_time_end``.  Keeping one
-dimension per quantity lets every variable carry one standard_name and one unit, as CF requires.
+Each quantity ``q`` present gets a dimension ``q_obs`` and the variables declared in
+:data:`obsprep.model.product.OUTPUT_VARIABLES`: ``q`` (the value, with its CF standard_name and
+canonical units) and ``q_<suffix>`` (errors, spread, count, position, time, grid indices, sensor;
+``q_profile`` for profiles, ``q_time_end`` for interval observations).  Keeping one dimension per
+quantity lets every variable carry one standard_name and one unit, as CF requires.
 """
 
 from __future__ import annotations
@@ -19,6 +16,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from obsprep.model.product import NETCDF_VARIABLES
 from obsprep.model.quantities import QUANTITIES
 
 
@@ -37,44 +35,24 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
         same = superobs["quantity"] == name
         sub = superobs if same.all() else superobs[same]  # one quantity: no copy of the table
         dim = f"{name}_obs"
-        coords = f"{name}_time {name}_lat {name}_lon {name}_depth"
-
-        def var(suffix, values, **attrs):
-            key = f"{name}_{suffix}" if suffix else name
-            data_vars[key] = xr.Variable(dim, np.asarray(values), attrs={k: v for k, v in attrs.items() if v is not None})
-            return key
-
-        var("", sub["value"], standard_name=q.standard_name, units=q.units, long_name=f"super-observation of {q.long_name}",
-            coordinates=coords, ancillary_variables=f"{name}_error {name}_count {name}_spread")
-        var("error", sub["error"], standard_name=f"{q.standard_name} standard_error", units=q.units,
-            long_name="total super-observation error (1-sigma): max(floor, sqrt(observation part^2 + representation^2)), "
-                      "the observation part being the instrument or the spread part (see error_basis)")
-        var("error_instrument", sub["error_instrument"], units=q.units,
-            long_name="instrument part of the super-observation error (1-sigma), from the raw errors and the within-sensor correlation")
-        var("error_representation", sub["error_representation"], units=q.units,
-            long_name="representation error added in quadrature (1-sigma)")
-        var("spread", sub["spread"], units=q.units, long_name="sample standard deviation of the raw values in the group (ddof=1)")
-        _error_parts(var, sub, q)
-        var("count", sub["count"].astype(np.int32), standard_name="number_of_observations", units="1",
-            long_name="number of raw observations in the super-observation")
-        var("lon", sub["lon"], standard_name="longitude", units="degrees_east", long_name="mean position on the sphere, longitude")
-        var("lat", sub["lat"], standard_name="latitude", units="degrees_north", long_name="mean position on the sphere, latitude")
-        var("depth", sub["depth"], standard_name="depth", units="m", positive="down", axis="Z", long_name="mean depth")
-        tkey = var("time", sub["time"].to_numpy(dtype="datetime64[ns]"), standard_name="time", long_name="mean observation time")
-        encoding[tkey] = {"units": time_units, "calendar": "standard", "dtype": "float64"}
-        var("time_offset", sub["time_offset"], units="s", long_name="mean time minus the analysis time")
-        var("slot", sub["slot"].astype(np.int32), units="1", long_name="time-slot index counted from the window start")
-        var("i", sub["i"].astype(np.int32), units="1", long_name="model grid column index (0-based)")
-        var("j", sub["j"].astype(np.int32), units="1", long_name="model grid row index (0-based)")
-        var("k", sub["k"].astype(np.int32), units="1", long_name="model layer index (0-based, from the surface)")
-        var("sensor", sub["sensor"].astype(str).to_numpy(dtype=object), long_name="sensor (source name, after merging)")
-        if q.surface is False:
-            var("profile", sub["profile"].astype(str).to_numpy(dtype=object),
-                long_name="profile identifier (empty when averaged across profiles)")
-        if q.vector is not None:
-            ekey = var("time_end", sub["time_end"].to_numpy(dtype="datetime64[ns]"), standard_name="time",
-                       long_name="end of the displacement interval (start is the time variable)")
-            encoding[ekey] = {"units": time_units, "calendar": "standard", "dtype": "float64"}
+        for declared in NETCDF_VARIABLES:
+            if not declared.applies_to(q) or (declared.error_part and "error_spread" not in sub):
+                continue
+            key = declared.variable_name(name)
+            attrs = declared.netcdf_attributes(name, q)
+            if declared.flags_from_labels:
+                values, labels = _label_flags(sub[declared.column])
+                attrs["flag_values"] = np.arange(len(labels), dtype=np.int8)
+                attrs["flag_meanings"] = " ".join(cf_flag_meaning(label) for label in labels)
+                attrs["comment"] = "rules as labelled in the configuration: " + ", ".join(labels)
+            else:
+                values = _stored(declared, sub[declared.column])
+            if declared.flag_values is not None:
+                attrs["flag_values"] = np.array(list(declared.flag_values.values()), dtype=np.int8)
+                attrs["flag_meanings"] = " ".join(declared.flag_values)
+            data_vars[key] = xr.Variable(dim, values, attrs=attrs)
+            if declared.dtype.startswith("datetime64"):
+                encoding[key] = {"units": time_units, "calendar": "standard", "dtype": "float64"}
     for key, v in data_vars.items():
         if v.dtype.kind == "f" and key not in encoding:
             encoding[key] = {"_FillValue": np.nan}
@@ -108,32 +86,22 @@ def cf_flag_meaning(label: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]", "_", text) or "unset"
 
 
-def _error_parts(var, sub, q) -> None:
-    """The spread-based error, the basis and origin flags and the raw rms error of ``sub``."""
-    from obsprep.superobs.errors import ERROR_BASIS
+def _stored(declared, column: pd.Series) -> np.ndarray:
+    """The values of a table column in the declared stored dtype."""
+    if declared.dtype == "str":
+        return column.astype(str).to_numpy(dtype=object)
+    if declared.dtype.startswith("datetime64"):
+        return column.to_numpy(dtype=declared.dtype)
+    if declared.dtype == "float64":
+        return np.asarray(column)
+    return np.asarray(column).astype(declared.dtype)
 
-    if "error_spread" not in sub:
-        return
-    var("error_spread", sub["error_spread"], units=q.units,
-        long_name="spread-based error (1-sigma): spread * sqrt((1 + (n-1) rho) / (n (1 - rho))); "
-                  "NaN for n < 2")
-    var("error_raw_rms", sub["error_raw_rms"], units=q.units,
-        long_name="root mean square of the assigned raw errors in the group, sqrt(sum sigma_i^2 / n)")
-    if q.surface is False:
-        var("spread_detrended", sub["spread_detrended"], units=q.units,
-            long_name="standard deviation of the raw values about a straight line in depth (ddof=2)")
-    var("error_basis", sub["error_basis"].astype(np.int8), units="1",
-        long_name="which term set the total error",
-        flag_values=np.array(list(ERROR_BASIS.values()), dtype=np.int8),
-        flag_meanings=" ".join(ERROR_BASIS))
-    # labels and codes through pandas' factorisation (a Python set of every row is slow)
-    origin_codes, origin_labels = pd.factorize(sub["error_origin"].astype(str), sort=True)
-    labels, codes = [str(label) for label in origin_labels], origin_codes
-    var("error_origin", codes.astype(np.int8), units="1",
-        long_name="raw error rule of the values in the group (origin of their errors)",
-        flag_values=np.arange(len(labels), dtype=np.int8),
-        flag_meanings=" ".join(cf_flag_meaning(label) for label in labels),
-        comment="rules as labelled in the configuration: " + ", ".join(labels))
+
+def _label_flags(labels: pd.Series) -> tuple[np.ndarray, list[str]]:
+    """int8 codes and sorted text labels of a label column."""
+    # through pandas' factorisation (a Python set of every row is slow)
+    codes, uniques = pd.factorize(labels.astype(str), sort=True)
+    return codes.astype(np.int8), [str(label) for label in uniques]
 
 
 def write_netcdf(ds: xr.Dataset, encoding: dict, path) -> None:
