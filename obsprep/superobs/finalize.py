@@ -6,9 +6,11 @@ import numpy as np
 import pandas as pd
 
 from obsprep.model.product import TABLE_COLUMNS
-from obsprep.settings.config import Config
+from obsprep.model.quantities import QUANTITY_NAMES
+from obsprep.settings.config import Config, sensor_correlations
 from obsprep.superobs.accumulate import Accumulator
 from obsprep.superobs.complete import complete_errors, group_error_inputs
+from obsprep.superobs.keys import decode_group_keys
 
 
 def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profile_names,
@@ -18,11 +20,6 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     Errors part by part: :mod:`obsprep.superobs.complete`.  ``grid`` is used for
     representation-error fields only (built from the configuration when not given).
     """
-    # imported here: the build module imports this one
-    from obsprep.model.quantities import QUANTITY_NAMES
-    from obsprep.settings.config import sensor_correlations
-
-
     mode = cfg.superobs.mode
     if accumulator is None or accumulator.n_groups == 0:
         return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
@@ -30,11 +27,7 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
                                 quantity_names=QUANTITY_NAMES)
     frame = accumulator.finalize(mode=mode, correlation=inputs.correlation,
                                  representation_error=inputs.representation, floor=inputs.floor)
-    columns = {
-        "quantity": np.array(QUANTITY_NAMES, dtype=object)[frame["quantity"].to_numpy()],
-        "sensor": np.array(sensor_names, dtype=object)[frame["sensor"].to_numpy()],
-        "profile": [profile_names.get(int(p), "") for p in frame["profile"].to_numpy()],
-    }
+    columns = decode_group_keys(frame, QUANTITY_NAMES, sensor_names, profile_names)
     # the accumulator's columns, then the complete errors (overriding its total error)
     columns.update((col, frame[col].to_numpy()) for col in TABLE_COLUMNS
                    if col not in columns and col in frame and col != "time")

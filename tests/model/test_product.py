@@ -16,7 +16,7 @@ from obsprep.model.quantities import QUANTITIES
 from obsprep.run.build import build
 from obsprep.writers.netcdf import cf_flag_meaning
 
-ROOT = Path(__file__).parents[1]
+ROOT = Path(__file__).parents[2]
 
 
 @pytest.fixture(scope="module")
