@@ -7,8 +7,14 @@ profile files (format version 3.1).  Values are invented.
 
 from __future__ import annotations
 
+import json
+
 import netCDF4
 import numpy as np
+import pyproj
+
+from obsprep.model.table import validate_table
+from obsprep.readers import read
 
 #: GDS 2.0 quality_level meanings (from memory)
 QUALITY_MEANINGS = "no_data bad_data worst_quality low_quality acceptable_quality best_quality"
@@ -261,3 +267,238 @@ error = {{ rule = "constant", value = 0.03 }}
 directory = "out"
 """)
     return path
+
+
+# --------------------------------------------------------------------------------------------
+# CF files of each reader kind, a tiny netCDF writer and a checked read
+# --------------------------------------------------------------------------------------------
+
+
+def var(dims, data, dtype="f8", fill=None, **attrs):
+    """Specification of one variable for :func:`write_nc`."""
+    return dims, data, dtype, fill, attrs
+
+
+def masked_nan(values):
+    """NaN -> masked, with a harmless number underneath so packing never casts a NaN."""
+    return np.ma.masked_array(np.nan_to_num(values), mask=np.isnan(values))
+
+
+def write_nc(path, dims, variables, fmt="NETCDF4", **global_attrs):
+    """Write ``variables`` (name -> :func:`var`) to ``path``; NaN/masked become fill."""
+    with netCDF4.Dataset(path, "w", format=fmt) as nc:
+        for name, size in dims.items():
+            nc.createDimension(name, size)
+        for name, (vdims, data, dtype, fill, attrs) in variables.items():
+            v = nc.createVariable(name, dtype, vdims, fill_value=fill)
+            packed = "scale_factor" in attrs or "add_offset" in attrs
+            v.set_auto_maskandscale(packed)
+            v.setncatts(attrs)
+            if data is None:
+                continue
+            if packed:
+                v[...] = masked_nan(np.asarray(data, dtype=np.float64))
+            elif fill is not None and np.asarray(data).dtype.kind == "f":
+                v[...] = np.where(np.isnan(data), fill, data)
+            else:
+                v[...] = data
+        nc.setncatts(global_attrs)
+    return str(path)
+
+
+def read_checked(path, kind=None, **options):
+    """read() + the table contract check every table must pass."""
+    table = read(path, kind=kind, **options)
+    validate_table(table)
+    return table
+
+
+def reasons(table):
+    """The rejected column as a list, None for kept rows."""
+    return [None if isinstance(r, float) else r for r in table["rejected"].astype(object)]
+
+
+TIME_1950 = dict(standard_name="time", units="days since 1950-01-01 00:00:00", calendar="standard")
+
+
+def alongtrack_file(path, n=6, sla=None, units="m", time=None, lon=None, **extra):
+    sla = np.linspace(-0.1, 0.2, n) if sla is None else sla
+    time = 27000.0 + np.arange(n) / 86400.0 if time is None else time
+    lon = np.linspace(10.0, 11.0, n) if lon is None else lon
+    variables = {
+        "time": var(("n",), time, **TIME_1950),
+        "lat": var(("n",), np.linspace(60.0, 61.0, n), standard_name="latitude",
+                   units="degrees_north"),
+        "lon": var(("n",), lon, standard_name="longitude", units="degrees_east"),
+        "sla": var(("n",), sla, fill=-9999.0, standard_name="sea_surface_height_above_sea_level",
+                   units=units, coordinates="time lat lon"),
+    }
+    variables.update(extra)
+    return write_nc(path, {"n": n}, variables, platform="sat_x")
+
+
+def sst_grid_file(path, sst_kelvin, lat=(50.0, 51.0), lon=(0.0, 1.0, 2.0), **sst_attrs):
+    sst = np.asarray(sst_kelvin, dtype=np.float64).reshape(1, len(lat), len(lon))
+    attrs = dict(standard_name="sea_surface_temperature", units="K")
+    attrs.update(sst_attrs)
+    return write_nc(path, {"time": 1, "lat": len(lat), "lon": len(lon)}, {
+        "time": var(("time",), [1.3e9], standard_name="time",
+                    units="seconds since 1981-01-01 00:00:00"),
+        "lat": var(("lat",), lat, standard_name="latitude", units="degrees_north"),
+        "lon": var(("lon",), lon, standard_name="longitude", units="degrees_east"),
+        "sst": var(("time", "lat", "lon"), sst, fill=-999.0, **attrs),
+    })
+
+
+def sst_swath_file(path, ny=3, nx=4, pixel_time="absolute"):
+    lat, lon = np.meshgrid(np.linspace(40, 41, ny), np.linspace(-5, -4, nx), indexing="ij")
+    variables = {
+        "time": var(("time",), [1.3e9], standard_name="time",
+                    units="seconds since 1981-01-01 00:00:00"),
+        "lat": var(("ni", "nj"), lat, standard_name="latitude", units="degrees_north"),
+        "lon": var(("ni", "nj"), lon, standard_name="longitude", units="degrees_east"),
+        "sst": var(("time", "ni", "nj"), np.full((1, ny, nx), 290.0), fill=-999.0,
+                   standard_name="sea_surface_temperature", units="K",
+                   coordinates="lat lon"),
+    }
+    seconds = np.arange(ny * nx, dtype=np.float64).reshape(1, ny, nx) * 10.0
+    if pixel_time == "absolute":
+        variables["pixel_time"] = var(("time", "ni", "nj"), 1.3e9 + seconds, standard_name="time",
+                                      units="seconds since 1981-01-01 00:00:00")
+    elif pixel_time == "offset":
+        variables["dtime"] = var(("time", "ni", "nj"), seconds, standard_name="time",
+                                 units="seconds")
+    return write_nc(path, {"time": 1, "ni": ny, "nj": nx}, variables, id="granule_007")
+
+
+def polar_grid_mapping(crs):
+    """grid_mapping attributes of ``crs`` as written by pyproj (CRS.to_cf)."""
+    return {k: v for k, v in crs.to_cf().items() if k != "crs_wkt"}
+
+
+def ice_concentration_file(path, crs="EPSG:3413", conc=None, units="%", xy_units="m",
+                           x=(-1.0e6, 0.0, 5.0e5), y=(-2.0e6, -1.0e6)):
+    crs = pyproj.CRS(crs)
+    conc = np.array([[[10.0, 55.0, 100.0], [0.0, np.nan, 87.5]]]) if conc is None else conc
+    scale = 1000.0 if xy_units == "km" else 1.0
+    return write_nc(path, {"time": 1, "y": len(y), "x": len(x)}, {
+        "time": var(("time",), [27000.5], **TIME_1950),
+        "x": var(("x",), np.asarray(x) / scale, standard_name="projection_x_coordinate",
+                 units=xy_units),
+        "y": var(("y",), np.asarray(y) / scale, standard_name="projection_y_coordinate",
+                 units=xy_units),
+        "crs": var((), None, dtype="i4", **polar_grid_mapping(crs)),
+        "ice_conc": var(("time", "y", "x"), conc, fill=-1.0, standard_name="sea_ice_area_fraction",
+                        units=units, grid_mapping="crs"),
+    })
+
+
+def projected_drift_file(path, x, y, dx_km, dy_km, crs="EPSG:3413", sigma_km=None):
+    crs = pyproj.CRS(crs)
+    n = len(x)
+    variables = {
+        "time": var((), 27000.0, bounds="time_bnds", **TIME_1950),
+        "time_bnds": var(("nv",), [27000.0, 27002.0]),
+        "xc": var(("n",), x, standard_name="projection_x_coordinate", units="m"),
+        "yc": var(("n",), y, standard_name="projection_y_coordinate", units="m"),
+        "crs": var((), None, dtype="i4", **polar_grid_mapping(crs)),
+        "dx": var(("n",), dx_km, fill=-1e20, standard_name="sea_ice_x_displacement", units="km",
+                  grid_mapping="crs", coordinates="time xc yc"),
+        "dy": var(("n",), dy_km, fill=-1e20, standard_name="sea_ice_y_displacement", units="km",
+                  grid_mapping="crs", coordinates="time xc yc"),
+    }
+    if sigma_km is not None:
+        for comp in ("x", "y"):
+            variables[f"d{comp}"][4]["ancillary_variables"] = f"d{comp}_err"
+            variables[f"d{comp}_err"] = var(("n",), sigma_km, units="km",
+                                            standard_name=f"sea_ice_{comp}_displacement "
+                                                          "standard_error")
+    return write_nc(path, {"n": n, "nv": 2}, variables)
+
+
+def geographic_drift_file(path):
+    # (from memory) a CF 1-D list of vectors with per-vector time bounds
+    return write_nc(path, {"n": 3, "nv": 2}, {
+        "time": var(("n",), [27000.0, 27000.5, 27001.0], bounds="time_bnds", **TIME_1950),
+        "time_bnds": var(("n", "nv"), [[27000.0, 27002.0], [27000.5, 27002.5], [27001.0, 27003.0]]),
+        "lat": var(("n",), [80.0, 81.0, 82.0], standard_name="latitude", units="degrees_north"),
+        "lon": var(("n",), [0.0, 10.0, 20.0], standard_name="longitude", units="degrees_east"),
+        "de": var(("n",), [1.5, np.nan, -3.0], fill=-1e20,
+                  standard_name="eastward_sea_ice_displacement", units="km"),
+        "dn": var(("n",), [0.5, 2.0, 4.0], fill=-1e20,
+                  standard_name="northward_sea_ice_displacement", units="km"),
+    })
+
+
+def multidimensional_profiles_file(path, pressure, temperature, salinity, lat=(30.0, -40.0),
+                                   salinity_units="PSU", **extra):
+    n_prof, n_level = np.shape(pressure)
+    variables = {
+        "profile_id": var(("profile",), np.array([101, 202])[:n_prof], dtype="i4",
+                          cf_role="profile_id"),
+        "time": var(("profile",), [27000.25, 27001.75][:n_prof], **TIME_1950),
+        "lat": var(("profile",), list(lat)[:n_prof], standard_name="latitude",
+                   units="degrees_north"),
+        "lon": var(("profile",), [-20.0, 200.0][:n_prof], standard_name="longitude",
+                   units="degrees_east"),
+        "pres": var(("profile", "level"), pressure, fill=99999.0,
+                    standard_name="sea_water_pressure", units="dbar"),
+        "temp": var(("profile", "level"), temperature, fill=99999.0,
+                    standard_name="sea_water_temperature", units="degree_Celsius",
+                    coordinates="time lat lon pres"),
+        "psal": var(("profile", "level"), salinity, fill=99999.0,
+                    standard_name="sea_water_practical_salinity", units=salinity_units,
+                    coordinates="time lat lon pres"),
+    }
+    variables.update(extra)
+    return write_nc(path, {"profile": n_prof, "level": n_level}, variables,
+                    featureType="profile", platform="float_9")
+
+
+def ragged_profiles_file(path):
+    # (from memory) CF H.3.4 contiguous ragged array: a count variable with sample_dimension
+    return write_nc(path, {"profile": 2, "obs": 5}, {
+        "row_size": var(("profile",), [3, 2], dtype="i4", sample_dimension="obs"),
+        "time": var(("profile",), [27000.0, 27001.0], **TIME_1950),
+        "lat": var(("profile",), [45.0, 46.0], standard_name="latitude", units="degrees_north"),
+        "lon": var(("profile",), [5.0, 6.0], standard_name="longitude", units="degrees_east"),
+        "z": var(("obs",), [5.0, 10.0, 20.0, 1.0, 3.0], standard_name="depth", units="m",
+                 positive="down"),
+        "temp": var(("obs",), [12.0, 11.0, np.nan, 14.0, 13.5], fill=-999.0,
+                    standard_name="sea_water_temperature", units="K",
+                    coordinates="time lat lon z"),
+        "ship": var(("profile",), np.array(["ship_a", "ship_b"], dtype=object), dtype=str,
+                    long_name="platform name"),
+    }, featureType="profile")
+
+
+# --------------------------------------------------------------------------------------------
+# opening files
+# --------------------------------------------------------------------------------------------
+
+
+def to_toml(cfg):
+    """Tiny TOML writer for the test configs (tables, arrays of tables, scalars, lists)."""
+    def val(v):
+        if isinstance(v, str):
+            return json.dumps(v)
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, (list, tuple)):
+            return "[" + ", ".join(val(x) for x in v) + "]"
+        if isinstance(v, dict):
+            return "{ " + ", ".join(f"{k} = {val(x)}" for k, x in v.items()) + " }"
+        return repr(v)
+    lines = []
+    for k, v in cfg.items():
+        if not isinstance(v, (dict, list)):
+            lines.append(f"{k} = {val(v)}")
+    for k, v in cfg.items():
+        if isinstance(v, dict):
+            lines.append(f"[{k}]")
+            lines += [f"{kk} = {val(vv)}" for kk, vv in v.items()]
+        elif isinstance(v, list) and v and isinstance(v[0], dict):
+            for item in v:
+                lines.append(f"[[{k}]]")
+                lines += [f"{kk} = {val(vv)}" for kk, vv in item.items()]
+    return "\n".join(lines) + "\n"

@@ -53,7 +53,7 @@ def file_identities(path, source) -> pd.DataFrame:
     read in full and reduced with :func:`identities_from_table`.
     """
     from obsprep.readers import guess_kind, read, registered_readers
-    from obsprep.readers.cf import open_dataset
+    from obsprep.readers.cf import open_dataset, reader_options
 
     options = dict(source.options)
     reader_profile = dict(source.reader or {})
@@ -68,10 +68,10 @@ def file_identities(path, source) -> pd.DataFrame:
             if reader is None:
                 reader = registered_readers()[guess_kind(path, ds)]
             if hasattr(reader, "identities"):
-                try:
-                    return reader.identities(ds, path, sensor=source.sensor, **options)
-                except (KeyError, ValueError, TypeError, IndexError) as exc:
-                    raise InputFileError(path, f"reader '{reader.kind}' failed: {exc}") from exc
+                # options were checked at load; a reader with kind auto takes the ones it declares
+                declared = {k: v for k, v in options.items() if k in reader.options}
+                parsed = reader_options(reader, {"sensor": source.sensor, **declared})
+                return reader.identities(ds, path, options=parsed)
         finally:
             ds.close()
     table = read(path, kind=reader.kind, reader_profile=reader_profile or None,

@@ -157,7 +157,7 @@ def test_argo_identities_read_only_the_profile_metadata(tmp_path):
 
 
 def test_cf_profile_identities_come_from_the_full_read(tmp_path):
-    from test_readers import multidimensional_profiles_file
+    from sample_files import multidimensional_profiles_file
 
     path = multidimensional_profiles_file(
         tmp_path / "ctd.nc", [[5.0, 10.0, NAN], [5.0, 10.0, 20.0]],

@@ -15,7 +15,7 @@ import gsw
 import numpy as np
 import pyproj
 import pytest
-from test_readers import TIME_1950, polar_grid_mapping, var, write_nc
+from sample_files import TIME_1950, polar_grid_mapping, var, write_nc
 
 from obsprep.exceptions import InputFileError
 from obsprep.model.table import validate_table

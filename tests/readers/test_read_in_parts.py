@@ -11,8 +11,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from sample_files import REGULAR_GRID_TOML, write_gds2
-from test_readers import ice_concentration_file, sst_grid_file, sst_swath_file
+from sample_files import REGULAR_GRID_TOML, ice_concentration_file, sst_grid_file, sst_swath_file, write_gds2
 
 from obsprep.readers import read, read_parts
 from obsprep.run import build as pipeline

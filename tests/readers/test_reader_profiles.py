@@ -140,7 +140,7 @@ def test_profile_in_a_build_config(tmp_path):
 
 def test_inspect_with_a_source_of_a_config(tmp_path):
     from click.testing import CliRunner
-    from test_pipeline import _to_toml
+    from sample_files import to_toml as _to_toml
 
     from obsprep.cli.main import cli
 

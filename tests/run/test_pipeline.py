@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 from click.testing import CliRunner
-from sample_files import write_alongtrack
+from sample_files import to_toml, write_alongtrack
 
 from obsprep.cli.main import cli
 from obsprep.run.build import build
@@ -50,35 +50,8 @@ def scenario(tmp_path, rng):
         "output": {"directory": "out", "parquet": True},
     }
     toml = tmp_path / "config.toml"
-    toml.write_text(_to_toml(config))
+    toml.write_text(to_toml(config))
     return toml, pd.concat(frames, ignore_index=True)
-
-
-def _to_toml(cfg):
-    """Tiny TOML writer for the test configs (tables, arrays of tables, scalars, lists)."""
-    def val(v):
-        if isinstance(v, str):
-            return json.dumps(v)
-        if isinstance(v, bool):
-            return "true" if v else "false"
-        if isinstance(v, (list, tuple)):
-            return "[" + ", ".join(val(x) for x in v) + "]"
-        if isinstance(v, dict):
-            return "{ " + ", ".join(f"{k} = {val(x)}" for k, x in v.items()) + " }"
-        return repr(v)
-    lines = []
-    for k, v in cfg.items():
-        if not isinstance(v, (dict, list)):
-            lines.append(f"{k} = {val(v)}")
-    for k, v in cfg.items():
-        if isinstance(v, dict):
-            lines.append(f"[{k}]")
-            lines += [f"{kk} = {val(vv)}" for kk, vv in v.items()]
-        elif isinstance(v, list) and v and isinstance(v[0], dict):
-            for item in v:
-                lines.append(f"[[{k}]]")
-                lines += [f"{kk} = {val(vv)}" for kk, vv in item.items()]
-    return "\n".join(lines) + "\n"
 
 
 def expected_with_pandas(raw):

@@ -287,12 +287,11 @@ class ArgoProfileReader(Reader):
         table.attrs["variables"] = cf.variable_units(ds, argo.used_variables(["PRES"] + names))
         return table
 
-    def identities(self, ds, path, **options) -> pd.DataFrame:
+    def identities(self, ds, path, *, options) -> pd.DataFrame:
         """One row per profile for the duplicate check, from the per-profile variables only:
         ``group``, ``platform``, ``time``, ``lon``, ``lat``, ``rank`` (DATA_MODE: D 2, A 1,
-        R 0) and ``n_valid`` (levels with a finite pressure).  ``options`` (the source's) are
-        checked as for :func:`obsprep.readers.read`; none changes the identities."""
-        cf.reader_options(self, options)
+        R 0) and ``n_valid`` (levels with a finite pressure).  ``options``: the source's
+        parsed :attr:`Options`; none of them changes the identities."""
         argo = _ArgoFile(ds, path)
         pressure = np.asarray(ds["PRES"].values, dtype=np.float64)
         return pd.DataFrame({
