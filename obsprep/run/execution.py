@@ -13,11 +13,11 @@ Determinism.  Floating-point merging is not associative, so results are made ind
 where and when the work ran by always combining the per-file accumulators in one fixed tree:
 the list of files in task order is cut into consecutive groups of :data:`MERGE_FAN_IN`, each
 group is merged (in task order) into one accumulator, and the same is repeated on the merged
-list until one is left (:func:`reduce_in_fixed_tree`).  Locally the tree is evaluated
-incrementally as results arrive (:class:`FixedTreeReducer`, holding at most
-``MERGE_FAN_IN - 1`` partial results per level, so memory does not grow with the number of
-files); on a cluster each group is one task running on the workers.  Both give the same tree, so
-the super-observations are bit-for-bit identical for any ``jobs``, on a cluster, and on reruns.
+list until one is left.  :class:`FixedTreeReducer` is that tree, evaluated incrementally as
+results arrive (holding at most ``MERGE_FAN_IN - 1`` partial results per level, so memory does
+not grow with the number of files); locally it merges in this process, on a cluster it submits
+each node as one task to the workers.  So the super-observations are bit-for-bit identical for
+any ``jobs``, on a cluster, and on reruns.
 
 A file with the same bytes as an earlier file of the same source is not read again; the ledger
 lists it as ``duplicate_file`` (:func:`identical_files`).
@@ -25,6 +25,7 @@ lists it as ``duplicate_file`` (:func:`identical_files`).
 
 from __future__ import annotations
 
+import itertools
 import os
 import threading
 from concurrent.futures import ProcessPoolExecutor
@@ -59,16 +60,6 @@ def merge_group(items):
     if len(present) == 1:
         return present[0]
     return Accumulator.merge(present)
-
-
-def reduce_in_fixed_tree(items, fan_in: int | None = None):
-    """Reduce ``items`` (task order) over the fixed tree: consecutive groups of ``fan_in``
-    (default :data:`MERGE_FAN_IN`) merged with :func:`merge_group`, level by level, until one
-    is left.  None for an empty list.  (The tree is :class:`FixedTreeReducer`'s.)"""
-    reducer = FixedTreeReducer(fan_in)
-    for item in items:
-        reducer.add(item)
-    return reducer.result()
 
 
 class FixedTreeReducer:
@@ -110,8 +101,8 @@ class FixedTreeReducer:
         """The reduced accumulator (None when nothing was added or nothing was kept)."""
         if self._count == 0:
             return None
-        # Close the last, incomplete group of each level from the bottom up, exactly as the
-        # level-by-level loop of reduce_in_fixed_tree does.
+        # Close the last, incomplete group of each level from the bottom up, as a
+        # level-by-level reduction of the whole list would.
         depth = 0
         while True:
             above = any(self._levels[d] for d in range(depth + 1, len(self._levels)))
@@ -348,7 +339,7 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
                  for t in tasks]
         summaries = [client.submit(_summary, f, pure=False) for f in files]
         # the one merge tree, each node a task on the cluster
-        nodes = iter(range(len(files) + 1))
+        nodes = itertools.count()
         reducer = FixedTreeReducer(merge=lambda items: client.submit(
             merge_group, items, pure=False, key=f"obsprep-merge-{next(nodes)}-{run}"))
         for file in files:
@@ -368,4 +359,4 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
 
 
 __all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "FileResult", "ExecutionResult", "merge_group",
-           "reduce_in_fixed_tree", "FixedTreeReducer", "identical_files", "run_one_task", "run_tasks"]
+           "FixedTreeReducer", "identical_files", "run_one_task", "run_tasks"]

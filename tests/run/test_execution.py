@@ -22,7 +22,7 @@ from sample_files import REGULAR_GRID_TOML, write_alongtrack
 from obsprep.cli.main import cli
 from obsprep.run import execution
 from obsprep.run.build import build
-from obsprep.run.execution import FixedTreeReducer, merge_group, reduce_in_fixed_tree
+from obsprep.run.execution import FixedTreeReducer, merge_group
 from obsprep.superobs import Accumulator
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
@@ -41,6 +41,24 @@ def partial(seed, n=50):
                                          rng.uniform(0, 1, n), rng.uniform(50, 51, n), 0.0)
 
 
+def level_by_level_tree(items, fan_in):
+    """Reference: the fixed tree by its definition, written independently of the package:
+    consecutive groups of ``fan_in`` merged with merge_group, level by level, until one is left."""
+    level = list(items)
+    if not level:
+        return None
+    while len(level) > 1:
+        level = [merge_group(level[start:start + fan_in]) for start in range(0, len(level), fan_in)]
+    return merge_group(level)
+
+
+def reduce_incrementally(items, fan_in=None):
+    reducer = FixedTreeReducer(fan_in)
+    for item in items:
+        reducer.add(item)
+    return reducer.result()
+
+
 def assert_state_identical(a, b):
     assert a.key_names == b.key_names
     for name in a.key_names:
@@ -53,14 +71,11 @@ def assert_state_identical(a, b):
 @given(st.lists(st.one_of(st.none(), st.integers(0, 10_000)), min_size=0, max_size=40),
        st.integers(2, 5))
 def test_incremental_tree_equals_level_by_level_tree(seeds, fan_in):
-    # Reference: the definition, reduce_in_fixed_tree (consecutive groups, level by level);
+    # Reference: the definition, level_by_level_tree (consecutive groups, level by level);
     # None stands for a file that kept nothing.
     items = [None if s is None else partial(s) for s in seeds]
-    expected = reduce_in_fixed_tree(items, fan_in)
-    reducer = FixedTreeReducer(fan_in)
-    for item in items:
-        reducer.add(item)
-    got = reducer.result()
+    expected = level_by_level_tree(items, fan_in)
+    got = reduce_incrementally(items, fan_in)
     if expected is None:
         assert got is None
     else:
@@ -69,7 +84,7 @@ def test_incremental_tree_equals_level_by_level_tree(seeds, fan_in):
 
 def test_tree_agrees_with_one_flat_merge():
     items = [partial(s) for s in range(19)]
-    tree = reduce_in_fixed_tree(items, 4).finalize(correlation=0.3)
+    tree = reduce_incrementally(items, 4).finalize(correlation=0.3)
     flat = Accumulator.merge(items).finalize(correlation=0.3)
     assert tree["count"].sum() == 19 * 50
     for column in ("count", "value", "spread", "time", "lon", "lat", "error"):
@@ -80,7 +95,7 @@ def test_merge_group_passes_a_single_accumulator_through_unchanged():
     one = partial(1)
     assert merge_group([None, one, None]) is one
     assert merge_group([None, None]) is None
-    assert reduce_in_fixed_tree([]) is None
+    assert reduce_incrementally([]) is None
 
 
 # ----------------------------------------------------------------------------------------------
