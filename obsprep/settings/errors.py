@@ -19,12 +19,10 @@ from obsprep.errors.rules import ERROR_RULE_KEYS, ERROR_TABLE_KEYS, is_table
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 
-#: ways of combining the instrument-based and spread-based super-observation errors
-SPREAD_COMBINATIONS = ("instrument", "max", "spread_when_n_ge")
 DEFAULT_SPREAD_MIN_COUNT = 5
 
 __all__ = ["ERROR_RULE_KEYS", "ERROR_TABLE_KEYS", "check_error_rule", "check_table",
-           "check_superobs_error_settings", "SPREAD_COMBINATIONS", "DEFAULT_SPREAD_MIN_COUNT"]
+           "check_superobs_error_settings", "DEFAULT_SPREAD_MIN_COUNT"]
 
 
 def _check_quantity(q, key, src):
