@@ -53,7 +53,7 @@ def file_identities(path, source) -> pd.DataFrame:
     read in full and reduced with :func:`identities_from_table`.
     """
     from obsprep.readers import guess_kind, read, registered_readers
-    from obsprep.readers.cf import open_dataset, reader_options
+    from obsprep.readers.cf import declared_options, open_dataset, reader_options
 
     options = dict(source.options)
     reader_profile = dict(source.reader or {})
@@ -68,9 +68,9 @@ def file_identities(path, source) -> pd.DataFrame:
             if reader is None:
                 reader = registered_readers()[guess_kind(path, ds)]
             if hasattr(reader, "identities"):
-                # options were checked at load; a reader with kind auto takes the ones it declares
-                declared = {k: v for k, v in options.items() if k in reader.options}
-                parsed = reader_options(reader, {"sensor": source.sensor, **declared})
+                # options were checked at load; with kind auto the reader takes its own
+                parsed = reader_options(reader, {"sensor": source.sensor,
+                                                 **declared_options(reader, options)})
                 return reader.identities(ds, path, options=parsed)
         finally:
             ds.close()

@@ -132,7 +132,7 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from obsprep.readers.cf import open_dataset, reader_options, unreadable_data
+    from obsprep.readers.cf import declared_options, open_dataset, reader_options, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -160,8 +160,7 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
     try:
         if auto:
             kind = guess_kind(path, ds)
-            parsed = reader_options(readers[kind], {k: v for k, v in options.items()
-                                                    if k in readers[kind].options})
+            parsed = reader_options(readers[kind], declared_options(readers[kind], options))
         whole = ds
         if row_slice is not None:
             dimension = readers[kind].slice_dimension(ds)

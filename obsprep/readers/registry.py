@@ -100,7 +100,7 @@ def validate_options(kind: str, options: dict, key: str, source=None) -> None:
     ``<key>.<option>`` and what was expected.
     """
     from obsprep.exceptions import ConfigError
-    from obsprep.readers.cf import reader_options
+    from obsprep.readers.cf import declared_options, reader_options
 
     readers = registered_readers()
     candidates = list(readers.values()) if kind == "auto" else [readers[kind]]
@@ -114,7 +114,7 @@ def validate_options(kind: str, options: dict, key: str, source=None) -> None:
                               + (f"; did you mean '{hint[0]}'?" if hint else "")
                               + f"; reader '{kind}' accepts: {', '.join(accepted)}", source)
     for reader in candidates:
-        declared = {k: v for k, v in options.items() if k in reader.options}
+        declared = declared_options(reader, options)
         try:
             reader_options(reader, declared)
         except (TypeError, ValueError) as exc:

@@ -73,6 +73,12 @@ def option_meanings(options_class) -> dict[str, str]:
     return {f.name: f.metadata["meaning"] for f in dataclasses.fields(options_class)}
 
 
+def declared_options(reader, options: dict) -> dict:
+    """The entries of ``options`` that ``reader`` declares (a source of kind auto gives one
+    set of options to whichever reader claims its file; each takes its own)."""
+    return {name: value for name, value in options.items() if name in reader.options}
+
+
 def reader_options(reader, options: dict):
     """Check ``options`` against ``reader.Options`` and return an instance of it.
 
