@@ -86,7 +86,7 @@ def crs_ellipsoid(crs) -> tuple[float, float]:
     return ellipsoid.semi_major_metre, flattening
 
 
-def projection_axis_angle(to_lonlat, x, y, step, axis, ellipsoid) -> np.ndarray:
+def projection_axis_angle(to_lonlat, x, y, step, axis, ellipsoid, centre=None) -> np.ndarray:
     """Angle (radians, counterclockwise from local east) of a map projection's +x (``axis``
     "x") or +y ("y") direction at projected points ``(x, y)``.
 
@@ -96,12 +96,13 @@ def projection_axis_angle(to_lonlat, x, y, step, axis, ellipsoid) -> np.ndarray:
     (:func:`obsprep.geo.sphere.direction_from_east`), is the axis direction: a centred
     difference, whose error is second order, about (step/R)^2 rad.  ``step`` in the
     projection's units (m).  On a conformal projection the +y angle is pi/2 minus the meridian
-    convergence PROJ reports (true north to grid north, clockwise positive).
+    convergence PROJ reports (true north to grid north, clockwise positive).  ``centre``:
+    the (lon, lat) of the points when already known.
     """
     x = np.asarray(x, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
     dx, dy = (step, 0.0) if axis == "x" else (0.0, step)
-    lon, lat = to_lonlat(x, y)
+    lon, lat = to_lonlat(x, y) if centre is None else centre
     lon_ahead, lat_ahead = to_lonlat(x + dx, y + dy)
     lon_behind, lat_behind = to_lonlat(x - dx, y - dy)
     displacement = (ellipsoid_ecef_from_lonlat(lon_ahead, lat_ahead, *ellipsoid)
@@ -121,14 +122,12 @@ def projection_axis_angles(crs, lon, lat, step=100.0) -> tuple[np.ndarray, np.nd
 
     forward = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
     inverse = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
-    x, y = forward.transform(np.asarray(lon, dtype=np.float64), np.asarray(lat, dtype=np.float64))
-
-    def to_lonlat(px, py):
-        return inverse.transform(px, py)
-
+    lon = np.asarray(lon, dtype=np.float64)
+    lat = np.asarray(lat, dtype=np.float64)
+    x, y = forward.transform(lon, lat)
     ellipsoid = crs_ellipsoid(crs)
-    return (projection_axis_angle(to_lonlat, x, y, step, "x", ellipsoid),
-            projection_axis_angle(to_lonlat, x, y, step, "y", ellipsoid))
+    return tuple(projection_axis_angle(inverse.transform, x, y, step, axis, ellipsoid,
+                                       centre=(lon, lat)) for axis in ("x", "y"))
 
 
 def projection_to_east_north(u, v, angle_x, angle_y, sigma_u=None, sigma_v=None):
