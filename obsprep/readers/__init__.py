@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from obsprep.exceptions import InputFileError, NoReaderError
-from obsprep.readers.registry import Reader, register_reader, registered_readers
+from obsprep.readers.registry import Reader, accepted_options, register_reader, registered_readers
 
 
 # Every module of obsprep.readers.products registers its reader on import; they are found on
@@ -147,11 +147,11 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
     profile.pop("good_flag_meanings", None)
     auto = kind in (None, "auto")
     if auto:
-        declared = {name for reader in readers.values() for name in reader.options}
-        unknown = sorted(set(options) - declared)
+        accepted = accepted_options("auto")
+        unknown = sorted(set(options) - set(accepted))
         if unknown:
             raise TypeError(f"unknown option(s) {', '.join(repr(u) for u in unknown)}; no "
-                            f"reader accepts them; accepted options: {', '.join(sorted(declared))}")
+                            f"reader accepts them; accepted options: {', '.join(accepted)}")
     else:
         parsed = reader_options(readers[kind], options)
     # lazy: a variable is read (once, then cached) when the reader first uses it, so the

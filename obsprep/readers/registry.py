@@ -92,6 +92,14 @@ def registered_readers() -> dict[str, Reader]:
     return dict(ordered)
 
 
+def accepted_options(kind: str) -> list[str]:
+    """The option names a source of reader ``kind`` may give, sorted; for ``"auto"``, those
+    that any registered reader declares."""
+    readers = registered_readers()
+    candidates = readers.values() if kind in (None, "auto") else [readers[kind]]
+    return sorted({name for reader in candidates for name in reader.options})
+
+
 def validate_options(kind: str, options: dict, key: str, source=None) -> None:
     """Check a source's reader options at configuration load, before any file is opened.
 
@@ -104,7 +112,7 @@ def validate_options(kind: str, options: dict, key: str, source=None) -> None:
 
     readers = registered_readers()
     candidates = list(readers.values()) if kind == "auto" else [readers[kind]]
-    accepted = sorted({name for reader in candidates for name in reader.options})
+    accepted = accepted_options(kind)
     for name in options:
         if name not in accepted:
             import difflib
@@ -114,9 +122,8 @@ def validate_options(kind: str, options: dict, key: str, source=None) -> None:
                               + (f"; did you mean '{hint[0]}'?" if hint else "")
                               + f"; reader '{kind}' accepts: {', '.join(accepted)}", source)
     for reader in candidates:
-        declared = declared_options(reader, options)
-        try:
-            reader_options(reader, declared)
-        except (TypeError, ValueError) as exc:
-            bad = next((k for k in declared if k in str(exc)), None)
-            raise ConfigError(f"{key}.{bad}" if bad else key, str(exc), source) from None
+        for name, value in declared_options(reader, options).items():
+            try:  # one option at a time, so the error names the one that is wrong
+                reader_options(reader, {name: value})
+            except (TypeError, ValueError) as exc:
+                raise ConfigError(f"{key}.{name}", str(exc), source) from None

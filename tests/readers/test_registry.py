@@ -79,3 +79,15 @@ def test_its_options_are_checked_at_load_and_listed(stand_in):
     listing = CliRunner().invoke(cli, ["inspect", "--kinds"]).output
     assert f"{stand_in.kind}: {stand_in.description}" in listing
     assert "option offset_m: added to every value, m" in listing
+
+
+@pytest.mark.parametrize("kind, options, named", [
+    ("alongtrack", {"sensor": "a", "pass_gap_seconds": -1}, "pass_gap_seconds"),
+    ("auto", {"min_quality_level": "x"}, "min_quality_level"),
+    ("argo", {"platform": "p", "sensor": 3}, "sensor"),
+])
+def test_an_ill_typed_option_is_named_at_load(kind, options, named):
+    # the options each reader declares (GDS 2.0 quality levels 0-5 [GDS2]; a gap is a
+    # positive number of seconds; a sensor name is text)
+    with pytest.raises(ConfigError, match=rf"sources\[0\]\.options\.{named}'"):
+        registry.validate_options(kind, options, "sources[0].options")
