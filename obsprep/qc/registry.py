@@ -48,7 +48,7 @@ How to add a quality-control check
 2. Add one line to :data:`CHECKS` below at its place in the order (and, for a new module,
    import it here).  :class:`obsprep.settings.qc.QcSettings`, ``QC_KEYS`` (hence the
    configuration schema and reference) and the reason list follow from the declaration.
-3. Test it in ``tests/test_qc.py`` (or ``tests/test_<name>.py``) against an outside reference.
+3. Test it in ``tests/qc/test_qc.py`` (or ``tests/qc/test_<name>.py``) against an outside reference.
 
 New reason codes are appended to the ledger's reason order when their module is first
 imported (``obsprep.qc`` imports this module, hence every check module, in the order of its imports).

@@ -34,7 +34,7 @@ Accuracy: exact (to rounding) when the grid is affine in lon/lat (a regular lon/
 possibly rotated or sheared); otherwise the cell edges are those of the piecewise-bilinear
 model, which differ from the "true" edges of, e.g., a rotated-pole grid by the sagitta of the
 grid lines between centres: a fraction of a cell proportional to the cell size (a few
-thousandths of a cell for 0.5 degree cells; tests/test_grid.py computes the bound).
+thousandths of a cell for 0.5 degree cells; tests/geo/test_grid.py computes the bound).
 """
 
 from __future__ import annotations
