@@ -36,6 +36,19 @@ COLUMNS: dict[str, tuple[str, str, str]] = {
 CATEGORICAL = [c for c, (dtype, _, _) in COLUMNS.items() if dtype == "category"]
 
 
+#: ``table.attrs`` key under which any stage leaves one-line warnings about the file the table
+#: came from (a quirk read in the most sensible way, a suspicious share of values, ...); the
+#: build copies them into the file's ledger entry
+WARNINGS = "warnings"
+
+
+def add_warning(table: pd.DataFrame, message: str) -> None:
+    """Record a one-line warning about the table's file (kept once, in order of arrival)."""
+    warnings = table.attrs.setdefault(WARNINGS, [])
+    if message not in warnings:
+        warnings.append(message)
+
+
 def make_table(n: int | None = None, **columns) -> pd.DataFrame:
     """Build an observation table from column arrays.
 

@@ -21,7 +21,7 @@ from obsprep.exceptions import InputFileError, ObsprepError
 from obsprep.geo.grid import grid_from_config
 from obsprep.geo.grid.base import CLASSIFY_REASONS
 from obsprep.model.quantities import QUANTITIES, QUANTITY_NAMES
-from obsprep.model.table import kept, reject
+from obsprep.model.table import WARNINGS, kept, reject
 from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE
@@ -169,7 +169,8 @@ def _combine_parts(results: list[FileResult]) -> FileResult:
             rejected[reason] = rejected.get(reason, 0) + count
     entry = LedgerEntry(file=first.file, sensor=first.sensor, kind=first.kind,
                         size_bytes=first.size_bytes, read=sum(r.entry.read for r in results),
-                        kept=sum(r.entry.kept for r in results), rejected=rejected)
+                        kept=sum(r.entry.kept for r in results), rejected=rejected,
+                        warnings=list(dict.fromkeys(w for r in results for w in r.entry.warnings)))
     entry.check()
     reducer = FixedTreeReducer()
     profile_names: dict = {}
@@ -202,6 +203,8 @@ class FileWork:
     j: np.ndarray | None = None
     k: np.ndarray | None = None
     result: FileResult = field(default_factory=lambda: FileResult(entry=None))
+    #: problems met on the way that did not stop the file (one line each, for the ledger)
+    warnings: list = field(default_factory=list)
 
 
 def count_reader_rejections(work: FileWork) -> None:
@@ -215,6 +218,7 @@ def count_reader_rejections(work: FileWork) -> None:
     for reason, count in table.attrs.pop(NOT_IN_TABLE, {}).items():
         counted[reason] = counted.get(reason, 0) + count
     work.table, work.counted_by_reader = table, counted
+    work.warnings.extend(table.attrs.pop(WARNINGS, []))
 
 
 def check_table(work: FileWork) -> None:
@@ -332,6 +336,7 @@ def _process_table(cfg: Config, grid, source, path: str, table: pd.DataFrame, fi
         step(work)
     work.result.entry = entry_from_table(work.table, path, source.sensor, kind, size,
                                          counted_earlier=work.counted_by_reader)
+    work.result.entry.warnings = list(dict.fromkeys(work.warnings + work.table.attrs.pop(WARNINGS, [])))
     return work.result
 
 
@@ -360,37 +365,39 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     -------
     BuildResult
     """
-    from obsprep.writers import write_outputs
+    from obsprep.writers import OutputSet
 
     cfg = load_config(config, date)
     grid = grid_from_config(cfg.grid, cfg.base_dir)
     sensor_names = output_sensors(cfg)
     days = cfg.window.days()
-    tasks = []
-    for source in cfg.sources:
-        for path in source.files(cfg.base_dir, days):
-            tasks.append(FileTask(source, path, len(tasks)))
-    # the one cross-file step: decide duplicate profiles before the independent per-file work
-    cfg.duplicate_groups = find_duplicates(tasks)
-    executed = run_tasks(process_file, cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
-                         scheduler=scheduler, progress=progress)
+    # the output directory is prepared (and held) before any input is read
+    with OutputSet(cfg, out) as output_set:
+        tasks = []
+        for source in cfg.sources:
+            for path in source.files(cfg.base_dir, days):
+                tasks.append(FileTask(source, path, len(tasks)))
+        # the one cross-file step: decide duplicate profiles before the independent per-file work
+        cfg.duplicate_groups = find_duplicates(tasks)
+        executed = run_tasks(process_file, cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
+                             scheduler=scheduler, progress=progress)
 
-    ledger = Ledger()
-    for entry in executed.entries:
-        ledger.add(entry)
-    ledger.check()
-    profile_names = executed.profile_names
-    merged, executed.accumulator = executed.accumulator, None
-    superobs = finalize_superobs(cfg, merged, sensor_names, profile_names, grid=grid)
-    del merged  # the sums are in the table now: free them before the writers need memory
-    kept_total = sum(e.kept for e in ledger.entries)
-    counted = int(superobs["count"].sum()) if len(superobs) else 0
-    if counted != kept_total:
-        raise ObsprepError(f"internal error: {kept_total} observations kept but {counted} in super-observations")
-    inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
-              for e in ledger.entries]
-    outputs = write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=out, version=__version__,
-                            created=dt.datetime.now(dt.UTC))
+        ledger = Ledger()
+        for entry in executed.entries:
+            ledger.add(entry)
+        ledger.check()
+        profile_names = executed.profile_names
+        merged, executed.accumulator = executed.accumulator, None
+        superobs = finalize_superobs(cfg, merged, sensor_names, profile_names, grid=grid)
+        del merged  # the sums are in the table now: free them before the writers need memory
+        kept_total = sum(e.kept for e in ledger.entries)
+        counted = int(superobs["count"].sum()) if len(superobs) else 0
+        if counted != kept_total:
+            raise ObsprepError(f"internal error: {kept_total} observations kept but {counted} in super-observations")
+        inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
+                  for e in ledger.entries]
+        outputs = output_set.publish(superobs, ledger, grid, inputs, version=__version__,
+                                     created=dt.datetime.now(dt.UTC))
     return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs)
 
 

@@ -28,6 +28,7 @@ class LedgerEntry:
     read: int = 0
     kept: int = 0
     rejected: dict = field(default_factory=dict)
+    warnings: list = field(default_factory=list)  # problems that did not stop the file
 
     def check(self) -> None:
         """Raise LedgerError unless read == kept + sum(rejected)."""

@@ -166,8 +166,8 @@ def write_then_hang(ds, encoding, path):
     time.sleep(120)                    # ... and wait to be killed
 
 netcdf.write_netcdf = write_then_hang
-import obsprep.writers
-obsprep.writers.write_netcdf = write_then_hang
+import obsprep.writers.outputs
+obsprep.writers.outputs.write_netcdf = write_then_hang
 from obsprep.run.build import build
 build(sys.argv[1])
 """
