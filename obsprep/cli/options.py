@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import functools
 
 import click
@@ -13,12 +14,26 @@ date_opt = click.option("--date", "date", metavar="YYYY-MM-DD", default=None,
 out_opt = click.option("--out", "out", type=click.Path(file_okay=False), default=None,
                        help="Output directory (default: output.directory of the config).")
 strict_opt = click.option("--strict", is_flag=True, help="Stop at the first unreadable file.")
-quiet_opt = click.option("--quiet", "-q", is_flag=True, help="No progress bar and no summary.")
+quiet_opt = click.option("--quiet", "-q", is_flag=True,
+                         help="No progress bar and no summary (problems still go to stderr).")
 jobs_opt = click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
                         help="Local processes for the per-file work.")
 scheduler_opt = click.option("--scheduler", "scheduler", metavar="ADDRESS", default=None,
                              help="Run the per-file work on the Dask cluster whose scheduler is "
                                   "at ADDRESS (e.g. tcp://10.0.0.5:8786); needs obsprep[dask].")
+
+
+@contextlib.contextmanager
+def problems_to_stderr():
+    """Print the ``obsprep`` log's problems (WARNING and above) on stderr while the block runs."""
+    from obsprep.run.log import LOGGER, stderr_handler
+
+    handler = stderr_handler()
+    LOGGER.addHandler(handler)
+    try:
+        yield
+    finally:
+        LOGGER.removeHandler(handler)
 
 
 def library_errors(func):

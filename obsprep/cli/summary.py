@@ -6,7 +6,10 @@ from obsprep.run.ledger import reason_totals
 
 
 def summary_lines(result) -> list[str]:
-    """Per-sensor lines: files, unreadable, read, kept, super-observations, main rejection reasons."""
+    """Per-sensor lines (files, unreadable, read, kept, super-observations, main rejection
+    reasons), the files written, and last the line stating the run's outcome.  Problems (an
+    unreadable file, a source without files, warnings) are logged to stderr as they are found,
+    not repeated here."""
     superobs = result.superobs
     lines = [f"{'sensor':<18}{'files':>6}{'bad':>5}{'read':>12}{'kept':>12}{'superobs':>10}  rejected (main reasons)"]
     sensors = list(dict.fromkeys(e.sensor for e in result.ledger.entries))
@@ -16,13 +19,14 @@ def summary_lines(result) -> list[str]:
         n_super = int((superobs["sensor"] == out_name).sum()) if len(superobs) else 0
         reasons = reason_totals(entries)
         main = ", ".join(f"{k} {v}" for k, v in list(reasons.items())[:3]) or "-"
-        lines.append(f"{sensor:<18}{len(entries):>6}{sum(e.status != 'ok' for e in entries):>5}"
+        files = [e for e in entries if e.status != "no_files"]
+        lines.append(f"{sensor:<18}{len(files):>6}{sum(e.status != 'ok' for e in files):>5}"
                      f"{sum(e.read for e in entries):>12}{sum(e.kept for e in entries):>12}{n_super:>10}  {main}")
-    for e in result.ledger.unreadable:
-        lines.append(f"unreadable: {e.file}: {e.message}")
     if len(superobs):
         counts = superobs.groupby("quantity").size()
         lines.append("super-observations per quantity: " + ", ".join(f"{q} {n}" for q, n in counts.items()))
     for key, path in result.outputs.items():
         lines.append(f"wrote {key}: {path}")
+    if result.outcome is not None:
+        lines.append(result.outcome.line())
     return lines

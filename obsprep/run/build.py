@@ -9,6 +9,8 @@ task list, so the output does not depend on how the files were distributed over 
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+import json
 import os
 from dataclasses import dataclass, field
 
@@ -27,6 +29,8 @@ from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE
 from obsprep.run.execution import FixedTreeReducer, run_tasks
 from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
+from obsprep.run.log import LOGGER, file_log
+from obsprep.run.outcome import Outcome, build_outcome
 from obsprep.run.tasks import FileResult, FileTask
 from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
@@ -36,6 +40,8 @@ from obsprep.superobs.timeslots import seconds_since, slot_index
 
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
+#: the build's log file is the output's stem with this suffix, beside the outputs
+LOG_SUFFIX = "_build.log"
 #: values per variable above which a file is read in parts (readers that can; see
 #: process_file): bounds the memory of one huge file whatever its size (a 50-million-pixel
 #: granule builds within 0.8 GiB, benchmarks/README.md)
@@ -51,6 +57,8 @@ class BuildResult:
     ledger: Ledger
     outputs: dict
     inputs: list
+    #: what the run delivered, and the exit status that states it (:mod:`obsprep.run.outcome`)
+    outcome: Outcome = None
 
 
 def _quantity_mask(table: pd.DataFrame, name: str) -> np.ndarray:
@@ -367,25 +375,43 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
     """
     from obsprep.writers import OutputSet
 
+    started = dt.datetime.now(dt.UTC)
     cfg = load_config(config, date)
     grid = grid_from_config(cfg.grid, cfg.base_dir)
     sensor_names = output_sensors(cfg)
     days = cfg.window.days()
     # the output directory is prepared (and held) before any input is read
-    with OutputSet(cfg, out) as output_set:
-        tasks = []
+    with OutputSet(cfg, out) as output_set, \
+            file_log(output_set.directory / f"{output_set.stem}{LOG_SUFFIX}") as log_path:
+        run_warnings = [f"removed a temporary file left by an earlier run: {p}"
+                        for p in getattr(output_set, "removed_stale", [])]
+        tasks, no_files = [], {}
         for source in cfg.sources:
-            for path in source.files(cfg.base_dir, days):
+            files, unmatched = source.find_files(cfg.base_dir, days)
+            for path in files:
                 tasks.append(FileTask(source, path, len(tasks)))
+            if not files:
+                no_files[source.index] = LedgerEntry(
+                    file=" ".join(unmatched), sensor=source.sensor, kind=source.kind, status="no_files",
+                    message=f"no file matches {', '.join(unmatched)}")
+            elif unmatched:
+                run_warnings.append(f"source '{source.sensor}': no file matches {', '.join(unmatched)}")
+        for line in run_warnings:
+            LOGGER.warning("warning: %s", line)
         # the one cross-file step: decide duplicate profiles before the independent per-file work
         cfg.duplicate_groups = find_duplicates(tasks)
         executed = run_tasks(process_file, cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
                              scheduler=scheduler, progress=progress)
 
         ledger = Ledger()
-        for entry in executed.entries:
-            ledger.add(entry)
+        by_source = {}
+        for task, entry in zip(tasks, executed.entries):
+            by_source.setdefault(task.source.index, []).append(entry)
+        for source in cfg.sources:
+            for entry in by_source.get(source.index, [no_files.get(source.index)]):
+                ledger.add(entry)
         ledger.check()
+        report_problems(ledger)
         profile_names = executed.profile_names
         merged, executed.accumulator = executed.accumulator, None
         superobs = finalize_superobs(cfg, merged, sensor_names, profile_names, grid=grid)
@@ -394,11 +420,53 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
         counted = int(superobs["count"].sum()) if len(superobs) else 0
         if counted != kept_total:
             raise ObsprepError(f"internal error: {kept_total} observations kept but {counted} in super-observations")
+        outcome = build_outcome(cfg.sources, ledger.entries, len(superobs))
+        ledger.metadata = run_metadata(cfg, started, outcome, run_warnings)
         inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
-                  for e in ledger.entries]
+                  for e in ledger.entries if e.status != "no_files"]
         outputs = output_set.publish(superobs, ledger, grid, inputs, version=__version__,
                                      created=dt.datetime.now(dt.UTC))
-    return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs)
+        outputs["log"] = log_path
+        (LOGGER.info if outcome.exit_status == 0 else LOGGER.warning)(outcome.line())
+    return BuildResult(config=cfg, superobs=superobs, ledger=ledger, outputs=outputs, inputs=inputs,
+                       outcome=outcome)
+
+
+def report_problems(ledger: Ledger) -> None:
+    """Log every unreadable file, source without files and per-file warning of the run (at
+    WARNING: on stderr and in the build's log file, whatever ``-q`` says)."""
+    for entry in ledger.entries:
+        if entry.status == "unreadable":
+            LOGGER.warning("unreadable: %s (%s): %s", entry.file, entry.sensor, entry.message)
+        elif entry.status == "no_files":
+            LOGGER.warning("no files: source '%s': %s", entry.sensor, entry.message)
+        for warning in entry.warnings:
+            LOGGER.warning("warning: %s (%s): %s", entry.file, entry.sensor, warning)
+
+
+def configuration_hash(cfg: Config) -> str:
+    """SHA-256 of the configuration as parsed (canonical JSON, keys sorted): the same settings
+    give the same hash whatever the file's layout and comments."""
+    text = json.dumps(cfg.raw, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def run_metadata(cfg: Config, started: dt.datetime, outcome: Outcome, warnings: list) -> dict:
+    """The run's metadata for the ledger JSON (times are UTC ISO 8601)."""
+    iso = lambda t: np.datetime_as_string(t, unit="s") + "Z"  # noqa: E731
+    return {
+        "software": "obsprep", "version": __version__,
+        "date": cfg.date.isoformat(), "analysis_time": iso(cfg.window.analysis_time),
+        "window_start": iso(cfg.window.start), "window_end": iso(cfg.window.end),
+        "configuration_file": str(cfg.path.resolve()) if cfg.path else "",
+        "configuration_sha256": configuration_hash(cfg),
+        "started": started.strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "finished": dt.datetime.now(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "exit_status": outcome.exit_status, "outcome": outcome.name, "problems": list(outcome.problems),
+        "warnings": list(warnings),
+        "required_sources": [s.sensor for s in cfg.sources if s.required],
+        "optional_sources": [s.sensor for s in cfg.sources if not s.required],
+    }
 
 
 __all__ = ["build", "process_file", "finalize_superobs", "BuildResult"]

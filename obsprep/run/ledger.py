@@ -1,7 +1,12 @@
 """The ledger: for every input file and sensor, raw observations read, kept and rejected per reason.
 
 Invariant, checked on every run: ``read == kept + sum(rejected)`` for every entry.  Files that
-could not be read are listed with their reason (and 0 observations).
+could not be read are listed with their reason (and 0 observations); a source whose patterns
+matched no file has one entry of status ``no_files`` naming the patterns.
+
+The CSV has the same columns every night (:data:`ENTRY_COLUMNS`, then ``rejected_<reason>``
+for every reason the build knows, zero when unused), so a database can ingest it; the JSON
+adds the run's metadata (:attr:`Ledger.metadata`) under ``run``.
 """
 
 from __future__ import annotations
@@ -14,6 +19,12 @@ import pandas as pd
 from obsprep.exceptions import LedgerError
 from obsprep.model.reasons import REASONS
 
+#: statuses of an entry: read; could not be read; no file matched the source's patterns
+STATUSES = ("ok", "unreadable", "no_files")
+
+#: the leading CSV columns, before one ``rejected_<reason>`` column per known reason
+ENTRY_COLUMNS = ("file", "sensor", "kind", "status", "message", "warnings", "size_bytes", "read", "kept")
+
 
 @dataclass
 class LedgerEntry:
@@ -22,8 +33,8 @@ class LedgerEntry:
     file: str
     sensor: str
     kind: str = ""
-    status: str = "ok"          # "ok" or "unreadable"
-    message: str = ""           # why a file is unreadable
+    status: str = "ok"          # one of STATUSES
+    message: str = ""           # why a file is unreadable; for no_files, the patterns
     size_bytes: int = 0
     read: int = 0
     kept: int = 0
@@ -66,6 +77,9 @@ class Ledger:
 
     def __init__(self):
         self.entries: list[LedgerEntry] = []
+        #: the run's metadata for the JSON (analysis time, window, version, configuration hash,
+        #: start and end, exit status, warnings; set by the build)
+        self.metadata: dict = {}
 
     def add(self, entry: LedgerEntry) -> None:
         entry.check()
@@ -78,32 +92,46 @@ class Ledger:
 
     @property
     def unreadable(self) -> list[LedgerEntry]:
-        return [e for e in self.entries if e.status != "ok"]
+        """Entries of files that could not be read."""
+        return [e for e in self.entries if e.status == "unreadable"]
+
+    @property
+    def no_files(self) -> list[LedgerEntry]:
+        """Entries of sources whose patterns matched no file."""
+        return [e for e in self.entries if e.status == "no_files"]
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per (file, sensor); one column per rejection reason that occurred."""
-        reasons = [r for r in REASONS if any(r in e.rejected for e in self.entries)]
+        """One row per (file, sensor): :data:`ENTRY_COLUMNS`, then ``rejected_<reason>`` for
+        every known reason (the same columns whatever occurred); warnings joined by ``"; "``."""
+        reasons = list(REASONS)
         rows = []
         for e in self.entries:
             row = {"file": e.file, "sensor": e.sensor, "kind": e.kind, "status": e.status,
-                   "message": e.message, "size_bytes": e.size_bytes, "read": e.read, "kept": e.kept}
-            row.update({f"rejected_{r}": e.rejected.get(r, 0) for r in reasons})
+                   "message": e.message, "warnings": "; ".join(e.warnings), "size_bytes": e.size_bytes,
+                   "read": e.read, "kept": e.kept}
+            row.update({f"rejected_{r}": int(e.rejected.get(r, 0)) for r in reasons})
+            unknown = set(e.rejected) - set(reasons)
+            if unknown:
+                raise LedgerError(f"ledger entry of {e.file} has unregistered reasons {sorted(unknown)}")
             rows.append(row)
-        return pd.DataFrame(rows, columns=["file", "sensor", "kind", "status", "message", "size_bytes",
-                                           "read", "kept"] + [f"rejected_{r}" for r in reasons])
+        columns = list(ENTRY_COLUMNS) + [f"rejected_{r}" for r in reasons]
+        return pd.DataFrame(rows, columns=columns).astype(
+            {c: "int64" for c in columns if c in ("size_bytes", "read", "kept") or c.startswith("rejected_")})
 
     def by_sensor(self) -> pd.DataFrame:
         """Totals per sensor (files, unreadable files, read, kept, rejected per reason)."""
         frame = self.to_frame()
         if frame.empty:
             return frame
-        frame["files"] = 1
-        frame["unreadable"] = (frame["status"] != "ok").astype(int)
+        frame["files"] = (frame["status"] != "no_files").astype(int)
+        frame["unreadable"] = (frame["status"] == "unreadable").astype(int)
         numeric = ["files", "unreadable", "read", "kept"] + [c for c in frame if c.startswith("rejected_")]
         return frame.groupby("sensor", sort=False)[numeric].sum().reset_index()
 
     def to_json(self) -> str:
-        return json.dumps({"reasons": REASONS, "entries": [e.__dict__ for e in self.entries]}, indent=1)
+        """The ledger as JSON: ``run`` (metadata), ``reasons`` (code: description), ``entries``."""
+        return json.dumps({"run": self.metadata, "reasons": REASONS,
+                           "entries": [e.__dict__ for e in self.entries]}, indent=1, default=str)
 
     def write(self, csv_path, json_path) -> None:
         """Write the ledger as CSV (one row per file and sensor) and JSON."""
@@ -121,4 +149,4 @@ def reason_totals(entries) -> dict:
     return dict(sorted(tot.items(), key=lambda kv: -kv[1]))
 
 
-__all__ = ["Ledger", "LedgerEntry", "entry_from_table", "reason_totals"]
+__all__ = ["Ledger", "LedgerEntry", "ENTRY_COLUMNS", "STATUSES", "entry_from_table", "reason_totals"]

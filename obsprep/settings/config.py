@@ -105,10 +105,21 @@ class Source:
     reader: dict = field(default_factory=dict)
     #: quality-control settings (``[sources.qc]``, obsprep.qc.QcSettings)
     qc: object = None
+    #: a required source that delivers nothing makes the build's outcome ``source_missing``
+    required: bool = True
 
     def files(self, base_dir: Path, days) -> list[str]:
         """Expand the path patterns for the given UTC days; sorted, de-duplicated, absolute."""
-        found = []
+        return self.find_files(base_dir, days)[0]
+
+    def find_files(self, base_dir: Path, days) -> tuple[list[str], list[str]]:
+        """The files of the source for the given UTC days (sorted per pattern, de-duplicated,
+        absolute) and the expanded glob patterns that matched no file.
+
+        A path without wildcards is listed whether or not it exists, so that a missing file is
+        reported unreadable ("file not found") rather than dropped.
+        """
+        found, unmatched = [], []
         for pattern in self.paths:
             expanded = {placeholders.expand_path(pattern, day) for day in days}
             for pat in sorted(expanded):
@@ -116,6 +127,8 @@ class Source:
                 matches = sorted(glob.glob(full))
                 if not matches and not glob.has_magic(full):
                     matches = [full]  # listed as unreadable in the ledger, not silently dropped
+                if not matches:
+                    unmatched.append(full)
                 found.extend(matches)
         seen, out = set(), []
         for f in found:
@@ -123,7 +136,7 @@ class Source:
             if f not in seen:
                 seen.add(f)
                 out.append(f)
-        return out
+        return out, unmatched
 
 
 @dataclass
@@ -271,6 +284,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
             options=dict(s.get("options", {})), index=n,
             reader=dict(s.get("reader", {})),
             qc=QcSettings.from_dict(s.get("qc"), f"{key}.qc", src),
+            required=bool(s.get("required", True)),
         ))
     from obsprep.readers import available_kinds
 

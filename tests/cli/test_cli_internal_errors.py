@@ -38,7 +38,12 @@ def test_a_programming_error_in_a_reader_exits_1_as_an_internal_error(tmp_path, 
     assert result.exit_code == 1, result.output
     assert "internal error" in result.output and "KeyError" in result.output
     assert "unreadable" not in result.output
-    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+    # no output is published; the build's log beside the outputs says how the run ended
+    written = {p.name for p in (tmp_path / "out").iterdir()} if (tmp_path / "out").exists() else set()
+    logs = [name for name in written if name.endswith("_build.log")]
+    assert {name for name in written if not name.startswith(".")} <= set(logs), written
+    for name in logs:
+        assert "build failed: KeyError" in (tmp_path / "out" / name).read_text()
     log = re.search(r"traceback in (\S+)\)", result.output).group(1)
     text = Path(log).read_text()
     assert "Traceback" in text and "a key the code forgot" in text

@@ -117,11 +117,17 @@ def test_strict_stops_at_unreadable_file(tmp_path):
 def test_cli_build_summary_and_exit_codes(tmp_path):
     toml, _ = scenario(tmp_path, np.random.default_rng(9))
     runner = CliRunner()
+    # the scenario holds one unreadable file: outputs written, exit status 3 (files lost,
+    # obsprep.run.outcome), and the problem on stderr even with --quiet
     res = runner.invoke(cli, ["build", str(toml), "--quiet", "--out", str(tmp_path / "o")])
-    assert res.exit_code == 0, res.output
+    assert res.exit_code == 3, res.output
     assert (tmp_path / "o" / "superobs_20261120.nc").exists()
+    assert res.stdout == ""
+    assert "unreadable: " in res.stderr and "alt_20261117.nc" in res.stderr
+    assert res.stderr.strip().splitlines()[-1].startswith("outcome: FILES LOST (exit status 3)")
     res = runner.invoke(cli, ["build", str(toml), "--out", str(tmp_path / "o2")])
-    assert res.exit_code == 0 and "alt_a" in res.output and "unreadable" in res.output
+    assert res.exit_code == 3 and "alt_a" in res.stdout and "unreadable" in res.stderr
+    assert res.stdout.strip().splitlines()[-1].startswith("outcome: FILES LOST (exit status 3)")
     res = runner.invoke(cli, ["build", str(toml), "--strict", "--quiet"])
     assert res.exit_code == 1 and "alt_20261117.nc" in res.output
     bad = tmp_path / "bad.toml"
