@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from obsprep.cli.options import jobs_opt, library_errors, quiet_opt
+from obsprep.cli.options import jobs_opt, library_errors, problems_to_stderr, quiet_opt
 from obsprep.cli.summary import summary_lines
 
 
@@ -30,7 +30,8 @@ def demo_command(directory, seed, scale, misassign, jobs, quiet):
     paths = write_demo(directory, seed=seed, scale=scale, misassign=misassign)
     if not quiet:
         click.echo(f"demo scenario written to {directory} (config: {paths['config']})")
-    result = build(paths["config"], progress=not quiet, jobs=jobs)
+    with problems_to_stderr():
+        result = build(paths["config"], progress=not quiet, jobs=jobs)
     if not quiet:
         for line in summary_lines(result):
             click.echo(line)
@@ -38,3 +39,4 @@ def demo_command(directory, seed, scale, misassign, jobs, quiet):
         run_dir = result.outputs["netcdf"].parent
         click.echo("audit the errors with:")
         click.echo(f"  obsprep audit {run_dir} --ensemble {paths['ensemble']}")
+    click.get_current_context().exit(result.outcome.exit_status)

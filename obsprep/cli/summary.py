@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from obsprep.run.ledger import reason_totals
+from obsprep.run.ledger import NO_FILES, UNREADABLE, reason_totals
 
 
 def summary_lines(result) -> list[str]:
@@ -19,8 +19,8 @@ def summary_lines(result) -> list[str]:
         n_super = int((superobs["sensor"] == out_name).sum()) if len(superobs) else 0
         reasons = reason_totals(entries)
         main = ", ".join(f"{k} {v}" for k, v in list(reasons.items())[:3]) or "-"
-        files = [e for e in entries if e.status != "no_files"]
-        lines.append(f"{sensor:<18}{len(files):>6}{sum(e.status != 'ok' for e in files):>5}"
+        files = [e for e in entries if e.status != NO_FILES]
+        lines.append(f"{sensor:<18}{len(files):>6}{sum(e.status == UNREADABLE for e in files):>5}"
                      f"{sum(e.read for e in entries):>12}{sum(e.kept for e in entries):>12}{n_super:>10}  {main}")
     if len(superobs):
         counts = superobs.groupby("quantity").size()

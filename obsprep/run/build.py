@@ -28,7 +28,7 @@ from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE
 from obsprep.run.execution import FixedTreeReducer, run_tasks
-from obsprep.run.ledger import Ledger, LedgerEntry, entry_from_table, rejected_counts
+from obsprep.run.ledger import NO_FILES, UNREADABLE, Ledger, LedgerEntry, entry_from_table, rejected_counts
 from obsprep.run.log import LOGGER, file_log
 from obsprep.run.outcome import Outcome, build_outcome
 from obsprep.run.tasks import FileResult, FileTask
@@ -163,7 +163,7 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
             raise
         message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
-                                      status="unreadable", message=message, size_bytes=size))
+                                      status=UNREADABLE, message=message, size_bytes=size))
     return results[0] if len(results) == 1 else _combine_parts(results)
 
 
@@ -392,7 +392,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
                 tasks.append(FileTask(source, path, len(tasks)))
             if not files:
                 no_files[source.index] = LedgerEntry(
-                    file=" ".join(unmatched), sensor=source.sensor, kind=source.kind, status="no_files",
+                    file=" ".join(unmatched), sensor=source.sensor, kind=source.kind, status=NO_FILES,
                     message=f"no file matches {', '.join(unmatched)}")
             elif unmatched:
                 run_warnings.append(f"source '{source.sensor}': no file matches {', '.join(unmatched)}")
@@ -423,7 +423,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
         outcome = build_outcome(cfg.sources, ledger.entries, len(superobs))
         ledger.metadata = run_metadata(cfg, started, outcome, run_warnings)
         inputs = [{"file": e.file, "sensor": e.sensor, "size_bytes": e.size_bytes, "status": e.status}
-                  for e in ledger.entries if e.status != "no_files"]
+                  for e in ledger.entries if e.status != NO_FILES]
         outputs = output_set.publish(superobs, ledger, grid, inputs, version=__version__,
                                      created=dt.datetime.now(dt.UTC))
         outputs["log"] = log_path
@@ -436,9 +436,9 @@ def report_problems(ledger: Ledger) -> None:
     """Log every unreadable file, source without files and per-file warning of the run (at
     WARNING: on stderr and in the build's log file, whatever ``-q`` says)."""
     for entry in ledger.entries:
-        if entry.status == "unreadable":
+        if entry.status == UNREADABLE:
             LOGGER.warning("unreadable: %s (%s): %s", entry.file, entry.sensor, entry.message)
-        elif entry.status == "no_files":
+        elif entry.status == NO_FILES:
             LOGGER.warning("no files: source '%s': %s", entry.sensor, entry.message)
         for warning in entry.warnings:
             LOGGER.warning("warning: %s (%s): %s", entry.file, entry.sensor, warning)

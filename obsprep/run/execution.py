@@ -30,14 +30,13 @@ import os
 import threading
 from concurrent.futures import ProcessPoolExecutor
 
-from obsprep.run.ledger import LedgerEntry
+from obsprep.run.ledger import DUPLICATE_FILE, LedgerEntry
 from obsprep.run.tasks import ExecutionResult, FileResult, FileTask
 from obsprep.superobs import Accumulator
 
 #: number of partial accumulators merged by one node of the reduction tree
 MERGE_FAN_IN = 8
 #: ledger status of a file skipped because an earlier file of the source has the same bytes
-DUPLICATE_FILE = "duplicate_file"
 
 
 # --------------------------------------------------------------------------------------------

@@ -19,8 +19,10 @@ import pandas as pd
 from obsprep.exceptions import LedgerError
 from obsprep.model.reasons import REASONS
 
-#: statuses of an entry: read; could not be read; no file matched the source's patterns
-STATUSES = ("ok", "unreadable", "no_files")
+#: statuses of an entry: read; could not be read; the same bytes as an earlier file of the
+#: source (not read again); no file matched the source's patterns
+UNREADABLE, DUPLICATE_FILE, NO_FILES = "unreadable", "duplicate_file", "no_files"
+STATUSES = ("ok", UNREADABLE, DUPLICATE_FILE, NO_FILES)
 
 #: the leading CSV columns, before one ``rejected_<reason>`` column per known reason
 ENTRY_COLUMNS = ("file", "sensor", "kind", "status", "message", "warnings", "size_bytes", "read", "kept")
@@ -93,12 +95,12 @@ class Ledger:
     @property
     def unreadable(self) -> list[LedgerEntry]:
         """Entries of files that could not be read."""
-        return [e for e in self.entries if e.status == "unreadable"]
+        return [e for e in self.entries if e.status == UNREADABLE]
 
     @property
     def no_files(self) -> list[LedgerEntry]:
         """Entries of sources whose patterns matched no file."""
-        return [e for e in self.entries if e.status == "no_files"]
+        return [e for e in self.entries if e.status == NO_FILES]
 
     def to_frame(self) -> pd.DataFrame:
         """One row per (file, sensor): :data:`ENTRY_COLUMNS`, then ``rejected_<reason>`` for
@@ -123,8 +125,8 @@ class Ledger:
         frame = self.to_frame()
         if frame.empty:
             return frame
-        frame["files"] = (frame["status"] != "no_files").astype(int)
-        frame["unreadable"] = (frame["status"] == "unreadable").astype(int)
+        frame["files"] = (frame["status"] != NO_FILES).astype(int)
+        frame["unreadable"] = (frame["status"] == UNREADABLE).astype(int)
         numeric = ["files", "unreadable", "read", "kept"] + [c for c in frame if c.startswith("rejected_")]
         return frame.groupby("sensor", sort=False)[numeric].sum().reset_index()
 
@@ -149,4 +151,5 @@ def reason_totals(entries) -> dict:
     return dict(sorted(tot.items(), key=lambda kv: -kv[1]))
 
 
-__all__ = ["Ledger", "LedgerEntry", "ENTRY_COLUMNS", "STATUSES", "entry_from_table", "reason_totals"]
+__all__ = ["Ledger", "LedgerEntry", "ENTRY_COLUMNS", "STATUSES", "UNREADABLE", "DUPLICATE_FILE", "NO_FILES",
+           "entry_from_table", "reason_totals"]

@@ -24,6 +24,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from obsprep.run.ledger import NO_FILES, UNREADABLE
+
 #: exit statuses, by name (the table above)
 EXIT_STATUS = {
     "ok": 0,
@@ -69,16 +71,16 @@ def build_outcome(sources, entries, n_superobs: int) -> Outcome:
     missing, lost = [], []
     for source in sources:
         own = [e for e in entries if e.sensor == source.sensor]
-        files = [e for e in own if e.status != "no_files"]
+        files = [e for e in own if e.status != NO_FILES]
         readable = [e for e in files if e.status == "ok"]
-        lost += [e for e in files if e.status != "ok"]
+        lost += [e for e in files if e.status == UNREADABLE]
         if not source.required:
             continue
         if not files:
             missing.append(f"required source '{source.sensor}' delivered no files")
         elif not readable:
             missing.append(f"required source '{source.sensor}' delivered no readable file "
-                           f"({len(files)} unreadable)")
+                           f"({sum(e.status == UNREADABLE for e in files)} unreadable)")
         elif sum(e.kept for e in readable) == 0:
             missing.append(f"required source '{source.sensor}' delivered no kept observation "
                            f"({sum(e.read for e in readable)} read, all rejected)")
