@@ -22,7 +22,7 @@ def test_file_rule_rejects_missing_errors():
     t = make_table(3, error=[0.3, np.nan, -1.0])
     n = assign_errors(t, ErrorRule("file", floor=0.4))
     assert n == 2
-    assert t["rejected"].isna().iloc[0] and list(t["rejected"].iloc[1:]) == ["missing_error", "missing_error"]
+    assert t["rejected"].isna().iloc[0] and list(t["rejected"].iloc[1:]) == ["missing_error", "implausible_error"]
     assert t["error"].iloc[0] == 0.4
 
 
