@@ -132,8 +132,7 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from obsprep.readers.cf import (declared_options, open_dataset, out_of_memory, reader_options,
-                                    unreadable_data)
+    from obsprep.readers.cf import declared_options, open_dataset, out_of_memory, reader_options, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 
 import numpy as np
@@ -58,6 +59,7 @@ def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dat
     if size == 0:
         raise InputFileError(path, "file is empty (0 bytes), expected a netCDF file")
     check_classic_size(path)
+    check_declared_sizes(path, size)
     try:
         ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=not profile,
                              decode_times=False, decode_timedelta=False, decode_coords=False)
@@ -72,11 +74,6 @@ def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dat
                       f"or netCDF-4/HDF5 signature)") from exc
         raise InputFileError(path, f"cannot open netCDF file ({size} bytes; truncated or "
                                    f"corrupt?): {one_line(exc)}") from exc
-    try:
-        check_declared_sizes(ds, path, size)
-    except InputFileError:
-        ds.close()
-        raise
     if not load:
         return apply_reader_profile(ds, profile, path) if profile else ds
     try:
@@ -97,37 +94,51 @@ def unreadable_data(path, exc: BaseException) -> InputFileError:
                                 f"truncated or corrupt?): {one_line(exc)}")
 
 
-def check_declared_sizes(ds: xr.Dataset, path, size: int) -> None:
-    """Raise :class:`InputFileError` when a variable of the lazily opened ``ds`` declares far
-    more data than the file of ``size`` bytes can hold (a netCDF-4/HDF5 "dimension bomb": an
-    11 KB file declaring a 400-million-element dimension).
+def check_declared_sizes(path, size: int) -> None:
+    """Raise :class:`InputFileError` when a variable of the netCDF-4/HDF5 file ``path`` (of
+    ``size`` bytes) declares far more data than the file can hold: a "dimension bomb", an
+    11 KB file declaring a 400-million-element dimension.  Other formats pass unchecked (a
+    netCDF-3 file is checked against its header, :func:`check_classic_size`).
 
-    A variable of more than :data:`IMPLAUSIBLE_VALUES` values whose declared bytes (values x
-    bytes per value) exceed the file size, or for a deflated variable
-    :data:`DEFLATE_MAX_RATIO` times the file size, is refused: most of it cannot be in the file
-    (HDF5 leaves unwritten storage unallocated, to be read as fill), and reading it would
-    allocate memory for nothing.  Variables of the other codecs, whose ratio has no bound
-    known here, and strings are not checked (a MemoryError while reading them is still this
-    file's reason, :func:`out_of_memory`).  A netCDF-3 file was already checked against its
-    header, so this holds for it by construction.
+    Read from the metadata with the netCDF library before xarray opens the file, since xarray
+    reads a dimension's coordinate variable whole at open.  A variable of more than
+    :data:`IMPLAUSIBLE_VALUES` values whose declared bytes (values x bytes per value) exceed
+    the file size, or for a deflated variable :data:`DEFLATE_MAX_RATIO` times the file size,
+    is refused: most of it cannot be in the file (HDF5 leaves unwritten storage unallocated,
+    to be read as fill), and reading it would allocate memory for nothing.  Variables of the
+    other codecs, whose ratio has no bound known here, and strings are not checked (a
+    MemoryError while reading them is still this file's reason, :func:`out_of_memory`).
     """
-    for name, var in ds.variables.items():
-        encoding = var.encoding
-        dtype = np.dtype(encoding.get("dtype", var.dtype))
-        if var.size <= IMPLAUSIBLE_VALUES or dtype.kind not in "biufcS":
-            continue
-        if any(encoding.get(codec) for codec in _UNBOUNDED_CODECS):
-            continue
-        ratio = DEFLATE_MAX_RATIO if encoding.get("zlib") else 1
-        declared = var.size * dtype.itemsize
-        if declared > size * ratio:
-            shape = " x ".join(f"{d} = {n}" for d, n in var.sizes.items())
-            raise InputFileError(
-                path, f"declares {var.size} values ({shape}; {declared} bytes) but the file "
-                      f"has {size} bytes, too few to hold them"
-                      + (f" even deflated at the maximum ratio {DEFLATE_MAX_RATIO}:1" if ratio > 1
-                         else " uncompressed")
-                      + "; the dimension sizes are implausible", variable=str(name))
+    import netCDF4
+
+    with open(path, "rb") as fh:
+        if fh.read(8) != _NETCDF_MAGIC[-1]:
+            return
+    try:
+        nc = netCDF4.Dataset(path)
+    except (OSError, RuntimeError):
+        return  # xarray's open, next, says why the file cannot be opened
+    try:
+        for name, var in nc.variables.items():
+            values = math.prod(var.shape)
+            if values <= IMPLAUSIBLE_VALUES or not isinstance(var.dtype, np.dtype) \
+                    or var.dtype.kind not in "biufcS":
+                continue
+            filters = var.filters() or {}
+            if any(filters.get(codec) for codec in _UNBOUNDED_CODECS):
+                continue
+            ratio = DEFLATE_MAX_RATIO if filters.get("zlib") else 1
+            declared = values * var.dtype.itemsize
+            if declared > size * ratio:
+                shape = " x ".join(f"{d} = {n}" for d, n in zip(var.dimensions, var.shape))
+                how = (f"even deflated at the maximum ratio {DEFLATE_MAX_RATIO}:1" if ratio > 1
+                       else "uncompressed")
+                raise InputFileError(
+                    path, f"declares {values} values ({shape}; {declared} bytes) but the file "
+                          f"has {size} bytes, too few to hold them {how}; the dimension sizes "
+                          f"are implausible", variable=str(name))
+    finally:
+        nc.close()
 
 
 def out_of_memory(path, ds: xr.Dataset | None = None) -> InputFileError:
@@ -137,5 +148,5 @@ def out_of_memory(path, ds: xr.Dataset | None = None) -> InputFileError:
     if ds is not None and ds.sizes:
         dimension, length = max(ds.sizes.items(), key=lambda item: item[1])
         detail = f"; its largest dimension is '{dimension}' = {length}"
-    return InputFileError(path, f"not enough memory to read the file "
+    return InputFileError(path, f"not enough memory to read and process the file "
                                 f"({os.path.getsize(path)} bytes{detail})")
