@@ -42,9 +42,9 @@ import numpy as np
 import pandas as pd
 
 from obsprep.exceptions import ConfigError
-from obsprep.model.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import register_reason
-from obsprep.model.table import category_masks, reject
+from obsprep.model.table import add_warning, category_masks, kept, reject
 
 register_reason("implausible_error", "raw error infinite, not positive, or larger than the "
                 "quantity's whole physical range", stage="errors")
@@ -173,6 +173,22 @@ def largest_plausible_error(quantity: str) -> float:
     return float(high - low)
 
 
+def _warn_of_units(table: pd.DataFrame, masks: dict, missing, implausible, rule_name: str) -> None:
+    """Warn (:func:`obsprep.model.table.add_warning`) when more than
+    :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a quantity's raw errors
+    (rows still kept, with an error) are implausible: the errors' units may be wrong, and the
+    errors that pass may be just as wrong."""
+    live = kept(table) & ~missing
+    for q, mask in masks.items():
+        rows = live & mask
+        n = int(np.count_nonzero(rows))
+        if n and np.count_nonzero(rows & implausible) > SUSPICIOUS_OUT_OF_RANGE_SHARE * n:
+            where = "the file's uncertainty" if rule_name == "file" else "the error rule"
+            add_warning(table, f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the raw errors "
+                               f"of {q} are infinite, not positive or larger than its whole "
+                               f"physical range: the units or scale of {where} may be wrong")
+
+
 def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     """Set ``error`` and ``error_origin`` of ``table`` in place following ``rule``.
 
@@ -239,6 +255,7 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
                                      rule.floor, rule.cap)
         implausible |= ~missing & ~(np.isfinite(sigma) & (sigma <= largest))
     sigma = np.where(missing | implausible, np.nan, sigma)
+    _warn_of_units(table, masks, missing, implausible, rule.rule)
     table["error"] = sigma
     labels = {q: origin_label(rule, q) for q in present}
     if len(set(labels.values())) <= 1:

@@ -9,16 +9,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from obsprep.model.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import REASONS
 from obsprep.model.table import add_warning, kept, reject
 from obsprep.qc.check import QcCheck
-
-#: share of a quantity's values outside its physical range above which the file gets a
-#: warning that its units or scale may be wrong: the physical ranges are generous, so a sound
-#: product has only rare glitches beyond them, while a wrong unit (percent declared as "1",
-#: say) puts a large part of the values there (common practice)
-SUSPICIOUS_OUT_OF_RANGE_SHARE = 0.10
 
 
 def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
@@ -65,7 +59,8 @@ def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
     """Reject as ``out_of_range`` the values outside their quantity's physical range narrowed
     by ``valid_range`` {quantity: [min, max]} (canonical units, inclusive); return the count.
 
-    When more than :data:`SUSPICIOUS_OUT_OF_RANGE_SHARE` of a quantity's values still kept are
+    When more than :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a
+    quantity's values still kept are
     outside its physical range (not the narrowed one), the table gets a warning
     (:func:`obsprep.model.table.add_warning`) that the file's units may be wrong: the values
     inside the range are kept all the same, and may be just as wrong.

@@ -286,3 +286,16 @@ def test_implausible_longitudes_are_not_wrapped_onto_a_meridian():
     assert np.isnan(wrapped[:5]).all()
     # ((lon + 180) mod 360) - 180 by hand for the plausible ones
     np.testing.assert_array_equal(wrapped[5:], [-1.0, -180.0, -1.0, 10.0])
+
+
+def test_a_drift_vector_without_both_interval_ends_is_a_bad_time(tmp_path):
+    from sample_files import geographic_drift_file, reasons
+
+    path = geographic_drift_file(tmp_path / "drift.nc")
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["time_bnds"][2, 1] = 1e19  # days since 1950: beyond any datetime64[ns]
+    table = read(path)
+    # rows: east components of the three vectors, then north (CF 1-D list of vectors); the
+    # second east component is fill in the file
+    assert reasons(table) == [None, "missing_value", "bad_time", None, None, "bad_time"]
+    assert np.isnat(table["time_end"].to_numpy()[[2, 5]]).all()

@@ -136,9 +136,14 @@ def test_nothing_wrong_reaches_the_output(tmp_path):
             assert entry.rejected == detail, (name, entry.rejected)
         assert entry.kept == kept, (name, entry.kept)
         assert entry.read == entry.kept + sum(entry.rejected.values())  # the balance
-    # the units warning, in the file's ledger entry only
-    assert any("units or scale may be wrong" in w for w in entries["sla_in_cm.nc"].warnings)
-    for name in ("good.nc", "two_glitches.nc", "file_errors.nc"):
+    # the units warnings, in the file's ledger entry only: values mostly out of range, raw
+    # errors implausible for more than a tenth of the rows (5 of 40 here)
+    assert [w for w in entries["sla_in_cm.nc"].warnings if "units" in w] == [
+        "more than 10% of the values of sea_level_anomaly are outside its physical range "
+        "[-3, 3] 'm': the file's units or scale may be wrong"]
+    assert any("raw errors of sea_level_anomaly" in w and "the file's uncertainty may be wrong" in w
+               for w in entries["file_errors.nc"].warnings), entries["file_errors.nc"].warnings
+    for name in ("good.nc", "two_glitches.nc", "time_1e19.nc"):
         assert not any("units" in w for w in entries[name].warnings), (name, entries[name].warnings)
     # every kept value reaches a super-observation, and every number there is finite
     superobs = result.superobs
