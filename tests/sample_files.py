@@ -204,20 +204,23 @@ def write_argo(path, *, platform, cycle, mode, juld, lat, lon, pres, temp, psal,
 
 def write_alongtrack(path, lon, lat, time_values, sla, *, units="m", packed=False,
                      platform="sat_a", time_units="seconds since 1950-01-01 00:00:00",
-                     calendar=None, with_sla=True):
+                     calendar=None, with_sla=True, fmt="NETCDF4", record=False, error=None):
     """A CF along-track file (CF 1.10 sec. 9 trajectory-like 1-D series, from memory).
 
     ``time_values`` in ``time_units`` (``calendar`` when given); ``sla`` in ``units``;
     ``packed`` stores it as int16 with scale_factor 0.01 (steps of 0.01 ``units``; netCDF4
     packs on write); ``platform`` None writes no platform attribute, ``with_sla=False`` no
-    sea-level variable.
+    sea-level variable.  ``fmt`` is the netCDF4 format (``NETCDF3_CLASSIC``,
+    ``NETCDF3_64BIT_OFFSET``, ``NETCDF3_64BIT_DATA`` for the netCDF-3 ones); ``record`` makes
+    ``time`` the unlimited (record) dimension; ``error`` (``units``) is written as the sea
+    level's ``standard_error`` ancillary variable (CF 3.4 and the standard-name modifiers).
     """
-    with netCDF4.Dataset(path, "w") as nc:
+    with netCDF4.Dataset(path, "w", format=fmt) as nc:
         nc.Conventions = "CF-1.10"
         nc.featureType = "trajectory"
         if platform is not None:
             nc.platform = platform
-        nc.createDimension("time", len(lon))
+        nc.createDimension("time", None if record else len(lon))
         t = nc.createVariable("time", "f8", ("time",))
         t.standard_name, t.units = "time", time_units
         if calendar:
@@ -238,6 +241,11 @@ def write_alongtrack(path, lon, lat, time_values, sla, *, units="m", packed=Fals
         v.standard_name, v.units = "sea_surface_height_above_sea_level", units
         v.coordinates = "time latitude longitude"
         v[:] = sla
+        if error is not None:
+            v.ancillary_variables = "sla_error"
+            e = nc.createVariable("sla_error", "f8", ("time",))
+            e.standard_name, e.units = "sea_surface_height_above_sea_level standard_error", units
+            e[:] = error
 
 
 def write_alongtrack_config(path, paths, *, slot_hours=24.0):

@@ -21,8 +21,13 @@ A piecewise-linear table with points x_0 < ... < x_m and errors e_0 .. e_m gives
 e(x) = e_k + (e_{k+1} - e_k) (x - x_k) / (x_{k+1} - x_k) on [x_k, x_{k+1}], held constant
 beyond the end points (``numpy.interp``).
 
-Rows left without a finite positive base error are rejected with ``missing_error``: the floor
-and the extra terms must not disguise a missing or invalid provider error.
+Rows left without a base error (NaN: fill in the file, no table value) are rejected with
+``missing_error``; rows whose base error (times the factor) is infinite, not positive or larger
+than the quantity's whole physical range (the width of
+:attr:`~obsprep.model.quantities.Quantity.valid_range`: no real uncertainty exceeds every
+possible difference of two values), or whose raw error ends up so, with ``implausible_error``.
+The floor, the cap and the extra terms must not disguise a missing or invalid provider error,
+and an error of 1e300 must not become an infinite variance downstream.
 
 The origin of each error, i.e. which rule set it, goes to the ``error_origin`` column: the base
 label (``constant``, ``file``, ``table_of_value``, ``table_of_depth``) followed by ``*factor``
@@ -37,7 +42,12 @@ import numpy as np
 import pandas as pd
 
 from obsprep.exceptions import ConfigError
-from obsprep.model.table import category_masks, reject
+from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
+from obsprep.model.reasons import register_reason
+from obsprep.model.table import add_warning, category_masks, kept, reject
+
+register_reason("implausible_error", "raw error infinite, not positive, or larger than the "
+                "quantity's whole physical range", stage="errors")
 
 BASE_RULES = ("constant", "file", "table")
 TABLE_OF = ("value", "depth")
@@ -153,6 +163,32 @@ def _require_per_quantity(spec, key, quantity_names, what):
             raise ConfigError(key, f"no {what} for quantities {missing} present in the files")
 
 
+def largest_plausible_error(quantity: str) -> float:
+    """The largest raw error (canonical units) ``quantity`` can have: the width of its
+    physical range (infinite for a quantity without one or not declared)."""
+    known = QUANTITIES.get(quantity)
+    if known is None:
+        return float("inf")
+    low, high = known.valid_range
+    return float(high - low)
+
+
+def _warn_of_units(table: pd.DataFrame, masks: dict, missing, implausible, rule_name: str) -> None:
+    """Warn (:func:`obsprep.model.table.add_warning`) when more than
+    :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a quantity's raw errors
+    (rows still kept, with an error) are implausible: the errors' units may be wrong, and the
+    errors that pass may be just as wrong."""
+    live = kept(table) & ~missing
+    for q, mask in masks.items():
+        rows = live & mask
+        n = int(np.count_nonzero(rows))
+        if n and np.count_nonzero(rows & implausible) > SUSPICIOUS_OUT_OF_RANGE_SHARE * n:
+            where = "the file's uncertainty" if rule_name == "file" else "the error rule"
+            add_warning(table, f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the raw errors "
+                               f"of {q} are infinite, not positive or larger than its whole "
+                               f"physical range: the units or scale of {where} may be wrong")
+
+
 def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     """Set ``error`` and ``error_origin`` of ``table`` in place following ``rule``.
 
@@ -170,7 +206,7 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     Returns
     -------
     int
-        Number of rows newly rejected for a missing error.
+        Number of rows newly rejected for a missing or an implausible error.
     """
     n = len(table)
     # masks from the categorical codes: a string per row would cost more than the rule itself
@@ -198,10 +234,15 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
     else:  # the schema prevents this
         raise ConfigError(f"{source_key}.rule", f"unknown error rule '{rule.rule}'")
 
-    # A non-positive or missing base error is invalid input; floor and extra terms must not
-    # disguise it.
-    scaled = sigma * rule.factor
-    bad = ~(np.isfinite(scaled) & (scaled > 0))
+    # A missing, non-positive or impossible base error is invalid input; floor, cap and extra
+    # terms must not disguise it.
+    largest = np.full(n, np.inf)
+    for q, mask in masks.items():
+        largest[mask] = largest_plausible_error(q)
+    with np.errstate(over="ignore", invalid="ignore"):
+        scaled = sigma * rule.factor
+        missing = np.isnan(scaled)
+        implausible = ~missing & ~(np.isfinite(scaled) & (scaled > 0) & (scaled <= largest))
     extra = rule.add_in_quadrature
     terms = []
     if extra is not None:
@@ -209,9 +250,12 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
             for term in _terms(_for_quantity(extra, q)):  # a few terms per quantity
                 terms.append((mask, piecewise_linear_error(term, values[mask], depth[mask])
                               if is_table(term) else np.full(int(mask.sum()), float(term))))
-    sigma = raw_error_from_parts(sigma, rule.factor, terms if extra is not None else None,
-                                 rule.floor, rule.cap)
-    sigma = np.where(bad, np.nan, sigma)
+    with np.errstate(over="ignore", invalid="ignore"):
+        sigma = raw_error_from_parts(sigma, rule.factor, terms if extra is not None else None,
+                                     rule.floor, rule.cap)
+        implausible |= ~missing & ~(np.isfinite(sigma) & (sigma <= largest))
+    sigma = np.where(missing | implausible, np.nan, sigma)
+    _warn_of_units(table, masks, missing, implausible, rule.rule)
     table["error"] = sigma
     labels = {q: origin_label(rule, q) for q in present}
     if len(set(labels.values())) <= 1:
@@ -224,4 +268,4 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
         for q, mask in masks.items():
             codes[mask] = categories.index(labels[q])
         table["error_origin"] = pd.Categorical.from_codes(codes, categories=categories)
-    return reject(table, bad, "missing_error")
+    return reject(table, missing, "missing_error") + reject(table, implausible, "implausible_error")

@@ -10,18 +10,27 @@ import numpy as np
 EARTH_MEAN_RADIUS_M = 6_371_008.8
 
 
+#: the largest longitude magnitude (degrees) taken as a longitude at all: files encode
+#: longitudes in [-180, 180], [0, 360] or, rarely, unwrapped over a second turn; anything
+#: beyond two turns is not a position (common practice)
+PLAUSIBLE_LONGITUDE_DEGREES = 720.0
+
+
 def wrap_longitude(lon):
     """Longitude in degrees wrapped into [-180, 180): ((lon + 180) mod 360) - 180, float64.
 
-    NaN stays NaN and +-inf becomes NaN (a bad position, rejected later as such).
+    NaN stays NaN; +-inf and any ``|lon| >`` :data:`PLAUSIBLE_LONGITUDE_DEGREES` become NaN (a
+    bad position, rejected later as such), so that 1e300 is not wrapped onto some meridian.
     """
     lon = np.asarray(lon, dtype=np.float64)
     if lon.size and -180.0 <= lon.min() and lon.max() < 180.0:  # NaN fails this: the slow way
         return lon  # already in range (the common case): no modulo per value
     with np.errstate(invalid="ignore"):
         wrapped = (lon + 180.0) % 360.0 - 180.0
+        implausible = ~(np.abs(lon) <= PLAUSIBLE_LONGITUDE_DEGREES)
     # (x % 360) can round up to 360 for tiny negative x; keep the half-open interval
-    return np.where(wrapped >= 180.0, wrapped - 360.0, wrapped)
+    wrapped = np.where(wrapped >= 180.0, wrapped - 360.0, wrapped)
+    return np.where(implausible, np.nan, wrapped)
 
 
 def unit_vectors_from_lonlat(lon, lat):

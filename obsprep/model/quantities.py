@@ -127,6 +127,12 @@ QUANTITIES: dict[str, Quantity] = {
     ]
 }
 
+#: share of a file's values (or raw errors) of a quantity beyond its physical range above which
+#: the file gets a warning that its units or scale may be wrong: the ranges are generous, so a
+#: sound product has only rare glitches beyond them, while a wrong unit (percent declared as
+#: "1", centimetres as "m") puts a large part of the values there (common practice)
+SUSPICIOUS_OUT_OF_RANGE_SHARE = 0.10
+
 #: the quantity names in declaration order; a name's position is its code in the group keys
 QUANTITY_NAMES: tuple = tuple(QUANTITIES)
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 REASONS: dict[str, str] = {
     "missing_value": "value is fill/NaN in the file",
     "provider_flag": "rejected by the data provider's quality flag",
-    "missing_error": "no usable error (NaN or not positive) after the error rule",
+    "missing_error": "no raw error: NaN (fill in the file, or no value from the error rule)",
     "bad_position": "latitude/longitude missing or impossible",
     "bad_time": "time missing or impossible",
     "outside_window": "time outside the assimilation window",
@@ -21,8 +21,9 @@ REASONS: dict[str, str] = {
 }
 
 
-#: the stages in the order their reasons are listed (ledger columns follow this order)
-STAGES = ("common", "reader", "qc")
+#: the stages in the order their reasons are listed (ledger columns follow this order):
+#: these common ones, the readers', the quality-control checks', the raw-error rule's
+STAGES = ("common", "reader", "qc", "errors")
 _STAGE_OF = {code: "common" for code in REASONS}
 
 

@@ -9,9 +9,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from obsprep.model.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import REASONS
-from obsprep.model.table import reject
+from obsprep.model.table import add_warning, kept, reject
 from obsprep.qc.check import QcCheck
 
 
@@ -57,13 +57,21 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
 
 def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
     """Reject as ``out_of_range`` the values outside their quantity's physical range narrowed
-    by ``valid_range`` {quantity: [min, max]} (canonical units, inclusive); return the count."""
+    by ``valid_range`` {quantity: [min, max]} (canonical units, inclusive); return the count.
+
+    When more than :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a
+    quantity's values still kept are
+    outside its physical range (not the narrowed one), the table gets a warning
+    (:func:`obsprep.model.table.add_warning`) that the file's units may be wrong: the values
+    inside the range are kept all the same, and may be just as wrong.
+    """
     value = table["value"].to_numpy()
     quantity = table["quantity"]
     if isinstance(quantity.dtype, pd.CategoricalDtype):
         codes, categories = quantity.cat.codes.to_numpy(), list(quantity.cat.categories)
     else:
         codes, categories = pd.factorize(quantity.astype(str).to_numpy())
+    _warn_of_units(table, value, codes, categories)
     # limits per category, then looked up by code (no per-row string work)
     low_of = np.full(len(categories) + 1, -np.inf)
     high_of = np.full(len(categories) + 1, np.inf)
@@ -77,6 +85,27 @@ def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
     low, high = low_of[codes], high_of[codes]   # code -1 (missing) takes the last slot
     with np.errstate(invalid="ignore"):
         return reject(table, (value < low) | (value > high), "out_of_range")
+
+
+def _warn_of_units(table: pd.DataFrame, value: np.ndarray, codes: np.ndarray, categories) -> None:
+    """The warning of :func:`gross_range_check` for each quantity with a suspicious share of
+    values outside its physical range (among its rows still kept)."""
+    live = kept(table)
+    for c, name in enumerate(categories):
+        known = QUANTITIES.get(str(name))
+        if known is None:
+            continue
+        rows = live & (codes == c)
+        n = int(np.count_nonzero(rows))
+        if not n:
+            continue
+        lo, hi = known.valid_range
+        with np.errstate(invalid="ignore"):
+            outside = int(np.count_nonzero(rows & ((value < lo) | (value > hi))))
+        if outside > SUSPICIOUS_OUT_OF_RANGE_SHARE * n:
+            add_warning(table, f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the values of "
+                               f"{name} are outside its physical range [{lo:g}, {hi:g}] "
+                               f"'{known.units}': the file's units or scale may be wrong")
 
 
 def _apply_basic(table: pd.DataFrame, context, settings) -> dict:

@@ -154,8 +154,8 @@ def find_duplicates(tasks) -> dict:
             continue
         try:
             frame = file_identities(task.path, task.source)
-        except InputFileError:
-            continue
+        except (InputFileError, MemoryError):
+            continue  # the file's own read says why, in its ledger entry
         if frame.empty:
             continue
         frame = frame.copy()

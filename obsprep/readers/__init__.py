@@ -132,7 +132,7 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from obsprep.readers.cf import declared_options, open_dataset, reader_options, unreadable_data
+    from obsprep.readers.cf import declared_options, open_dataset, out_of_memory, reader_options, unreadable_data
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -157,11 +157,11 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
     # lazy: a variable is read (once, then cached) when the reader first uses it, so the
     # many variables of a product that obsprep does not need are never read or decoded
     ds = open_dataset(path, profile=profile or None, load=False)
+    whole = ds
     try:
         if auto:
             kind = guess_kind(path, ds)
             parsed = reader_options(readers[kind], declared_options(readers[kind], options))
-        whole = ds
         if row_slice is not None:
             dimension = readers[kind].slice_dimension(ds)
             if dimension is None:
@@ -174,6 +174,8 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
             _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
     except InputFileError:
         raise
+    except MemoryError as exc:  # one file too big for memory is that file's reason
+        raise out_of_memory(path, whole) from exc
     except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
         raise unreadable_data(path, exc) from exc
     finally:

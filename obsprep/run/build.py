@@ -26,7 +26,7 @@ from obsprep.model.quantities import QUANTITIES, QUANTITY_NAMES
 from obsprep.model.table import WARNINGS, kept, reject
 from obsprep.qc import find_duplicates, grid_checks, table_checks
 from obsprep.readers import read, read_parts
-from obsprep.readers.cf import NOT_IN_TABLE
+from obsprep.readers.cf import NOT_IN_TABLE, out_of_memory
 from obsprep.run.execution import FixedTreeReducer, run_tasks
 from obsprep.run.ledger import NO_FILES, UNREADABLE, Ledger, LedgerEntry, entry_from_table, rejected_counts
 from obsprep.run.log import LOGGER, file_log
@@ -158,9 +158,11 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
             results.append(_process_table(cfg, grid, source, path, table, file_index,
                                           sensor_names, size, duplicate_groups))
             del table
-    except InputFileError as exc:
+    except (InputFileError, MemoryError) as exc:
         if strict:
             raise
+        if isinstance(exc, MemoryError):  # one file too big for memory must not end the night
+            exc = out_of_memory(path)
         message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
                                       status=UNREADABLE, message=message, size_bytes=size))

@@ -50,7 +50,8 @@ def test_quadrature_terms_do_not_disguise_a_missing_file_error():
     n = assign_errors(t, ErrorRule("file", add_in_quadrature=0.4))
     assert n == 2
     np.testing.assert_allclose(t["error"].iloc[0], 0.5)    # sqrt(0.3^2 + 0.4^2), 3-4-5 triangle
-    assert list(t["rejected"].iloc[1:]) == ["missing_error", "missing_error"]
+    # NaN: no error at all; 0: an error no measurement has
+    assert list(t["rejected"].iloc[1:]) == ["missing_error", "implausible_error"]
 
 
 def test_origin_labels():

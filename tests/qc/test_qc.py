@@ -301,3 +301,26 @@ def test_reason_order_does_not_depend_on_which_check_module_is_imported_first():
               for m in ("obsprep.qc", "obsprep.qc.duplicates", "obsprep.qc.grid_checks",
                         "obsprep.settings.qc")}
     assert len(orders) == 1 and "near_coast,duplicate" in orders.pop()
+
+
+def test_values_mostly_outside_the_physical_range_warn_of_units():
+    from obsprep.qc import gross_range_check
+
+    # ice concentration in percent declared as "1": 0..100 read as fractions; the range is
+    # -0.25..1.25 (obsprep.model.quantities), so only open water and 1 % pass
+    percent = np.array([0.0, 0.0, 0.0, 1.0, 15.0, 40.0, 80.0, 95.0, 100.0, 100.0])
+    t = make_table(len(percent), quantity="sea_ice_concentration", value=percent)
+    assert gross_range_check(t) == 6
+    assert t.attrs["warnings"] == [
+        "more than 10% of the values of sea_ice_concentration are outside its physical range "
+        "[-0.25, 1.25] '1': the file's units or scale may be wrong"]
+    # one glitch in twenty fractions (5 %): no warning, the value alone rejected
+    fractions = np.linspace(0.0, 1.0, 20)
+    fractions[3] = 15.0
+    t = make_table(20, quantity="sea_ice_concentration", value=fractions)
+    assert gross_range_check(t) == 1
+    assert "warnings" not in t.attrs
+    # a narrowed valid_range rejects more, but only the physical range speaks of units
+    t = make_table(20, quantity="sea_ice_concentration", value=np.linspace(0.0, 1.0, 20))
+    assert gross_range_check(t, {"sea_ice_concentration": [0.0, 0.5]}) == 10
+    assert "warnings" not in t.attrs

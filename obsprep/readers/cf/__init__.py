@@ -12,7 +12,8 @@ Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`;
 One module per topic: :mod:`~obsprep.readers.cf.open`, :mod:`~obsprep.readers.cf.find`,
 :mod:`~obsprep.readers.cf.units`, :mod:`~obsprep.readers.cf.time`,
 :mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.positions`,
-:mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`
+:mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`,
+:mod:`~obsprep.readers.cf.classic` (the size a netCDF-3 header implies)
 and :mod:`~obsprep.readers.cf.table`; their public names are re-exported here so readers
 write ``cf.<name>``.
 """
@@ -34,7 +35,9 @@ from obsprep.readers.cf.flags import (  # noqa: F401
     good_flag_mask,
 )
 from obsprep.readers.cf.open import (  # noqa: F401
+    check_declared_sizes,
     open_dataset,
+    out_of_memory,
     unreadable_data,
 )
 from obsprep.readers.cf.options import (  # noqa: F401
@@ -74,6 +77,7 @@ from obsprep.readers.cf.table import (  # noqa: F401
     variable_units,
 )
 from obsprep.readers.cf.time import (  # noqa: F401
+    add_seconds,
     decode_time,
     decode_time_variable,
     observation_interval,
@@ -100,6 +104,8 @@ __all__ = [
     "reader_options",
     "open_dataset",
     "unreadable_data",
+    "out_of_memory",
+    "check_declared_sizes",
     "find_variable",
     "rows_dimension",
     "require_variable",
@@ -112,6 +118,7 @@ __all__ = [
     "flag_meaning_masks",
     "decode_time",
     "decode_time_variable",
+    "add_seconds",
     "observation_time",
     "observation_interval",
     "PRACTICAL_SALINITY_UNITS",

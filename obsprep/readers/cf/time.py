@@ -45,6 +45,20 @@ def _label_to_datetime64_ns(label) -> np.int64:
     return (stamp + np.timedelta64(label.microsecond, "us")).astype(np.int64)
 
 
+#: the first and one past the last year ``datetime64[ns]`` holds whole (1678-2261)
+_FIRST_YEAR, _END_YEAR = 1678, 2262
+
+
+def _representable_days(epoch: str, calendar: str) -> tuple[float, float]:
+    """Days since ``epoch`` of 1678-01-01 and 2262-01-01 in ``calendar`` (cftime's
+    ``date2num``): whole days outside [first, end) decode to no ``datetime64[ns]``."""
+    import cftime
+
+    bounds = [cftime.datetime(year, 1, 1, calendar=calendar) for year in (_FIRST_YEAR, _END_YEAR)]
+    first, end = cftime.date2num(bounds, f"days since {epoch}", calendar=calendar)
+    return float(first), float(end)
+
+
 def decode_time(values, units: str, calendar: str | None, path, variable=None) -> np.ndarray:
     """Decode CF times ``"<unit> since <epoch>"`` in any CF calendar to UTC ``datetime64[ns]``.
 
@@ -55,7 +69,9 @@ def decode_time(values, units: str, calendar: str | None, path, variable=None) -
 
     Vectorised: values are split into whole days since the epoch and a remainder (s); cftime
     decodes only the distinct days (every CF calendar has 86 400-s days), and the remainder is
-    added in numpy.  NaN gives NaT, as do dates outside 1678-2261 (the ``datetime64[ns]`` range).
+    added in numpy.  NaN gives NaT, as do dates outside 1678-2261 (the ``datetime64[ns]``
+    range): a value beyond it (1e19 s, say) is that row's ``bad_time``, not the file's error, and
+    is never handed to cftime, which cannot represent it.
 
     Parameters
     ----------
@@ -77,20 +93,29 @@ def decode_time(values, units: str, calendar: str | None, path, variable=None) -
         raise InputFileError(path, f"time units '{units}' are not of the CF form "
                                    f"'<unit> since <epoch>'", variable=variable)
     unit, epoch = units.split(" since ", 1)
-    seconds = np.asarray(values, dtype=np.float64) * _seconds_per_unit(unit, path, variable)
-    finite = np.isfinite(seconds)
-    days = np.floor(seconds[finite] / 86400.0)
+    calendar_name = calendar or "standard"
+    with np.errstate(over="ignore", invalid="ignore"):
+        seconds = np.asarray(values, dtype=np.float64) * _seconds_per_unit(unit, path, variable)
+    try:
+        first_day, end_day = _representable_days(epoch, calendar_name)
+    except (ValueError, TypeError, OverflowError) as exc:
+        raise InputFileError(path, f"cannot decode times with units '{units}' and calendar "
+                                   f"'{calendar_name}': {one_line(exc)}",
+                             variable=variable) from exc
+    with np.errstate(invalid="ignore"):
+        all_days = np.floor(seconds / 86400.0)
+        finite = (all_days >= first_day) & (all_days < end_day)  # NaN and inf fail too
+    days = all_days[finite]
     remainder_ns = np.round((seconds[finite] - days * 86400.0) * 1e9).astype(np.int64)
     unique_days, inverse = np.unique(days, return_inverse=True)
     try:
-        labels = cftime.num2date(unique_days, f"days since {epoch}",
-                                 calendar=calendar or "standard",
+        labels = cftime.num2date(unique_days, f"days since {epoch}", calendar=calendar_name,
                                  only_use_cftime_datetimes=True)
         day_ns = np.array([_label_to_datetime64_ns(lab) for lab in np.atleast_1d(labels)],
                           dtype=np.int64)
     except (ValueError, TypeError, OverflowError) as exc:
         raise InputFileError(path, f"cannot decode times with units '{units}' and calendar "
-                                   f"'{calendar or 'standard'}': {one_line(exc)}",
+                                   f"'{calendar_name}': {one_line(exc)}",
                              variable=variable) from exc
     nat = np.datetime64("NaT", "ns").astype(np.int64)
     out = np.full(seconds.shape, nat, dtype=np.int64)
@@ -135,9 +160,27 @@ def observation_time(ds: xr.Dataset, name: str, path) -> np.ndarray:
     if offsets:
         offset = max(offsets, key=lambda t: ds[t].ndim)
         seconds = values_in_units(ds[offset], "s", path)
-        offset_ns = np.round(broadcast_to_variable(seconds, ds[offset].dims, var, path=path) * 1e9)
-        time = time + offset_ns.astype("timedelta64[ns]")  # NaN -> NaT
+        time = add_seconds(time, broadcast_to_variable(seconds, ds[offset].dims, var, path=path))
     return time
+
+
+#: the largest magnitude of a ``datetime64[ns]`` as int64 nanoseconds, with a margin for the
+#: float64 arithmetic of the test (2^63 - 1 is about 9.223e18)
+_LARGEST_NS = 9.2e18
+
+
+def add_seconds(time, seconds) -> np.ndarray:
+    """``time`` (``datetime64[ns]``) plus ``seconds`` (float, broadcast together): NaT where
+    either is missing or the sum is outside the ``datetime64[ns]`` range (a per-pixel offset of
+    1e19 s is that pixel's ``bad_time``, never an integer overflow to some other date)."""
+    time = np.asarray(time, dtype="datetime64[ns]")
+    with np.errstate(over="ignore", invalid="ignore"):
+        offset_ns = np.round(np.asarray(seconds, dtype=np.float64) * 1e9)
+        total = time.view(np.int64).astype(np.float64) + offset_ns
+        valid = ~np.isnat(time) & np.isfinite(total) & (np.abs(total) < _LARGEST_NS)
+    offset = np.where(valid, offset_ns, 0.0).astype(np.int64)
+    summed = time.view(np.int64) + offset
+    return np.where(valid, summed, np.datetime64("NaT", "ns").astype(np.int64)).view("datetime64[ns]")
 
 
 def observation_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:

@@ -178,8 +178,8 @@ class _GhrsstReader(Reader):
         dtime_var = self._pixel(ds, name, "sst_dtime", path)
         if dtime_var is not None:
             seconds = cf.values_in_units(dtime_var, "s", path, default_units="s")
-            offset = np.round(cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path) * 1e9)
-            time = time + offset.astype("timedelta64[ns]")  # NaN -> NaT -> bad_time later
+            # NaN or out of range -> NaT -> bad_time later
+            time = cf.add_seconds(time, cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path))
             used.append("sst_dtime")
         # the reader's own rejections, in this order (a pixel counts under the first)
         rejections = []

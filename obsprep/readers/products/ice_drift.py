@@ -10,6 +10,8 @@ flagged when either is flagged.
 
 from __future__ import annotations
 
+import numpy as np
+
 from obsprep.exceptions import InputFileError
 from obsprep.geo.rotation import projection_axis_angles, projection_to_east_north
 from obsprep.model.quantities import get_quantity
@@ -77,9 +79,13 @@ class IceDriftReader(Reader):
             v = v.replace(quantity=NORTH, values=north, error=sigma[1] if sigma else None,
                           good=good)
         platform = cf.platform_attribute(ds, opts)
+        # a displacement needs both ends of its interval: a missing or unrepresentable bound
+        # (NaT) is a bad time, not a displacement over no interval
+        no_interval = np.isnat(start) | np.isnat(end)
         table = concat_tables([
             cf.observation_table(path, opts, component, lon=lon, lat=lat, time=start,
-                                 time_end=end, platform=platform)
+                                 time_end=end, platform=platform,
+                                 rejections=[(no_interval, "bad_time")])
             for component in (u, v)])
         table.attrs["variables"] = cf.variable_units(
             ds, _used_variables(ds, names[0]) + _used_variables(ds, names[1]))
