@@ -6,7 +6,9 @@ who holds it.  The kernel releases a ``flock`` when its holder dies, however it 
 included), so a killed build never leaves a lock that blocks the next night; the file it leaves
 is only overwritten.  A holder that ends normally removes the file.  Because the file can be
 removed and re-created, the holder checks after locking that the path still names the file it
-locked (else it locked a removed file and tries again).
+locked (else it locked a removed file and tries again).  A process forked while the lock is
+held (the build's worker processes) closes its inherited copy of the descriptor at once, so a
+worker orphaned by a killed build never keeps the lock alive.
 """
 
 from __future__ import annotations
@@ -25,6 +27,22 @@ from obsprep.exceptions import OutputError, OutputLockedError
 
 #: how long a refused build waits for the holder to finish writing its identity (seconds)
 HOLDER_READ_SECONDS = 0.5
+
+#: descriptors of the locks this process holds
+_HELD: set[int] = set()
+
+
+def _close_inherited_locks() -> None:
+    """In a forked child: close the copies of the parent's lock descriptors.  Closing a copy
+    leaves the parent's lock in place (flock(2): a lock is released when every descriptor of
+    the open file is closed, or by an explicit unlock, which the child never does)."""
+    for fd in list(_HELD):
+        with contextlib.suppress(OSError):
+            os.close(fd)
+    _HELD.clear()
+
+
+os.register_at_fork(after_in_child=_close_inherited_locks)
 
 
 def _describe_holder(path: Path) -> str:
@@ -78,6 +96,7 @@ class OutputLock:
                 break
             os.close(fd)  # the holder before us removed the file we locked: lock the new one
         self._fd = fd
+        _HELD.add(fd)
         since = dt.datetime.now(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
         identity = json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "since": since,
                                "run_id": self.run_id})
@@ -87,10 +106,12 @@ class OutputLock:
     def release(self) -> None:
         """Remove the lock file and release the lock (removing first, while still holding it,
         so no other build can be holding the file removed)."""
-        if self._fd is None:
+        if self._fd not in _HELD:  # never taken, released, or a forked child's closed copy
+            self._fd = None
             return
         with contextlib.suppress(FileNotFoundError):
             self.path.unlink()
+        _HELD.discard(self._fd)
         os.close(self._fd)  # closing the last descriptor releases the flock
         self._fd = None
 

@@ -12,6 +12,7 @@ nothing of the killed build runs after it; from memory).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import signal
 import socket
@@ -404,3 +405,56 @@ def test_two_builds_of_one_output_set_the_second_is_refused_and_the_first_comple
     assert sorted(p.name for p in out.iterdir()) == sorted(set_files(STEM))
     published = published_run_id(out, STEM)
     assert published is not None and len(load_run(out).superobs) > 0
+
+
+#: a build with two worker processes that get stuck reading; each worker writes its pid
+ORPHAN_DRIVER = """
+import os, sys, time
+from pathlib import Path
+import obsprep.run.build as build_module
+
+config, markers = sys.argv[1], Path(sys.argv[2])
+
+def stuck(*args, **kwargs):
+    (markers / str(os.getpid())).write_text("reading")
+    time.sleep(300)
+
+build_module.process_file = stuck
+build_module.build(config, jobs=2)
+"""
+
+
+def test_workers_orphaned_by_a_killed_build_do_not_keep_its_lock(tmp_path):
+    """Forked workers inherit the lock's descriptor, and flock(2) keeps a lock while any copy is
+    open; the workers of a killed build must not block the next night."""
+    config = small_night(tmp_path)
+    markers = tmp_path / "workers"
+    markers.mkdir()
+    driver = tmp_path / "orphans.py"
+    driver.write_text(ORPHAN_DRIVER)
+    log = tmp_path / "orphans.log"  # a file, not a pipe: the orphans would hold a pipe open
+    with open(log, "wb") as output:
+        child = subprocess.Popen([sys.executable, str(driver), str(config), str(markers)],
+                                 env=_child_env(), stdout=output, stderr=subprocess.STDOUT)
+    workers = []
+    try:
+        deadline = time.monotonic() + 60
+        while len(list(markers.iterdir())) < 2:
+            assert child.poll() is None, log.read_text()[-2000:]
+            assert time.monotonic() < deadline, "the workers never started"
+            time.sleep(0.05)
+        workers = [int(p.name) for p in markers.iterdir()]
+        assert child.pid not in workers
+        child.send_signal(signal.SIGKILL)
+        child.wait(timeout=30)
+        for pid in workers:
+            os.kill(pid, 0)  # still alive: orphaned, stuck in their file
+        result = build(config)  # not refused by a lock of the dead build
+        assert published_run_id(tmp_path / "out", STEM) == file_run_id(result.outputs["netcdf"])
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.wait(timeout=30)
+        for pid in workers:
+            with contextlib.suppress(ProcessLookupError):
+                os.kill(pid, signal.SIGKILL)
