@@ -61,15 +61,17 @@ def _describe_holder(path: Path) -> str:
 
 
 class OutputLock:
-    """An exclusive lock on ``path`` (``with OutputLock(path, run_id): ...``).
+    """An exclusive lock on ``path`` (``with OutputLock(path, run_id): ...``); ``what`` names
+    what it protects in the refusal.
 
     Raises :class:`~obsprep.exceptions.OutputLockedError` at once, without waiting, when another
     process holds it.
     """
 
-    def __init__(self, path, run_id: str):
+    def __init__(self, path, run_id: str, what: str = ""):
         self.path = Path(path)
         self.run_id = run_id
+        self.what = what or f"the files locked by {self.path}"
         self._fd: int | None = None
 
     def acquire(self) -> None:
@@ -85,7 +87,7 @@ class OutputLock:
                 os.close(fd)
                 if exc.errno in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
                     raise OutputLockedError(
-                        f"the outputs beside {self.path} are being written by another build: "
+                        f"{self.what} is being written by another build: "
                         f"{_describe_holder(self.path)}; lock file {self.path}") from None
                 raise OutputError(f"cannot lock {self.path}: {exc.strerror}") from exc
             try:

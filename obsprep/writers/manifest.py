@@ -140,7 +140,7 @@ def verify_output_set(path) -> Manifest:
         raise OutputSetError(f"{path}: the manifest names no netCDF file")
     for entry in manifest.files:
         file = path.parent / entry.name
-        where = f"output set {path.name}: {entry.name}"
+        where = f"output set {path}: {entry.name}"
         if Path(entry.name).name != entry.name:
             raise OutputSetError(f"{where}: not a file name beside the manifest")
         if not file.is_file():

@@ -117,7 +117,8 @@ class OutputSet:
 
     def __enter__(self) -> OutputSet:
         self._check_directory()
-        lock = OutputLock(self.lock_path, self.run_id)
+        lock = OutputLock(self.lock_path, self.run_id,
+                          what=f"output set {self.stem} in {self.directory}")
         lock.acquire()
         try:
             names = [p.name for p in self._all_paths().values()] + [self.manifest_path.name]
@@ -142,18 +143,26 @@ class OutputSet:
         paths = self.paths()
         ds, encoding = superobs_dataset(superobs, self.cfg, grid, inputs, version, created,
                                         run_id=self.run_id)
-        staged["netcdf"] = temporary_path(paths["netcdf"])
+        writing = paths["netcdf"]
         try:
+            staged["netcdf"] = temporary_path(paths["netcdf"])
             write_netcdf(ds, encoding, staged["netcdf"])
             if "parquet" in paths:
+                writing = paths["parquet"]
                 staged["parquet"] = temporary_path(paths["parquet"])
                 _write_parquet(superobs, staged["parquet"], self.run_id)
+            writing = paths["ledger_csv"]
             staged["ledger_csv"] = temporary_path(paths["ledger_csv"])
             staged["ledger_json"] = temporary_path(paths["ledger_json"])
             ledger.write(staged["ledger_csv"], staged["ledger_json"])
             _add_run_id_to_json(staged["ledger_json"], self.run_id)
-            for tmp in staged.values():
+            for role, tmp in staged.items():
+                writing = paths[role]
                 fsync_file(tmp)
+        except OSError as exc:  # a full disk, a lost mount: say which file, and that nothing changed
+            _remove_all(staged.values())
+            raise OutputError(f"output set {self.stem} in {self.directory}: writing {writing.name} "
+                              f"failed ({exc.strerror or exc}); the previous set is unchanged") from exc
         except BaseException:
             _remove_all(staged.values())
             raise

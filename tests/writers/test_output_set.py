@@ -310,3 +310,29 @@ def test_an_empty_run_is_one_clear_refusal(tmp_path):
     empty.mkdir()
     with pytest.raises(InputFileError, match="no super-observation file"):
         load_run(empty)
+
+
+def test_a_failed_write_names_the_file_and_leaves_the_previous_set(tmp_path, monkeypatch):
+    """A full disk while the Parquet copy is written (ENOSPC, POSIX errno; simulated: the
+    writer raises it after writing part of the file)."""
+    import errno
+
+    import obsprep.writers.outputs as outputs
+
+    config = scenario(tmp_path)
+    build(config)
+    out = tmp_path / "out"
+    before = {name: (out / name).read_bytes() for name in set_files(STEM)}
+
+    def disk_full(superobs, path, run_id):
+        Path(path).write_bytes(b"PAR1 partial")
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC), str(path))
+
+    monkeypatch.setattr(outputs, "_write_parquet", disk_full)
+    with pytest.raises(OutputError) as refused:
+        build(config)
+    message = str(refused.value)
+    assert f"{STEM}.parquet" in message and os.strerror(errno.ENOSPC) in message
+    assert "previous set is unchanged" in message
+    assert {name: (out / name).read_bytes() for name in set_files(STEM)} == before
+    assert sorted(p.name for p in out.iterdir()) == sorted(set_files(STEM))
