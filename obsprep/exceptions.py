@@ -56,3 +56,22 @@ class GridError(ObsprepError, ValueError):
 
 class LedgerError(ObsprepError, RuntimeError):
     """The accounting of raw observations does not balance (a bug, never a user error)."""
+
+
+class OutputError(ObsprepError, RuntimeError):
+    """The outputs of a build cannot be written (an unusable output directory, a value that
+    must not reach a file)."""
+
+
+class OutputLockedError(OutputError):
+    """Another build holds the lock of the same output set; the message says who and since when."""
+
+
+class NonFiniteOutputError(OutputError):
+    """A super-observation value, error, position or time is not finite (or an error not
+    positive): the run fails rather than write it."""
+
+
+class OutputSetError(ObsprepError, ValueError):
+    """A run directory read back is not one complete published output set: no manifest, a file
+    missing, a checksum or a run id that differs from the manifest."""

@@ -1,10 +1,14 @@
 """Reading a build output directory: super-observation files, ledgers, configuration, grid.
 
-A run directory holds ``superobs_*.nc`` (any ``*.nc`` written by ``obsprep build``, recognised by
-its ``featureType = point`` and ``configuration`` attribute) and, beside each, the ledger
-``<stem>_ledger.csv``.  All super-observations become one long table with one row per
-super-observation: ``quantity``, ``sensor``, ``value``, the error parts, position, time and grid
-indices; a ``run`` column names the file.
+A run directory holds one or more output sets of ``obsprep build``, each published by its
+manifest ``<stem>_manifest.json`` naming the netCDF file ``<stem>.nc``, the ledger
+``<stem>_ledger.csv`` (and JSON, Parquet) with their checksums
+(:mod:`obsprep.writers.manifest`).  Every set is verified before anything is read: a file
+missing, a checksum or a run id differing from the manifest, or a super-observation file
+without a manifest (a build interrupted while publishing) is refused with one line.  All
+super-observations become one long table with one row per super-observation: ``quantity``,
+``sensor``, ``value``, the error parts, position, time and grid indices; a ``run`` column names
+the file.
 """
 
 from __future__ import annotations
@@ -16,9 +20,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from obsprep.exceptions import InputFileError
+from obsprep.exceptions import InputFileError, OutputSetError
 from obsprep.model.product import NETCDF_VARIABLES
 from obsprep.model.quantities import QUANTITIES
+from obsprep.writers.manifest import MANIFEST_SUFFIX, manifest_path, verify_output_set
 
 #: per-quantity variables read into the long table (missing ones become NaN, NaT or "")
 READ_VARIABLES = tuple(v for v in NETCDF_VARIABLES if v.suffix)
@@ -117,36 +122,77 @@ def read_superobs_file(path) -> tuple[pd.DataFrame, dict]:
     return frame, attrs
 
 
-def load_run(run_dir) -> RunData:
-    """Read every super-observation file of ``run_dir`` with its ledger.
+def _is_build_output(path: Path) -> bool:
+    """Whether a netCDF file was written by ``obsprep build`` (``featureType = point`` and a
+    ``configuration`` attribute); a file that cannot be opened is refused, naming it."""
+    import netCDF4
 
-    Raises InputFileError when the directory holds no super-observation file.
+    try:
+        with netCDF4.Dataset(path) as ds:
+            names = set(ds.ncattrs())
+            return "configuration" in names and str(ds.getncattr("featureType")) == "point" \
+                if "featureType" in names else False
+    except OSError as exc:
+        raise InputFileError(path, f"cannot open as netCDF ({exc}); not part of a published "
+                                   f"output set (no manifest names it)") from None
+
+
+def published_sets(directory: Path) -> dict:
+    """{netCDF file name: verified manifest} of the output sets in ``directory``.
+
+    Raises OutputSetError when a set is mixed or incomplete, or when a super-observation file
+    has no manifest."""
+    published = {}
+    for path in sorted(directory.glob(f"*{MANIFEST_SUFFIX}")):
+        manifest = verify_output_set(path)
+        published[manifest.by_role("netcdf").name] = manifest
+    for path in sorted(directory.glob("*.nc")):
+        if path.name not in published and _is_build_output(path):
+            raise OutputSetError(
+                f"{path}: no manifest ({manifest_path(directory, path.stem).name}) publishes this "
+                f"file, so it is not a complete output set (a build interrupted while writing?); "
+                f"run the build again")
+    return published
+
+
+def load_run(run_dir) -> RunData:
+    """Read every published output set of ``run_dir``: super-observations and ledgers.
+
+    Raises OutputSetError when a set is mixed or incomplete (:func:`published_sets`), and
+    InputFileError when the directory holds no super-observation file or no super-observation
+    at all (an empty night: nothing to audit).
     """
     directory = Path(run_dir)
     if not directory.is_dir():
         raise InputFileError(directory, "not a directory; expected a build output directory")
     frames, ledgers, files = [], [], []
     configuration, configuration_file = {}, ""
-    for path in sorted(directory.glob("*.nc")):
+    for name, manifest in published_sets(directory).items():
+        path = directory / name
         frame, attrs = read_superobs_file(path)
-        if attrs.get("featureType") != "point" or "configuration" not in attrs:
-            continue
         frame["run"] = path.name
         frames.append(frame)
         files.append(path)
         configuration = json.loads(attrs["configuration"])
         configuration_file = str(attrs.get("configuration_file", ""))
-        ledger_path = path.with_name(f"{path.stem}_ledger.csv")
-        if ledger_path.exists():
-            ledger = pd.read_csv(ledger_path)
+        ledger_file = manifest.by_role("ledger_csv")
+        if ledger_file is not None:
+            ledger = pd.read_csv(directory / ledger_file.name)
             ledger["run"] = path.name
             ledgers.append(ledger)
     if not frames:
         raise InputFileError(directory, "no super-observation file (*.nc written by obsprep "
-                                        "build) in this directory")
+                                        "build, with its manifest) in this directory")
     superobs = pd.concat(frames, ignore_index=True)
     ledger = pd.concat(ledgers, ignore_index=True) if ledgers else pd.DataFrame(
         columns=["file", "sensor", "read", "kept"])
+    if superobs.empty:
+        kept = int(pd.to_numeric(ledger.get("kept"), errors="coerce").fillna(0).sum()) \
+            if "kept" in ledger else 0
+        raise InputFileError(directory, f"the run has no super-observations "
+                                        f"({', '.join(p.name for p in files)}: empty; the ledger "
+                                        f"lists {len(ledger)} input file entries with {kept} "
+                                        f"observations kept); nothing to audit")
     return RunData(directory=directory, superobs=superobs, ledger=ledger,
                    configuration=configuration, configuration_file=configuration_file,
                    files=files)

@@ -27,6 +27,9 @@ from obsprep.cli.options import library_errors
 def audit_command(run_dir, ensemble, background, analysis, out, tolerance, config, no_figures):
     """Audit the observation errors of the build output in RUN_DIR and write a report.
 
+    Every output set in RUN_DIR is verified against its manifest first: a mixed or incomplete
+    set, or a run without super-observations, is refused with one line.
+
     Example: obsprep audit demo-run/out --ensemble demo-run/ensemble/ensemble_20261120.nc
     """
     from obsprep.audit import audit

@@ -39,6 +39,10 @@ class OutputVariable:
     error_part: written only when the table carries the spread-based error parts.
     flag_values: fixed CF flags, meaning -> code; ``flags_from_labels``: CF flags made from the
         text labels of the column (codes 0.. in sorted label order, meanings as CF words).
+    undefined_as_nan: NaN where the statistic is undefined (a spread of one value); every other
+        float or time column must be finite where it applies before anything is written
+        (:func:`obsprep.writers.finite.check_finite`).
+    positive: must also be greater than zero (the total error).
     """
 
     column: str
@@ -53,6 +57,8 @@ class OutputVariable:
     error_part: bool = False
     flag_values: Mapping[str, int] | None = None
     flags_from_labels: bool = False
+    undefined_as_nan: bool = False
+    positive: bool = False
 
     def variable_name(self, quantity: str) -> str:
         """The netCDF variable name of this column for ``quantity``."""
@@ -92,23 +98,24 @@ OUTPUT_VARIABLES: tuple[OutputVariable, ...] = (
     OutputVariable("error", "error", "float64",
                    "total super-observation error (1-sigma): max(floor, sqrt(observation part^2 + "
                    "representation^2)), the observation part being the instrument or the spread "
-                   "part (see error_basis)", _Q, "{standard_name} standard_error"),
+                   "part (see error_basis)", _Q, "{standard_name} standard_error", positive=True),
     OutputVariable("error_instrument", "error_instrument", "float64",
                    "instrument part of the super-observation error (1-sigma), from the raw errors "
                    "and the within-sensor correlation", _Q),
     OutputVariable("error_representation", "error_representation", "float64",
                    "representation error added in quadrature (1-sigma)", _Q),
     OutputVariable("spread", "spread", "float64",
-                   "sample standard deviation of the raw values in the group (ddof=1)", _Q),
+                   "sample standard deviation of the raw values in the group (ddof=1)", _Q,
+                   undefined_as_nan=True),
     OutputVariable("error_spread", "error_spread", "float64",
                    "spread-based error (1-sigma): spread * sqrt((1 + (n-1) rho) / (n (1 - rho))); "
-                   "NaN for n < 2", _Q, error_part=True),
+                   "NaN for n < 2", _Q, error_part=True, undefined_as_nan=True),
     OutputVariable("error_raw_rms", "error_raw_rms", "float64",
                    "root mean square of the assigned raw errors in the group, sqrt(sum sigma_i^2 / n)",
                    _Q, error_part=True),
     OutputVariable("spread_detrended", "spread_detrended", "float64",
                    "standard deviation of the raw values about a straight line in depth (ddof=2)",
-                   _Q, only_for="profile", error_part=True),
+                   _Q, only_for="profile", error_part=True, undefined_as_nan=True),
     OutputVariable("error_basis", "error_basis", "int8", "which term set the total error", "1",
                    error_part=True, flag_values=ERROR_BASIS),
     OutputVariable("error_origin", "error_origin", "int8",

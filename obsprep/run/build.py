@@ -379,14 +379,14 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
 
     started = dt.datetime.now(dt.UTC)
     cfg = load_config(config, date)
-    grid = grid_from_config(cfg.grid, cfg.base_dir)
     sensor_names = output_sensors(cfg)
     days = cfg.window.days()
-    # the output directory is prepared (and held) before any input is read
+    # the output directory is prepared (and held) before any input, the grid too, is read
     with OutputSet(cfg, out) as output_set, \
             file_log(output_set.directory / f"{output_set.stem}{LOG_SUFFIX}") as log_path:
+        grid = grid_from_config(cfg.grid, cfg.base_dir)
         run_warnings = [f"removed a temporary file left by an earlier run: {p}"
-                        for p in getattr(output_set, "removed_stale", [])]
+                        for p in output_set.removed_stale]
         tasks, no_files = [], {}
         for source in cfg.sources:
             files, unmatched = source.find_files(cfg.base_dir, days)

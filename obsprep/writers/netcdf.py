@@ -24,8 +24,9 @@ def _iso(t) -> str:
     return str(np.datetime64(t, "s")) + "Z"
 
 
-def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.Dataset:
-    """Build the xarray Dataset of the super-observation file."""
+def superobs_dataset(superobs, cfg, grid, inputs, version: str, created, run_id: str = "") -> xr.Dataset:
+    """Build the xarray Dataset of the super-observation file; ``run_id`` is the id of the
+    output set it belongs to (:mod:`obsprep.writers.manifest`)."""
     analysis = _iso(cfg.window.analysis_time)
     time_units = f"seconds since {analysis[:-1].replace('T', ' ')}"
     data_vars, encoding = {}, {}
@@ -65,6 +66,7 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created) -> xr.D
         "source": f"obsprep {version}",
         "history": f"{_iso(np.datetime64(created.replace(tzinfo=None)))} obsprep {version} build",
         "software_version": version,
+        "run_id": run_id,
         "analysis_time": analysis,
         "window_start": _iso(cfg.window.start),
         "window_end": _iso(cfg.window.end),
