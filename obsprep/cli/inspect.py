@@ -3,14 +3,29 @@
 from __future__ import annotations
 
 import click
+import pandas as pd
 
 from obsprep.cli.options import library_errors
 from obsprep.model.table import WARNINGS
 
 
+def file_warnings(table) -> list[str]:
+    """The file's warnings as the build's ledger entry would carry them from reading and the
+    physical-range check (:func:`obsprep.qc.basic.gross_range_check`, whose rejections are
+    not shown here: inspect shows the reader's verdicts), without changing ``table``."""
+    from obsprep.qc.basic import gross_range_check
+
+    probe = pd.DataFrame({c: table[c] for c in ("value", "quantity", "rejected")})
+    probe.attrs = {}
+    gross_range_check(probe)
+    return list(dict.fromkeys(list(table.attrs.get(WARNINGS, []))
+                              + list(probe.attrs.get(WARNINGS, []))))
+
+
 def describe_table(path, table) -> list[str]:
     """Lines describing one read file: kind, variables and units, quantities, time range,
-    counts kept and rejected per reason (reader verdicts only; the build adds its checks)."""
+    counts kept and rejected per reason (reader verdicts only; the build adds its checks), and
+    the file's warnings (:func:`file_warnings`)."""
     lines = [f"{path}", f"  kind: {table.attrs.get('kind', '?')}"]
     variables = table.attrs.get("variables", {})
     if variables:
@@ -28,7 +43,7 @@ def describe_table(path, table) -> list[str]:
     rejected = rejected[rejected > 0]
     lines.append(f"  rows: {len(table)}, valid {int(table['rejected'].isna().sum())}, rejected "
                  + (", ".join(f"{r} {n}" for r, n in rejected.items()) if len(rejected) else "0"))
-    lines.extend(f"  warning: {message}" for message in table.attrs.get(WARNINGS, []))
+    lines.extend(f"  warning: {message}" for message in file_warnings(table))
     return lines
 
 
