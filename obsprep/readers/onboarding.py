@@ -64,6 +64,10 @@ LONGITUDE_UNITS = ("degrees_east", "degree_east", "degree_e", "degrees_e", "degr
 PRESSURE_UNITS = ("dbar", "decibar", "decibars", "dbars")
 
 
+#: endings of a guess's reason that call for units set in [sources.reader.attributes]
+_FIX_UNITS = ("no units in the file", "fix them")
+
+
 @dataclass(frozen=True)
 class Candidate:
     """One variable of the file as onboarding shows it."""
@@ -202,12 +206,20 @@ def _quantity_guesses(candidates, coordinates) -> dict[str, Guess]:
             if c.name in used or c.flag_meanings or not c.dimensions:
                 continue
             score = _name_score(c, quantity)
-            if score is None or (c.units and not _units_fit(c.units, quantity.units)):
+            if score is None:
                 continue
-            why = score[1] + (f" and units {c.units}" if c.units else ", but no units in the file")
-            scored.append((-score[0], index, Guess(quantity.name, c.name, why)))
+            fits = not c.units or _units_fit(c.units, quantity.units)
+            if not fits and score[0] < 2:
+                continue  # units of something else, and only the long_name says otherwise
+            if not c.units:
+                why = score[1] + ", but " + _FIX_UNITS[0]
+            elif fits:
+                why = f"{score[1]} and units {c.units}"
+            else:
+                why = f"{score[1]}, but units '{c.units}' are not {quantity.units}: " + _FIX_UNITS[1]
+            scored.append((not fits, -score[0], index, Guess(quantity.name, c.name, why)))
         if scored:
-            best = min(scored, key=lambda item: item[:2])[2]
+            best = min(scored, key=lambda item: item[:3])[3]
             guesses[quantity.name] = best
             used.add(best.variable)
     if not guesses:
@@ -229,18 +241,23 @@ def _ancillary_guesses(ds, candidates, quantities) -> dict[str, Guess]:
         data = by_name[data_guess.variable]
         listed = str(ds[data.name].attrs.get("ancillary_variables", "")).split()
         related = [by_name[n] for n in listed if n in by_name]
+        # named after the data: its whole name, or its first word ("sst_err" of "sst_foo")
+        first_word = _words(data.name).split()[0] if _words(data.name).strip() else ""
         named_after = [c for c in candidates if c.name != data.name
-                       and _words(data.name) in _words(c.name)]
+                       and (_words(data.name) in _words(c.name)
+                            or _words(c.name).startswith(f" {first_word} "))]
         for kind, words in (("error", ERROR_WORDS), ("flag", FLAG_WORDS)):
             role = f"{quantity_name}_{kind}"
             for c in related + named_after:
                 if c.name in taken or set(c.dimensions) - set(data.dimensions):
                     continue
                 if kind == "error":
-                    fits = (not c.flag_meanings and c.units and data.units
-                            and _units_fit(c.units, data.units)
+                    # same units as the data, or its quantity's where the data's are broken
+                    fits = (not c.flag_meanings and c.units
+                            and (_units_fit(c.units, data.units or "?")
+                                 or _units_fit(c.units, QUANTITIES[quantity_name].units))
                             and (c in related or _says(c, words)))
-                    why = f"units {c.units} like {data.name}"
+                    why = f"units {c.units}"
                 else:
                     fits = bool(c.flag_meanings) and (c in related or _says(c, words))
                     meanings = c.flag_meanings.split()
@@ -289,9 +306,9 @@ def profile_snippet(ds: xr.Dataset, path) -> str:
         else:
             line = f"{g.role} = {json.dumps(g.variable)}"
             lines.append(f"{line:<{width}}  # CHECK: {g.why}")
-    no_units = [g.variable for g in guesses if g.variable and "no units" in g.why]
-    if no_units:
+    units_to_fix = [g for g in guesses if g.variable and g.why.endswith(_FIX_UNITS)]
+    if units_to_fix:
         lines.append("[sources.reader.attributes]")
-        lines.extend(f"# {json.dumps(name)} = {{ units = \"?\" }}  # CHECK: the file gives no "
-                     "units" for name in no_units)
+        lines.extend(f"# {json.dumps(g.variable)} = {{ units = \"?\" }}  # CHECK: {g.why}"
+                     for g in units_to_fix)
     return "\n".join(lines) + "\n"

@@ -1,0 +1,167 @@
+"""Onboarding: the reader profile guessed for a file no reader claims parses as TOML, names the
+roles the file's metadata supports, and with it the file reads.
+
+The files are written here without standard names, so no reader claims them (checked first);
+the roles expected follow from how each variable was written: CF 1.8 sections 4.1/4.2
+(latitude and longitude units), 4.4 (time units "<unit> since <epoch>"), 3.5 (flag_values,
+flag_meanings), and decibar for sea pressure (common practice).  Values read are compared
+with the file read by netCDF4 directly (masking by hand)."""
+
+from __future__ import annotations
+
+import tomllib
+
+import netCDF4
+import numpy as np
+import pytest
+from sample_files import var, write_nc
+
+from obsprep.exceptions import NoReaderError
+from obsprep.readers import guess_kind, read
+from obsprep.readers.cf import open_dataset
+from obsprep.readers.onboarding import candidate_variables, guess_profile_roles, profile_snippet
+
+SST = np.array([[[10.0, 11.0, 12.0], [13.0, 14.0, np.nan]]])
+QC = np.array([[[0, 0, 1], [0, 2, 0]]], dtype=np.int8)
+
+
+def unclaimed_grid(path):
+    """A gridded SST in degrees Celsius with its uncertainty (kelvin) and a QC flag, but no
+    standard_name anywhere: coordinates recognisable only from their units."""
+    return write_nc(path, {"t": 1, "row": 2, "col": 3}, {
+        "obs_time": var(("t",), [1.3e9], units="seconds since 1981-01-01 00:00:00"),
+        "y_lat": var(("row",), [50.0, 51.0], units="degrees_north"),
+        "x_lon": var(("col",), [0.0, 1.0, 2.0], units="degrees_east"),
+        "surface_temp": var(("t", "row", "col"), SST, fill=-999.0, units="degree_Celsius",
+                            long_name="sea surface temperature"),
+        "surface_temp_err": var(("t", "row", "col"), np.full((1, 2, 3), 0.3), units="K",
+                                long_name="uncertainty"),
+        "surface_temp_qc": var(("t", "row", "col"), QC, dtype="i1",
+                               flag_values=np.array([0, 1, 2], dtype=np.int8),
+                               flag_meanings="good suspect bad"),
+        "wind": var(("t", "row", "col"), np.full((1, 2, 3), 5.0), units="m s-1",
+                    long_name="wind speed"),
+    })
+
+
+def unclaimed_profiles(path):
+    """Two CTD profiles (CF orthogonal multidimensional layout, featureType profile) whose
+    variables carry units and long names but no standard_name."""
+    return write_nc(path, {"profile": 2, "level": 3}, {
+        "TIME": var(("profile",), [27000.0, 27000.5], units="days since 1950-01-01 00:00:00"),
+        "LATITUDE": var(("profile",), [-60.0, -61.0], units="degrees_north"),
+        "LONGITUDE": var(("profile",), [-30.0, -31.0], units="degrees_east"),
+        "PRES": var(("profile", "level"), [[5.0, 50.0, 100.0], [5.0, 50.0, 100.0]],
+                    units="dbar"),
+        "TEMP": var(("profile", "level"), [[1.0, 0.5, 0.2], [1.5, 0.8, 0.1]],
+                    units="degree_Celsius", long_name="sea temperature"),
+        "PSAL": var(("profile", "level"), [[34.1, 34.3, 34.6], [34.0, 34.2, 34.5]],
+                    units="psu", long_name="practical salinity"),
+    }, featureType="profile")
+
+
+def roles(path):
+    ds = open_dataset(path, load=False)
+    try:
+        return {g.role: g.variable for g in guess_profile_roles(ds)}, profile_snippet(ds, path)
+    finally:
+        ds.close()
+
+
+def test_candidates_list_every_numeric_variable_with_its_metadata(tmp_path):
+    path = unclaimed_grid(tmp_path / "grid.nc")
+    ds = open_dataset(path, load=False)
+    candidates = {c.name: c for c in candidate_variables(ds)}
+    ds.close()
+    assert list(candidates) == ["obs_time", "y_lat", "x_lon", "surface_temp", "surface_temp_err",
+                                "surface_temp_qc", "wind"]
+    c = candidates["surface_temp"]
+    assert (c.units, c.long_name, c.dimensions, c.standard_name) == (
+        "degree_Celsius", "sea surface temperature", ("t", "row", "col"), "")
+    assert candidates["surface_temp_qc"].flag_meanings == "good suspect bad"
+
+
+def test_guessed_profile_of_an_unclaimed_grid_parses_and_reads_the_file(tmp_path):
+    path = unclaimed_grid(tmp_path / "grid.nc")
+    with pytest.raises(NoReaderError):
+        guess_kind(path)  # the control: unclaimed as written
+    guessed, snippet = roles(path)
+    assert guessed == {
+        "sea_surface_temperature": "surface_temp",
+        "sea_surface_temperature_error": "surface_temp_err",  # named after it, same dimension
+        "sea_surface_temperature_flag": "surface_temp_qc",     # flag_meanings (CF 3.5)
+        "latitude": "y_lat", "longitude": "x_lon", "time": "obs_time",
+    }
+    profile = tomllib.loads(snippet)["sources"]["reader"]
+    assert profile == {"variables": guessed}
+    for line in snippet.splitlines():
+        assert line.startswith("#") or line.startswith("[") or "# CHECK:" in line, line
+
+    table = read(path, reader_profile=profile)
+    assert table.attrs["kind"] == "sst_grid"
+    # reference: the file read by netCDF4, fill masked by netCDF4 itself; flag meaning "good"
+    # kept (CF 3.5: flag_values[i] means flag_meanings[i])
+    with netCDF4.Dataset(path) as nc:
+        sst = nc["surface_temp"][:].ravel()
+        qc = nc["surface_temp_qc"][:].ravel()
+        good_value = nc["surface_temp_qc"].flag_values[
+            nc["surface_temp_qc"].flag_meanings.split().index("good")]
+    expected_kept = (~np.ma.getmaskarray(sst)) & (qc == good_value)
+    kept = table["rejected"].isna().to_numpy()
+    assert np.array_equal(kept, expected_kept)
+    # degree_Celsius is degC (udunits), so the values are the file's
+    np.testing.assert_allclose(table["value"].to_numpy()[kept], sst.data[expected_kept])
+    # a 0.3 K difference is 0.3 degC (SI Brochure: a temperature interval of 1 K equals 1 degC)
+    np.testing.assert_allclose(table["error"].to_numpy()[kept], 0.3)
+
+
+def test_guessed_profile_of_unclaimed_profiles_reads_them(tmp_path):
+    path = unclaimed_profiles(tmp_path / "ctd.nc")
+    with pytest.raises(NoReaderError):
+        guess_kind(path)
+    guessed, snippet = roles(path)
+    assert guessed == {"sea_water_temperature": "TEMP", "sea_water_salinity": "PSAL",
+                       "latitude": "LATITUDE", "longitude": "LONGITUDE", "time": "TIME",
+                       "sea_water_pressure": "PRES"}
+    profile = tomllib.loads(snippet)["sources"]["reader"]
+    table = read(path, reader_profile=profile)
+    assert table.attrs["kind"] == "profiles"
+    with netCDF4.Dataset(path) as nc:
+        temp, psal = nc["TEMP"][:], nc["PSAL"][:]
+    by_quantity = table.groupby("quantity", observed=True)["value"]
+    np.testing.assert_allclose(np.sort(by_quantity.get_group("sea_water_temperature")),
+                               np.sort(temp.ravel()))
+    # psu is practical salinity on the PSS-78 scale, canonical "1" (PSS-78: unitless)
+    np.testing.assert_allclose(np.sort(by_quantity.get_group("sea_water_salinity")),
+                               np.sort(psal.ravel()))
+
+
+def test_roles_with_no_candidate_are_commented_out_and_the_snippet_still_parses(tmp_path):
+    # no time and a quantity without units: the snippet says so and still parses
+    path = write_nc(tmp_path / "bare.nc", {"n": 3}, {
+        "lat": var(("n",), [1.0, 2.0, 3.0], units="degrees_north"),
+        "lon": var(("n",), [1.0, 2.0, 3.0], units="degrees_east"),
+        "sla": var(("n",), [0.1, 0.2, 0.3], long_name="sea level anomaly"),
+    })
+    guessed, snippet = roles(path)
+    assert guessed["time"] is None and guessed["sea_level_anomaly"] == "sla"
+    assert '# time = "?"  # CHECK: no candidate found' in snippet
+    assert "no units in the file" in snippet
+    assert '# "sla" = { units = "?" }' in snippet  # the attribute to fill in, commented out
+    assert tomllib.loads(snippet)["sources"]["reader"]["variables"] == {
+        "sea_level_anomaly": "sla", "latitude": "lat", "longitude": "lon"}
+
+
+def test_names_that_only_mention_a_quantity_lose_to_names_that_are_it(tmp_path):
+    # a deviation from a climatology in kelvin mentions SST in its long_name only; the
+    # variable named after the quantity wins, whatever the order in the file
+    path = write_nc(tmp_path / "two.nc", {"y": 2, "x": 2}, {
+        "lat": var(("y", "x"), [[1.0, 1.0], [2.0, 2.0]], units="degrees_north"),
+        "lon": var(("y", "x"), [[1.0, 2.0], [1.0, 2.0]], units="degrees_east"),
+        "dt_analysis": var(("y", "x"), np.zeros((2, 2)), units="kelvin",
+                           long_name="deviation from sst reference climatology"),
+        "sea_surface_temperature": var(("y", "x"), np.full((2, 2), 290.0), units="kelvin",
+                                       long_name="sea water temperature at 1 meter depth"),
+    })
+    guessed, _ = roles(path)
+    assert guessed["sea_surface_temperature"] == "sea_surface_temperature"
