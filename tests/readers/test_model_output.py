@@ -9,7 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from sample_files import read_checked, sst_grid_file, var, write_nc
+from onboarding_files import sst_grid_with
+from sample_files import read_checked, sst_grid_file, var
 
 from obsprep.demo.ensemble import write_ensemble
 from obsprep.demo.scenario import _Scenario
@@ -18,23 +19,6 @@ from obsprep.readers import guess_kind, read
 from obsprep.readers.model_output import model_output_signs
 
 KELVIN = np.full(6, 290.0)
-
-
-def sst_grid_with(path, *, dims=None, extra=None, sst_attrs=None, **global_attrs):
-    """An SST grid on (time, lat, lon), with an optional leading dimension ``dims`` of the SST
-    variable, extra variables and attributes."""
-    lead = dict(dims or {})
-    shape = tuple(lead.values()) + (1, 2, 3)
-    variables = {
-        "time": var(("time",), [1.3e9], standard_name="time",
-                    units="seconds since 1981-01-01 00:00:00"),
-        "lat": var(("lat",), [50.0, 51.0], standard_name="latitude", units="degrees_north"),
-        "lon": var(("lon",), [0.0, 1.0, 2.0], standard_name="longitude", units="degrees_east"),
-        "sst": var(tuple(lead) + ("time", "lat", "lon"), np.full(shape, 290.0), fill=-999.0,
-                   standard_name="sea_surface_temperature", units="K", **(sst_attrs or {})),
-    }
-    variables.update(extra or {})
-    return write_nc(path, {**lead, "time": 1, "lat": 2, "lon": 3}, variables, **global_attrs)
 
 
 def test_control_the_plain_grid_is_observations(tmp_path):
