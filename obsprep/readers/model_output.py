@@ -42,7 +42,7 @@ from obsprep.exceptions import NotObservationsError
 ENSEMBLE_DIMENSION_NAMES = ("member", "members", "ensemble", "realization", "realisation", "ens",
                             "mem")
 #: prefixes of ensemble dimension names (``ens`` and ``mem`` only as whole names: too short)
-_ENSEMBLE_PREFIXES = ("member", "ensemble", "realization", "realisation")
+ENSEMBLE_PREFIXES = ("member", "ensemble", "realization", "realisation")
 #: CF standard names that only model output carries (CF standard name table)
 MODEL_STANDARD_NAMES = {
     "realization": "ensemble realization",
@@ -60,7 +60,7 @@ MODEL_GLOBAL_ATTRIBUTES = ("realization_index",)
 
 def _is_ensemble_dimension(name: str) -> bool:
     lowered = str(name).lower()
-    return lowered in ENSEMBLE_DIMENSION_NAMES or lowered.startswith(_ENSEMBLE_PREFIXES)
+    return lowered in ENSEMBLE_DIMENSION_NAMES or lowered.startswith(ENSEMBLE_PREFIXES)
 
 
 def model_output_signs(ds: xr.Dataset) -> list[str]:
