@@ -78,6 +78,7 @@ class Candidate:
     dimensions: tuple
     standard_name: str
     flag_meanings: str = ""
+    shape: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -103,7 +104,8 @@ def candidate_variables(ds: xr.Dataset) -> list[Candidate]:
             name=str(name), units=str(attrs.get("units", "")).strip(),
             long_name=str(attrs.get("long_name", "")).strip(), dimensions=tuple(variable.dims),
             standard_name=str(attrs.get("standard_name", "")).strip(),
-            flag_meanings=str(attrs.get("flag_meanings", "")).strip()))
+            flag_meanings=str(attrs.get("flag_meanings", "")).strip(),
+            shape=tuple(int(n) for n in variable.shape)))
     return candidates
 
 
@@ -133,19 +135,24 @@ def _units_fit(units: str, canonical: str) -> bool:
 
 
 def _coordinate_guesses(candidates: list[Candidate]) -> dict[str, Guess]:
+    """Coordinate roles: by standard_name, then by units, then by common names."""
     guesses = {}
+
+    def units_in(accepted):
+        return lambda c: f"units {c.units}" if c.units.lower() in accepted else None
+
     rules = {
-        "latitude": lambda c: c.units.lower() in LATITUDE_UNITS and "units " + c.units,
-        "longitude": lambda c: c.units.lower() in LONGITUDE_UNITS and "units " + c.units,
-        "time": lambda c: " since " in f" {c.units.lower()} " and f"units '{c.units}'",
-        "sea_water_pressure": lambda c: c.units.lower() in PRESSURE_UNITS and "units " + c.units,
-        "depth": lambda c: False,  # metres alone do not make a depth: standard_name or name
+        "latitude": units_in(LATITUDE_UNITS),
+        "longitude": units_in(LONGITUDE_UNITS),
+        "time": lambda c: f"units '{c.units}'" if " since " in f" {c.units.lower()} " else None,
+        "sea_water_pressure": units_in(PRESSURE_UNITS),
+        "depth": lambda c: None,  # metres alone do not make a depth: standard_name or name
     }
     for role, rule in rules.items():
         found = next((Guess(role, c.name, f"standard_name {role}") for c in candidates
                       if c.standard_name == role), None)
         if found is None:
-            by_units = [c for c in candidates if rule(c)]
+            by_units = [c for c in candidates if rule(c) is not None]
             # several times (a reference time and per-pixel times): the one with most dims
             by_units.sort(key=lambda c: -len(c.dimensions))
             if by_units:
@@ -164,7 +171,7 @@ def _is_profile_file(candidates, coordinates) -> bool:
     than one level (a profile), so that temperature is sea-water, not surface, temperature."""
     vertical = [coordinates[r].variable for r in ("depth", "sea_water_pressure")
                 if r in coordinates]
-    return any(c.name in vertical and c.dimensions for c in candidates)
+    return any(c.name in vertical and any(n > 1 for n in c.shape) for c in candidates)
 
 
 def _name_score(candidate: Candidate, quantity) -> tuple[int, str] | None:
