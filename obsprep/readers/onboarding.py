@@ -45,8 +45,8 @@ NAME_HINTS: dict[str, tuple[str, ...]] = {
     "sea_water_salinity": ("psal", "sal", "salinity", "practical salinity", "s"),
 }
 #: words that make a variable an error (uncertainty) of another (common practice)
-ERROR_WORDS = ("err", "error", "uncertainty", "std", "sd", "sigma", "stddev", "standard error",
-               "standard deviation")
+ERROR_WORDS = ("err", "error", "uncertainty", "std", "sd", "sigma", "stddev", "stdev",
+               "standard error", "standard deviation")
 #: words that make a variable a quality flag of another (common practice)
 FLAG_WORDS = ("qc", "flag", "flags", "quality", "status", "mask")
 #: common names of coordinates (lower case), after the standard_name, units and axis rules
@@ -134,9 +134,11 @@ def _units_fit(units: str, canonical: str) -> bool:
     return True
 
 
-def _coordinate_guesses(candidates: list[Candidate]) -> dict[str, Guess]:
-    """Coordinate roles: by standard_name, then by units, then by common names."""
-    guesses = {}
+def _coordinate_guesses(candidates: list[Candidate], data_dimensions=()) -> dict[str, Guess]:
+    """Coordinate roles: by standard_name, then by units, then by common names.  Among several
+    of one rule (1 Hz and 20 Hz times, a reference time and per-pixel times), the one whose
+    dimensions are all the data's (``data_dimensions``), then the one with most dimensions."""
+    data_dimensions = set(data_dimensions)
 
     def units_in(accepted):
         return lambda c: f"units {c.units}" if c.units.lower() in accepted else None
@@ -147,22 +149,29 @@ def _coordinate_guesses(candidates: list[Candidate]) -> dict[str, Guess]:
         "time": lambda c: f"units '{c.units}'" if " since " in f" {c.units.lower()} " else None,
         "sea_water_pressure": units_in(PRESSURE_UNITS),
         "depth": lambda c: None,  # metres alone do not make a depth: standard_name or name
+        "projection_x_coordinate": lambda c: None,  # by standard_name only
+        "projection_y_coordinate": lambda c: None,
     }
+
+    def best(matches):
+        matches = sorted(matches, key=lambda c: (
+            bool(data_dimensions) and not set(c.dimensions) <= data_dimensions,
+            -len(c.dimensions)))
+        return matches[0] if matches else None
+
+    guesses = {}
     for role, rule in rules.items():
-        found = next((Guess(role, c.name, f"standard_name {role}") for c in candidates
-                      if c.standard_name == role), None)
-        if found is None:
-            by_units = [c for c in candidates if rule(c) is not None]
-            # several times (a reference time and per-pixel times): the one with most dims
-            by_units.sort(key=lambda c: -len(c.dimensions))
-            if by_units:
-                found = Guess(role, by_units[0].name, str(rule(by_units[0])))
-        if found is None:
-            named = [c for c in candidates if c.name.lower() in COORDINATE_NAMES[role]]
-            if named:
-                found = Guess(role, named[0].name, f"name '{named[0].name}'")
-        if found is not None:
-            guesses[role] = found
+        levels = (
+            ([c for c in candidates if c.standard_name == role], lambda c: f"standard_name {role}"),
+            ([c for c in candidates if rule(c) is not None], rule),
+            ([c for c in candidates if c.name.lower() in COORDINATE_NAMES.get(role, ())],
+             lambda c: f"name '{c.name}'"),
+        )
+        for matches, why in levels:
+            chosen = best(matches)
+            if chosen is not None:
+                guesses[role] = Guess(role, chosen.name, str(why(chosen)))
+                break
     return guesses
 
 
@@ -260,13 +269,14 @@ def _ancillary_guesses(ds, candidates, quantities) -> dict[str, Guess]:
                     continue
                 if kind == "error":
                     # same units as the data, or its quantity's where the data's are broken
-                    fits = (not c.flag_meanings and c.units
+                    fits = ((not c.flag_meanings or _says(c, words)) and c.units
                             and (_units_fit(c.units, data.units or "?")
                                  or _units_fit(c.units, QUANTITIES[quantity_name].units))
                             and (c in related or _says(c, words)))
                     why = f"units {c.units}"
                 else:
-                    fits = bool(c.flag_meanings) and (c in related or _says(c, words))
+                    fits = (bool(c.flag_meanings) and _says(c, ERROR_WORDS) is None
+                            and (c in related or _says(c, words)))
                     meanings = c.flag_meanings.split()
                     why = "flag_meanings " + " ".join(meanings[:4]) + (
                         " ..." if len(meanings) > 4 else "") + "; kept: good_flag_meanings"
@@ -286,9 +296,19 @@ def guess_profile_roles(ds: xr.Dataset) -> list[Guess]:
     candidates = candidate_variables(ds)
     coordinates = _coordinate_guesses(candidates)
     quantities = _quantity_guesses(candidates, coordinates)
+    if quantities:  # again, preferring coordinates on the dimensions of the data
+        by_name = {c.name: c for c in candidates}
+        first = by_name[next(iter(quantities.values())).variable]
+        coordinates = _coordinate_guesses(candidates, first.dimensions)
     ancillary = _ancillary_guesses(ds, candidates, quantities)
     guesses = list(quantities.values()) + list(ancillary.values())
-    for role in ("latitude", "longitude", "time"):
+    projected = all(r in coordinates for r in ("projection_x_coordinate",
+                                               "projection_y_coordinate"))
+    horizontal = ("latitude", "longitude")
+    if projected and not any(r in coordinates for r in horizontal):
+        # a projected grid: positions from x, y and the grid_mapping (CF 1.8 section 5.6)
+        horizontal = ("projection_x_coordinate", "projection_y_coordinate")
+    for role in (*horizontal, "time"):
         guesses.append(coordinates.get(role, Guess(role, None, "no candidate found")))
     guesses.extend(coordinates[r] for r in ("depth", "sea_water_pressure") if r in coordinates)
     return guesses

@@ -121,3 +121,32 @@ def test_a_profile_can_take_away_an_attribute_sign(tmp_path):
     with pytest.raises(NotObservationsError):
         read(path)
     assert len(read_checked(path, reader_profile=profile)) == 6
+
+
+#: the real provider files of ../shared/realdata (its README): all observations
+REAL_OBSERVATION_FILES = {
+    "sst/SS_VIIRS_NPP-NAVO-L2P-v3.0__l2ss-cut.nc": "US Naval Oceanographic Office, PO.DAAC",
+    "sst/SS_MODIS_A-JPL-L2P-v2014.0__l2ss-cut.nc": "NASA JPL, PO.DAAC",
+    "argo/D4900882_029.nc": "Argo GDAC (MEDS float)",
+    "argo/R13857_001.nc": "Argo GDAC (AOML float)",
+    "argo/6901744_prof.nc": "Argo GDAC (Coriolis float)",
+    "altimetry/JA1_GPN_2PeP001_002_20020115_060706_20020115_070316.nc": "CNES/NASA, PO.DAAC",
+    "seaice/seaice_conc_daily_nh_20211231_f17_v04r00.nc": "NOAA/NSIDC",
+    "insitu/sp025-20141125T1730_glider_trajectoryProfile.nc": "Scripps, US IOOS glider DAC",
+    "insitu/IMOS_SOOP-XBT_T_20160106T110100Z_PX02_FV01_ID-150739.nc": "IMOS",
+    "insitu/1dy11_seacat_ctd_profiles.nc": "NOAA Alaska Fisheries Science Center",
+}
+
+
+@pytest.mark.parametrize("relative", sorted(REAL_OBSERVATION_FILES))
+def test_no_real_observation_file_is_taken_for_model_output(relative):
+    # the providers (named above) distribute these as observations: no sign may fire
+    from realdata import real_file
+
+    from obsprep.readers.cf import open_dataset
+
+    ds = open_dataset(real_file(relative), load=False)
+    try:
+        assert model_output_signs(ds) == [], REAL_OBSERVATION_FILES[relative]
+    finally:
+        ds.close()

@@ -128,3 +128,72 @@ def test_names_that_only_mention_a_quantity_lose_to_names_that_are_it(tmp_path):
     })
     guessed, _ = roles(path)
     assert guessed["sea_surface_temperature"] == "sea_surface_temperature"
+
+
+@pytest.mark.parametrize("relative", [
+    "sst/SS_VIIRS_NPP-NAVO-L2P-v3.0__l2ss-cut.nc",          # NAVO via PO.DAAC, GDS 2.0 L2P
+    "seaice/seaice_conc_daily_nh_20211231_f17_v04r00.nc",   # NOAA/NSIDC sea-ice CDR
+    "insitu/sp025-20141125T1730_glider_trajectoryProfile.nc",  # Scripps via US IOOS glider DAC
+    "altimetry/JA1_GPN_2PeP001_002_20020115_060706_20020115_070316.nc",  # CNES/NASA Jason-1
+])
+def test_guessed_profile_of_a_real_file_parses_and_names_its_variables(relative):
+    # whatever the readers make of these files, the snippet for their metadata is TOML and
+    # names only variables the file has (netCDF4 lists them), each role once
+    from realdata import real_file
+
+    path = real_file(relative)
+    ds = open_dataset(path, load=False)
+    try:
+        snippet = profile_snippet(ds, path)
+    finally:
+        ds.close()
+    variables = tomllib.loads(snippet)["sources"]["reader"]["variables"]
+    with netCDF4.Dataset(path) as nc:
+        names = set(nc.variables)
+    assert variables and set(variables.values()) <= names
+    assert len(set(variables.values())) == len(variables)  # one role per variable
+
+
+def test_a_projected_grid_gets_its_x_and_y_instead_of_latitude_and_longitude(tmp_path):
+    from sample_files import ice_concentration_file
+
+    # CF 1.8 section 5.6: positions of a projected grid from x, y and the grid_mapping
+    guessed, snippet = roles(ice_concentration_file(tmp_path / "ice.nc"))
+    assert guessed == {"sea_ice_concentration": "ice_conc", "projection_x_coordinate": "x",
+                       "projection_y_coordinate": "y", "time": "time"}
+    assert "latitude" not in snippet
+
+
+def test_coordinates_on_the_dimensions_of_the_data_are_preferred(tmp_path):
+    # an along-track record at 1 Hz with 20 Hz times and positions beside it: the 1 Hz ones
+    # share the data's dimension (both carry CF standard names time/latitude/longitude)
+    since = "seconds since 2000-01-01 00:00:00"
+    path = write_nc(tmp_path / "track.nc", {"time": 3, "meas": 2}, {
+        "time_20hz": var(("time", "meas"), np.arange(6.0).reshape(3, 2), standard_name="time",
+                         units=since),
+        "lat_20hz": var(("time", "meas"), np.zeros((3, 2)), standard_name="latitude",
+                        units="degrees_north"),
+        "lon_20hz": var(("time", "meas"), np.zeros((3, 2)), standard_name="longitude",
+                        units="degrees_east"),
+        "time": var(("time",), [0.0, 1.0, 2.0], standard_name="time", units=since),
+        "lat": var(("time",), [1.0, 2.0, 3.0], standard_name="latitude", units="degrees_north"),
+        "lon": var(("time",), [1.0, 2.0, 3.0], standard_name="longitude", units="degrees_east"),
+        "ssha": var(("time",), [0.1, 0.0, -0.1], units="m", long_name="sea surface height anomaly"),
+    })
+    guessed, _ = roles(path)
+    assert guessed == {"sea_level_anomaly": "ssha", "latitude": "lat", "longitude": "lon",
+                       "time": "time"}
+
+
+def test_a_depth_of_one_level_leaves_a_surface_file_surface(tmp_path):
+    # an SST grid with a depth coordinate of one level (the measurement depth) is no profile
+    path = write_nc(tmp_path / "sst1m.nc", {"depth": 1, "lat": 2, "lon": 2}, {
+        "depth": var(("depth",), [1.0], standard_name="depth", units="m"),
+        "lat": var(("lat",), [1.0, 2.0], units="degrees_north"),
+        "lon": var(("lon",), [1.0, 2.0], units="degrees_east"),
+        "temp": var(("depth", "lat", "lon"), np.full((1, 2, 2), 12.0), units="degC",
+                    long_name="sea surface temperature"),
+    })
+    guessed, _ = roles(path)
+    assert guessed["sea_surface_temperature"] == "temp"
+    assert "sea_water_temperature" not in guessed
