@@ -58,7 +58,8 @@ def guess_kind(path, ds=None) -> str:
             path,
             "no reader recognises this file from its metadata (standard_name, featureType, "
             f"grid_mapping); known kinds: {', '.join(available_kinds())}; "
-            "name one with kind=... or the source's 'kind' key",
+            "name one with kind=... or the source's 'kind' key, or give a reader profile "
+            "(obsprep inspect FILE proposes one)",
         )
     return claims[0]
 
