@@ -9,7 +9,7 @@ documentation.  Rules, in order of trust:
 1. a CF standard_name a quantity or coordinate accepts (CF standard name table);
 2. for coordinates, the CF units of latitude and longitude (CF 1.8 sections 4.1, 4.2: e.g.
    ``degrees_north``), a time unit ``<unit> since <epoch>`` (CF 1.8 section 4.4), a pressure
-   in decibar, or the ``axis`` attribute (CF 1.8 section 4); then common variable names;
+   in decibar; then common variable names (:data:`COORDINATE_NAMES`);
 3. for a quantity, units convertible to its canonical units *and* a name or long_name that
    says what it is (:data:`NAME_HINTS`, common practice);
 4. a quantity's error: a variable listed in its ``ancillary_variables`` or named after it with
@@ -33,8 +33,8 @@ from obsprep.model.quantities import QUANTITIES
 #: practice); matched as whole words of the lower-cased name, '_' and '-' read as spaces
 NAME_HINTS: dict[str, tuple[str, ...]] = {
     "sea_level_anomaly": ("sla", "ssha", "ssh", "sea level", "sea surface height", "adt"),
-    "sea_surface_temperature": ("sst", "sea surface temperature", "surface temperature", "surface temp",
-                                "skin temperature", "analysed sst", "analysed_sst"),
+    "sea_surface_temperature": ("sst", "sea surface temperature", "surface temperature",
+                                "surface temp", "skin temperature", "analysed sst"),
     "sea_ice_concentration": ("sic", "ice conc", "ice concentration", "sea ice concentration",
                               "ice fraction", "ice area fraction", "seaice conc"),
     "sea_ice_drift_east": ("eastward drift", "drift east", "u drift", "dx east"),
@@ -49,10 +49,10 @@ ERROR_WORDS = ("err", "error", "uncertainty", "std", "sd", "sigma", "stddev", "s
                "standard error", "standard deviation")
 #: words that make a variable a quality flag of another (common practice)
 FLAG_WORDS = ("qc", "flag", "flags", "quality", "status", "mask")
-#: common names of coordinates (lower case), after the standard_name, units and axis rules
+#: common names of coordinates (lower case), after the standard_name and units rules
 COORDINATE_NAMES = {
-    "latitude": ("lat", "latitude", "nav_lat", "lat_rho", "y_lat", "glamt"),
-    "longitude": ("lon", "long", "longitude", "nav_lon", "lon_rho", "x_lon"),
+    "latitude": ("lat", "latitude", "nav_lat"),
+    "longitude": ("lon", "long", "longitude", "nav_lon"),
     "time": ("time", "juld", "t", "obs_time", "date_time"),
     "depth": ("depth", "z", "deph"),
     "sea_water_pressure": ("pres", "pressure", "p"),
