@@ -39,6 +39,10 @@ class NoReaderError(InputFileError):
     """No registered reader claims the file."""
 
 
+class NotObservationsError(NoReaderError):
+    """The file is model output (an ensemble, a forecast, a model grid), not observations."""
+
+
 class ConfigError(ObsprepError, ValueError):
     """The configuration is invalid; ``key`` is the dotted path of the offending key."""
 

@@ -3,13 +3,29 @@
 from __future__ import annotations
 
 import click
+import pandas as pd
 
 from obsprep.cli.options import library_errors
+from obsprep.model.table import WARNINGS
+
+
+def file_warnings(table) -> list[str]:
+    """The file's warnings as the build's ledger entry would carry them from reading and the
+    physical-range check (:func:`obsprep.qc.basic.gross_range_check`, whose rejections are
+    not shown here: inspect shows the reader's verdicts), without changing ``table``."""
+    from obsprep.qc.basic import gross_range_check
+
+    probe = pd.DataFrame({c: table[c] for c in ("value", "quantity", "rejected")})
+    probe.attrs = {}
+    gross_range_check(probe)
+    return list(dict.fromkeys(list(table.attrs.get(WARNINGS, []))
+                              + list(probe.attrs.get(WARNINGS, []))))
 
 
 def describe_table(path, table) -> list[str]:
     """Lines describing one read file: kind, variables and units, quantities, time range,
-    counts kept and rejected per reason (reader verdicts only; the build adds its checks)."""
+    counts kept and rejected per reason (reader verdicts only; the build adds its checks), and
+    the file's warnings (:func:`file_warnings`)."""
     lines = [f"{path}", f"  kind: {table.attrs.get('kind', '?')}"]
     variables = table.attrs.get("variables", {})
     if variables:
@@ -27,6 +43,45 @@ def describe_table(path, table) -> list[str]:
     rejected = rejected[rejected > 0]
     lines.append(f"  rows: {len(table)}, valid {int(table['rejected'].isna().sum())}, rejected "
                  + (", ".join(f"{r} {n}" for r, n in rejected.items()) if len(rejected) else "0"))
+    lines.extend(f"  warning: {message}" for message in file_warnings(table))
+    return lines
+
+
+def describe_unclaimed(path, profile=None) -> list[str]:
+    """Lines for a file no reader claims: its candidate variables, a ``[sources.reader]``
+    profile guessed from them (TOML, unindented so it can be copied), and what the readers make
+    of the file with that profile (added to ``profile``, the source's own, if any)."""
+    import tomllib
+
+    from obsprep import read
+    from obsprep.exceptions import InputFileError
+    from obsprep.readers.cf import open_dataset
+    from obsprep.readers.onboarding import candidate_variables, profile_snippet
+
+    ds = open_dataset(path, profile=profile or None, load=False)
+    try:
+        candidates = candidate_variables(ds)
+        snippet = profile_snippet(ds, path)
+    finally:
+        ds.close()
+    lines = [f"{path}", "  no reader claims this file; candidate variables "
+                        "(name [units] (dimensions) standard_name: long_name):"]
+    for c in candidates:
+        lines.append(f"    {c.name} [{c.units or '-'}] ({', '.join(c.dimensions)}) "
+                     f"{c.standard_name or '-'}: {c.long_name or '-'}"
+                     + (f" (flag_meanings: {c.flag_meanings})" if c.flag_meanings else ""))
+    lines.append("  a reader profile to start from (under the source's [[sources]] entry):")
+    lines.extend(snippet.splitlines())
+    guessed = tomllib.loads(snippet)["sources"]["reader"]
+    merged = dict(profile or {})
+    merged["variables"] = {**dict(merged.get("variables") or {}), **guessed["variables"]}
+    try:
+        table = read(path, reader_profile=merged)
+    except InputFileError as exc:
+        lines.append(f"  with this profile: {exc.reason}")
+    else:
+        lines.append("  with this profile:")
+        lines.extend("  " + line for line in describe_table(path, table)[1:])
     return lines
 
 
@@ -76,7 +131,9 @@ def describe_readers() -> list[str]:
 @library_errors
 def inspect_command(files, kind, list_kinds, config, source_name):
     """Show what obsprep reads from observation FILES: the reader kind, the variables used and
-    their units, the time range and the rows kept or rejected by the reader, per reason.
+    their units, the time range, the rows kept or rejected by the reader, per reason, and the
+    file's warnings.  For a file no reader claims: its candidate variables and a reader
+    profile ([sources.reader]) guessed from them, to start from.
 
     A file that cannot be read gets one line naming the file and the problem; the others are
     still shown (exit status 1 if any failed).
@@ -86,7 +143,7 @@ def inspect_command(files, kind, list_kinds, config, source_name):
     --source sst_l3
     """
     from obsprep import read
-    from obsprep.exceptions import InputFileError
+    from obsprep.exceptions import InputFileError, NoReaderError, NotObservationsError
 
     if list_kinds:
         for line in describe_readers():
@@ -102,6 +159,10 @@ def inspect_command(files, kind, list_kinds, config, source_name):
         except InputFileError as exc:
             failed += 1
             click.echo(f"error: {exc}", err=True)
+            if isinstance(exc, NoReaderError) and not isinstance(exc, NotObservationsError) \
+                    and kind in (None, "auto"):
+                for line in describe_unclaimed(path, profile):
+                    click.echo(line)
             continue
         for line in describe_table(path, table):
             click.echo(line)

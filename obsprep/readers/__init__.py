@@ -37,13 +37,18 @@ def available_kinds() -> list[str]:
 
 
 def guess_kind(path, ds=None) -> str:
-    """Return the kind of the first reader whose ``guess_can_open`` accepts the file."""
+    """Return the kind of the first reader whose ``guess_can_open`` accepts the file.
+
+    Model output is claimed by none (:func:`obsprep.readers.model_output.refuse_model_output`
+    raises :class:`~obsprep.exceptions.NotObservationsError`)."""
     from obsprep.readers.cf import open_dataset
+    from obsprep.readers.model_output import refuse_model_output
 
     own = ds is None
     if own:
         ds = open_dataset(path, load=False)  # metadata only
     try:
+        refuse_model_output(ds, path)
         claims = [k for k, r in registered_readers().items() if r.guess_can_open(ds)]
     finally:
         if own:
@@ -53,7 +58,8 @@ def guess_kind(path, ds=None) -> str:
             path,
             "no reader recognises this file from its metadata (standard_name, featureType, "
             f"grid_mapping); known kinds: {', '.join(available_kinds())}; "
-            "name one with kind=... or the source's 'kind' key",
+            "name one with kind=... or the source's 'kind' key, or give a reader profile "
+            "(obsprep inspect FILE proposes one)",
         )
     return claims[0]
 
@@ -133,6 +139,7 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
     from obsprep.readers.cf import declared_options, open_dataset, out_of_memory, reader_options, unreadable_data
+    from obsprep.readers.model_output import refuse_model_output
 
     path = os.fspath(path)
     readers = registered_readers()
@@ -160,8 +167,10 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
     whole = ds
     try:
         if auto:
-            kind = guess_kind(path, ds)
+            kind = guess_kind(path, ds)  # refuses model output
             parsed = reader_options(readers[kind], declared_options(readers[kind], options))
+        else:
+            refuse_model_output(ds, path)  # whatever kind is named
         if row_slice is not None:
             dimension = readers[kind].slice_dimension(ds)
             if dimension is None:
