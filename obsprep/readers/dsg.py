@@ -49,6 +49,9 @@ class SampleIndex:
         grids = np.indices(var.shape).reshape(var.ndim, -1) if var.ndim else np.zeros((0, 1))
         self.dims: dict[str, np.ndarray] = {
             str(d): grids[k].astype(np.int64) for k, d in enumerate(var.dims)}
+        self.sizes = {str(d): int(n) for d, n in ds.sizes.items()}
+        #: dimension reached through an index variable -> the dimension it is a function of
+        self.derived_from: dict[str, str] = {}
         self.unused = np.zeros(self.size, dtype=bool)
         self.ragged = False
         changed = True
@@ -66,6 +69,7 @@ class SampleIndex:
                 elif instance in ds.sizes and own in self.dims and instance not in self.dims:
                     self.dims[str(instance)] = self._from_index(v, str(var_name), str(own),
                                                                ds.sizes[instance])
+                    self.derived_from[str(instance)] = str(own)
                     changed = self.ragged = True
 
     def _from_counts(self, count: xr.Variable, count_name: str, sample: str, ds) -> np.ndarray:
@@ -87,7 +91,8 @@ class SampleIndex:
         self.unused |= per_value < 0
         return np.where(per_value < 0, 0, per_value)
 
-    def _from_index(self, index: xr.Variable, index_name: str, own: str, n_instances: int) -> np.ndarray:
+    def _from_index(self, index: xr.Variable, index_name: str, own: str,
+                    n_instances: int) -> np.ndarray:
         values = np.asarray(index.values, dtype=np.float64)[self.dims[own]]
         missing = ~np.isfinite(values)
         bad = ~missing & ((values < 0) | (values >= n_instances) | (values != np.round(values)))
@@ -112,11 +117,14 @@ class SampleIndex:
         return values[tuple(self.dims[d] for d in dims)]
 
     def flat_instance(self, dims) -> np.ndarray:
-        """One number per combination of indices along ``dims`` (a feature number)."""
+        """One number per combination of indices along ``dims`` (a feature number: the flat
+        index in an array of those dimensions), leaving out a dimension reached through an
+        index variable from another of ``dims`` (it adds nothing: the station of a profile)."""
+        dims = [d for d in dims if self.derived_from.get(d) not in dims]
         if not dims:
             return np.zeros(self.size, dtype=np.int64)
-        sizes = [int(self.dims[d].max(initial=0)) + 1 for d in dims]
-        return np.ravel_multi_index(tuple(self.dims[d] for d in dims), sizes)
+        return np.ravel_multi_index(tuple(self.dims[d] for d in dims),
+                                    [self.sizes[d] for d in dims])
 
 
 def layouts(ds: xr.Dataset, names) -> list[list[str]]:

@@ -15,8 +15,9 @@ variable per quantity is read, the first in the file, and any other is named in 
   attribute (the nominal position, CF 9.5);
 - depth from a ``depth`` coordinate (``positive = "up"`` negated) or from sea pressure with
   TEOS-10 (:func:`obsprep.geo.seawater.depth_from_pressure`);
-- ``group``: the ``cf_role`` labels joined by "_" (trajectory or station, then profile), else
-  the profile number;
+- ``group``: the ``cf_role`` labels joined by "_" (trajectory or station, then profile), the
+  profile number (along the dimensions of time and position) in place of a missing
+  profile_id;
 - ``platform``: the option, the ``platform`` global attribute, a variable with standard_name
   ``platform_id`` or ``platform_name``, the trajectory or station label, a string variable
   whose ``long_name`` contains "platform", else "";
@@ -144,7 +145,9 @@ class ProfileReader(Reader):
             no_value &= ~np.isfinite(d.values)
         placed = np.isfinite(depth) & (np.isfinite(lat) | np.isfinite(lon))
         not_stored = index.unused.reshape(shape) | (no_value & ~placed)
-        group = self._group(ds, index, lat_var, shape)
+        # a profile has one time and one position (CF table 9.1): their dimensions number it
+        profile_dims = tuple(dict.fromkeys(time_var.dims + lat_var.dims + lon_var.dims))
+        group = self._group(ds, index, profile_dims, shape)
         platform = self._platform(ds, opts, index, shape)
         row = offset + np.arange(first.size, dtype=np.int64).reshape(shape)
         table = concat_tables([
@@ -179,13 +182,15 @@ class ProfileReader(Reader):
         return depth_from_pressure(values.reshape(var.shape), lat), pressure_name
 
     @staticmethod
-    def _group(ds, index, lat_var, shape):
-        labels = None
+    def _group(ds, index, profile_dims, shape):
+        labels, has_profile_id = None, False
         for name in dsg.feature_label_variables(ds, index):
             part = index.gather(cf.labels_as_strings(ds[name].values), ds[name].dims)
             labels = part if labels is None else np.char.add(np.char.add(labels, "_"), part)
-        if labels is None:  # no cf_role: the profile number along the position's dimensions
-            labels = index.flat_instance(lat_var.dims).astype(str)
+            has_profile_id |= ds[name].attrs.get("cf_role") == "profile_id"
+        if not has_profile_id:
+            number = index.flat_instance(profile_dims).astype(str)
+            labels = number if labels is None else np.char.add(np.char.add(labels, "_"), number)
         return np.asarray(labels).reshape(shape)
 
     @staticmethod
