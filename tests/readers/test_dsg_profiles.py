@@ -286,3 +286,24 @@ def test_second_variable_of_one_quantity_on_the_same_dimensions_is_named(tmp_pat
     table = read(path)
     np.testing.assert_allclose(quantity(table, "sea_water_temperature")["value"], [10.0, 9.0])
     assert any("'temp2' not read" in w for w in table.attrs["warnings"])
+
+
+def test_a_layout_without_coordinates_does_not_refuse_the_others(tmp_path):
+    # a temperature on a dimension no coordinate reaches (a sensor calibration series) cannot
+    # be placed; the profile beside it is still read, the other variable named in a warning
+    path = write_nc(tmp_path / "extra.nc", {"profile": 1, "z": 2, "cal": 3}, {
+        "time": var(("profile",), [27000.0], **TIME_1950),
+        "lat": var(("profile",), [0.0], **LAT),
+        "lon": var(("profile",), [-20.0], **LON),
+        "z": var(("z",), [1.0, 2.0], **DEPTH),
+        "temp": var(("profile", "z"), [[10.0, 9.0]], coordinates="time lat lon z", **TEMP),
+        "cal_temp": var(("cal",), [0.0, 10.0, 20.0], **TEMP),
+    }, featureType="profile")
+    table = read(path)
+    assert len(table) == 2
+    assert any("cal_temp not read" in w and "coordinate" in w for w in table.attrs["warnings"])
+    alone = write_nc(tmp_path / "alone.nc", {"cal": 3}, {
+        "cal_temp": var(("cal",), [0.0, 10.0, 20.0], **TEMP),
+    }, featureType="profile")
+    with pytest.raises(InputFileError, match="coordinate"):
+        read(alone)

@@ -7,8 +7,10 @@ One row per (profile, level, quantity).  The quantities are the depth-resolved o
 :mod:`obsprep.model.quantities` (in-situ temperature, practical salinity, potential
 temperature, each by its own standard_name: potential temperature is never read as in-situ
 temperature).  Data variables on different dimensions (several sample dimensions in one file)
-are read layout by layout, each with the coordinates that reach it; on the same dimensions one
-variable per quantity is read, the first in the file, and any other is named in a warning.
+are read layout by layout, each with the coordinates that reach it (a layout that cannot be
+read, for want of coordinates, is named in a warning when another can; the file is refused
+only when none can); on the same dimensions one variable per quantity is read, the first in the
+file, and any other is named in a warning.
 
 - time, latitude, longitude: the coordinate of that kind that reaches the values, preferring
   one named in the data variable's ``coordinates`` attribute, then one with an ``axis``
@@ -92,7 +94,7 @@ class ProfileReader(Reader):
             raise InputFileError(path, "no profile variables: expected standard_name "
                                        + " or ".join(q.standard_name for q in PROFILE_QUANTITIES))
         quantity_of = {name: q for q, name in found}
-        warnings, tables, all_decoded, used = [], [], [], []
+        warnings, tables, all_decoded, used, failed = [], [], [], [], []
         offset = 0
         for layout in dsg.layouts(ds, [name for _, name in found]):
             chosen = {}
@@ -104,11 +106,20 @@ class ProfileReader(Reader):
                                     f"is read)")
                 else:
                     chosen[q] = name
-            table, decoded, names = self._read_layout(ds, path, options, chosen, offset)
+            try:
+                table, decoded, names = self._read_layout(ds, path, options, chosen, offset)
+            except InputFileError as exc:
+                failed.append((layout, exc))
+                continue
+            finally:
+                offset += int(ds[layout[0]].size)
             tables.append(table)
             all_decoded += decoded
             used += names
-            offset += int(ds[layout[0]].size)
+        if not tables:
+            raise failed[0][1]
+        for layout, exc in failed:  # a variable the others do not need: read the rest
+            warnings.append(f"variable(s) {', '.join(layout)} not read: {exc.reason}")
         cf.require_values(path, all_decoded, reading_part=reading_part)
         table = concat_tables(tables)
         for message in warnings:
