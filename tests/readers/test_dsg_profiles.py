@@ -267,6 +267,7 @@ def test_potential_temperature_is_its_own_quantity(tmp_path, with_in_situ):
     table = read(potential_temperature_file(tmp_path / "theta.nc", with_in_situ))
     theta = quantity(table, "sea_water_potential_temperature")
     np.testing.assert_allclose(theta["value"], [25.0, 1.2])
+    assert any("'theta' is potential temperature" in w for w in table.attrs["warnings"])
     in_situ = quantity(table, "sea_water_temperature")
     if with_in_situ:
         np.testing.assert_allclose(in_situ["value"], [25.002, 1.5])

@@ -46,6 +46,8 @@ from obsprep.readers.registry import Reader, register_reader
 
 #: the depth-resolved quantities read from profiles
 PROFILE_QUANTITIES = tuple(q for q in QUANTITIES.values() if not q.surface)
+#: the quantity of potential temperature, named in a warning of every file that gives it
+POTENTIAL_TEMPERATURE = "sea_water_potential_temperature"
 #: CF featureType values (compared without regard to case, CF 9.4) of profile collections
 PROFILE_FEATURE_TYPES = ("profile", "trajectoryprofile", "timeseriesprofile")
 #: standard names of a variable naming the platform (CF standard name table)
@@ -121,6 +123,10 @@ class ProfileReader(Reader):
         for layout, exc in failed:  # a variable the others do not need: read the rest
             warnings.append(f"variable(s) {', '.join(layout)} not read: {exc.reason}")
         cf.require_values(path, all_decoded, reading_part=reading_part)
+        for d in all_decoded:
+            if d.quantity.name == POTENTIAL_TEMPERATURE:
+                warnings.append(f"'{d.variable}' is potential temperature: read as the quantity "
+                                f"{POTENTIAL_TEMPERATURE}, not converted to in-situ temperature")
         table = concat_tables(tables)
         for message in warnings:
             add_warning(table, message)
