@@ -225,13 +225,16 @@ def test_real_glider_trajectory_profile_ragged():
         quantities = {"sea_water_temperature": "temperature",
                       "sea_water_salinity": "salinity"}
         values = {q: numbers(nc, n) for q, n in quantities.items()}
-        flags = {}
+        flags, unassessed = {}, {}
         for q, n in quantities.items():
             flag_var = nc[nc[n].getncattr("ancillary_variables")]
             meanings = flag_var.getncattr("flag_meanings").split()
             good_codes = [int(v) for v, m in zip(flag_var.getncattr("flag_values"), meanings)
                           if m in ("good_data", "probably_good_data")]
             flags[q] = np.isin(np.ma.filled(flag_var[:], -1), good_codes)
+            unassessed_code = [int(v) for v, m in zip(flag_var.getncattr("flag_values"),
+                                                      meanings) if m == "no_qc_performed"]
+            unassessed[n] = np.isin(np.ma.filled(flag_var[:], -1), unassessed_code)
     assert counts.sum() == depth.size
     profile = np.repeat(np.arange(counts.size), counts)
     all_missing = np.all([np.isnan(v) for v in values.values()], axis=0)
@@ -241,6 +244,11 @@ def test_real_glider_trajectory_profile_ragged():
                           np.where(flags[q], None, "provider_flag"))
         frame = pd.DataFrame({"value": v, "depth": depth, "lat": lat[profile],
                               "lon": lon[profile], "reason": reason})[stored]
+        # the values the provider did not assess are named in a per-file warning
+        n_unassessed = int((unassessed[quantities[q]][stored] & (frame["reason"]
+                                                                 == "provider_flag")).sum())
+        assert any(w.startswith(f"{n_unassessed} values of '{quantities[q]}'")
+                   and "no_qc_performed" in w for w in table.attrs["warnings"])
         rows = table[table["quantity"] == q]
         assert_matches(table, q, frame)
         # nothing kept, so the ranges are those of every row with a value

@@ -76,6 +76,40 @@ def _coordinate(ds, name, kind, index) -> str | None:
     return found[0] if found else None
 
 
+#: the flag meaning of a value the provider did not assess (CF flag_meanings as IOOS, IMOS and
+#: OceanSITES files write it); such values are rejected unless good_flag_meanings keeps them
+UNASSESSED_MEANING = "no_qc_performed"
+
+
+def _unassessed_warnings(ds, path, opts, decoded, table, offset: int) -> list[str]:
+    """One warning per data variable whose rows rejected by their flag carry the meaning
+    "no_qc_performed": the provider gave no verdict, and the option can keep them for
+    obsprep's own checks.  ``offset``: the first ``row`` of the layout."""
+    if UNASSESSED_MEANING in opts.good_flag_meanings:
+        return []
+    out = []
+    for d in decoded:
+        for flag_name in cf.find_flag_variables(ds, d.variable):
+            try:
+                unassessed = cf.flag_meaning_masks(ds[flag_name], path,
+                                                   only=(UNASSESSED_MEANING,))
+            except InputFileError:
+                continue  # the flag decoding itself reports what is wrong with it
+            mask = unassessed.get(UNASSESSED_MEANING)
+            if mask is None or ds[flag_name].dims != ds[d.variable].dims:
+                continue
+            rows = table[table["quantity"] == d.quantity.name]
+            flagged = rows["rejected"].astype(object).eq("provider_flag").to_numpy()
+            hit = np.asarray(mask).ravel()[rows["row"].to_numpy()[flagged] - offset]
+            n = int(hit.sum())
+            if n:
+                out.append(f"{n} values of '{d.variable}' rejected as provider_flag have the "
+                           f"meaning {UNASSESSED_MEANING} in '{flag_name}' (not assessed by "
+                           f"the provider); option good_flag_meanings can keep them for "
+                           f"obsprep's own checks")
+    return out
+
+
 @register_reader
 class ProfileReader(Reader):
     """Profiles of any CF discrete-sampling layout, with depth or sea pressure (converted to
@@ -110,6 +144,7 @@ class ProfileReader(Reader):
                     chosen[q] = name
             try:
                 table, decoded, names = self._read_layout(ds, path, options, chosen, offset)
+                warnings += _unassessed_warnings(ds, path, options, decoded, table, offset)
             except InputFileError as exc:
                 failed.append((layout, exc))
                 continue
