@@ -21,6 +21,7 @@ from functools import cache
 
 import numpy as np
 
+from obsprep.geo.seawater import potential_temperature, pressure_from_depth
 from obsprep.model.quantities import QUANTITIES, get_quantity
 
 #: the model grid's map projection
@@ -409,6 +410,10 @@ def truth_value(quantity, lon, lat, depth=None, time=None, time_end=None) -> np.
         return sea_water_temperature(lon, lat, depth, time)
     if quantity == "sea_water_salinity":
         return sea_water_salinity(lon, lat, depth, time)
+    if quantity == "sea_water_potential_temperature":  # the same water, by TEOS-10
+        return potential_temperature(sea_water_salinity(lon, lat, depth, time),
+                                     sea_water_temperature(lon, lat, depth, time),
+                                     pressure_from_depth(depth, lat), lon, lat)
     if time_end is None:
         raise ValueError(f"truth_value('{quantity}'): ice drift is a displacement over an "
                          f"interval; give time_end")

@@ -63,3 +63,20 @@ def freezing_temperature(practical_salinity, pressure_dbar, lon, lat,
     absolute_salinity = gsw.SA_from_SP(practical_salinity, pressure_dbar, lon, lat)
     return np.asarray(gsw.t_freezing(absolute_salinity, pressure_dbar, saturation_fraction),
                       dtype=np.float64)
+
+
+def potential_temperature(practical_salinity, in_situ_temperature, pressure_dbar, lon,
+                          lat) -> np.ndarray:
+    """Potential temperature (degC, reference sea pressure 0 dbar) of seawater of in-situ
+    temperature ``in_situ_temperature`` (degC, ITS-90) at sea pressure ``pressure_dbar``.
+
+    .. math:: S_A = S_A(S_P, p, \\lambda, \\varphi), \\qquad \\theta = \\theta(S_A, t, p, p_r = 0)
+
+    with ``gsw.SA_from_SP`` (TEOS-10 manual section 2.5) and ``gsw.pt0_from_t`` (TEOS-10 manual
+    section 3.1, [TEOS10]).  ``lon``/``lat`` in degrees.
+    """
+    import gsw
+
+    absolute_salinity = gsw.SA_from_SP(practical_salinity, pressure_dbar, lon, lat)
+    return np.asarray(gsw.pt0_from_t(absolute_salinity, in_situ_temperature, pressure_dbar),
+                      dtype=np.float64)

@@ -75,7 +75,8 @@ def pressure_increasing_test(table: pd.DataFrame, rows=None) -> np.ndarray:
     """Rows failing the Argo pressure increasing test.
 
     In level order, a level fails when its pressure is not greater than the pressure of every
-    earlier level of the profile: of a run of equal pressures all but the first fail, and a
+    earlier level of the profile (not smaller, for a profile whose last level is shallower than
+    its first: stored from the bottom up): of a run of equal pressures all but the first fail, and a
     reversed part fails as a whole.  Depth is monotonic in pressure at a given latitude, so
     depth is compared.  ``rows`` (default: kept rows of profile quantities with a finite
     depth) selects the rows taking part.
@@ -85,6 +86,11 @@ def pressure_increasing_test(table: pd.DataFrame, rows=None) -> np.ndarray:
     if idx.size < 2:
         return fail
     d = depth[idx]
+    # a profile stored from the bottom up (an ascent in sampling order, as CF profiles of
+    # gliders may be) is tested in its own direction: its last level shallower than its first
+    starts = np.flatnonzero(np.concatenate([[True], segment[1:] != segment[:-1]]))
+    ends = np.concatenate([starts[1:], [d.size]]) - 1
+    d = np.where((d[ends] < d[starts])[segment], -d, d)
     span = float(np.max(d) - np.min(d)) + 1.0
     # segmented running maximum: an offset per profile larger than any depth range keeps the
     # maximum of one profile from leaking into the next

@@ -106,6 +106,10 @@ def test_pressure_increasing_flags_repeats_and_reversals():
     two["group"] = two["group"].cat.add_categories(["p2"])
     two.loc[2:, "group"] = "p2"  # a new profile starts shallow again
     assert not pressure_increasing_test(two).any()
+    # stored from the bottom up (last level shallower than the first): tested in that
+    # direction, so only the repeated 300 and the reversal 350 fail (common practice)
+    up = profile_table(np.full(6, 3.0), depth_at([500, 400, 300, 300, 350, 100]))
+    assert pressure_increasing_test(up).tolist() == [False, False, False, True, True, False]
 
 
 def test_pressure_from_depth_inverts_teos10():

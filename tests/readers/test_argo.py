@@ -189,3 +189,73 @@ def test_missing_pressure_names_the_variable(argo_file):
     with pytest.raises(InputFileError) as info:
         read(argo_file, kind="argo")
     assert "'PRES'" in str(info.value) and argo_file in str(info.value)
+
+
+TWO_PROFILES = dict(
+    platform=["5906001", "5906001"], cycle=[7, 8], mode=["D", "D"], juld=[27700.0, 27710.0],
+    lat=[10.0, 11.0], lon=[-40.0, -41.0],
+    pres=[[5.0, 100.0], [6.0, 200.0]], temp=[[25.0, 20.0], [26.0, 18.0]],
+    psal=[[36.0, 36.2], [36.1, 36.3]],
+    temp_qc=[list("11"), list("11")], psal_qc=[list("14"), list("11")],
+    adjusted={"PRES": [[5.1, 100.1], [6.1, 200.1]], "TEMP": [[24.9, 19.9], [25.9, 17.9]],
+              "PSAL": [[36.01, 36.21], [36.11, 36.31]]},
+    errors={"PRES": [[2.4] * 2] * 2, "TEMP": [[0.002] * 2] * 2, "PSAL": [[0.01] * 2] * 2},
+    adjusted_qc={"PSAL": [list("11"), list("11")]},
+)
+
+
+def _rename(path, **names):
+    with netCDF4.Dataset(path, "a") as nc:
+        for old, new in names.items():
+            nc.renameVariable(old, new)
+
+
+def test_bgc_synthetic_data_mode_per_parameter(tmp_path):
+    # Argo user's manual (BGC synthetic profiles, from memory): PARAMETER_DATA_MODE(N_PROF,
+    # N_PARAM) gives each parameter's mode in the order of STATION_PARAMETERS(N_PROF, N_PARAM);
+    # the adjusted value is used where that parameter's mode is A or D, the raw value where R
+    path = write_argo(tmp_path / "SD5906001_007.nc", **TWO_PROFILES)
+    _rename(path, DATA_MODE="DATA_MODE_NOT_IN_SYNTHETIC_FILES")
+    with netCDF4.Dataset(path, "a") as nc:
+        nc.createDimension("N_PARAM", 3)
+        v = nc.createVariable("STATION_PARAMETERS", "S1", ("N_PROF", "N_PARAM", "STRING16"))
+        v[:] = netCDF4.stringtochar(np.array([["PRES", "TEMP", "PSAL"],
+                                              ["PRES", "PSAL", "TEMP"]], dtype="S16"))
+        v = nc.createVariable("PARAMETER_DATA_MODE", "S1", ("N_PROF", "N_PARAM"))
+        v[:] = np.array([list("DDR"), list("DAD")], dtype="S1")
+    assert guess_kind(path) == "argo"
+    table = read(path)
+    validate_table(table)
+    temp = table[table["quantity"] == "sea_water_temperature"].sort_values("row")
+    psal = table[table["quantity"] == "sea_water_salinity"].sort_values("row")
+    # TEMP: mode D in both profiles (column 2 of profile 0, column 3 of profile 1)
+    np.testing.assert_allclose(temp["value"], [24.9, 19.9, 25.9, 17.9], atol=1e-5)
+    np.testing.assert_allclose(temp["error"], [0.002] * 4, atol=1e-7)
+    # PSAL: R in profile 0 (raw value, raw flag: '4' rejects level 2), A in profile 1
+    np.testing.assert_allclose(psal["value"], [36.0, 36.2, 36.11, 36.31], atol=1e-5)
+    assert np.isnan(psal["error"].to_numpy()[:2]).all()
+    assert reasons(psal) == [None, "argo_qc_flag", None, None]
+    # pressure D everywhere: the adjusted pressure gives the depth (TEOS-10)
+    np.testing.assert_allclose(temp["depth"], -gsw.z_from_p([5.1, 100.1, 6.1, 200.1],
+                                                            [10, 10, 11, 11]), atol=1e-3)
+
+
+def test_argo_like_file_without_data_mode_qc_or_platform_variables(tmp_path):
+    # an Argo-like file (animal-borne CTD: Argo variable names, some Argo variables absent):
+    # read with the checks it cannot support named in warnings, never refused
+    path = write_argo(tmp_path / "ct_seal.nc", **TWO_PROFILES)
+    _rename(path, DATA_MODE="X_DM", JULD_QC="X_JQ", POSITION_QC="X_PQ", PLATFORM_NUMBER="X_PN",
+            DATA_TYPE="X_DT")
+    with netCDF4.Dataset(path, "a") as nc:
+        nc.platform = "seal_ct36"
+    assert guess_kind(path) == "argo"
+    table = read(path)
+    validate_table(table)
+    temp = table[table["quantity"] == "sea_water_temperature"].sort_values("row")
+    # without any data mode, the adjusted values are used where they exist
+    np.testing.assert_allclose(temp["value"], [24.9, 19.9, 25.9, 17.9], atol=1e-5)
+    assert reasons(temp) == [None] * 4
+    assert set(temp["platform"].astype(str)) == {"seal_ct36"}
+    warnings = " | ".join(table.attrs["warnings"])
+    for name in ("JULD_QC", "POSITION_QC", "DATA_MODE"):
+        assert name in warnings
