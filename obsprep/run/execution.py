@@ -367,13 +367,26 @@ class _ClusterWatch:
 
     def wait_some(self, futures, done: int, total: int):
         """The futures of ``futures`` that are done (at least one)."""
+        from concurrent.futures import CancelledError
+
         from distributed import wait
+
+        from obsprep.exceptions import ClusterError
 
         while True:
             try:
                 finished, _ = wait(futures, timeout=POLL_SECONDS, return_when="FIRST_COMPLETED")
             except TimeoutError:
                 finished = ()
+            except CancelledError as exc:  # the scheduler went away, or cancelled the run
+                why = next((line.split(":", 1)[1].strip() for line in str(exc).splitlines()
+                            if line.startswith("Message:")), type(exc).__name__)
+                raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
+                                   f"tasks ({why} {done} of {total} files done); the build "
+                                   "stops") from None
+            if any(f.status == "cancelled" for f in finished):
+                raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
+                                   f"tasks ({done} of {total} files done); the build stops")
             if finished:
                 return finished
             self.check(done, total)

@@ -242,19 +242,17 @@ class KillWorkerOnFile:
         return process_file(cfg, grid, source, path, file_index, sensor_names, strict)
 
 
-def _process_cluster(distributed, n_workers=2):
+def _process_cluster(distributed, n_workers=1):
     """A local cluster of worker processes, each under a nanny that restarts it when killed."""
     return distributed.LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
                                     dashboard_address=None)
 
 
-@pytest.mark.parametrize("allowed_failures", [3, 0])
-def test_worker_killed_in_the_middle_is_retried_and_the_result_is_identical(
-        tmp_path, monkeypatch, allowed_failures):
-    # allowed_failures 3 (the Dask default): the scheduler moves the task to another worker;
-    # 0: the scheduler gives the task up at once (KilledWorker) and the build submits it again
+def test_worker_killed_in_the_middle_is_retried_and_the_result_is_identical(tmp_path, monkeypatch):
+    # with the Dask default distributed.scheduler.allowed-failures = 3 the scheduler runs the
+    # task again on the restarted worker; the build's own resubmission, for a task the
+    # scheduler gives up, is tested with allowed-failures = 0 in the next test
     distributed = pytest.importorskip("distributed")
-    import dask
 
     from obsprep.run import build as build_module
 
@@ -263,10 +261,9 @@ def test_worker_killed_in_the_middle_is_retried_and_the_result_is_identical(
     local = build(config, out=tmp_path / "local", jobs=1)
     (tmp_path / "markers").mkdir()
     monkeypatch.setattr(build_module, "process_file", KillWorkerOnFile(4, 1, tmp_path / "markers"))
-    with dask.config.set({"distributed.scheduler.allowed-failures": allowed_failures}), \
-            _process_cluster(distributed) as cluster, distributed.Client(cluster) as client:
+    with _process_cluster(distributed) as cluster, distributed.Client(cluster) as client:
         on_cluster = build(config, out=tmp_path / "dask", scheduler=client)
-    assert len(list((tmp_path / "markers").iterdir())) == 1  # one worker was killed
+    assert len(list((tmp_path / "markers").iterdir())) == 1  # the worker was killed once
     assert [e.status for e in on_cluster.ledger.entries] == ["ok"] * 7
     assert_identical_files(local.outputs["netcdf"], on_cluster.outputs["netcdf"])
 
@@ -375,4 +372,43 @@ def test_last_worker_lost_fails_within_the_bound(tmp_path, monkeypatch):
         finally:
             remover.join()
         assert time.monotonic() - started < 2.0 + 20.0
+    assert "\n" not in str(err.value) and "files done" in str(err.value)
+
+
+def test_scheduler_lost_in_the_middle_is_a_cluster_error(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import threading
+    import time
+
+    from obsprep.exceptions import ClusterError
+    from obsprep.run import build as build_module
+
+    monkeypatch.setattr(execution, "POLL_SECONDS", 0.2)
+    config, _ = many_files_scenario(tmp_path, n_files=3, n=20)
+    markers = tmp_path / "markers"
+    markers.mkdir()
+    monkeypatch.setattr(build_module, "process_file", PauseOnFile(1, markers, 1.0))
+    cluster = distributed.LocalCluster(n_workers=1, processes=False, dashboard_address=None)
+    client = distributed.Client(cluster)
+
+    def stop_the_scheduler():
+        deadline = time.monotonic() + 60.0
+        while not (markers / "started").exists() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        cluster.sync(cluster.scheduler.close)
+
+    stopper = threading.Thread(target=stop_the_scheduler)
+    stopper.start()
+    started = time.monotonic()
+    try:
+        with pytest.raises(ClusterError, match="scheduler") as err:
+            build(config, out=tmp_path / "dask", scheduler=client)
+        assert time.monotonic() - started < 30.0
+    finally:
+        stopper.join()
+        import contextlib
+
+        with contextlib.suppress(TimeoutError):  # the scheduler is gone: do not wait for it
+            client.close(timeout=2)
+            cluster.close(timeout=2)
     assert "\n" not in str(err.value) and "files done" in str(err.value)
