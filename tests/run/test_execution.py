@@ -412,3 +412,10 @@ def test_scheduler_lost_in_the_middle_is_a_cluster_error(tmp_path, monkeypatch):
             client.close(timeout=2)
             cluster.close(timeout=2)
     assert "\n" not in str(err.value) and "files done" in str(err.value)
+
+
+def test_readme_states_the_no_worker_bound():
+    from pathlib import Path
+
+    text = " ".join((Path(__file__).parents[2] / "README.md").read_text().split())
+    assert f"none is left, for {execution.NO_WORKER_TIMEOUT_SECONDS:g} s" in text
