@@ -326,18 +326,31 @@ def _lost_result(task: FileTask, attempts: int, address: str) -> FileResult:
 
 
 class _ClusterWatch:
-    """Waits for futures while watching that the cluster still has workers.
+    """Hands out finished futures while watching that the cluster still has workers.
 
-    :meth:`wait_some` returns as soon as one of the futures is done; while none is, it looks
-    at the cluster every :data:`POLL_SECONDS` and raises :class:`ClusterError` once the cluster
-    has had no worker for :data:`NO_WORKER_TIMEOUT_SECONDS`, or when the scheduler does not
-    answer.  So a build on an empty or dying cluster ends within that bound, with one line.
+    Futures are :meth:`add`-ed as they are submitted; :meth:`next_done` returns those done
+    since the last call (at least one; a ``distributed.as_completed`` set, so each call costs
+    the finished futures only, not all pending ones).  While none is done it looks at the
+    cluster every :data:`POLL_SECONDS` and raises :class:`ClusterError` once the cluster has had
+    no worker for :data:`NO_WORKER_TIMEOUT_SECONDS`, when the scheduler does not answer or
+    cancels the tasks.  So a build on an empty or dying cluster ends within that bound, with
+    one line.
     """
 
+    #: seconds between two looks for finished futures
+    _NAP = 0.02
+
     def __init__(self, client, address: str):
+        from distributed import as_completed
+
         self.client = client
         self.address = address
+        self._finished = as_completed()
         self._empty_since = None
+
+    def add(self, future) -> None:
+        """Watch ``future`` too."""
+        self._finished.add(future)
 
     def _workers(self) -> int:
         from obsprep.exceptions import ClusterError
@@ -365,31 +378,24 @@ class _ClusterWatch:
                                f"{NO_WORKER_TIMEOUT_SECONDS:g} s ({done} of {total} files done); "
                                "the build stops")
 
-    def wait_some(self, futures, done: int, total: int):
-        """The futures of ``futures`` that are done (at least one)."""
-        from concurrent.futures import CancelledError
-
-        from distributed import wait
+    def next_done(self, done: int, total: int) -> list:
+        """The watched futures finished since the last call (at least one)."""
+        import time
 
         from obsprep.exceptions import ClusterError
 
+        last_look = time.monotonic()
         while True:
-            try:
-                finished, _ = wait(futures, timeout=POLL_SECONDS, return_when="FIRST_COMPLETED")
-            except TimeoutError:
-                finished = ()
-            except CancelledError as exc:  # the scheduler went away, or cancelled the run
-                why = next((line.split(":", 1)[1].strip() for line in str(exc).splitlines()
-                            if line.startswith("Message:")), type(exc).__name__)
-                raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
-                                   f"tasks ({why} {done} of {total} files done); the build "
-                                   "stops") from None
-            if any(f.status == "cancelled" for f in finished):
+            finished = self._finished.next_batch(block=False)
+            if any(f.status == "cancelled" for f in finished):  # e.g. the scheduler went away
                 raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
                                    f"tasks ({done} of {total} files done); the build stops")
             if finished:
                 return finished
-            self.check(done, total)
+            time.sleep(self._NAP)
+            if time.monotonic() - last_look >= POLL_SECONDS:
+                self.check(done, total)
+                last_look = time.monotonic()
 
 
 def _is_lost_worker(future) -> bool:
@@ -453,7 +459,9 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
             key = f"obsprep-file-{task.file_index}-{attempt}-{run}"
             file = client.submit(run_one_task, process, cfg_f, grid_f, names_f, strict, task,
                                  key=key, pure=False)
-            return file, client.submit(_summary, file, key=f"{key}-summary", pure=False)
+            summary = client.submit(_summary, file, key=f"{key}-summary", pure=False)
+            watch.add(summary)
+            return file, summary
 
         nodes = itertools.count()
         reducer = FixedTreeReducer(merge=lambda items: client.submit(
@@ -480,7 +488,7 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
                 next_index += 1
             if next_index == len(tasks):
                 break
-            for summary in watch.wait_some(list(waiting), len(entries), len(tasks)):
+            for summary in watch.next_done(len(entries), len(tasks)):
                 task = waiting.pop(summary)
                 index = task.file_index
                 if summary.status == "finished":
@@ -499,8 +507,8 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
                     bar.update()
         root = reducer.result()
         if root is not None:
-            while not root.done():
-                watch.wait_some([root], len(tasks), len(tasks))
+            watch.add(root)
+            watch.next_done(len(tasks), len(tasks))
             if _is_lost_worker(root):
                 raise ClusterError(f"merging the partial results lost the Dask workers of the "
                                    f"cluster at {address}; the build stops")
