@@ -214,7 +214,7 @@ def _analysis_time(text: str, src) -> np.datetime64:
 
 def _check_window_bounds(start_h, end_h, slot_h, src) -> None:
     """ConfigError naming the window key unless the window stays within
-    :data:`MAX_WINDOW_HOURS` of the analysis time, is no longer than that, has at most
+    :data:`MAX_WINDOW_HOURS` of the analysis time, is no longer than that and has at most
     :data:`MAX_TIME_SLOTS` slots."""
     for name, value in (("start_hours", start_h), ("end_hours", end_h)):
         if abs(value) > MAX_WINDOW_HOURS:

@@ -161,7 +161,7 @@ def read_grid_file(path, expected_shape=None, *, need_coordinates=False, mask_va
                                   bathymetry_variable, need_mask_and_bathymetry)
     except InputFileError:
         raise
-    except (OSError, RuntimeError) as exc:  # e.g. a file cut short: values cannot be read
+    except (OSError, RuntimeError, ValueError) as exc:  # e.g. a file cut short, bad encoding
         raise InputFileError(path, f"cannot be read as a netCDF grid file ({exc})") from exc
     finally:
         ds.close()
