@@ -58,6 +58,12 @@ class GridError(ObsprepError, ValueError):
     """The model grid definition is invalid."""
 
 
+class ClusterError(ObsprepError, RuntimeError):
+    """The Dask cluster cannot run the build: no worker joined, every worker was lost, or the
+    scheduler went away.  Not a problem of the input or the configuration; the run has no
+    outputs."""
+
+
 class LedgerError(ObsprepError, RuntimeError):
     """The accounting of raw observations does not balance (a bug, never a user error)."""
 

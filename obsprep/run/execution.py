@@ -291,8 +291,117 @@ def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, 
 # --------------------------------------------------------------------------------------------
 # Dask distributed
 
+#: longest time, in seconds, the build waits while the cluster has no worker (none joined yet,
+#: or all were lost) before it stops with a ClusterError; tests lower it
+NO_WORKER_TIMEOUT_SECONDS = 120.0
+#: seconds between two looks at the cluster while the build waits for results
+POLL_SECONDS = 1.0
+#: times a file's task is submitted again after the scheduler gave it up because the workers
+#: running it were lost (the scheduler itself first moves it to another worker, up to
+#: ``distributed.scheduler.allowed-failures`` times); then the file is listed as unreadable
+FILE_RESUBMISSIONS = 1
+#: the ledger status of a file whose task could not be run (as for a file that cannot be read)
+LOST_STATUS = "unreadable"
+
+
 def _summary(result):
     return result.entry, result.profile_names
+
+
+def _identity(value):
+    """A task returning its argument: the config and the grid enter the cluster as the result
+    of a task, which the scheduler recomputes if the worker holding it is lost (scattered data
+    would be gone with it)."""
+    return value
+
+
+def _lost_result(task: FileTask, attempts: int, address: str) -> FileResult:
+    """The ledger entry of a file whose task lost a worker every time it was tried."""
+    return FileResult(LedgerEntry(
+        file=task.path, sensor=task.source.sensor, kind=task.source.kind, status=LOST_STATUS,
+        message=f"the Dask workers running its task were lost {attempts} time(s) (killed, e.g. "
+                f"out of memory, on the cluster at {address}); not read",
+        size_bytes=os.path.getsize(task.path) if os.path.exists(task.path) else 0))
+
+
+class _ClusterWatch:
+    """Hands out finished futures while watching that the cluster still has workers.
+
+    Futures are :meth:`add`-ed as they are submitted; :meth:`next_done` returns those done
+    since the last call (at least one; a ``distributed.as_completed`` set, so each call costs
+    the finished futures only, not all pending ones).  While none is done it looks at the
+    cluster every :data:`POLL_SECONDS` and raises :class:`ClusterError` once the cluster has had
+    no worker for :data:`NO_WORKER_TIMEOUT_SECONDS`, when the scheduler does not answer or
+    cancels the tasks.  So a build on an empty or dying cluster ends within that bound, with
+    one line.
+    """
+
+    #: seconds between two looks for finished futures
+    _NAP = 0.02
+
+    def __init__(self, client, address: str):
+        from distributed import as_completed
+
+        self.client = client
+        self.address = address
+        self._finished = as_completed()
+        self._empty_since = None
+
+    def add(self, future) -> None:
+        """Watch ``future`` too."""
+        self._finished.add(future)
+
+    def _workers(self) -> int:
+        from obsprep.exceptions import ClusterError
+
+        try:
+            return len(self.client.nthreads(callback_timeout=max(5.0, 5 * POLL_SECONDS)))
+        except (OSError, TimeoutError) as exc:
+            raise ClusterError(f"lost the connection to the Dask scheduler at {self.address} "
+                               f"({type(exc).__name__}: {exc}); the build stops") from None
+
+    def check(self, done: int, total: int) -> None:
+        """Raise ClusterError when the cluster has had no worker for too long."""
+        import time
+
+        from obsprep.exceptions import ClusterError
+
+        if self._workers():
+            self._empty_since = None
+            return
+        now = time.monotonic()
+        if self._empty_since is None:
+            self._empty_since = now
+        elif now - self._empty_since >= NO_WORKER_TIMEOUT_SECONDS:
+            raise ClusterError(f"the Dask cluster at {self.address} has had no worker for "
+                               f"{NO_WORKER_TIMEOUT_SECONDS:g} s ({done} of {total} files done); "
+                               "the build stops")
+
+    def next_done(self, done: int, total: int) -> list:
+        """The watched futures finished since the last call (at least one)."""
+        import time
+
+        from obsprep.exceptions import ClusterError
+
+        last_look = time.monotonic()
+        while True:
+            finished = self._finished.next_batch(block=False)
+            if any(f.status == "cancelled" for f in finished):  # e.g. the scheduler went away
+                raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
+                                   f"tasks ({done} of {total} files done); the build stops")
+            if finished:
+                return finished
+            time.sleep(self._NAP)
+            if time.monotonic() - last_look >= POLL_SECONDS:
+                self.check(done, total)
+                last_look = time.monotonic()
+
+
+def _is_lost_worker(future) -> bool:
+    """The future failed because the workers running it were lost (distributed.KilledWorker)."""
+    from distributed import KilledWorker
+
+    return future.status == "error" and isinstance(future.exception(), KilledWorker)
 
 
 def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
@@ -300,11 +409,17 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
     """Submit the per-file tasks and the fixed merge tree to a Dask cluster.
 
     Input files must be readable under the same paths on the workers (a shared filesystem).
+    A worker lost while it runs a file is made good by running the file again (the scheduler
+    moves the task to another worker; a task it gives up on is submitted again
+    :data:`FILE_RESUBMISSIONS` times, then the file is listed as unreadable).  The merge tree
+    is fed in task order as the files finish, so it is the tree of ``jobs=1`` whatever order the
+    workers finish in.  No worker joined, or none left, for :data:`NO_WORKER_TIMEOUT_SECONDS`:
+    :class:`~obsprep.exceptions.ClusterError`.
     """
-    from obsprep.exceptions import ConfigError
+    from obsprep.exceptions import ClusterError, ConfigError
 
     try:
-        from distributed import Client, as_completed
+        from distributed import Client
     except ImportError as exc:
         raise ConfigError("--scheduler", "running on a Dask cluster needs the optional "
                           "dependency: pip install 'obsprep[dask]'") from exc
@@ -320,37 +435,88 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
         except (OSError, TimeoutError, ValueError) as exc:
             raise ConfigError("--scheduler", f"cannot connect to the Dask scheduler at "
                               f"{scheduler!r}: {exc}") from exc
+    address = getattr(client.scheduler, "address", None) or str(scheduler)
     try:
         outcome = ExecutionResult()
         if not tasks:
             return outcome
         import uuid
 
+        try:
+            client.wait_for_workers(1, timeout=NO_WORKER_TIMEOUT_SECONDS)
+        except TimeoutError:
+            raise ClusterError(f"no worker joined the Dask cluster at {address} within "
+                               f"{NO_WORKER_TIMEOUT_SECONDS:g} s; the build stops") from None
         run = uuid.uuid4().hex  # task keys unique to this run on a shared cluster
         # the config and grid go to the cluster once, not once per task
-        shared = client.scatter([cfg, grid, sensor_names], broadcast=True)
-        cfg_f, grid_f, names_f = shared
-        files = [client.submit(run_one_task, process, cfg_f, grid_f, names_f, strict, t,
-                               key=f"obsprep-file-{t.file_index}-{run}", pure=False)
-                 if t.file_index not in duplicates
-                 else client.submit(_duplicate_result, t, duplicates[t.file_index], pure=False,
-                                    key=f"obsprep-duplicate-{t.file_index}-{run}")
-                 for t in tasks]
-        summaries = [client.submit(_summary, f, pure=False) for f in files]
-        # the one merge tree, each node a task on the cluster
+        cfg_f, grid_f, names_f = (client.submit(_identity, value, key=f"obsprep-{name}-{run}")
+                                  for name, value in (("config", cfg), ("grid", grid),
+                                                      ("sensors", sensor_names)))
+        watch = _ClusterWatch(client, address)
+
+        def submit(task, attempt):
+            key = f"obsprep-file-{task.file_index}-{attempt}-{run}"
+            file = client.submit(run_one_task, process, cfg_f, grid_f, names_f, strict, task,
+                                 key=key, pure=False)
+            summary = client.submit(_summary, file, key=f"{key}-summary", pure=False)
+            watch.add(summary)
+            return file, summary
+
         nodes = itertools.count()
         reducer = FixedTreeReducer(merge=lambda items: client.submit(
             merge_group, items, pure=False, key=f"obsprep-merge-{next(nodes)}-{run}"))
-        for file in files:
-            reducer.add(file)
+        file_of, entries, attempts = {}, {}, {}
+        waiting = {}  # summary future -> task
+        for task in tasks:
+            if task.file_index in duplicates:
+                entries[task.file_index] = _summary(_duplicate_result(task,
+                                                                      duplicates[task.file_index]))
+                file_of[task.file_index] = None
+                if bar is not None:
+                    bar.update()
+            else:
+                attempts[task.file_index] = 1
+                file, summary = submit(task, 1)
+                file_of[task.file_index] = file
+                waiting[summary] = task
+        next_index = 0
+        while True:
+            # the tree takes the files in task order, each once it has finished
+            while next_index < len(tasks) and next_index in entries:
+                reducer.add(file_of.pop(next_index))
+                next_index += 1
+            if next_index == len(tasks):
+                break
+            for summary in watch.next_done(len(entries), len(tasks)):
+                task = waiting.pop(summary)
+                index = task.file_index
+                if summary.status == "finished":
+                    entries[index] = summary.result()
+                elif _is_lost_worker(file_of[index]) or _is_lost_worker(summary):
+                    if attempts[index] <= FILE_RESUBMISSIONS:
+                        attempts[index] += 1
+                        file_of[index], again = submit(task, attempts[index])
+                        waiting[again] = task
+                        continue
+                    entries[index] = _summary(_lost_result(task, attempts[index], address))
+                    file_of[index] = None
+                else:
+                    summary.result()  # the task's own exception, raised here as itself
+                if bar is not None:
+                    bar.update()
         root = reducer.result()
-        if bar is not None:
-            for _ in as_completed(summaries):
-                bar.update()
-        for entry, names in client.gather(summaries):
+        if root is not None:
+            watch.add(root)
+            watch.next_done(len(tasks), len(tasks))
+            if _is_lost_worker(root):
+                raise ClusterError(f"merging the partial results lost the Dask workers of the "
+                                   f"cluster at {address}; the build stops")
+            root = root.result()
+        for index in range(len(tasks)):
+            entry, names = entries[index]
             outcome.entries.append(entry)
             outcome.profile_names.update(names)
-        outcome.accumulator = root.result()
+        outcome.accumulator = root
         return outcome
     finally:
         if own:
@@ -358,4 +524,5 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
 
 
 __all__ = ["MERGE_FAN_IN", "DUPLICATE_FILE", "FileTask", "FileResult", "ExecutionResult", "merge_group",
-           "FixedTreeReducer", "identical_files", "run_one_task", "run_tasks"]
+           "FixedTreeReducer", "identical_files", "run_one_task", "run_tasks",
+           "NO_WORKER_TIMEOUT_SECONDS"]

@@ -139,6 +139,13 @@ class Source:
         return out, unmatched
 
 
+#: longest assimilation window, and farthest its start or end from the analysis time, hours
+#: (366 days): bounds the days whose files are listed and the slots a build allocates
+MAX_WINDOW_HOURS = 366 * 24.0
+#: most time slots in a window (a slot per minute of a 69-day window)
+MAX_TIME_SLOTS = 100_000
+
+
 @dataclass
 class Window:
     """Assimilation window: analysis time, start/end (UTC datetime64[ns]) and slot length (s)."""
@@ -199,6 +206,42 @@ def _parse_date(text: str, key: str, source) -> dt.date:
         raise ConfigError(key, f"expected a date YYYY-MM-DD, got '{text}'", source) from None
 
 
+#: analysis times accepted: datetime64[ns] spans 1677-09-21 .. 2262-04-11 and wraps around
+#: silently beyond, so the window (up to MAX_WINDOW_HOURS either side) must fit inside
+_ANALYSIS_RANGE = (np.datetime64("1679-01-01", "s"), np.datetime64("2261-01-01", "s"))
+
+
+def _analysis_time(text: str, src) -> np.datetime64:
+    """The analysis time (datetime64[ns]) of the ISO 8601 UTC ``text``; ConfigError naming
+    ``window.analysis_time`` unless it parses and lies within :data:`_ANALYSIS_RANGE`."""
+    try:
+        seconds = np.datetime64(text.rstrip("Z").replace("+00:00", ""), "s")
+    except ValueError:
+        raise ConfigError("window.analysis_time", f"expected ISO 8601 UTC time, got '{text}'", src) from None
+    earliest, latest = _ANALYSIS_RANGE
+    if np.isnat(seconds) or not earliest <= seconds <= latest:
+        raise ConfigError("window.analysis_time", f"expected a time between {earliest} and "
+                          f"{latest}, got '{text}'", src)
+    return np.datetime64(text.rstrip("Z").replace("+00:00", ""), "ns")
+
+
+def _check_window_bounds(start_h, end_h, slot_h, src) -> None:
+    """ConfigError naming the window key unless the window stays within
+    :data:`MAX_WINDOW_HOURS` of the analysis time, is no longer than that and has at most
+    :data:`MAX_TIME_SLOTS` slots."""
+    for name, value in (("start_hours", start_h), ("end_hours", end_h)):
+        if abs(value) > MAX_WINDOW_HOURS:
+            raise ConfigError(f"window.{name}", f"{value} h is more than {MAX_WINDOW_HOURS:g} h "
+                              f"({MAX_WINDOW_HOURS / 24:g} days) from the analysis time", src)
+    if end_h - start_h > MAX_WINDOW_HOURS:
+        raise ConfigError("window.end_hours", f"a window of {end_h - start_h:g} h is longer than "
+                          f"{MAX_WINDOW_HOURS:g} h ({MAX_WINDOW_HOURS / 24:g} days)", src)
+    slots = np.ceil((end_h - start_h) / slot_h - 1e-9)
+    if slots > MAX_TIME_SLOTS:
+        raise ConfigError("window.slot_hours", f"slots of {slot_h:g} h cut the {end_h - start_h:g} h "
+                          f"window into {slots:.0f} slots, more than {MAX_TIME_SLOTS}", src)
+
+
 def load_config(config, date: str | dt.date | None = None) -> Config:
     """Read, validate and resolve a build configuration.
 
@@ -231,10 +274,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     run_date = date if isinstance(date, dt.date) else _parse_date(date, "--date", src)
     placeholders.check_time_text(win["analysis_time"], "window.analysis_time", src)
     text = placeholders.expand_time(win["analysis_time"], run_date)
-    try:
-        analysis = np.datetime64(text.rstrip("Z").replace("+00:00", ""), "ns")
-    except ValueError:
-        raise ConfigError("window.analysis_time", f"expected ISO 8601 UTC time, got '{text}'", src) from None
+    analysis = _analysis_time(text, src)
     start_h, end_h = float(win.get("start_hours", -24.0)), float(win.get("end_hours", 0.0))
     slot_h = float(win.get("slot_hours", 24.0))
     for name, value in (("start_hours", start_h), ("end_hours", end_h), ("slot_hours", slot_h)):
@@ -244,6 +284,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         raise ConfigError("window.slot_hours", f"expected a number of hours > 0, got {slot_h}", src)
     if end_h <= start_h:
         raise ConfigError("window.end_hours", f"must be after start_hours ({start_h}), got {end_h}", src)
+    _check_window_bounds(start_h, end_h, slot_h, src)
     to_ns = lambda h: np.timedelta64(int(round(h * 3600e9)), "ns")  # noqa: E731
     window = Window(analysis, analysis + to_ns(start_h), analysis + to_ns(end_h),
                     slot_h * 3600.0)
@@ -297,7 +338,8 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         validate_options(s.kind, s.options, f"sources[{s.index}].options", src)
 
     output = from_table(OutputSettings, raw.get("output"))
-    placeholders.check_path_pattern(output.name, "output.name", src)
+    placeholders.check_file_name(output.name, "output.name", src,
+                                 dt.datetime.combine(run_date, dt.time()))
     superobs = dict(raw.get("superobs", {}))
     for merged, members in superobs.get("merge_sensors", {}).items():
         for m in members:
@@ -310,6 +352,9 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     from obsprep.settings.errors import check_superobs_error_settings
 
     check_superobs_error_settings(superobs, src)
+    from obsprep.settings.grid import check_grid_table
+
+    check_grid_table(raw["grid"], src)  # sizes bounded here, before any array is made
     config = Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
                   grid=dict(raw["grid"]), sources=sources,
                   superobs=from_table(SuperobsSettings, superobs), output=output)

@@ -7,9 +7,10 @@ from pathlib import Path
 from pyproj import CRS
 from pyproj.exceptions import CRSError
 
-from obsprep.exceptions import ConfigError, GridError
+from obsprep.exceptions import ConfigError, GridError, InputFileError
 from obsprep.geo.grid.base import ModelGrid
 from obsprep.geo.grid.curvilinear import CurvilinearGrid
+from obsprep.geo.grid.limits import MAX_GRID_CELLS, MAX_LAYERS
 from obsprep.geo.grid.projected import ProjectedGrid
 from obsprep.geo.grid.regular import RegularGrid
 from obsprep.geo.grid.vertical import DEFAULT_LAYER_INTERFACES_M, layer_interfaces_from_depths
@@ -38,10 +39,14 @@ _KEYS = {
     },
 }
 _OPTIONAL = {
-    "regular": {"mask_file", "layer_interfaces"},
-    "projected": {"mask_file", "layer_interfaces"},
-    "curvilinear": {"layer_interfaces"},
+    "regular": {"mask_file", "mask_variable", "bathymetry_variable", "layer_interfaces"},
+    "projected": {"mask_file", "mask_variable", "bathymetry_variable", "layer_interfaces"},
+    "curvilinear": {"mask_variable", "bathymetry_variable", "layer_interfaces"},
 }
+#: the keys giving the (rows, columns) of each grid type, checked against MAX_GRID_CELLS
+_SHAPE_KEYS = {"regular": ("nlat", "nlon"), "projected": ("ny", "nx")}
+#: the grid-file key of each grid type that reads mask and bathymetry
+_FILE_KEY = {"regular": "mask_file", "projected": "mask_file", "curvilinear": "file"}
 
 
 def _check(kind, key, value):
@@ -83,16 +88,21 @@ def _projected_crs(value) -> CRS:
     return crs
 
 
-def grid_from_config(cfg: dict, base_dir: Path) -> ModelGrid:
-    """The model grid described by the ``[grid]`` configuration table ``cfg``.
+def check_grid_table(cfg: dict, source=None) -> None:
+    """Check the ``[grid]`` table from its values alone (no file is opened): the keys of its
+    type, each value's kind, at most :data:`~obsprep.geo.grid.limits.MAX_GRID_CELLS` cells and
+    :data:`~obsprep.geo.grid.limits.MAX_LAYERS` layers, and the variable names only with a
+    file to read them from.  Raises :class:`ConfigError` naming the key."""
+    try:
+        _check_table(cfg)
+    except ConfigError as exc:
+        if source is not None and exc.path is None:  # name the configuration file too
+            exc.path = source
+            exc.args = (f"{source}: {exc.args[0]}",)
+        raise
 
-    ``type`` is "regular" (keys lon_min, lat_min, dlon, dlat, nlon, nlat), "projected" (crs,
-    x_min, y_min, dx, dy, nx, ny) or "curvilinear" (file).  Optional: ``mask_file``
-    (regular/projected) and ``layer_interfaces`` (list of depths in m, 0 first; default
-    [0, 1e4], one layer).  Relative paths are resolved against ``base_dir``.  Missing, unknown
-    or bad keys raise :class:`ConfigError` with ``key = "grid.<name>"``; unusable files raise
-    :class:`InputFileError`.
-    """
+
+def _check_table(cfg: dict) -> None:
     if not isinstance(cfg, dict):
         raise ConfigError("grid", f"expected a table, got {type(cfg).__name__}")
     grid_type = cfg.get("type")
@@ -109,32 +119,69 @@ def grid_from_config(cfg: dict, base_dir: Path) -> ModelGrid:
         if key not in cfg:
             raise ConfigError(f"grid.{key}", f"missing; expected {meaning}")
         _check(kind, key, cfg[key])
+    if grid_type in _SHAPE_KEYS:
+        rows, columns = _SHAPE_KEYS[grid_type]
+        cells = cfg[rows] * cfg[columns]
+        if cells > MAX_GRID_CELLS:
+            raise ConfigError(f"grid.{columns}", f"{cfg[columns]} columns x {cfg[rows]} rows "
+                              f"(grid.{rows}) = {cells} cells exceeds the limit of "
+                              f"{MAX_GRID_CELLS} cells")
+    for key in ("mask_variable", "bathymetry_variable"):
+        if key in cfg:
+            _check("text", key, cfg[key])
+            if _FILE_KEY[grid_type] not in cfg:
+                raise ConfigError(f"grid.{key}", f"names a variable of grid.{_FILE_KEY[grid_type]}, "
+                                  "which is not given")
 
     interfaces = cfg.get("layer_interfaces", DEFAULT_LAYER_INTERFACES_M)
     if not isinstance(interfaces, (list, tuple)) or not all(
             isinstance(v, (int, float)) and not isinstance(v, bool) for v in interfaces):
         raise ConfigError("grid.layer_interfaces",
                           f"expected a list of depths in m (0 first), got {interfaces!r}")
+    if len(interfaces) - 1 > MAX_LAYERS:
+        raise ConfigError("grid.layer_interfaces", f"{len(interfaces) - 1} layers exceed the "
+                          f"limit of {MAX_LAYERS} layers")
     try:
-        interfaces = layer_interfaces_from_depths(interfaces)
+        layer_interfaces_from_depths(interfaces)
     except GridError as exc:
         raise ConfigError("grid.layer_interfaces", str(exc)) from exc
 
-    mask_file = None
-    if "mask_file" in cfg:
-        mask_file = _existing_file("mask_file", cfg["mask_file"], base_dir)
 
+def grid_from_config(cfg: dict, base_dir: Path) -> ModelGrid:
+    """The model grid described by the ``[grid]`` configuration table ``cfg``.
+
+    ``type`` is "regular" (keys lon_min, lat_min, dlon, dlat, nlon, nlat), "projected" (crs,
+    x_min, y_min, dx, dy, nx, ny) or "curvilinear" (file).  Optional: ``mask_file``
+    (regular/projected), ``mask_variable`` and ``bathymetry_variable`` (their names in the
+    mask or grid file where it lacks the CF standard names) and ``layer_interfaces`` (list of
+    depths in m, 0 first; default [0, 1e4], one layer).  Relative paths are resolved against
+    ``base_dir``.  The table is checked first (:func:`check_grid_table`: sizes bounded before
+    any array is made).  Missing, unknown or bad keys raise :class:`ConfigError` with
+    ``key = "grid.<name>"``; so does a mask or grid file that cannot be used or does not yield
+    both a land/sea mask and a bathymetry (the message names the file and what is missing).
+    """
+    check_grid_table(cfg)
+    grid_type = cfg["type"]
+    interfaces = layer_interfaces_from_depths(cfg.get("layer_interfaces",
+                                                      DEFAULT_LAYER_INTERFACES_M))
+    variables = {"mask_variable": cfg.get("mask_variable"),
+                 "bathymetry_variable": cfg.get("bathymetry_variable")}
+    file_key = _FILE_KEY[grid_type]
+    path = _existing_file(file_key, cfg[file_key], base_dir) if file_key in cfg else None
     try:
         if grid_type == "regular":
             return RegularGrid(cfg["lon_min"], cfg["lat_min"], cfg["dlon"], cfg["dlat"],
                                cfg["nlon"], cfg["nlat"], layer_interfaces=interfaces,
-                               mask_file=mask_file)
+                               mask_file=path, **variables)
         if grid_type == "projected":
             crs = _projected_crs(cfg["crs"])
             return ProjectedGrid(crs, cfg["x_min"], cfg["y_min"], cfg["dx"], cfg["dy"],
                                  cfg["nx"], cfg["ny"], layer_interfaces=interfaces,
-                                 mask_file=mask_file)
-        path = _existing_file("file", cfg["file"], base_dir)
-        return CurvilinearGrid.from_file(path, layer_interfaces=interfaces)
+                                 mask_file=path, **variables)
+        return CurvilinearGrid.from_file(path, layer_interfaces=interfaces, **variables)
     except GridError as exc:
         raise ConfigError("grid", str(exc)) from exc
+    except InputFileError as exc:
+        # the grid is part of the configuration: a file that cannot give it stops the run
+        # as a configuration error, naming the file and what is missing
+        raise ConfigError(f"grid.{file_key}", str(exc)) from exc

@@ -545,8 +545,10 @@ def test_projected_grid_dataset_reads_back_as_curvilinear(tmp_path):
     np.testing.assert_array_equal(found[1], j)
 
 
-def test_land_binary_mask_and_missing_fields(tmp_path):
-    # CF standard names: land_binary_mask is 1 on land; no mask -> all sea; no bathymetry -> +inf
+def test_land_binary_mask_and_fields_by_variable_name(tmp_path):
+    # CF standard name table (from memory): land_binary_mask is 1 on land, sea_binary_mask 1 on
+    # sea.  A file must yield a mask and a bathymetry, by standard_name or by the variable names
+    # of the configuration; one lacking either is an error naming the file and what is missing.
     lon, lat, _, _ = _rotated_affine_grid(5, 6)
     land = np.zeros(lon.shape, np.int8)
     land[2, 3] = 1
@@ -554,11 +556,30 @@ def test_land_binary_mask_and_missing_fields(tmp_path):
                     coords={"glon": (("y", "x"), lon, {"standard_name": "longitude"}),
                             "glat": (("y", "x"), lat, {"standard_name": "latitude"})})
     ds.to_netcdf(tmp_path / "land.nc")
-    grid = CurvilinearGrid.from_file(tmp_path / "land.nc")
+    with pytest.raises(InputFileError, match="no bathymetry.*bathymetry_variable") as err:
+        CurvilinearGrid.from_file(tmp_path / "land.nc")
+    assert "land.nc" in str(err.value)
+    # a depth without standard_name, named explicitly; the land mask found by its standard_name
+    depth = np.linspace(10.0, 300.0, lon.size).reshape(lon.shape)
+    ds["hdepth"] = (("y", "x"), depth, {"units": "m"})
+    ds.to_netcdf(tmp_path / "named_depth.nc")
+    grid = CurvilinearGrid.from_file(tmp_path / "named_depth.nc", bathymetry_variable="hdepth")
     assert grid.sea_mask.sum() == lon.size - 1 and not grid.sea_mask[2, 3]
-    assert np.all(np.isinf(grid.bathymetry))
-    ds.drop_vars("land").to_netcdf(tmp_path / "bare.nc")
-    assert CurvilinearGrid.from_file(tmp_path / "bare.nc").sea_mask.all()
+    np.testing.assert_array_equal(grid.bathymetry, depth)
+    # no standard names at all: without a mapping the mask is missing (no longer all sea) ...
+    bare = ds.drop_vars("land").assign(tmask=(("y", "x"), 1 - land))
+    bare.to_netcdf(tmp_path / "bare.nc")
+    with pytest.raises(InputFileError, match="no land/sea mask.*mask_variable") as err:
+        CurvilinearGrid.from_file(tmp_path / "bare.nc", bathymetry_variable="hdepth")
+    assert "bare.nc" in str(err.value) and "tmask" in str(err.value)  # the variables listed
+    # ... and with it the named variable is read as 1 = sea (the sea_binary_mask convention)
+    grid = CurvilinearGrid.from_file(tmp_path / "bare.nc", mask_variable="tmask",
+                                     bathymetry_variable="hdepth")
+    assert grid.sea_mask.sum() == lon.size - 1 and not grid.sea_mask[2, 3]
+    # a named variable that is not in the file
+    with pytest.raises(InputFileError, match="no variable 'mask'.*tmask"):
+        CurvilinearGrid.from_file(tmp_path / "bare.nc", mask_variable="mask",
+                                  bathymetry_variable="hdepth")
 
 
 def test_bad_grid_files_name_file_and_variable(tmp_path):
@@ -607,7 +628,9 @@ def test_mask_file_for_regular_grid(tmp_path):
     assert "flipped.nc" in str(err.value) and err.value.variable == "lon"
     # a mask on other cells: the message gives variable, expected and found shapes
     mask_only = xr.Dataset({"m": (("a", "b"), np.ones((5, 8), np.int8),
-                                  {"standard_name": "sea_binary_mask"})})
+                                  {"standard_name": "sea_binary_mask"}),
+                            "h": (("a", "b"), np.full((5, 8), 50.0),
+                                  {"standard_name": "sea_floor_depth_below_geoid"})})
     mask_only.to_netcdf(tmp_path / "small.nc")
     with pytest.raises(InputFileError) as err:
         RegularGrid(**grid_args, mask_file=tmp_path / "small.nc")
@@ -698,3 +721,33 @@ def test_bad_projected_and_curvilinear_config(tmp_path, cfg, key):
     with pytest.raises(ConfigError) as err:
         grid_from_config(cfg, tmp_path)
     assert err.value.key == key
+
+
+def test_grid_size_bounded_from_the_configuration_and_the_file_metadata(tmp_path):
+    import netCDF4
+
+    from obsprep.geo.grid import MAX_GRID_CELLS
+
+    side = 10_000  # 1e8 cells: twice the limit
+    assert side * side > MAX_GRID_CELLS
+    with pytest.raises(ConfigError, match=f"exceeds the limit of {MAX_GRID_CELLS} cells") as err:
+        grid_from_config({**REGULAR, "dlon": 1e-4, "nlon": side, "nlat": side, "dlat": 1e-4},
+                         tmp_path)
+    assert err.value.key == "grid.nlon"
+    with pytest.raises(GridError, match="exceeds the limit"):
+        ProjectedGrid("EPSG:3413", 0.0, 0.0, 1.0, 1.0, side, side)
+    # a curvilinear grid file declaring 1e8 cells: refused from its dimensions, before the
+    # 800 MB of each coordinate would be read (netCDF-4 stores unwritten chunks as fill values
+    # without space, netCDF User Guide; so the file itself is small)
+    path = tmp_path / "huge.nc"
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.createDimension("y", side)
+        nc.createDimension("x", side)
+        for name, standard_name in (("lon", "longitude"), ("lat", "latitude")):
+            var = nc.createVariable(name, "f8", ("y", "x"), chunksizes=(100, 100))
+            var.standard_name = standard_name
+    assert path.stat().st_size < 1e6
+    with pytest.raises(ConfigError) as err:
+        grid_from_config({"type": "curvilinear", "file": str(path)}, tmp_path)
+    assert err.value.key == "grid.file" and "huge.nc" in str(err.value) \
+        and "exceeds the limit" in str(err.value)

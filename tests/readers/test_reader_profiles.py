@@ -121,7 +121,7 @@ def test_profile_naming_an_absent_variable_is_a_one_line_error(tmp_path):
 def test_profile_in_a_build_config(tmp_path):
     bent_product(tmp_path / "bent_20261119.nc")
     cfg = {
-        "window": {"analysis_time": "2026-11-20T00:00:00", "start_hours": -24.0 * 365 * 20},
+        "window": {"analysis_time": "2022-03-14T00:00:00", "start_hours": -48.0},
         "grid": {"type": "regular", "lon_min": -31.0, "lat_min": -62.0, "dlon": 1.0,
                  "dlat": 1.0, "nlon": 5, "nlat": 4},
         "sources": [{"sensor": "bent_sst", "paths": [str(tmp_path / "bent_*.nc")],

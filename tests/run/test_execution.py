@@ -214,3 +214,208 @@ def test_identical_files_compares_whole_contents_within_a_source(tmp_path):
              FileTask(one, str(tmp_path / "missing.nc"), 4)]
     # Reference: byte-for-byte comparison by hand; d.nc belongs to another source (kept)
     assert identical_files(tasks) == {2: str(tmp_path / "a.nc")}
+
+
+# ----------------------------------------------------------------------------------------------
+# a cluster that loses workers, or has none
+
+class KillWorkerOnFile:
+    """The per-file work, except that the worker process running file ``index`` is killed with
+    SIGKILL (as the kernel's out-of-memory killer does) the first ``kills`` times it is tried;
+    the tries are counted in files under ``marker_dir``, shared by the worker processes."""
+
+    def __init__(self, index, kills, marker_dir):
+        self.index, self.kills, self.marker_dir = index, kills, str(marker_dir)
+
+    def __call__(self, cfg, grid, source, path, file_index, sensor_names, strict):
+        import os
+        import signal
+        from pathlib import Path
+
+        from obsprep.run.build import process_file
+
+        if file_index == self.index:
+            tried = len(list(Path(self.marker_dir).glob("kill-*")))
+            if tried < self.kills:
+                Path(self.marker_dir, f"kill-{tried}").touch()
+                os.kill(os.getpid(), signal.SIGKILL)
+        return process_file(cfg, grid, source, path, file_index, sensor_names, strict)
+
+
+def _process_cluster(distributed, n_workers=1):
+    """A local cluster of worker processes, each under a nanny that restarts it when killed."""
+    return distributed.LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
+                                    dashboard_address=None)
+
+
+def test_worker_killed_in_the_middle_is_retried_and_the_result_is_identical(tmp_path, monkeypatch):
+    # with the Dask default distributed.scheduler.allowed-failures = 3 the scheduler runs the
+    # task again on the restarted worker; the build's own resubmission, for a task the
+    # scheduler gives up, is tested with allowed-failures = 0 in the next test
+    distributed = pytest.importorskip("distributed")
+
+    from obsprep.run import build as build_module
+
+    monkeypatch.setattr(execution, "MERGE_FAN_IN", 3)
+    config, _ = many_files_scenario(tmp_path, n_files=7, n=200, seed=11)
+    local = build(config, out=tmp_path / "local", jobs=1)
+    (tmp_path / "markers").mkdir()
+    monkeypatch.setattr(build_module, "process_file", KillWorkerOnFile(4, 1, tmp_path / "markers"))
+    with _process_cluster(distributed) as cluster, distributed.Client(cluster) as client:
+        on_cluster = build(config, out=tmp_path / "dask", scheduler=client)
+    assert len(list((tmp_path / "markers").iterdir())) == 1  # the worker was killed once
+    assert [e.status for e in on_cluster.ledger.entries] == ["ok"] * 7
+    assert_identical_files(local.outputs["netcdf"], on_cluster.outputs["netcdf"])
+
+
+def test_file_that_kills_every_worker_it_meets_is_listed_not_fatal(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import dask
+
+    from obsprep.run import build as build_module
+
+    config, _ = many_files_scenario(tmp_path, n_files=4, n=100, seed=12)
+    local = build(config, out=tmp_path / "local", jobs=1)
+    (tmp_path / "markers").mkdir()
+    monkeypatch.setattr(build_module, "process_file", KillWorkerOnFile(2, 99, tmp_path / "markers"))
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}), \
+            _process_cluster(distributed) as cluster, distributed.Client(cluster) as client:
+        on_cluster = build(config, out=tmp_path / "dask", scheduler=client)
+    tries = 1 + execution.FILE_RESUBMISSIONS
+    assert len(list((tmp_path / "markers").iterdir())) == tries
+    lost = on_cluster.ledger.entries[2]
+    assert lost.file == local.ledger.entries[2].file and lost.status == "unreadable"
+    assert f"lost {tries} time(s)" in lost.message and lost.read == 0
+    # a file queued on the same worker when it was killed may be lost with it (the scheduler
+    # cannot tell it from the culprit): then it is listed the same way, never silently missing
+    for got, expected in zip(on_cluster.ledger.entries, local.ledger.entries, strict=True):
+        assert got.file == expected.file
+        if got.status == "ok":
+            assert (got.read, got.kept, got.rejected) == (expected.read, expected.kept,
+                                                          expected.rejected)
+        else:
+            assert got.status == "unreadable" and "Dask workers" in got.message
+    assert int(on_cluster.superobs["count"].sum()) == sum(e.kept for e in on_cluster.ledger.entries)
+
+
+def test_cluster_without_workers_fails_within_the_bound(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import time
+
+    from obsprep.exceptions import ClusterError
+
+    monkeypatch.setattr(execution, "NO_WORKER_TIMEOUT_SECONDS", 2.0)
+    monkeypatch.setattr(execution, "POLL_SECONDS", 0.2)
+    config, _ = many_files_scenario(tmp_path, n_files=2, n=20)
+    with distributed.LocalCluster(n_workers=0, processes=False, dashboard_address=None) as cluster:
+        started = time.monotonic()
+        with pytest.raises(ClusterError, match="no worker joined") as err:
+            build(config, out=tmp_path / "none", scheduler=cluster.scheduler_address)
+        assert time.monotonic() - started < 2.0 + 10.0  # the bound, and slack for a slow machine
+        assert "\n" not in str(err.value)
+        result = CliRunner().invoke(cli, ["build", str(config), "--quiet", "--out",
+                                          str(tmp_path / "cli"), "--scheduler",
+                                          cluster.scheduler_address])
+    assert result.exit_code not in (0, 2), result.output  # a failure, not a usage error
+    assert "no worker joined" in result.output and "Traceback" not in result.output
+    assert not (tmp_path / "none" / "superobs_20261120.nc").exists()
+
+
+class PauseOnFile:
+    """The per-file work, pausing ``seconds`` on file ``index`` after leaving a marker file."""
+
+    def __init__(self, index, marker_dir, seconds):
+        self.index, self.marker_dir, self.seconds = index, str(marker_dir), seconds
+
+    def __call__(self, cfg, grid, source, path, file_index, sensor_names, strict):
+        import time
+        from pathlib import Path
+
+        from obsprep.run.build import process_file
+
+        if file_index == self.index:
+            Path(self.marker_dir, "started").touch()
+            time.sleep(self.seconds)
+        return process_file(cfg, grid, source, path, file_index, sensor_names, strict)
+
+
+def test_last_worker_lost_fails_within_the_bound(tmp_path, monkeypatch):
+    # the only worker goes away while the build runs (its nanny closed, so nothing restarts
+    # it): no worker is left, and the build stops within the bound with one line
+    distributed = pytest.importorskip("distributed")
+    import threading
+    import time
+
+    from obsprep.exceptions import ClusterError
+    from obsprep.run import build as build_module
+
+    monkeypatch.setattr(execution, "NO_WORKER_TIMEOUT_SECONDS", 2.0)
+    monkeypatch.setattr(execution, "POLL_SECONDS", 0.2)
+    config, _ = many_files_scenario(tmp_path, n_files=4, n=20)
+    markers = tmp_path / "markers"
+    markers.mkdir()
+    monkeypatch.setattr(build_module, "process_file", PauseOnFile(1, markers, 1.0))
+    with _process_cluster(distributed, n_workers=1) as cluster, \
+            distributed.Client(cluster) as client:
+        def remove_the_worker():
+            deadline = time.monotonic() + 60.0
+            while not (markers / "started").exists() and time.monotonic() < deadline:
+                time.sleep(0.05)
+            cluster.scale(0)
+
+        remover = threading.Thread(target=remove_the_worker)
+        remover.start()
+        started = time.monotonic()
+        try:
+            with pytest.raises(ClusterError, match="has had no worker for 2 s") as err:
+                build(config, out=tmp_path / "dask", scheduler=client)
+        finally:
+            remover.join()
+        assert time.monotonic() - started < 2.0 + 20.0
+    assert "\n" not in str(err.value) and "files done" in str(err.value)
+
+
+def test_scheduler_lost_in_the_middle_is_a_cluster_error(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import threading
+    import time
+
+    from obsprep.exceptions import ClusterError
+    from obsprep.run import build as build_module
+
+    monkeypatch.setattr(execution, "POLL_SECONDS", 0.2)
+    config, _ = many_files_scenario(tmp_path, n_files=3, n=20)
+    markers = tmp_path / "markers"
+    markers.mkdir()
+    monkeypatch.setattr(build_module, "process_file", PauseOnFile(1, markers, 1.0))
+    cluster = distributed.LocalCluster(n_workers=1, processes=False, dashboard_address=None)
+    client = distributed.Client(cluster)
+
+    def stop_the_scheduler():
+        deadline = time.monotonic() + 60.0
+        while not (markers / "started").exists() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        cluster.sync(cluster.scheduler.close)
+
+    stopper = threading.Thread(target=stop_the_scheduler)
+    stopper.start()
+    started = time.monotonic()
+    try:
+        with pytest.raises(ClusterError, match="scheduler") as err:
+            build(config, out=tmp_path / "dask", scheduler=client)
+        assert time.monotonic() - started < 30.0
+    finally:
+        stopper.join()
+        import contextlib
+
+        with contextlib.suppress(TimeoutError):  # the scheduler is gone: do not wait for it
+            client.close(timeout=2)
+            cluster.close(timeout=2)
+    assert "\n" not in str(err.value) and "files done" in str(err.value)
+
+
+def test_readme_states_the_no_worker_bound():
+    from pathlib import Path
+
+    text = " ".join((Path(__file__).parents[2] / "README.md").read_text().split())
+    assert f"none is left, for {execution.NO_WORKER_TIMEOUT_SECONDS:g} s" in text

@@ -14,6 +14,7 @@ Three kinds of horizontal grid share one interface (:class:`ModelGrid`):
 from obsprep.geo.grid.base import BELOW_BATHYMETRY, BELOW_DEEPEST_LAYER, LAND, OUTSIDE_GRID, ModelGrid
 from obsprep.geo.grid.curvilinear import CurvilinearGrid
 from obsprep.geo.grid.gridfile import grid_dataset, read_grid_file, write_grid_file
+from obsprep.geo.grid.limits import MAX_GRID_CELLS, MAX_LAYERS
 from obsprep.geo.grid.projected import ProjectedGrid
 from obsprep.geo.grid.regular import RegularGrid
 from obsprep.geo.grid.vertical import layer_index_from_depth, layer_interfaces_from_depths
@@ -26,5 +27,6 @@ __all__ = [
     "write_grid_file", "read_grid_file", "grid_dataset", "east_north_to_grid",
     "grid_to_east_north", "axis_angle_from_centres", "great_circle_distance",
     "EARTH_MEAN_RADIUS_M", "layer_interfaces_from_depths", "layer_index_from_depth",
-    "OUTSIDE_GRID", "LAND", "BELOW_BATHYMETRY", "BELOW_DEEPEST_LAYER",
+    "OUTSIDE_GRID", "LAND", "BELOW_BATHYMETRY", "BELOW_DEEPEST_LAYER", "MAX_GRID_CELLS",
+    "MAX_LAYERS",
 ]

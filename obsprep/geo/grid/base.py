@@ -12,6 +12,7 @@ import xarray as xr
 
 from obsprep.exceptions import GridError, InputFileError
 from obsprep.geo.grid.gridfile import grid_dataset, read_grid_file
+from obsprep.geo.grid.limits import check_cell_count
 from obsprep.geo.grid.vertical import DEFAULT_LAYER_INTERFACES_M, layer_index_from_depth, layer_interfaces_from_depths
 from obsprep.geo.rotation import east_north_to_grid, grid_to_east_north
 from obsprep.geo.sphere import great_circle_distance
@@ -55,6 +56,7 @@ class ModelGrid:
     def __init__(self, ny, nx, *, sea_mask=None, bathymetry=None, layer_interfaces=None):
         self.ny = _positive_int(ny, "ny")
         self.nx = _positive_int(nx, "nx")
+        check_cell_count(self.ny, self.nx)
         self.sea_mask = self._field(sea_mask, True, bool, "sea_mask")
         bathymetry = self._field(bathymetry, np.inf, float, "bathymetry")
         self.bathymetry = np.where(np.isnan(bathymetry), np.inf, bathymetry)
@@ -233,15 +235,18 @@ class ModelGrid:
                           attrs={"title": "obsprep model grid", "grid_type": self.grid_type})
         return self._dataset_extras(ds)
 
-    def apply_mask_file(self, path) -> None:
+    def apply_mask_file(self, path, *, mask_variable=None, bathymetry_variable=None) -> None:
         """Take the sea mask and bathymetry from a netCDF file of shape (ny, nx).
 
-        Variables are found by standard_name (see :mod:`obsprep.geo.grid.gridfile`).  When the file
-        has cell-centre coordinates, each must fall in the grid cell of the same index, which
-        catches files stored north-to-south or on another grid.  Raises
-        :class:`InputFileError` naming the file and variable.
+        Variables are found by standard_name, or by the names ``mask_variable`` and
+        ``bathymetry_variable`` (see :func:`obsprep.geo.grid.gridfile.read_grid_file`); the file
+        must yield both.  When the file has cell-centre coordinates, each must fall in the grid
+        cell of the same index, which catches files stored north-to-south or on another grid.
+        Raises :class:`InputFileError` naming the file and variable.
         """
-        contents = read_grid_file(path, self.shape)
+        contents = read_grid_file(path, self.shape, mask_variable=mask_variable,
+                                  bathymetry_variable=bathymetry_variable,
+                                  need_mask_and_bathymetry=True)
         if contents.lon is not None:
             j_own, i_own = np.indices(self.shape)
             i_found, j_found = self.locate(contents.lon, contents.lat)
@@ -255,10 +260,8 @@ class ModelGrid:
                     f"{self.lon_center[jw, iw]:.6g} E, {self.lat_center[jw, iw]:.6g} N); "
                     "expected the grid's cell order (rows j from the grid's first row)",
                     variable=contents.names.get("lon"))
-        if contents.sea_mask is not None:
-            self.sea_mask = contents.sea_mask
-        if contents.bathymetry is not None:
-            self.bathymetry = contents.bathymetry
+        self.sea_mask = contents.sea_mask
+        self.bathymetry = contents.bathymetry
         self.mask_file = str(path)
 
     def __repr__(self):

@@ -165,16 +165,20 @@ class CurvilinearGrid(ModelGrid):
         self.source = None if source is None else str(source)
 
     @classmethod
-    def from_file(cls, path, *, layer_interfaces=None) -> CurvilinearGrid:
+    def from_file(cls, path, *, layer_interfaces=None, mask_variable=None,
+                  bathymetry_variable=None) -> CurvilinearGrid:
         """Read a netCDF grid file (layout: :mod:`obsprep.geo.grid.gridfile`).
 
         Cell centres by standard_name ``longitude``/``latitude``; mask ``sea_binary_mask``
-        (1 = sea) or ``land_binary_mask`` (1 = land), else all sea; bathymetry (m positive
-        down) by one of the sea-floor-depth standard names, else +inf; angle
+        (1 = sea) or ``land_binary_mask`` (1 = land); bathymetry (m positive down) by one of
+        the sea-floor-depth standard names; or mask and bathymetry by their variable names
+        ``mask_variable``, ``bathymetry_variable``; the file must yield both.  Angle
         ``angle_of_rotation_from_east_to_x`` in degree or radian, else computed.  Unusable
         content raises :class:`InputFileError` naming the file and the variable.
         """
-        contents = read_grid_file(path, need_coordinates=True)
+        contents = read_grid_file(path, need_coordinates=True, mask_variable=mask_variable,
+                                  bathymetry_variable=bathymetry_variable,
+                                  need_mask_and_bathymetry=True)
         if contents.shape[0] < 2 or contents.shape[1] < 2:
             raise InputFileError(path, f"a curvilinear grid needs at least 2 x 2 cells, found "
                                  f"shape {contents.shape}", variable=contents.names.get("lon"))

@@ -11,9 +11,12 @@ Layout written by :func:`write_grid_file` (and read back by :func:`read_grid_fil
                      NaN (the _FillValue) where unknown
     angle(y, x)      standard_name = "angle_of_rotation_from_east_to_x", units = "degree"
 
-The reader finds variables by standard_name only, never by variable name, so files from other
-tools that follow CF are read as well: the mask may instead be a ``land_binary_mask`` (1 = land),
-the bathymetry any of :data:`BATHYMETRY_STANDARD_NAMES`, and lon/lat may be 1-D (a regular grid).
+The reader finds variables by standard_name, never by a variable name of its own, so files
+from other tools that follow CF are read as well: the mask may instead be a ``land_binary_mask``
+(1 = land), the bathymetry any of :data:`BATHYMETRY_STANDARD_NAMES`, and lon/lat may be 1-D (a
+regular grid).  A file without those standard names is read by the variable names the
+configuration gives for the mask and the bathymetry (``grid.mask_variable``,
+``grid.bathymetry_variable``).
 """
 
 from __future__ import annotations
@@ -24,7 +27,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from obsprep.exceptions import InputFileError
+from obsprep.exceptions import GridError, InputFileError
+from obsprep.geo.grid.limits import check_cell_count
 
 BATHYMETRY_STANDARD_NAMES = (
     "sea_floor_depth_below_geoid",
@@ -61,12 +65,13 @@ class GridFileContents:
 
 
 def _open(path) -> xr.Dataset:
+    """The file opened lazily: only metadata is read until a variable's values are asked for,
+    so sizes can be checked before anything is loaded."""
     path = Path(path)
     if not path.exists():
         raise InputFileError(path, "file does not exist")
     try:
-        with xr.open_dataset(path, decode_times=False) as ds:
-            return ds.load()
+        return xr.open_dataset(path, decode_times=False)
     except (OSError, ValueError, RuntimeError) as exc:
         raise InputFileError(path, f"cannot be opened as a netCDF grid file ({exc})") from exc
 
@@ -110,35 +115,98 @@ def _as_grid_array(ds, path, name, dims, shape):
     var = var.squeeze(extra, drop=True) if extra else var
     if dims is not None and set(var.dims) == set(dims):
         var = var.transpose(*dims)
-    values = np.asarray(var.values, dtype=float)
-    if values.shape != tuple(shape):
+    if tuple(var.shape) != tuple(shape):  # checked on the metadata, before loading the values
         raise InputFileError(path, f"expected shape {tuple(shape)} (ny, nx), found shape "
-                             f"{values.shape} with dimensions {var.dims}", variable=name)
-    return values
+                             f"{tuple(var.shape)} with dimensions {var.dims}", variable=name)
+    return np.asarray(var.values, dtype=float)
+
+
+def _named_variable(ds, path, name, role):
+    """``name`` if the file has that variable, else InputFileError listing the variables."""
+    if name not in ds.variables:
+        raise InputFileError(path, f"no variable '{name}' (named as the {role} in the "
+                             f"configuration); variables: {', '.join(map(str, ds.variables))}")
+    return name
+
+
+def _missing_field_message(ds, role, standard_names, key):
+    names = " or ".join(f"'{n}'" for n in standard_names)
+    return (f"no {role} found: expected a variable with standard_name {names}, or its name "
+            f"given as grid.{key}; variables: {', '.join(map(str, ds.variables)) or 'none'}")
 
 
 def _units(ds, name):
     return str(ds[name].attrs.get("units", "")).strip().lower()
 
 
-def read_grid_file(path, expected_shape=None, *, need_coordinates=False) -> GridFileContents:
+def read_grid_file(path, expected_shape=None, *, need_coordinates=False, mask_variable=None,
+                   bathymetry_variable=None, need_mask_and_bathymetry=False) -> GridFileContents:
     """Read cell centres, mask, bathymetry and angle of a netCDF grid or mask file.
 
     ``expected_shape``: (ny, nx) the fields must have (InputFileError naming file, variable,
     expected and found shape otherwise); None takes the shape of the coordinates.
     ``need_coordinates``: 2-D (or 1-D lon and lat) cell centres are required.
-    Missing mask -> None (the caller takes all sea); missing bathymetry -> None.
-    Raises :class:`InputFileError` naming the file and the variable for unusable content.
+    ``mask_variable``, ``bathymetry_variable``: names of the variables holding the land/sea
+    mask (1 = sea, 0 = land, unless its standard_name is ``land_binary_mask``: 1 = land) and the
+    bathymetry (m positive down), for files whose variables lack the standard names; otherwise
+    both are found by standard_name.  ``need_mask_and_bathymetry``: both must be found;
+    otherwise a missing mask gives None (the caller takes all sea), a missing bathymetry None.
+    Sizes are checked on the metadata before any values are loaded (at most
+    :data:`~obsprep.geo.grid.limits.MAX_GRID_CELLS` cells).  Raises :class:`InputFileError`
+    naming the file and the variable for unusable content.
     """
     ds = _open(path)
-    path = str(path)
+    try:
+        return _read_grid_dataset(ds, str(path), expected_shape, need_coordinates, mask_variable,
+                                  bathymetry_variable, need_mask_and_bathymetry)
+    except InputFileError:
+        raise
+    except (OSError, RuntimeError, ValueError) as exc:  # e.g. a file cut short, bad encoding
+        raise InputFileError(path, f"cannot be read as a netCDF grid file ({exc})") from exc
+    finally:
+        ds.close()
+
+
+def _read_grid_dataset(ds, path, expected_shape, need_coordinates, mask_variable,
+                       bathymetry_variable, need_mask_and_bathymetry) -> GridFileContents:
+    """:func:`read_grid_file` on the opened dataset ``ds``."""
     names: dict[str, str] = {}
     lon_name = _find_variable(ds, path, ("longitude",), _LON_UNITS)
     lat_name = _find_variable(ds, path, ("latitude",), _LAT_UNITS)
-    mask_name = _find_variable(ds, path, ("sea_binary_mask",))
-    land_name = None if mask_name else _find_variable(ds, path, ("land_binary_mask",))
-    bathymetry_name = _find_variable(ds, path, BATHYMETRY_STANDARD_NAMES)
+    mask_name = land_name = None
+    if mask_variable is not None:
+        _named_variable(ds, path, mask_variable, "land/sea mask")
+        if ds[mask_variable].attrs.get("standard_name") == "land_binary_mask":
+            land_name = mask_variable
+        else:
+            mask_name = mask_variable
+    else:
+        mask_name = _find_variable(ds, path, ("sea_binary_mask",))
+        land_name = None if mask_name else _find_variable(ds, path, ("land_binary_mask",))
+    if bathymetry_variable is not None:
+        bathymetry_name = _named_variable(ds, path, bathymetry_variable, "bathymetry")
+    else:
+        bathymetry_name = _find_variable(ds, path, BATHYMETRY_STANDARD_NAMES)
     angle_name = _find_variable(ds, path, (ANGLE_STANDARD_NAME,))
+    # sizes from the metadata, before any values are loaded
+    for name in (lon_name, lat_name, mask_name, land_name, bathymetry_name, angle_name):
+        if name is not None and ds[name].ndim == 2:
+            try:
+                check_cell_count(*ds[name].shape)
+            except GridError as exc:
+                raise InputFileError(path, str(exc), variable=name) from None
+    if lon_name and lat_name and ds[lon_name].ndim == 1 and ds[lat_name].ndim == 1:
+        try:
+            check_cell_count(ds[lat_name].size, ds[lon_name].size)
+        except GridError as exc:
+            raise InputFileError(path, str(exc), variable=lon_name) from None
+    if need_mask_and_bathymetry:
+        if mask_name is None and land_name is None:
+            raise InputFileError(path, _missing_field_message(
+                ds, "land/sea mask", ("sea_binary_mask", "land_binary_mask"), "mask_variable"))
+        if bathymetry_name is None:
+            raise InputFileError(path, _missing_field_message(
+                ds, "bathymetry", BATHYMETRY_STANDARD_NAMES, "bathymetry_variable"))
 
     lon = lat = None
     dims = None

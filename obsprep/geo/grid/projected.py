@@ -30,12 +30,15 @@ class ProjectedGrid(ModelGrid):
     Positions are taken as longitude/latitude on the CRS's own geodetic datum (no datum shift;
     observation positions carry no datum and the difference is far below a model cell).
     ``mask_file``: optional netCDF file giving sea mask and bathymetry on the (ny, nx) cells.
+    ``mask_variable``, ``bathymetry_variable``: their variable names in that file, where the
+    file lacks the CF standard names.
     """
 
     grid_type = "projected"
 
     def __init__(self, crs, x_min, y_min, dx, dy, nx, ny, *, sea_mask=None, bathymetry=None,
-                 layer_interfaces=None, mask_file=None):
+                 layer_interfaces=None, mask_file=None, mask_variable=None,
+                 bathymetry_variable=None):
         try:
             self.crs = CRS.from_user_input(crs)
         except CRSError as exc:
@@ -55,7 +58,8 @@ class ProjectedGrid(ModelGrid):
         self._forward = Transformer.from_crs(self.crs.geodetic_crs, self.crs, always_xy=True)
         self.mask_file = None
         if mask_file is not None:
-            self.apply_mask_file(mask_file)
+            self.apply_mask_file(mask_file, mask_variable=mask_variable,
+                                 bathymetry_variable=bathymetry_variable)
 
     # --- coordinates ---------------------------------------------------------------------------
 

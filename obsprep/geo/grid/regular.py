@@ -34,12 +34,15 @@ class RegularGrid(ModelGrid):
     dateline (e.g. lon_min = 170, nlon * dlon = 20) and ``nlon * dlon = 360`` is periodic.  A
     northern edge at 90 N includes the pole itself.  The +i axis points east: axis angle 0.
     ``mask_file``: optional netCDF file giving sea mask and bathymetry on the (nlat, nlon) cells.
+    ``mask_variable``, ``bathymetry_variable``: their variable names in that file, where the
+    file lacks the CF standard names.
     """
 
     grid_type = "regular"
 
     def __init__(self, lon_min, lat_min, dlon, dlat, nlon, nlat, *, sea_mask=None,
-                 bathymetry=None, layer_interfaces=None, mask_file=None):
+                 bathymetry=None, layer_interfaces=None, mask_file=None, mask_variable=None,
+                 bathymetry_variable=None):
         self.lon_min = _finite_number(lon_min, "lon_min")
         self.lat_min = _finite_number(lat_min, "lat_min")
         self.dlon = _finite_number(dlon, "dlon")
@@ -58,7 +61,8 @@ class RegularGrid(ModelGrid):
             raise GridError(f"latitudes {self.lat_min} .. {self.lat_max} exceed -90 .. 90 degrees")
         self.mask_file = None
         if mask_file is not None:
-            self.apply_mask_file(mask_file)
+            self.apply_mask_file(mask_file, mask_variable=mask_variable,
+                                 bathymetry_variable=bathymetry_variable)
 
     @cached_property
     def lon_center(self) -> np.ndarray:

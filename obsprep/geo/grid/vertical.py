@@ -5,16 +5,17 @@ from __future__ import annotations
 import numpy as np
 
 from obsprep.exceptions import GridError
+from obsprep.geo.grid.limits import MAX_LAYERS
 
 #: One layer from the surface to 10 km: every ocean depth is in layer 0.
 DEFAULT_LAYER_INTERFACES_M = (0.0, 1.0e4)
-
 
 def layer_interfaces_from_depths(depths) -> np.ndarray:
     """Validate layer interface depths and return them as a float64 array of shape (nk + 1,).
 
     ``depths`` in m, positive down: the first must be 0 (the sea surface), the values strictly
-    increasing and finite, at least two of them (one layer).  Raises :class:`GridError` otherwise.
+    increasing and finite, at least two of them (one layer), at most :data:`MAX_LAYERS` layers.
+    Raises :class:`GridError` otherwise.
     """
     try:
         interfaces = np.asarray(depths, dtype=float)
@@ -23,6 +24,9 @@ def layer_interfaces_from_depths(depths) -> np.ndarray:
     if interfaces.ndim != 1 or interfaces.size < 2:
         raise GridError("layer interfaces must be a list of at least two depths in m (0 first), "
                         f"got {depths!r}")
+    if interfaces.size - 1 > MAX_LAYERS:
+        raise GridError(f"{interfaces.size - 1} layers exceed the limit of {MAX_LAYERS} layers "
+                        "(MAX_LAYERS)")
     if not np.all(np.isfinite(interfaces)):
         raise GridError(f"layer interfaces must be finite depths in m, got {depths!r}")
     if interfaces[0] != 0.0:
