@@ -7,7 +7,8 @@ import functools
 
 import click
 
-from obsprep.exceptions import ConfigError, ObsprepError
+from obsprep.exceptions import ClusterError, ConfigError, ObsprepError
+from obsprep.run.outcome import EXIT_STATUS
 
 date_opt = click.option("--date", "date", metavar="YYYY-MM-DD", default=None,
                         help="Run date (replaces {date} in the config); default: window.date of the config.")
@@ -37,8 +38,8 @@ def problems_to_stderr():
 
 
 def library_errors(func):
-    """Turn errors into one clear line on stderr: configuration errors exit 2 (bad usage),
-    other obsprep errors and operating-system errors 1.  Anything else is a fault of obsprep
+    """Turn errors into one clear line on stderr: configuration errors exit 2 (bad usage), a
+    Dask cluster without workers 5, other obsprep errors and operating-system errors 1.  Anything else is a fault of obsprep
     itself, not of the input: it exits 1 with a line saying so, and the traceback goes to a
     log file named in that line (:func:`report_internal_error`)."""
 
@@ -48,6 +49,10 @@ def library_errors(func):
             return func(*args, **kwargs)
         except ConfigError as exc:
             raise click.UsageError(str(exc)) from exc
+        except ClusterError as exc:
+            error = click.ClickException(str(exc))
+            error.exit_code = EXIT_STATUS["cluster_unavailable"]
+            raise error from exc
         except ObsprepError as exc:
             raise click.ClickException(str(exc)) from exc
         except OSError as exc:

@@ -379,12 +379,14 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
 
     started = dt.datetime.now(dt.UTC)
     cfg = load_config(config, date)
+    # the grid and mask files are configuration (a problem there is a ConfigError): read
+    # before anything is written, so a bad configuration leaves no trace in the outputs
+    grid = grid_from_config(cfg.grid, cfg.base_dir)
     sensor_names = output_sensors(cfg)
     days = cfg.window.days()
-    # the output directory is prepared (and held) before any input, the grid too, is read
+    # the output directory is prepared (and held) before any observation file is read
     with OutputSet(cfg, out) as output_set, \
             file_log(output_set.directory / f"{output_set.stem}{LOG_SUFFIX}") as log_path:
-        grid = grid_from_config(cfg.grid, cfg.base_dir)
         run_warnings = [f"removed a temporary file left by an earlier run: {p}"
                         for p in output_set.removed_stale]
         tasks, no_files = [], {}

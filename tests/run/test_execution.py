@@ -23,6 +23,7 @@ from obsprep.cli.main import cli
 from obsprep.run import execution
 from obsprep.run.build import build
 from obsprep.run.execution import FixedTreeReducer, merge_group
+from obsprep.run.outcome import EXIT_STATUS
 from obsprep.superobs import Accumulator
 
 ANALYSIS = np.datetime64("2026-11-20T00:00:00")
@@ -316,7 +317,8 @@ def test_cluster_without_workers_fails_within_the_bound(tmp_path, monkeypatch):
         result = CliRunner().invoke(cli, ["build", str(config), "--quiet", "--out",
                                           str(tmp_path / "cli"), "--scheduler",
                                           cluster.scheduler_address])
-    assert result.exit_code not in (0, 2), result.output  # a failure, not a usage error
+    # the distinct status of a cluster without workers (README exit status table)
+    assert result.exit_code == EXIT_STATUS["cluster_unavailable"] == 5, result.output
     assert "no worker joined" in result.output and "Traceback" not in result.output
     assert not (tmp_path / "none" / "superobs_20261120.nc").exists()
 
