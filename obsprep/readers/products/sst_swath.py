@@ -1,27 +1,40 @@
-"""Satellite SST swath (L2): SST on two spatial dimensions with 2-D latitude/longitude."""
+"""Satellite SST swath (L2): SST on two spatial dimensions with 2-D latitude/longitude.
+
+The SST type (skin, subskin, foundation, at a depth) is the quantity of the variable's CF
+standard_name (:data:`obsprep.model.quantities.SST_QUANTITY_NAMES`)."""
 
 from __future__ import annotations
 
 import os
 
-from obsprep.model.quantities import get_quantity
+from obsprep.model.quantities import SST_QUANTITY_NAMES, SST_STANDARD_NAMES, quantity_for_standard_name
 from obsprep.readers import cf
 from obsprep.readers.registry import Reader, register_reader
 
-SST = get_quantity("sea_surface_temperature")
+
+def has_latitude_ndim(ds, name: str, latitude_ndim: int) -> bool:
+    """True when variable ``name`` has a latitude coordinate of ``latitude_ndim`` dimensions
+    and a longitude coordinate."""
+    lat = cf.find_coordinate(ds, name, "latitude")
+    return lat is not None and ds[lat].ndim == latitude_ndim \
+        and cf.find_coordinate(ds, name, "longitude") is not None
 
 
 def sst_variable_with_latitude_ndim(ds, latitude_ndim: int) -> str | None:
-    """The SST variable whose latitude coordinate has ``latitude_ndim`` dimensions, or None."""
-    for standard_name in SST.accepted_standard_names:
+    """The variable with an SST standard name (any type: skin, subskin, foundation, at a
+    depth) whose latitude coordinate has ``latitude_ndim`` dimensions, or None."""
+    for standard_name in SST_STANDARD_NAMES:
         name = cf.find_variable(ds, [standard_name])
-        if name is None:
-            continue
-        lat = cf.find_coordinate(ds, name, "latitude")
-        if lat is not None and ds[lat].ndim == latitude_ndim \
-                and cf.find_coordinate(ds, name, "longitude") is not None:
+        if name is not None and has_latitude_ndim(ds, name, latitude_ndim):
             return name
     return None
+
+
+def sst_quantity(ds, name: str):
+    """The SST type of variable ``name`` (a :class:`~obsprep.model.quantities.Quantity`) from
+    its standard_name, or None when that is not an SST standard name."""
+    quantity = quantity_for_standard_name(str(ds[name].attrs.get("standard_name", "")).strip())
+    return quantity if quantity is not None and quantity.name in SST_QUANTITY_NAMES else None
 
 
 @register_reader
@@ -50,8 +63,9 @@ class SstSwathReader(Reader):
     def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
         opts = options
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
-            ds, path, SST.accepted_standard_names, "sea surface temperature")
-        decoded = cf.decode_data_variable(ds, name, SST, path, opts.good_flag_meanings)
+            ds, path, SST_STANDARD_NAMES, "sea surface temperature")
+        decoded = cf.decode_data_variable(ds, name, sst_quantity(ds, name), path,
+                                          opts.good_flag_meanings)
         cf.require_values(path, [decoded], reading_part=reading_part)
         lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
