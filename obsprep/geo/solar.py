@@ -6,8 +6,10 @@ and the solar declination as the Fourier series of [Spencer1971], the true solar
 (UTC minutes + equation of time + 4 min per degree of east longitude), the hour angle
 ha = true solar time / 4 - 180 degrees and
 cos(zenith) = sin(lat) sin(decl) + cos(lat) cos(decl) cos(ha).
-The series are good to about 0.05 degree of declination and half a minute of time, far finer
-than telling day from night needs.
+The series describe one mean year, so the declination can be off by up to about half a degree
+near the equinoxes (the leap-year cycle moves them by up to a day) and the equation of time by
+well under a minute: a few minutes of time at sunrise and sunset, fine for telling day from
+night.
 """
 
 from __future__ import annotations
