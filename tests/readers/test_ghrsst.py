@@ -14,7 +14,6 @@ import numpy as np
 import pytest
 from sample_files import GDS2_EPOCH, write_gds2
 
-from obsprep.exceptions import InputFileError
 from obsprep.model.table import validate_table
 from obsprep.readers import cf, guess_kind, read, registered_readers
 
