@@ -52,10 +52,10 @@ def l4(tmp_path):
         lon[:] = [10.0, 10.25, 10.5]
         v = nc.createVariable("analysed_sst", "i2", ("time_counter", "y", "x"), fill_value=np.int16(-32768))
         v.setncatts({"scale_factor": 0.01, "add_offset": 0.0, "long_name": "analysed sst"})
-        v[0] = np.ma.masked_invalid(sst)
+        v[0] = np.ma.masked_array(np.nan_to_num(sst), mask=np.isnan(sst))
         e = nc.createVariable("analysis_error", "i2", ("time_counter", "y", "x"), fill_value=np.int16(-32768))
         e.setncatts({"scale_factor": 0.01, "add_offset": 0.0, "units": "K"})
-        e[0] = np.ma.masked_invalid(error)
+        e[0] = np.ma.masked_array(np.nan_to_num(error), mask=np.isnan(error))
         m = nc.createVariable("mask", "i1", ("time_counter", "y", "x"))
         m.setncatts({"flag_values": np.array([1, 2, 4, 8], np.int8),
                      "flag_meanings": "water land lake ice"})
