@@ -295,3 +295,43 @@ def test_diurnal_guard_leaves_foundation_and_depth_sst_alone(tmp_path):
     for standard_name in ("sea_surface_foundation_temperature", "sea_surface_temperature"):
         path = _guard_file(tmp_path, standard_name, name=f"{standard_name}.nc")
         assert reasons(read(path, diurnal_guard="night")) == [None] * 4
+
+
+def test_gds2_l4_analysis_keeps_open_water_cells_with_their_analysis_error(tmp_path):
+    # GDS 2.0 L4 ([GDS2], from memory): analysed_sst (foundation), analysis_error and a mask of
+    # bits 1 water, 2 land, 4 optional_lake_surface, 8 sea_ice, 16 optional_river_surface
+    path = tmp_path / "20261119120000-DEMO-L4_GHRSST-SSTfnd-ANALYSIS-v02.0-fv01.0.nc"
+    sst = np.array([[280.0, NAN, 281.0], [271.35, 282.0, NAN]])
+    error = np.array([[0.3, NAN, 0.4], [0.5, 0.35, NAN]])
+    mask = np.array([[1, 2, 5], [9, 1, 1]])
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.gds_version_id = "2.0"
+        for name, size in (("time", 1), ("lat", 2), ("lon", 3)):
+            nc.createDimension(name, size)
+        t = nc.createVariable("time", "i4", ("time",))
+        t.setncatts({"standard_name": "time", "units": "seconds since 1981-01-01 00:00:00"})
+        t[:] = [int((np.datetime64("2026-11-19T12:00:00") - GDS2_EPOCH) // np.timedelta64(1, "s"))]
+        for name, data, sn in (("lat", [-60.0, -59.9], "latitude"), ("lon", [10.0, 10.1, 10.2], "longitude")):
+            v = nc.createVariable(name, "f4", (name,))
+            v.setncatts({"standard_name": sn, "units": f"degrees_{'north' if name == 'lat' else 'east'}"})
+            v[:] = data
+        for name, data, sn, offset in (("analysed_sst", sst, "sea_surface_foundation_temperature", 273.15),
+                                       ("analysis_error", error, None, 0.0)):
+            v = nc.createVariable(name, "i2", ("time", "lat", "lon"), fill_value=np.int16(-32768))
+            v.setncatts({"scale_factor": 0.01, "add_offset": offset, "units": "kelvin",
+                         **({"standard_name": sn} if sn else {})})
+            v[0] = np.ma.masked_array(np.nan_to_num(data), mask=np.isnan(data))
+        m = nc.createVariable("mask", "i1", ("time", "lat", "lon"))
+        m.setncatts({"flag_masks": np.array([1, 2, 4, 8, 16], np.int8),
+                     "flag_meanings": "water land optional_lake_surface sea_ice optional_river_surface"})
+        m[0] = mask
+    path = str(path)
+    assert guess_kind(path) == "ghrsst_l4"
+    table = read(path)
+    assert set(table["quantity"].astype(str)) == {"sea_surface_foundation_temperature"}
+    # water + lake (5) and water + sea_ice (9) set a meaning other than water
+    assert reasons(table) == [None, "missing_value", "l4_mask", "l4_mask", None, "missing_value"]
+    kept = table["rejected"].isna().to_numpy()
+    np.testing.assert_allclose(table["value"][kept], (sst.ravel() - 273.15)[kept], atol=1e-9)
+    np.testing.assert_allclose(table["error"][kept], error.ravel()[kept], atol=1e-9)
+    assert (table["time"] == np.datetime64("2026-11-19T12:00:00")).all()

@@ -58,6 +58,13 @@ from obsprep.readers.registry import Reader, register_reader
 GDS2_TIME_UNITS = "seconds since 1981-01-01 00:00:00"
 #: the GDS 2.0 name of the SST variable of L2P and L3 files
 GDS2_SST_VARIABLE = "sea_surface_temperature"
+#: the GDS 2.0 names of an L4 analysis: the field, its error and its surface mask
+GDS2_L4_VARIABLE = "analysed_sst"
+GDS2_L4_ERROR = "analysis_error"
+GDS2_L4_MASK = "mask"
+#: GDS 2.0 L4 mask meanings whose cells are kept (bits 1 water, 2 land, 4
+#: optional_lake_surface, 8 sea_ice, 16 optional_river_surface, from memory): open water only
+DEFAULT_L4_KEEP_MASK = ("water", "open_water")
 DEFAULT_MIN_QUALITY_LEVEL = 4
 DEFAULT_REJECT_L2P_FLAGS = ("land", "ice", "lake", "river")
 #: GDS 2.0 l2p_flags bits 0-4 (the generic bits; higher bits are the provider's), used when the
@@ -103,6 +110,9 @@ for _meaning in ("land", "ice", "lake", "river"):
     register_reason(f"l2p_flag_{_meaning}", f"GHRSST l2p_flags bit '{_meaning}' set", stage="reader")
 register_reason("l2p_flag_other", "another GHRSST l2p_flags bit named in the source's reject "
                                   "list set", stage="reader")
+register_reason("l4_mask", "GHRSST L4 mask sets a meaning other than the source's kept ones "
+                           "(default water: land, lake, river and sea-ice cells are analysis "
+                           "fill, not observations)", stage="reader")
 register_reason("diurnal_warming", "skin or subskin SST by day (sun above the horizon) where "
                                    "the diurnal guard keeps night values only, or day values "
                                    "only in wind above its threshold", stage="reader")
@@ -181,6 +191,11 @@ def is_gds2(ds) -> bool:
         except ValueError:
             return version.startswith("2")
     return "sst_dtime" in ds.variables and "quality_level" in ds.variables
+
+
+def is_gds2_l4(ds) -> bool:
+    """True for a GDS 2.0 L4 analysis: its field is the GDS 2.0 variable ``analysed_sst``."""
+    return GDS2_L4_VARIABLE in ds.variables
 
 
 def gds2_sst_variable(ds, latitude_ndim: int) -> str | None:
@@ -281,7 +296,8 @@ class _GhrsstReader(Reader):
     priority = 10
 
     def guess_can_open(self, ds) -> bool:
-        return is_gds2(ds) and gds2_sst_variable(ds, self.latitude_ndim) is not None
+        return is_gds2(ds) and not is_gds2_l4(ds) \
+            and gds2_sst_variable(ds, self.latitude_ndim) is not None
 
     def group(self, ds, path) -> str:
         return ""
@@ -439,3 +455,77 @@ class GhrsstL3Reader(_GhrsstReader):
     kind = "ghrsst_l3"
     description = "GHRSST GDS 2.0 L3 gridded SST (1-D lat/lon, sst_dtime, quality_level, SSES)"
     latitude_ndim = 1
+
+
+@dataclass(frozen=True)
+class GhrsstL4Options(cf.SourceOptions):
+    """Options of the GDS 2.0 L4 reader."""
+
+    keep_mask_meanings: tuple = cf.option(
+        DEFAULT_L4_KEEP_MASK, "mask meanings of the cells kept: a cell with any other bit set "
+                              "is rejected as l4_mask (list or space-separated str; default "
+                              "water open_water)",
+        lambda name, value: tuple(n.lower() for n in cf.parse_names(name, value)))
+
+
+@register_reader
+class GhrsstL4Reader(Reader):
+    """GDS 2.0 L4 analysis: ``analysed_sst`` on (time, lat, lon) with 1-D lat/lon, error
+    ``analysis_error``, cells kept where the ``mask`` sets only a meaning of option
+    ``keep_mask_meanings``; time the reference (nominal) time.  The SST type is that of
+    :func:`gds2_sst_type` (GDS 2.0 L4: usually foundation)."""
+
+    kind = "ghrsst_l4"
+    description = "GHRSST GDS 2.0 L4 SST analysis (analysed_sst, analysis_error, mask)"
+    Options = GhrsstL4Options
+    priority = 10
+
+    def guess_can_open(self, ds) -> bool:
+        return is_gds2(ds) and is_gds2_l4(ds) and has_latitude_ndim(ds, GDS2_L4_VARIABLE, 1)
+
+    def slice_dimension(self, ds):
+        """Rows of the grid (``lat``)."""
+        return cf.rows_dimension(ds, GDS2_L4_VARIABLE)
+
+    def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
+        name = GDS2_L4_VARIABLE
+        sst = ds[name]
+        quantity, type_warning = gds2_sst_type(ds, name, path)
+        warnings = [type_warning] if type_warning else []
+        values = cf.values_in_units(sst, quantity.units, path, quantity=quantity)
+        used = [name]
+        error = None
+        if GDS2_L4_ERROR in ds.variables and set(ds[GDS2_L4_ERROR].dims) <= set(sst.dims):
+            sigma = cf.values_in_units(ds[GDS2_L4_ERROR], quantity.units, path, quantity=quantity,
+                                       difference=True, default_units=sst.attrs.get("units"))
+            error = np.asarray(cf.broadcast_to_variable(sigma, ds[GDS2_L4_ERROR].dims, sst, path=path))
+            used.append(GDS2_L4_ERROR)
+        else:
+            warnings.append(f"no {GDS2_L4_ERROR} variable: no per-cell error (error rule "
+                            "'file' finds none: missing_error)")
+        decoded = cf.DecodedVariable(quantity, name, values, error)
+        cf.require_values(path, [decoded], reading_part=reading_part)
+        lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
+        time = reference_time(ds, name, path)
+        rejections = []
+        if GDS2_L4_MASK in ds.variables and set(ds[GDS2_L4_MASK].dims) <= set(sst.dims):
+            mask_var = ds[GDS2_L4_MASK]
+            other = np.zeros(mask_var.shape, dtype=bool)
+            for meaning, is_set in cf.flag_meaning_masks(mask_var, path).items():
+                if meaning not in options.keep_mask_meanings:
+                    other |= is_set
+            rejections.append((cf.broadcast_to_variable(other, mask_var.dims, sst, path=path),
+                               "l4_mask"))
+            used.append(GDS2_L4_MASK)
+        else:
+            warnings.append(f"no {GDS2_L4_MASK} variable: cells not screened for land, lake, "
+                            "river and sea ice (the model grid's land mask still applies)")
+        table = cf.observation_table(path, options, decoded, lon=lon, lat=lat, time=time,
+                                     platform=cf.platform_attribute(ds, options),
+                                     rejections=rejections, leave_out_rejected=leave_out_rejected)
+        for line in warnings:
+            add_warning(table, line)
+        table.attrs["variables"] = cf.variable_units(
+            ds, used + [cf.find_coordinate(ds, name, "latitude"),
+                        cf.find_coordinate(ds, name, "longitude"), "time"])
+        return table
