@@ -27,7 +27,7 @@ What the readers do with it:
   ``reject_l2p_flags`` (default land ice lake river), in that order; ``quality_level`` below
   option ``min_quality_level`` (default 4; a fill quality level counts as 0); ``missing_bias``
   (bias correction on and ``sses_bias`` fill); ``diurnal_warming`` (option ``diurnal_guard``,
-  skin and subskin SST only).
+  skin and subskin SST only, :mod:`obsprep.readers.products.sst_diurnal`).
 
 An absent GDS 2.0 variable never refuses the file (a subset often keeps only the SST); the
 reading goes on as :data:`ABSENT_VARIABLE_RULES` says, with a warning in the file's ledger entry.
@@ -42,11 +42,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from obsprep.exceptions import InputFileError
-from obsprep.geo.solar import is_daytime
 from obsprep.model.quantities import SST_STANDARD_NAMES, get_quantity
 from obsprep.model.reasons import register_reason
 from obsprep.model.table import add_warning
 from obsprep.readers import cf
+from obsprep.readers.products.sst_diurnal import (
+    DiurnalGuardOptions,
+    diurnal_warming_rejections,
+    parse_choice,
+)
 from obsprep.readers.products.sst_swath import (
     has_latitude_ndim,
     sst_quantity,
@@ -70,14 +74,6 @@ DEFAULT_REJECT_L2P_FLAGS = ("land", "ice", "lake", "river")
 #: GDS 2.0 l2p_flags bits 0-4 (the generic bits; higher bits are the provider's), used when the
 #: variable lacks its flag attributes
 GDS2_L2P_FLAG_BITS = {"microwave": 1, "land": 2, "ice": 4, "lake": 8, "river": 16}
-#: the SST types warmed by day in calm weather (GDS 2.0 "SST definitions"): the guard's scope
-DIURNAL_WARMING_TYPES = ("sea_surface_skin_temperature", "sea_surface_subskin_temperature")
-#: option diurnal_guard: off; night (sun below the horizon) only; night, or day where the wind
-#: is at least diurnal_min_wind_speed
-DIURNAL_GUARDS = ("off", "night", "night_or_windy")
-#: wind speed above which daytime warming is mixed away (about 6 m/s, common practice, from
-#: memory)
-DEFAULT_DIURNAL_MIN_WIND_SPEED = 6.0
 #: option without_quality_level: what a file with no quality_level variable gets
 WITHOUT_QUALITY_LEVEL = ("keep", "reject")
 
@@ -99,7 +95,6 @@ ABSENT_VARIABLE_RULES = {
                      "= \"reject\" rejects them as quality_level)",
     "l2p_flags": "no provider screening of land, ice, lake and river (the model grid's "
                  "land mask still applies)",
-    "wind_speed": "no daytime value passes the diurnal guard (rejected as diurnal_warming)",
 }
 
 register_reason("quality_level", "GHRSST quality_level below the source's minimum "
@@ -113,9 +108,6 @@ register_reason("l2p_flag_other", "another GHRSST l2p_flags bit named in the sou
 register_reason("l4_mask", "GHRSST L4 mask sets a meaning other than the source's kept ones "
                            "(default water: land, lake, river and sea-ice cells are analysis "
                            "fill, not observations)", stage="reader")
-register_reason("diurnal_warming", "skin or subskin SST by day (sun above the horizon) where "
-                                   "the diurnal guard keeps night values only, or day values "
-                                   "only in wind above its threshold", stage="reader")
 
 #: l2p_flags meaning -> rejection reason; other meanings give ``l2p_flag_other``
 L2P_FLAG_REASONS = {"land": "l2p_flag_land", "ice": "l2p_flag_ice", "lake": "l2p_flag_lake",
@@ -136,23 +128,8 @@ def parse_switch(name, value) -> bool:
     return value
 
 
-def _parse_choice(choices):
-    def parse(name, value) -> str:
-        if value not in choices:
-            raise ValueError(f"option '{name}' must be one of {', '.join(choices)}, got {value!r}")
-        return value
-    return parse
-
-
-def parse_wind_speed(name, value) -> float:
-    """A wind speed in m/s, >= 0."""
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value >= 0:
-        raise ValueError(f"option '{name}' must be a wind speed >= 0 in m/s, got {value!r}")
-    return float(value)
-
-
 @dataclass(frozen=True)
-class GhrsstOptions(cf.SourceOptions):
+class GhrsstOptions(DiurnalGuardOptions):
     """Options of the GDS 2.0 readers (quality levels and l2p_flags instead of flag meanings)."""
 
     min_quality_level: int = cf.option(
@@ -167,17 +144,8 @@ class GhrsstOptions(cf.SourceOptions):
         lambda name, value: tuple(n.lower() for n in cf.parse_names(name, value)))
     without_quality_level: str = cf.option(
         "keep", "a file with no quality_level variable: keep its values unscreened (default, "
-                "with a warning) or reject them all as quality_level", _parse_choice(
+                "with a warning) or reject them all as quality_level", parse_choice(
                     WITHOUT_QUALITY_LEVEL))
-    diurnal_guard: str = cf.option(
-        "off", "skin and subskin SST: off (default), night (keep values with the sun below "
-               "the horizon only) or night_or_windy (also day values where the file's "
-               "wind_speed is at least diurnal_min_wind_speed); others rejected as "
-               "diurnal_warming", _parse_choice(DIURNAL_GUARDS))
-    diurnal_min_wind_speed: float = cf.option(
-        DEFAULT_DIURNAL_MIN_WIND_SPEED, "m/s: daytime skin/subskin SST kept at or above this "
-                                        "wind speed by diurnal_guard = night_or_windy "
-                                        "(default 6)", parse_wind_speed)
 
 
 def is_gds2(ds) -> bool:
@@ -272,18 +240,6 @@ def l2p_flags_with_meanings(flags_var):
     copy.attrs["flag_masks"] = np.array(list(GDS2_L2P_FLAG_BITS.values()))
     return copy, (f"variable '{flags_var.name}' has no flag_masks/flag_meanings; the GDS 2.0 "
                   f"bits 0-4 ({', '.join(GDS2_L2P_FLAG_BITS)}) assumed")
-
-
-def find_wind_speed(ds, name) -> str | None:
-    """The wind speed on the SST's dimensions: a variable with standard_name ``wind_speed``,
-    else the GDS 2.0 ``wind_speed`` variable; None without one."""
-    sst_dims = set(ds[name].dims)
-    for v, var in ds.variables.items():
-        if var.attrs.get("standard_name") == "wind_speed" and set(var.dims) <= sst_dims:
-            return str(v)
-    if "wind_speed" in ds.variables and set(ds["wind_speed"].dims) <= sst_dims:
-        return "wind_speed"
-    return None
 
 
 def _absent(table_warnings: list, variable: str) -> None:
@@ -398,9 +354,8 @@ class _GhrsstReader(Reader):
                 rejections.append((np.ones(values.shape, dtype=bool), "quality_level"))
         if bias_missing is not None:
             rejections.append((bias_missing, "missing_bias"))
-        if opts.diurnal_guard != "off" and quantity.name in DIURNAL_WARMING_TYPES:
-            rejections.append((self._diurnal_warming(ds, name, path, opts, time, lon, lat,
-                                                     warnings, used), "diurnal_warming"))
+        rejections += diurnal_warming_rejections(ds, name, path, opts, quantity, time, lon, lat,
+                                                 warnings, used)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
                                      platform=cf.platform_attribute(ds, opts),
@@ -412,27 +367,6 @@ class _GhrsstReader(Reader):
         lon_name = cf.find_coordinate(ds, name, "longitude")
         table.attrs["variables"] = cf.variable_units(ds, used + [lat_name, lon_name, "time"])
         return table
-
-    def _diurnal_warming(self, ds, name, path, opts, time, lon, lat, warnings, used) -> np.ndarray:
-        """Pixels the diurnal guard rejects: by day ([NOAASolar] solar zenith angle below 90
-        degrees), unless ``night_or_windy`` and the file's wind speed is at least
-        ``diurnal_min_wind_speed`` (a fill wind does not count as windy)."""
-        shape = ds[name].shape
-        day = is_daytime(np.broadcast_to(time, shape), np.broadcast_to(lon, shape),
-                         np.broadcast_to(lat, shape))
-        if opts.diurnal_guard == "night":
-            return day
-        wind_name = find_wind_speed(ds, name)
-        if wind_name is None:
-            _absent(warnings, "wind_speed")
-            return day
-        wind = cf.values_in_units(ds[wind_name], "m s-1", path)
-        wind = np.asarray(cf.broadcast_to_variable(wind, ds[wind_name].dims, ds[name], path=path))
-        used.append(wind_name)
-        if not np.isfinite(wind[day]).any() and day.any():
-            warnings.append(f"variable '{wind_name}' is fill wherever it is day: no daytime "
-                            "value passes the diurnal guard")
-        return day & ~(wind >= opts.diurnal_min_wind_speed)
 
 
 @register_reader

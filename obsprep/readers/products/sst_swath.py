@@ -6,10 +6,18 @@ standard_name (:data:`obsprep.model.quantities.SST_QUANTITY_NAMES`)."""
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 
 from obsprep.model.quantities import SST_QUANTITY_NAMES, SST_STANDARD_NAMES, quantity_for_standard_name
+from obsprep.model.table import add_warning
 from obsprep.readers import cf
+from obsprep.readers.products.sst_diurnal import DiurnalGuardOptions, diurnal_warming_rejections
 from obsprep.readers.registry import Reader, register_reader
+
+
+@dataclass(frozen=True)
+class SstOptions(cf.CfOptions, DiurnalGuardOptions):
+    """Options of the CF-generic SST readers: flag meanings and the diurnal-warming guard."""
 
 
 def has_latitude_ndim(ds, name: str, latitude_ndim: int) -> bool:
@@ -45,7 +53,7 @@ class SstSwathReader(Reader):
 
     kind = "sst_swath"
     description = "satellite SST swath (2-D latitude/longitude, per-pixel time)"
-    Options = cf.CfOptions
+    Options = SstOptions
     #: dimensions of the latitude coordinate that tell this layout from the others
     latitude_ndim = 2
 
@@ -69,11 +77,17 @@ class SstSwathReader(Reader):
         cf.require_values(path, [decoded], reading_part=reading_part)
         lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
+        warnings, used = [], _used_variables(ds, name)
+        rejections = diurnal_warming_rejections(ds, name, path, opts, decoded.quantity, time,
+                                                lon, lat, warnings, used)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
                                      platform=cf.platform_attribute(ds, opts),
+                                     rejections=rejections,
                                      leave_out_rejected=leave_out_rejected)
-        table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
+        for line in warnings:
+            add_warning(table, line)
+        table.attrs["variables"] = cf.variable_units(ds, used)
         return table
 
 
