@@ -910,13 +910,13 @@ def _sensor_table():
                                   "land and sea_ice pixels carry surface temperatures of "
                                   "land and ice, not of the sea"}),
         "sst_grid": ("sst_grid", "obs/sst_grid/sst_l4_{date:%Y%m%d}.nc",
-                     ["sea_surface_temperature"],
+                     ["sea_surface_foundation_temperature"],
                      ['rule = "constant"', f"value = {SST_GRID_SIGMA_K}"],
                      {"rule": "constant", "sigma": SST_GRID_SIGMA_K, "units": "degC",
                       "note": "cells under sea ice (truth concentration >= 0.15) are flagged "
                               "sea_ice in the surface_mask bit mask"}),
         "sst_microwave": ("sst_grid", "obs/sst_microwave/sst_mw_{date:%Y%m%d}.nc",
-                          ["sea_surface_temperature"], ['rule = "constant"', "value = 0.6"],
+                          ["sea_surface_subskin_temperature"], ['rule = "constant"', "value = 0.6"],
                           {"rule": "constant", "sigma": 0.6, "units": "degC",
                            "note": "all-weather microwave subskin SST; cells near land and "
                                    "under sea ice are flagged"}),
@@ -996,6 +996,12 @@ def _write_config(scn):
         'mode = "mean"',
         'profiles = "per_profile"',
         "merge_sensors = { }",
+        "# The demo truth has no diurnal cycle and no skin effect: its foundation (sst_grid) and",
+        "# subskin (sst_microwave) SST equal the SST of the infrared swath, so the three SST types",
+        "# are averaged together, as sea_surface_temperature. Real products differ by type.",
+        "[superobs.merge_quantities]",
+        'sea_surface_temperature = ["sea_surface_foundation_temperature", '
+        '"sea_surface_subskin_temperature"]',
         "# The demo truth is smooth horizontally on the 10 km grid (scales of a few hundred km),",
         "# so there is no unresolved horizontal variability: representation errors are zero.",
         "# Vertically, the T/S truth is linear inside each model layer, so layer means carry no",

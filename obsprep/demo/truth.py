@@ -22,7 +22,7 @@ from functools import cache
 import numpy as np
 
 from obsprep.geo.seawater import potential_temperature, pressure_from_depth
-from obsprep.model.quantities import QUANTITIES, get_quantity
+from obsprep.model.quantities import QUANTITIES, SST_QUANTITY_NAMES, get_quantity
 
 #: the model grid's map projection
 MODEL_CRS = "EPSG:3031"
@@ -402,7 +402,7 @@ def truth_value(quantity, lon, lat, depth=None, time=None, time_end=None) -> np.
     time = np.broadcast_to(np.asarray(time), shape)
     if quantity == "sea_level_anomaly":
         return sea_level_anomaly(lon, lat, time)
-    if quantity == "sea_surface_temperature":
+    if quantity in SST_QUANTITY_NAMES:  # the invented sea has no diurnal cycle or skin effect
         return sea_surface_temperature(lon, lat, time)
     if quantity == "sea_ice_concentration":
         return sea_ice_concentration(lon, lat, time)

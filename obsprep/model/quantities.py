@@ -73,11 +73,32 @@ QUANTITIES: dict[str, Quantity] = {
              "sea_surface_height_anomaly"),
             (-3.0, 3.0),
         ),
+        # The SST types (GDS 2.0 "SST definitions", [GDS2]; CF standard names) differ by up to
+        # a few kelvin by day (diurnal warming) and a few tenths at night (cool skin), so each
+        # is its own quantity; superobs.merge_quantities averages types together on purpose.
         Quantity(
             "sea_surface_temperature", "sea_surface_temperature", "degC",
-            "sea surface temperature",
-            ("sea_surface_temperature", "sea_surface_subskin_temperature",
-             "sea_surface_foundation_temperature", "sea_surface_skin_temperature"),
+            "sea surface temperature at a depth, or of unstated type (GDS 2.0 SSTdepth, "
+            "SSTblend)",
+            ("sea_surface_temperature",),
+            (-2.5, 40.0),
+        ),
+        Quantity(
+            "sea_surface_skin_temperature", "sea_surface_skin_temperature", "degC",
+            "sea surface skin temperature (about 10-20 micrometres; infrared radiometers)",
+            ("sea_surface_skin_temperature",),
+            (-2.5, 40.0),
+        ),
+        Quantity(
+            "sea_surface_subskin_temperature", "sea_surface_subskin_temperature", "degC",
+            "sea surface subskin temperature (about 1 mm; microwave radiometers)",
+            ("sea_surface_subskin_temperature",),
+            (-2.5, 40.0),
+        ),
+        Quantity(
+            "sea_surface_foundation_temperature", "sea_surface_foundation_temperature", "degC",
+            "sea surface foundation temperature (free of diurnal warming; analyses)",
+            ("sea_surface_foundation_temperature",),
             (-2.5, 40.0),
         ),
         Quantity(
@@ -144,6 +165,15 @@ SUSPICIOUS_OUT_OF_RANGE_SHARE = 0.10
 
 #: the quantity names in declaration order; a name's position is its code in the group keys
 QUANTITY_NAMES: tuple = tuple(QUANTITIES)
+
+#: the sea surface temperature types, one quantity each (CF standard names; GDS 2.0 SSTdepth
+#: and SSTblend are ``sea_surface_temperature``)
+SST_QUANTITY_NAMES: tuple = ("sea_surface_skin_temperature", "sea_surface_subskin_temperature",
+                             "sea_surface_foundation_temperature", "sea_surface_temperature")
+
+#: every CF standard name read as one of the SST types
+SST_STANDARD_NAMES: tuple = tuple(n for q in SST_QUANTITY_NAMES
+                                  for n in QUANTITIES[q].accepted_standard_names)
 
 
 def get_quantity(name: str) -> Quantity:

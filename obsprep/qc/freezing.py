@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 
 from obsprep.geo.seawater import freezing_temperature, pressure_from_depth
+from obsprep.model.quantities import SST_QUANTITY_NAMES
 from obsprep.model.table import kept, reject
 from obsprep.qc.check import QcCheck, QcSetting, declare_reasons
 
@@ -50,8 +51,8 @@ def below_freezing_test(table: pd.DataFrame, quantities, tolerance: float,
     return fail
 
 
-#: temperature quantities the freezing point check can apply to
-TEMPERATURE_QUANTITIES = ("sea_water_temperature", "sea_surface_temperature")
+#: temperature quantities the freezing point check can apply to (every SST type among them)
+TEMPERATURE_QUANTITIES = ("sea_water_temperature", *SST_QUANTITY_NAMES)
 
 
 def _apply_below_freezing(table: pd.DataFrame, context, settings) -> dict:

@@ -18,7 +18,7 @@ import re
 import sys
 from pathlib import Path
 
-from obsprep.model.quantities import QUANTITIES
+from obsprep.model.quantities import QUANTITIES, SST_QUANTITY_NAMES
 
 
 def _code(items) -> str:
@@ -47,19 +47,19 @@ def quantities_table() -> str:
 
 
 def sst_types() -> list[tuple[str, str]]:
-    """The SST types as (type, CF standard_name): each CF standard name the SST quantity
-    accepts, its type named by the standard name (CF standard name table: skin, subskin,
-    foundation; plain ``sea_surface_temperature`` leaves the type unspecified)."""
+    """The SST types as (type, quantity): each SST quantity (``SST_QUANTITY_NAMES``), its type
+    named by its CF standard name (skin, subskin, foundation; plain ``sea_surface_temperature``
+    is SST at a depth or of unstated type)."""
     types = []
-    for name in QUANTITIES["sea_surface_temperature"].accepted_standard_names:
+    for name in SST_QUANTITY_NAMES:
         kind = name.removeprefix("sea_surface_").removesuffix("_temperature")
-        types.append(("unspecified" if kind == "temperature" else kind, name))
+        types.append(("at a depth, or unstated" if kind == "temperature" else kind, name))
     return types
 
 
 def sst_types_table() -> str:
     """Markdown table of the SST types (:func:`sst_types`)."""
-    lines = ["| SST type | CF standard_name |", "|---|---|"]
+    lines = ["| SST type | quantity (its CF standard_name) |", "|---|---|"]
     lines += [f"| {kind} | `{name}` |" for kind, name in sst_types()]
     return "\n".join(lines)
 

@@ -280,7 +280,10 @@ def accumulate(work: FileWork) -> None:
     result = work.result
     if live.any():
         live_rows = np.flatnonzero(live)
-        q_all = _quantity_codes(table)
+        # the group's quantity is the output quantity (superobs.merge_quantities)
+        merged = np.array([QUANTITY_NAMES.index(cfg.output_quantity(q)) for q in QUANTITY_NAMES]
+                          + [-1], dtype=np.int64)
+        q_all = merged[_quantity_codes(table)]
         sensor_code = sensor_names.index(cfg.output_sensor(source.sensor))
         per_profile = cfg.superobs.profiles == "per_profile"
         is_profile_quantity = np.array([not QUANTITIES[name].surface for name in QUANTITY_NAMES])

@@ -192,6 +192,14 @@ class Config:
                 return merged
         return sensor
 
+    def output_quantity(self, quantity: str) -> str:
+        """The quantity a raw value of ``quantity`` is averaged and written under (after
+        ``superobs.merge_quantities``)."""
+        for merged, members in self.superobs.merge_quantities.items():
+            if quantity in members:
+                return merged
+        return quantity
+
     def output_path(self, out_dir=None) -> Path:
         directory = Path(out_dir) if out_dir else self.base_dir / self.output.directory
         name = placeholders.expand_path(self.output.name,
@@ -345,6 +353,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         for m in members:
             if m not in seen:
                 raise ConfigError(f"superobs.merge_sensors.{merged}", f"'{m}' is not a source sensor", src)
+    check_merge_quantities(superobs.get("merge_quantities", {}), src)
     for table in ("representation_error", "error_floor"):
         for q in superobs.get(table, {}):
             if q not in QUANTITIES:
@@ -360,6 +369,34 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
                   superobs=from_table(SuperobsSettings, superobs), output=output)
     sensor_correlations(config)  # sources merged into one sensor must agree
     return config
+
+
+def check_merge_quantities(table: dict, src) -> None:
+    """``superobs.merge_quantities``: known quantities of the same canonical units, all surface
+    or all profile quantities, no vector component, each member in one list only and no output
+    quantity merged again."""
+    seen: dict = {}
+    for merged, members in table.items():
+        key = f"superobs.merge_quantities.{merged}"
+        for q in [merged, *members]:
+            if q not in QUANTITIES:
+                raise ConfigError(key, f"unknown quantity '{q}'; known: {', '.join(QUANTITIES)}", src)
+        target = QUANTITIES[merged]
+        for m in members:
+            q = QUANTITIES[m]
+            if q.vector or target.vector:
+                raise ConfigError(key, f"'{m}': vector components are not merged", src)
+            if (q.units, q.surface) != (target.units, target.surface):
+                raise ConfigError(key, f"'{m}' ({q.units}, {'surface' if q.surface else 'profile'}) "
+                                       f"cannot be averaged into '{merged}' ({target.units}, "
+                                       f"{'surface' if target.surface else 'profile'})", src)
+            if m in seen and seen[m] != merged:
+                raise ConfigError(key, f"'{m}' is also merged into '{seen[m]}'", src)
+            seen[m] = merged
+    for merged in table:
+        if merged in seen and seen[merged] != merged:
+            raise ConfigError(f"superobs.merge_quantities.{merged}",
+                              f"'{merged}' is itself merged into '{seen[merged]}'", src)
 
 
 def output_sensors(cfg: Config) -> list[str]:

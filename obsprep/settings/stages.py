@@ -41,6 +41,9 @@ class SuperobsSettings:
     profiles: str = _key("per_profile", "profiles averaged per profile or across profiles of a cell",
                          enum=["per_profile", "across_profiles"])
     merge_sensors: MappingProxyType = _key({}, "output sensor name -> source sensors written under it")
+    merge_quantities: MappingProxyType = _key({}, "output quantity -> quantities averaged into it "
+                                              "(e.g. SST types; same units, all surface or all "
+                                              "profile quantities)")
     representation_error: MappingProxyType = _key({}, "quantity -> representation error constant, "
                                                   "canonical units", minimum=0)
     error_floor: MappingProxyType = _key({}, "quantity -> floor of the super-observation error, "

@@ -58,7 +58,11 @@ def sensor_origins(cfg, sensor_names, quantity_names) -> np.ndarray:
     for source in cfg.sources:
         row = sensor_names.index(cfg.output_sensor(source.sensor))
         for column, q in enumerate(quantity_names):
-            labels[row][column].add(origin_label(source.error, q))
+            # an output quantity also carries the rules of the quantities merged into it
+            members = getattr(cfg.superobs, "merge_quantities", {}).get(q, ())
+            for member in (q, *members):
+                if member == q or source.quantities is None or member in source.quantities:
+                    labels[row][column].add(origin_label(source.error, member))
     out = np.empty((len(sensor_names), len(quantity_names)), dtype=object)
     for row in range(len(sensor_names)):
         for column in range(len(quantity_names)):

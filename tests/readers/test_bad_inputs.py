@@ -110,7 +110,7 @@ def test_inspect_describes_kind_variables_time_and_reasons(tmp_path):
     lines = out.output.splitlines()
     assert lines[0] == path and lines[1] == "  kind: ghrsst_l2p"
     assert "sea_surface_temperature [kelvin]" in lines[2] and "sst_dtime [second]" in lines[2]
-    assert lines[3] == "  quantities: sea_surface_temperature 12"
+    assert lines[3] == "  quantities: sea_surface_skin_temperature 12"  # the file is GDS 2.0 SSTskin
     # reference 2026-11-19T12:00:00 plus 0 .. 11 minutes
     assert lines[4] == "  time: 2026-11-19T12:00:00 .. 2026-11-19T12:11:00 UTC"
     assert lines[5] == ("  rows: 12, valid 8, rejected quality_level 2, missing_value 1, "

@@ -14,7 +14,6 @@ import numpy as np
 import pytest
 from sample_files import GDS2_EPOCH, write_gds2
 
-from obsprep.exceptions import InputFileError
 from obsprep.model.table import validate_table
 from obsprep.readers import cf, guess_kind, read, registered_readers
 
@@ -179,21 +178,160 @@ def test_l3_grid_with_one_dimensional_coordinates(tmp_path):
     assert set(table["group"].astype(str)) == {""}
 
 
-def test_subtracting_a_bias_the_file_lacks_names_the_variable(tmp_path):
+def test_an_absent_bias_reads_the_uncorrected_sst_with_a_warning(tmp_path):
     path = write_gds2(tmp_path / "nobias.nc", np.full((2, 2), 290.0))
     with netCDF4.Dataset(path, "a") as nc:
         nc.renameVariable("sses_bias", "bias_other")
-    with pytest.raises(InputFileError, match="sses_bias") as info:
-        read(path)
-    assert path in str(info.value)
-    table = read(path, subtract_sses_bias=False)
+    table = read(path)  # subtract_sses_bias is on by default: no refusal, a warning
     np.testing.assert_allclose(table["value"], 290.0 - 273.15, atol=1e-9)
+    assert table["rejected"].isna().all()
+    assert any("no sses_bias variable" in w and "without the bias correction" in w
+               for w in table.attrs["warnings"])
 
 
-def test_flags_without_meanings_are_a_named_error(tmp_path):
-    path = write_gds2(tmp_path / "flags.nc", np.full((2, 2), 290.0))
+def test_flags_without_meanings_get_the_gds2_bits_with_a_warning(tmp_path):
+    # GDS 2.0 l2p_flags bits 0-4 (from memory): 1 microwave, 2 land, 4 ice, 8 lake, 16 river
+    path = write_gds2(tmp_path / "flags.nc", np.full((2, 2), 290.0),
+                      flags=np.array([[0, 2], [4, 1]]))
     with netCDF4.Dataset(path, "a") as nc:
         nc["l2p_flags"].delncattr("flag_meanings")
-    with pytest.raises(InputFileError, match="flag_meanings") as info:
-        read(path)
-    assert "'l2p_flags'" in str(info.value) and path in str(info.value)
+    table = read(path)
+    assert reasons(table) == [None, "l2p_flag_land", "l2p_flag_ice", None]
+    assert any("'l2p_flags' has no flag_masks/flag_meanings" in w for w in table.attrs["warnings"])
+
+
+def test_an_absent_quality_level_keeps_the_values_or_rejects_them_by_option(tmp_path):
+    path = write_gds2(tmp_path / "noql.nc", np.array([[290.0, NAN], [291.0, 292.0]]))
+    with netCDF4.Dataset(path, "a") as nc:
+        nc.renameVariable("quality_level", "ql_other")
+    table = read(path)
+    assert reasons(table) == [None, "missing_value", None, None]
+    assert any("no quality_level variable" in w for w in table.attrs["warnings"])
+    strict = read(path, without_quality_level="reject")
+    assert reasons(strict) == ["quality_level", "missing_value", "quality_level", "quality_level"]
+    with pytest.raises(ValueError, match="without_quality_level"):
+        read(path, without_quality_level="maybe")
+
+
+def test_sst_type_is_the_quantity_of_the_standard_name(tmp_path):
+    # CF standard names of the GDS 2.0 SST types ([GDS2] "SST definitions")
+    for standard_name in ("sea_surface_skin_temperature", "sea_surface_subskin_temperature",
+                          "sea_surface_foundation_temperature", "sea_surface_temperature"):
+        path = write_gds2(tmp_path / f"{standard_name}.nc", np.full((2, 2), 290.0),
+                          sst_standard_name=standard_name)
+        table = read(path)
+        assert set(table["quantity"].astype(str)) == {standard_name}
+        assert "warnings" not in table.attrs or not any(
+            "not an SST standard name" in w for w in table.attrs["warnings"])
+
+
+@pytest.mark.parametrize("standard_name, file_name, long_name, expected", [
+    # GDS 2.0: SSTdepth is written sea_water_temperature with a depth ([GDS2] "SST definitions")
+    ("sea_water_temperature", "l2p.nc", "sea water temperature at 1 meter depth",
+     "sea_surface_temperature"),
+    # the GDS 2.0 file name carries the SST type ([GDS2] file naming, from memory)
+    ("sea_surface_temp", "20261119000000-DEMO-L2P_GHRSST-SSTsubskin-X-v02.0-fv01.0.nc",
+     "sst", "sea_surface_subskin_temperature"),
+    (None, "l2p.nc", "sea surface foundation temperature", "sea_surface_foundation_temperature"),
+    ("surface_temperature", "l2p.nc", "sst", "sea_surface_temperature"),
+])
+def test_a_gds2_sst_with_a_wrong_standard_name_is_read_with_a_warning(
+        tmp_path, standard_name, file_name, long_name, expected):
+    path = write_gds2(tmp_path / file_name, np.full((2, 2), 290.0))
+    with netCDF4.Dataset(path, "a") as nc:
+        var = nc["sea_surface_temperature"]
+        var.delncattr("standard_name")
+        if standard_name is not None:
+            var.standard_name = standard_name
+        var.long_name = long_name
+    assert guess_kind(path) == "ghrsst_l2p"
+    table = read(path)
+    assert set(table["quantity"].astype(str)) == {expected}
+    np.testing.assert_allclose(table["value"], 290.0 - 273.15, atol=1e-9)
+    (warning,) = [w for w in table.attrs["warnings"] if "not an SST standard name" in w]
+    found = f"standard_name '{standard_name}'" if standard_name else "no standard_name"
+    assert found in warning and expected in warning
+
+
+def _guard_file(tmp_path, standard_name="sea_surface_skin_temperature", wind=None,
+                name="guard.nc"):
+    """Four pixels at 2026-03-20T12:00 UTC on the equator: lon 0 and 10 E by day (about
+    local noon), 180 and 170 W by night (about local midnight)."""
+    reference = (np.datetime64("2026-03-20T12:00:00") - GDS2_EPOCH) // np.timedelta64(1, "s")
+    path = write_gds2(tmp_path / name, np.full((1, 4), 300.0), lat=[0.0],
+                      lon=[0.0, 10.0, 180.0, -170.0], reference_seconds=int(reference),
+                      sst_standard_name=standard_name)
+    if wind is not None:
+        with netCDF4.Dataset(path, "a") as nc:
+            v = nc.createVariable("wind_speed", "f4", ("time", "nj", "ni"), fill_value=np.float32(-999))
+            v.setncatts({"standard_name": "wind_speed", "units": "m s-1"})
+            v[:] = np.ma.masked_invalid(np.asarray(wind, dtype=np.float32)).reshape(1, 1, 4)
+    return path
+
+
+def test_diurnal_guard_night_only_rejects_daytime_skin_sst(tmp_path):
+    path = _guard_file(tmp_path)
+    assert reasons(read(path)) == [None] * 4  # off by default
+    table = read(path, diurnal_guard="night")
+    # local solar time 12:00 and 12:40 at 0 and 10 E: day; 00:00 and 00:40 at 180, 170 W: night
+    assert reasons(table) == ["diurnal_warming", "diurnal_warming", None, None]
+
+
+def test_diurnal_guard_keeps_daytime_values_in_wind_above_the_threshold(tmp_path):
+    path = _guard_file(tmp_path, wind=[7.0, 3.0, 1.0, NAN])
+    table = read(path, diurnal_guard="night_or_windy")
+    assert reasons(table) == [None, "diurnal_warming", None, None]
+    assert "wind_speed" in table.attrs["variables"]
+    # the threshold is an option (m/s): at 8 m/s the 7 m/s pixel is warmed too
+    table = read(path, diurnal_guard="night_or_windy", diurnal_min_wind_speed=8.0)
+    assert reasons(table) == ["diurnal_warming", "diurnal_warming", None, None]
+    # no wind in the file: no daytime value passes, with a warning
+    table = read(_guard_file(tmp_path, name="calm.nc"), diurnal_guard="night_or_windy")
+    assert reasons(table) == ["diurnal_warming", "diurnal_warming", None, None]
+    assert any("no wind_speed variable" in w for w in table.attrs["warnings"])
+
+
+def test_diurnal_guard_leaves_foundation_and_depth_sst_alone(tmp_path):
+    for standard_name in ("sea_surface_foundation_temperature", "sea_surface_temperature"):
+        path = _guard_file(tmp_path, standard_name, name=f"{standard_name}.nc")
+        assert reasons(read(path, diurnal_guard="night")) == [None] * 4
+
+
+def test_gds2_l4_analysis_keeps_open_water_cells_with_their_analysis_error(tmp_path):
+    # GDS 2.0 L4 ([GDS2], from memory): analysed_sst (foundation), analysis_error and a mask of
+    # bits 1 water, 2 land, 4 optional_lake_surface, 8 sea_ice, 16 optional_river_surface
+    path = tmp_path / "20261119120000-DEMO-L4_GHRSST-SSTfnd-ANALYSIS-v02.0-fv01.0.nc"
+    sst = np.array([[280.0, NAN, 281.0], [271.35, 282.0, NAN]])
+    error = np.array([[0.3, NAN, 0.4], [0.5, 0.35, NAN]])
+    mask = np.array([[1, 2, 5], [9, 1, 1]])
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.gds_version_id = "2.0"
+        for name, size in (("time", 1), ("lat", 2), ("lon", 3)):
+            nc.createDimension(name, size)
+        t = nc.createVariable("time", "i4", ("time",))
+        t.setncatts({"standard_name": "time", "units": "seconds since 1981-01-01 00:00:00"})
+        t[:] = [int((np.datetime64("2026-11-19T12:00:00") - GDS2_EPOCH) // np.timedelta64(1, "s"))]
+        for name, data, sn in (("lat", [-60.0, -59.9], "latitude"), ("lon", [10.0, 10.1, 10.2], "longitude")):
+            v = nc.createVariable(name, "f4", (name,))
+            v.setncatts({"standard_name": sn, "units": f"degrees_{'north' if name == 'lat' else 'east'}"})
+            v[:] = data
+        for name, data, sn, offset in (("analysed_sst", sst, "sea_surface_foundation_temperature", 273.15),
+                                       ("analysis_error", error, None, 0.0)):
+            v = nc.createVariable(name, "i2", ("time", "lat", "lon"), fill_value=np.int16(-32768))
+            v.setncatts({"scale_factor": 0.01, "add_offset": offset, "units": "kelvin",
+                         **({"standard_name": sn} if sn else {})})
+            v[0] = np.ma.masked_array(np.nan_to_num(data), mask=np.isnan(data))
+        m = nc.createVariable("mask", "i1", ("time", "lat", "lon"))
+        m.setncatts({"flag_masks": np.array([1, 2, 4, 8, 16], np.int8),
+                     "flag_meanings": "water land optional_lake_surface sea_ice optional_river_surface"})
+        m[0] = mask
+    path = str(path)
+    assert guess_kind(path) == "ghrsst_l4"
+    table = read(path)
+    assert set(table["quantity"].astype(str)) == {"sea_surface_foundation_temperature"}
+    # water + lake (5) and water + sea_ice (9) set a meaning other than water
+    assert reasons(table) == [None, "missing_value", "l4_mask", "l4_mask", None, "missing_value"]
+    kept = table["rejected"].isna().to_numpy()
+    np.testing.assert_allclose(table["value"][kept], (sst.ravel() - 273.15)[kept], atol=1e-9)
+    np.testing.assert_allclose(table["error"][kept], error.ravel()[kept], atol=1e-9)
+    assert (table["time"] == np.datetime64("2026-11-19T12:00:00")).all()

@@ -45,12 +45,14 @@ def test_quantity_rows_carry_each_declared_range_and_standard_name():
 
 
 def test_sst_types_follow_the_cf_standard_names_read_as_sst():
-    # CF standard name table: sea_surface_{skin,subskin,foundation}_temperature
+    # CF standard name table: sea_surface_{skin,subskin,foundation}_temperature, and plain
+    # sea_surface_temperature ([GDS2] "SST definitions": SSTdepth, SSTblend)
     types = dict(reference.sst_types())
-    accepted = QUANTITIES["sea_surface_temperature"].accepted_standard_names
-    assert set(types.values()) == set(accepted)
+    assert len(types) == 4
     for kind, name in types.items():
-        assert kind == "unspecified" or name == f"sea_surface_{kind}_temperature"
+        assert QUANTITIES[name].standard_name == name
+        assert name == (f"sea_surface_{kind}_temperature" if kind in ("skin", "subskin", "foundation")
+                        else "sea_surface_temperature")
 
 
 def test_every_default_flag_list_of_a_reader_option_is_listed():

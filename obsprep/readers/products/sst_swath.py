@@ -1,27 +1,48 @@
-"""Satellite SST swath (L2): SST on two spatial dimensions with 2-D latitude/longitude."""
+"""Satellite SST swath (L2): SST on two spatial dimensions with 2-D latitude/longitude.
+
+The SST type (skin, subskin, foundation, at a depth) is the quantity of the variable's CF
+standard_name (:data:`obsprep.model.quantities.SST_QUANTITY_NAMES`)."""
 
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 
-from obsprep.model.quantities import get_quantity
+from obsprep.model.quantities import SST_QUANTITY_NAMES, SST_STANDARD_NAMES, quantity_for_standard_name
+from obsprep.model.table import add_warning
 from obsprep.readers import cf
+from obsprep.readers.products.sst_diurnal import DiurnalGuardOptions, diurnal_warming_rejections
 from obsprep.readers.registry import Reader, register_reader
 
-SST = get_quantity("sea_surface_temperature")
+
+@dataclass(frozen=True)
+class SstOptions(cf.CfOptions, DiurnalGuardOptions):
+    """Options of the CF-generic SST readers: flag meanings and the diurnal-warming guard."""
+
+
+def has_latitude_ndim(ds, name: str, latitude_ndim: int) -> bool:
+    """True when variable ``name`` has a latitude coordinate of ``latitude_ndim`` dimensions
+    and a longitude coordinate."""
+    lat = cf.find_coordinate(ds, name, "latitude")
+    return lat is not None and ds[lat].ndim == latitude_ndim \
+        and cf.find_coordinate(ds, name, "longitude") is not None
 
 
 def sst_variable_with_latitude_ndim(ds, latitude_ndim: int) -> str | None:
-    """The SST variable whose latitude coordinate has ``latitude_ndim`` dimensions, or None."""
-    for standard_name in SST.accepted_standard_names:
+    """The variable with an SST standard name (any type: skin, subskin, foundation, at a
+    depth) whose latitude coordinate has ``latitude_ndim`` dimensions, or None."""
+    for standard_name in SST_STANDARD_NAMES:
         name = cf.find_variable(ds, [standard_name])
-        if name is None:
-            continue
-        lat = cf.find_coordinate(ds, name, "latitude")
-        if lat is not None and ds[lat].ndim == latitude_ndim \
-                and cf.find_coordinate(ds, name, "longitude") is not None:
+        if name is not None and has_latitude_ndim(ds, name, latitude_ndim):
             return name
     return None
+
+
+def sst_quantity(ds, name: str):
+    """The SST type of variable ``name`` (a :class:`~obsprep.model.quantities.Quantity`) from
+    its standard_name, or None when that is not an SST standard name."""
+    quantity = quantity_for_standard_name(str(ds[name].attrs.get("standard_name", "")).strip())
+    return quantity if quantity is not None and quantity.name in SST_QUANTITY_NAMES else None
 
 
 @register_reader
@@ -32,7 +53,7 @@ class SstSwathReader(Reader):
 
     kind = "sst_swath"
     description = "satellite SST swath (2-D latitude/longitude, per-pixel time)"
-    Options = cf.CfOptions
+    Options = SstOptions
     #: dimensions of the latitude coordinate that tell this layout from the others
     latitude_ndim = 2
 
@@ -50,16 +71,23 @@ class SstSwathReader(Reader):
     def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
         opts = options
         name = sst_variable_with_latitude_ndim(ds, self.latitude_ndim) or cf.require_variable(
-            ds, path, SST.accepted_standard_names, "sea surface temperature")
-        decoded = cf.decode_data_variable(ds, name, SST, path, opts.good_flag_meanings)
+            ds, path, SST_STANDARD_NAMES, "sea surface temperature")
+        decoded = cf.decode_data_variable(ds, name, sst_quantity(ds, name), path,
+                                          opts.good_flag_meanings)
         cf.require_values(path, [decoded], reading_part=reading_part)
         lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
+        warnings, used = [], _used_variables(ds, name)
+        rejections = diurnal_warming_rejections(ds, name, path, opts, decoded.quantity, time,
+                                                lon, lat, warnings, used)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
                                      group=self.group(ds, path),
                                      platform=cf.platform_attribute(ds, opts),
+                                     rejections=rejections,
                                      leave_out_rejected=leave_out_rejected)
-        table.attrs["variables"] = cf.variable_units(ds, _used_variables(ds, name))
+        for line in warnings:
+            add_warning(table, line)
+        table.attrs["variables"] = cf.variable_units(ds, used)
         return table
 
 
