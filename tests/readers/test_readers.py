@@ -607,11 +607,13 @@ def test_missing_drift_interval_is_named(tmp_path):
     assert path in str(info.value) and "'de'" in str(info.value)
 
 
-def test_all_fill_file_is_an_input_file_error(tmp_path):
+def test_all_fill_file_is_read_with_nothing_kept_and_a_warning(tmp_path):
+    # empty is not broken (a cloud-covered grid): every row under its reason, zero kept
     path = sst_grid_file(tmp_path / "fill.nc", np.full(6, np.nan))
-    with pytest.raises(InputFileError, match="all 6 values are fill") as info:
-        read(path)
-    assert path in str(info.value) and "'sst'" in str(info.value)
+    table = read(path)
+    assert len(table) == 6
+    assert (table["rejected"].astype(object) == "missing_value").all()
+    assert any("all 6 values of sst" in w for w in table.attrs["warnings"])
 
 
 def test_gridded_rows_account_for_every_value(tmp_path):

@@ -11,7 +11,9 @@ Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`;
 
 One module per topic: :mod:`~obsprep.readers.cf.open`, :mod:`~obsprep.readers.cf.find`,
 :mod:`~obsprep.readers.cf.units`, :mod:`~obsprep.readers.cf.time`,
-:mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.positions`,
+:mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.valid` (valid ranges, stored
+values), :mod:`~obsprep.readers.cf.quirks` (per-file warnings),
+:mod:`~obsprep.readers.cf.positions`,
 :mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`,
 :mod:`~obsprep.readers.cf.classic` (the size a netCDF-3 header implies)
 and :mod:`~obsprep.readers.cf.table`; their public names are re-exported here so readers
@@ -22,6 +24,8 @@ from __future__ import annotations
 
 from obsprep.readers.cf.find import (  # noqa: F401
     ancillary_variable_names,
+    candidate_variables,
+    find_uncertainty_variable,
     find_coordinate,
     find_coordinates,
     find_flag_variables,
@@ -31,8 +35,25 @@ from obsprep.readers.cf.find import (  # noqa: F401
     rows_dimension,
 )
 from obsprep.readers.cf.flags import (  # noqa: F401
+    FlagAttributesMissing,
     flag_meaning_masks,
     good_flag_mask,
+    has_flag_attributes,
+    is_filter_meaning,
+    meaning_key,
+    meaning_matches,
+    rejected_by_meanings,
+    usable_flag_variable,
+)
+from obsprep.readers.cf.quirks import (  # noqa: F401
+    FileQuirkWarning,
+    collecting_file_warnings,
+    file_warning,
+)
+from obsprep.readers.cf.valid import (  # noqa: F401
+    outside_valid_range,
+    stored_values,
+    valid_bounds,
 )
 from obsprep.readers.cf.open import (  # noqa: F401
     check_declared_sizes,
@@ -86,6 +107,7 @@ from obsprep.readers.cf.time import (  # noqa: F401
 from obsprep.readers.cf.units import (  # noqa: F401
     PRACTICAL_SALINITY_UNITS,
     convert_units,
+    convertible_units,
     preload,
     values_in_units,
 )
@@ -114,8 +136,24 @@ __all__ = [
     "ancillary_variable_names",
     "find_standard_error",
     "find_flag_variables",
+    "candidate_variables",
+    "find_uncertainty_variable",
     "good_flag_mask",
     "flag_meaning_masks",
+    "FlagAttributesMissing",
+    "has_flag_attributes",
+    "is_filter_meaning",
+    "meaning_key",
+    "meaning_matches",
+    "rejected_by_meanings",
+    "usable_flag_variable",
+    "FileQuirkWarning",
+    "collecting_file_warnings",
+    "file_warning",
+    "outside_valid_range",
+    "stored_values",
+    "valid_bounds",
+    "convertible_units",
     "decode_time",
     "decode_time_variable",
     "add_seconds",
