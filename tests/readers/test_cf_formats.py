@@ -92,10 +92,11 @@ def ice_file(path, with_latlon, crs="EPSG:3411"):
         "total_uncertainty": var(("time", "yc", "xc"), [[[5.0, 7.5, 2.0], [NAN, 12.0, 3.0]]],
                                  fill=-32767.0, units="%",
                                  standard_name="sea_ice_area_fraction standard_error"),
-        "status_flag": var(("time", "yc", "xc"), [[[0, 0, 0], [0, 1, 4]]], dtype="i1",
+        "status_flag": var(("time", "yc", "xc"), [[[0, 0, 2], [0, 1, 4]]], dtype="i1",
                            standard_name="sea_ice_area_fraction status_flag",
-                           flag_values=np.array([0, 1, 4], np.int8),
-                           flag_meanings="nominal land_spill_over_filter open_water_filter"),
+                           flag_values=np.array([0, 1, 2, 4], np.int8),
+                           flag_meanings="nominal land_spill_over_filter Land "
+                                         "open_water_filter"),
     }
     if with_latlon:
         variables["lat"] = var(("yc", "xc"), lat, standard_name="latitude",
@@ -115,13 +116,15 @@ def test_ice_concentration_percent_uncertainty_flags_with_and_without_latlon(tmp
     np.testing.assert_allclose(table["value"], [0.15, 0.80, 1.0, NAN, 0.42, 0.975], atol=1e-12)
     np.testing.assert_allclose(table["error"], [0.05, 0.075, 0.02, NAN, 0.12, 0.03],
                                atol=1e-12)
-    assert reasons(table) == [None, None, None, "missing_value", "provider_flag",
-                              "provider_flag"]
+    # CF 3.5 flag_values: cell 2 is "Land" (rejected by the default list, case ignored); the
+    # filter meanings are values the provider's filter set, kept (docs/file-conventions.md)
+    assert reasons(table) == [None, None, "provider_flag", "missing_value", None, None]
     # positions: the file's lat/lon, or the grid_mapping inverted by PROJ (same numbers)
     np.testing.assert_allclose(table["lat"], lat.ravel(), atol=1e-9)
     np.testing.assert_allclose(table["lon"], ((lon.ravel() + 180) % 360) - 180, atol=1e-9)
-    kept = read(path, good_flag_meanings="nominal open_water_filter")
-    assert reasons(kept)[5] is None and reasons(kept)[4] == "provider_flag"
+    # the list is an option: without "land" in it the land cell is kept
+    kept = read(path, reject_flag_meanings="coast lake missing")
+    assert reasons(kept) == [None, None, None, "missing_value", None, None]
 
 
 # --- ragged-array profiles -------------------------------------------------------------------

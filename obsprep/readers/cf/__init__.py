@@ -13,6 +13,7 @@ One module per topic: :mod:`~obsprep.readers.cf.open`, :mod:`~obsprep.readers.cf
 :mod:`~obsprep.readers.cf.units`, :mod:`~obsprep.readers.cf.time`,
 :mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.valid` (valid ranges, stored
 values), :mod:`~obsprep.readers.cf.quirks` (per-file warnings),
+:mod:`~obsprep.readers.cf.groups` (netCDF-4 groups),
 :mod:`~obsprep.readers.cf.positions`,
 :mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`,
 :mod:`~obsprep.readers.cf.classic` (the size a netCDF-3 header implies)
@@ -25,11 +26,11 @@ from __future__ import annotations
 from obsprep.readers.cf.find import (  # noqa: F401
     ancillary_variable_names,
     candidate_variables,
-    find_uncertainty_variable,
     find_coordinate,
     find_coordinates,
     find_flag_variables,
     find_standard_error,
+    find_uncertainty_variable,
     find_variable,
     require_variable,
     rows_dimension,
@@ -45,15 +46,10 @@ from obsprep.readers.cf.flags import (  # noqa: F401
     rejected_by_meanings,
     usable_flag_variable,
 )
-from obsprep.readers.cf.quirks import (  # noqa: F401
-    FileQuirkWarning,
-    collecting_file_warnings,
-    file_warning,
-)
-from obsprep.readers.cf.valid import (  # noqa: F401
-    outside_valid_range,
-    stored_values,
-    valid_bounds,
+from obsprep.readers.cf.groups import (  # noqa: F401
+    group_paths,
+    open_group,
+    source_path,
 )
 from obsprep.readers.cf.open import (  # noqa: F401
     check_declared_sizes,
@@ -86,6 +82,11 @@ from obsprep.readers.cf.positions import (  # noqa: F401
     lonlat_from_projection,
     wrap_longitude,
 )
+from obsprep.readers.cf.quirks import (  # noqa: F401
+    FileQuirkWarning,
+    collecting_file_warnings,
+    file_warning,
+)
 from obsprep.readers.cf.table import (  # noqa: F401
     NOT_IN_TABLE,
     ROW_VARIABLE,
@@ -111,6 +112,11 @@ from obsprep.readers.cf.units import (  # noqa: F401
     preload,
     values_in_units,
 )
+from obsprep.readers.cf.valid import (  # noqa: F401
+    outside_valid_range,
+    stored_values,
+    valid_bounds,
+)
 
 __all__ = [
     "DEFAULT_GOOD_FLAG_MEANINGS",
@@ -125,6 +131,9 @@ __all__ = [
     "declared_options",
     "reader_options",
     "open_dataset",
+    "group_paths",
+    "open_group",
+    "source_path",
     "unreadable_data",
     "out_of_memory",
     "check_declared_sizes",

@@ -35,8 +35,8 @@ def meaning_key(meaning: str) -> str:
 
 
 def meaning_words(meaning: str) -> list[str]:
-    """The words of a flag meaning in comparison form (see :func:`meaning_key`)."""
-    return meaning_key(meaning).split("_") if meaning_key(meaning) else []
+    """The words of a flag meaning, lower case, every one kept (``"No_data"`` -> no, data)."""
+    return re.findall(r"[a-z0-9]+", str(meaning).lower())
 
 
 class FlagAttributesMissing(InputFileError):
