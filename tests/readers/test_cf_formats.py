@@ -187,3 +187,52 @@ def test_indexed_ragged_glider_profiles(tmp_path):
     }, featureType="profile")
     with pytest.raises(InputFileError, match="profile_index"):
         read(with_bad_index)
+
+
+# --- along-track records in netCDF-4 groups ---------------------------------------------------
+
+def grouped_alongtrack(path, n1=4, rate=20):
+    """An L2 record with its 1 Hz and 20 Hz data in groups ``data_01`` and ``data_20``, each
+    with a ``ku`` subgroup holding the anomaly; time, latitude and longitude in the parent
+    group (found upward, CF 1.8 section 2.7, from memory)."""
+    import netCDF4
+
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.setncattr("platform", "sat_g")
+        for group, n in (("data_01", n1), ("data_20", n1 * rate)):
+            g = nc.createGroup(group)
+            g.createDimension("time", n)
+            seconds = np.arange(n) / (n / n1)
+            for name, values, attrs in (
+                    ("time", 7.0e8 + seconds, dict(standard_name="time",
+                                                  units="seconds since 2000-01-01 00:00:00")),
+                    ("latitude", np.linspace(10.0, 11.0, n), dict(standard_name="latitude",
+                                                                  units="degrees_north")),
+                    ("longitude", np.linspace(200.0, 201.0, n),
+                     dict(standard_name="longitude", units="degrees_east")),
+                    ("pole_tide", np.full(n, 0.01),
+                     dict(standard_name="sea_surface_height_amplitude_due_to_pole_tide",
+                          units="m"))):
+                v = g.createVariable(name, "f8", ("time",))
+                v.setncatts(attrs)
+                v[:] = values
+            ku = g.createGroup("ku")
+            v = ku.createVariable("ssha", "f8", ("time",), fill_value=-9999.0)
+            v.setncatts(dict(standard_name="sea_surface_height_above_sea_level", units="m",
+                             coordinates="time latitude longitude"))
+            v[:] = np.where(np.arange(n) == 1, -9999.0, np.arange(n) * 0.01)
+    return str(path)
+
+
+def test_grouped_alongtrack_reads_the_lowest_rate_group(tmp_path):
+    path = grouped_alongtrack(tmp_path / "l2.nc")
+    table = read(path)
+    validate_table(table)
+    assert table.attrs["kind"] == "alongtrack" and len(table) == 4
+    assert reasons(table) == [None, "missing_value", None, None]
+    np.testing.assert_allclose(table["value"].dropna(), [0.0, 0.02, 0.03])
+    np.testing.assert_allclose(table["lon"], np.linspace(200.0, 201.0, 4) - 360.0)
+    assert any("'data_01/ku'" in w and "data_20/ku (80)" in w for w in table.attrs["warnings"])
+    # a correction named by its standard_name, found in the parent group
+    corrected = read(path, subtract_corrections="sea_surface_height_amplitude_due_to_pole_tide")
+    np.testing.assert_allclose(corrected["value"].dropna(), [-0.01, 0.01, 0.02])

@@ -83,7 +83,10 @@ def open_group(path, group: str, load: bool = True) -> xr.Dataset:
         if load:
             merged = merged.load()
         else:
-            merged.set_close(lambda: [ds.close() for ds in opened])
+            # the files' own closers, taken before the merged dataset gets its closer (it may
+            # be the first group's dataset itself)
+            closers = [getattr(ds, "_close", None) or ds.close for ds in opened]
+            merged.set_close(lambda: [close() for close in closers])
         return merged
     finally:
         if load:
