@@ -104,6 +104,7 @@ from obsprep.readers.cf.time import (  # noqa: F401
     decode_time_variable,
     observation_interval,
     observation_time,
+    per_vector_interval,
 )
 from obsprep.readers.cf.units import (  # noqa: F401
     PRACTICAL_SALINITY_UNITS,
@@ -168,6 +169,7 @@ __all__ = [
     "add_seconds",
     "observation_time",
     "observation_interval",
+    "per_vector_interval",
     "PRACTICAL_SALINITY_UNITS",
     "preload",
     "convert_units",
