@@ -236,3 +236,19 @@ def test_grouped_alongtrack_reads_the_lowest_rate_group(tmp_path):
     # a correction named by its standard_name, found in the parent group
     corrected = read(path, subtract_corrections="sea_surface_height_amplitude_due_to_pole_tide")
     np.testing.assert_allclose(corrected["value"].dropna(), [-0.01, 0.01, 0.02])
+
+
+def test_percent_numbers_in_dimensionless_units_are_read_as_percent(tmp_path):
+    # units "1" (a fraction, CF) on values 0..100: read as percent, with a warning
+    from sample_files import ice_concentration_file
+
+    path = ice_concentration_file(tmp_path / "sic.nc", units="1")
+    table = read(path)
+    np.testing.assert_allclose(table["value"], [0.10, 0.55, 1.0, 0.0, NAN, 0.875], atol=1e-12)
+    assert any("read as percent" in w for w in table.attrs["warnings"])
+    # a true fraction (values within 0..1) is left alone
+    fraction = ice_concentration_file(tmp_path / "frac.nc", units="1",
+                                      conc=np.array([[[0.1, 0.5, 1.0], [0.0, NAN, 0.9]]]))
+    table = read(fraction)
+    np.testing.assert_allclose(table["value"], [0.1, 0.5, 1.0, 0.0, NAN, 0.9], atol=1e-12)
+    assert not table.attrs.get("warnings")

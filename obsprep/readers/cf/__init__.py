@@ -116,6 +116,7 @@ from obsprep.readers.cf.units import (  # noqa: F401
 from obsprep.readers.cf.valid import (  # noqa: F401
     outside_valid_range,
     stored_values,
+    unpacked_valid_bounds,
     valid_bounds,
 )
 
@@ -163,6 +164,7 @@ __all__ = [
     "outside_valid_range",
     "stored_values",
     "valid_bounds",
+    "unpacked_valid_bounds",
     "convertible_units",
     "decode_time",
     "decode_time_variable",

@@ -67,6 +67,17 @@ def _bounds_are_stored(da: xr.DataArray) -> bool:
     return kind in "iu" or (stored.kind == "f" and kind == "f")
 
 
+def unpacked_valid_bounds(da: xr.DataArray) -> tuple[float, float] | None:
+    """:func:`valid_bounds` in the variable's unpacked units (scale_factor and add_offset
+    applied when the attributes are in stored units), or None."""
+    bounds = valid_bounds(da)
+    if bounds is None or not _bounds_are_stored(da):
+        return bounds
+    scale, offset, _ = _packing(da)
+    ends = sorted(b * scale + offset for b in bounds)
+    return ends[0], ends[1]
+
+
 def outside_valid_range(da: xr.DataArray) -> np.ndarray | None:
     """Boolean array, True where a finite value of ``da`` is outside its valid range (CF
     2.5.1: such values are missing); None without valid-range attributes."""

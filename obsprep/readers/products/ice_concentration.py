@@ -15,11 +15,16 @@ Flags, in order:
   side of the edge is where concentration observations matter most.  Other meanings
   (``nominal``, interpolation notes) keep the cell.
 - percent or fraction: converted from the variable's ``units`` ("%" or "1") to a fraction.
+  Dimensionless units on percent numbers are read as percent, with a per-file warning: when
+  the valid range (unpacked) ends between 1.5 and 100.5, or, without a valid range, when the
+  finite values reach above 1.5 and none exceeds 100.5 (:func:`percent_in_dimensionless_units`).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+import numpy as np
 
 from obsprep.model.quantities import get_quantity
 from obsprep.readers import cf
@@ -32,6 +37,25 @@ SEA_ICE_CONCENTRATION = get_quantity("sea_ice_concentration")
 DEFAULT_REJECT_ICE_FLAG_MEANINGS = frozenset((
     "land", "lake", "coast", "missing", "invalid", "no_data", "nodata", "fill", "pole_hole",
     "unused"))
+
+
+#: the largest fraction a concentration retrieval delivers unclipped (the quantity's range ends
+#: at 1.25); numbers beyond it in dimensionless units are percent
+_LARGEST_FRACTION = 1.5
+
+
+def percent_in_dimensionless_units(var, values) -> bool:
+    """True when variable ``var`` says its concentration is a fraction (units "1" or none) but
+    holds percent: its valid range (unpacked) ends in (1.5, 100.5], or, without a valid range,
+    the finite ``values`` (as decoded, fraction units) exceed 1.5 and none exceeds 100.5."""
+    units = str(var.attrs.get("units", "1")).strip().lower()
+    if units not in ("1", "", "fraction", "none"):
+        return False
+    bounds = cf.unpacked_valid_bounds(var)
+    if bounds is not None:
+        return _LARGEST_FRACTION < bounds[1] <= 100.5
+    finite = values[np.isfinite(values)]
+    return bool(finite.size) and _LARGEST_FRACTION < finite.max() <= 100.5
 
 
 @dataclass(frozen=True)
@@ -69,6 +93,15 @@ class IceConcentrationReader(Reader):
         decoded = cf.decode_data_variable(ds, name, SEA_ICE_CONCENTRATION, path,
                                           reject_flag_meanings=opts.reject_flag_meanings)
         cf.require_values(path, [decoded], reading_part=reading_part)
+        judged = decoded.values if decoded.good is None else \
+            np.where(decoded.good, decoded.values, np.nan)  # the provider's flags are no data
+        if percent_in_dimensionless_units(ds[name], judged):
+            cf.file_warning(f"units '{ds[name].attrs.get('units', '')}' (a fraction) on values "
+                            f"in percent (valid range or values up to 100); read as percent",
+                            variable=name)
+            decoded = decoded.replace(
+                values=decoded.values / 100.0,
+                error=None if decoded.error is None else decoded.error / 100.0)
         lon, lat = cf.horizontal_position(ds, name, path, reading_part=reading_part)
         time = cf.observation_time(ds, name, path)
         table = cf.observation_table(path, opts, decoded, lon=lon, lat=lat, time=time,
