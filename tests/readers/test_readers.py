@@ -907,3 +907,29 @@ def test_drift_uncertainty_with_flag_attributes_or_other_units_is_not_used(tmp_p
         nc["uncert_n"].flag_meanings = "bad"
     table = read_checked(path)
     assert table["error"].isna().all()
+
+
+def test_drift_per_vector_offsets_from_the_nominal_start_and_end(tmp_path):
+    # durations in seconds, the start one from the nominal start, the end one from the
+    # nominal end (time_bnds 26997 .. 26999 days since 1950)
+    path = _drift_with_vector_times(tmp_path / "drift.nc")
+    with netCDF4.Dataset(path, "a") as nc:
+        for name, seconds, what in (("dt0", [600.0, 1200.0, 0.0], "start"),
+                                    ("dt1", [-600.0, 0.0, 1800.0], "end")):
+            v = nc.createVariable(name, "f8", ("n",))
+            v.setncatts(dict(units="seconds", long_name=f"time offset of the {what} of the "
+                                                         "displacement"))
+            v[:] = seconds
+        for name in ("t_start", "t_end"):
+            nc.renameVariable(name, f"old_{name}")
+            nc[f"old_{name}"].units = "1"  # no longer times
+    table = read_checked(path)
+    east = table[table["quantity"] == "sea_ice_drift_east"]
+    start = np.datetime64("2023-12-01T00:00:00", "ns")  # 26997 days after 1950-01-01
+    end = start + np.timedelta64(2, "D")
+    assert cftime.num2date(26997.0, TIME_1950["units"], only_use_cftime_datetimes=False,
+                           only_use_python_datetimes=True) == start.astype("datetime64[us]").item()
+    np.testing.assert_array_equal(east["time"].to_numpy(),
+                                  start + np.array([600, 1200, 0]) * np.timedelta64(1, "s"))
+    np.testing.assert_array_equal(east["time_end"].to_numpy(),
+                                  end + np.array([-600, 0, 1800]) * np.timedelta64(1, "s"))

@@ -203,7 +203,8 @@ def per_vector_interval(ds: xr.Dataset, name: str, path, nominal=None):
 
     Candidates are variables on a subset of ``name``'s dimensions that include a dimension of
     more than one value, with time units: absolute (``"<unit> since <epoch>"``, each decoded
-    with its own epoch and calendar) or, for a ``standard_name = "time"`` variable, a duration
+    with its own epoch and calendar) or a duration (a ``standard_name = "time"`` variable, or
+    one whose long_name speaks of time and whose name or long_name marks a start or an end)
     added to the nominal interval's start or end (``nominal``: (start, end) broadcast to the
     variable).  Which one is the start: the words of its name or long_name (start, begin,
     first, t0 / end, stop, last, t1), else the one earlier at the median.  Only a pair is used;
@@ -223,8 +224,11 @@ def per_vector_interval(ds: xr.Dataset, name: str, path, nominal=None):
             continue
         units = str(v.attrs.get("units", ""))
         absolute = " since " in units
-        duration = (v.attrs.get("standard_name") == "time"
-                    and units.strip().lower() in _SECONDS_PER_UNIT)
+        # a duration: standard_name time, or a long_name about time marking a start or end
+        duration = units.strip().lower() in _SECONDS_PER_UNIT and (
+            v.attrs.get("standard_name") == "time"
+            or ("time" in str(v.attrs.get("long_name", "")).lower()
+                and _interval_end_of(v) is not None))
         if absolute or duration:
             candidates.append((str(other), absolute))
     if len(candidates) < 2:
