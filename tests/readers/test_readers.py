@@ -933,3 +933,14 @@ def test_drift_per_vector_offsets_from_the_nominal_start_and_end(tmp_path):
                                   start + np.array([600, 1200, 0]) * np.timedelta64(1, "s"))
     np.testing.assert_array_equal(east["time_end"].to_numpy(),
                                   end + np.array([-600, 0, 1800]) * np.timedelta64(1, "s"))
+
+
+def test_attributes_that_are_not_numbers_warn_and_never_refuse(tmp_path):
+    # valid_max written as text, flag_values as text: warnings, the file read
+    path = _flagged_sst(tmp_path / "qc.nc", None, "good bad", [0, 1, 0, 0, 1, 0])
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["qc"].flag_values = "0, 1"
+        nc["sst"].setncattr_string("valid_max", "hot")
+    table = read_checked(path)
+    assert reasons(table) == [None, "provider_flag", None, None, "provider_flag", None]
+    assert any("not numbers" in w and "'sst'" in w for w in table.attrs["warnings"])

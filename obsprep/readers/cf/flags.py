@@ -51,13 +51,16 @@ def has_flag_attributes(var: xr.DataArray) -> bool:
 
 def _numbers(entries, attr, name) -> np.ndarray:
     """A flag attribute as int64; numbers written in a string are parsed (with a warning)."""
-    if isinstance(entries, (str, bytes)):
-        text = entries.decode() if isinstance(entries, bytes) else entries
-        found = re.findall(r"[-+]?\d+", text)
-        file_warning(f"{attr} is the string {text!r}, not numbers; read as "
-                     f"{' '.join(found)}", variable=name)
-        return np.array([int(f) for f in found], dtype=np.int64)
-    return np.atleast_1d(np.asarray(entries)).astype(np.int64)
+    if not isinstance(entries, (str, bytes)):
+        array = np.atleast_1d(np.asarray(entries))
+        if array.dtype.kind in "biuf":
+            return array.astype(np.int64)
+        entries = " ".join(str(e) for e in array.ravel())  # strings: parse them below
+    text = entries.decode(errors="replace") if isinstance(entries, bytes) else entries
+    found = re.findall(r"[-+]?\d+", text)
+    file_warning(f"{attr} is the string {text!r}, not numbers; read as "
+                 f"{' '.join(found) or 'nothing'}", variable=name)
+    return np.array([int(f) for f in found], dtype=np.int64)
 
 
 def _flag_table(flag: xr.DataArray, path):

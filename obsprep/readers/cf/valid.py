@@ -37,6 +37,15 @@ def valid_bounds(da: xr.DataArray) -> tuple[float, float] | None:
     """(lowest, highest) valid stored value from ``valid_range``, else ``valid_min``/
     ``valid_max`` (missing ends are infinite); None without them.  NUG/CF: the attributes of
     a packed variable are in stored units when they have the stored type."""
+    try:
+        return _valid_bounds(da)
+    except (ValueError, TypeError):
+        file_warning("valid_range/valid_min/valid_max are not numbers; not used",
+                     variable=da.name)
+        return None
+
+
+def _valid_bounds(da: xr.DataArray) -> tuple[float, float] | None:
     attrs = da.attrs
     if "valid_range" in attrs:
         bounds = np.atleast_1d(np.asarray(attrs["valid_range"], dtype=np.float64))
