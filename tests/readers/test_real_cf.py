@@ -98,6 +98,9 @@ def test_nsidc_sea_ice_concentration_record(tmp_path):
     dlon = (table["lon"].to_numpy() - lon[order] + 180.0) % 360.0 - 180.0
     assert np.abs(dlon[np.abs(lat[order]) < 89.9]).max() < 1e-6
     assert table["time"].nunique() == 1 and table["time"].iloc[0] == np.datetime64(day, "ns")
+    # its ancillary stdev_of_cdr_seaice_conc has no units and carries flag attributes: by the
+    # rule it is not an uncertainty of the concentration, so no error comes from the file
+    assert table["error"].isna().all()
     warnings = table.attrs["warnings"]
     assert any("qa_of_cdr_seaice_conc" in w and "not used" in w for w in warnings), warnings
     assert any("3 variables have standard_name 'sea_ice_area_fraction'" in w
