@@ -88,21 +88,30 @@ def unpacked_valid_bounds(da: xr.DataArray) -> tuple[float, float] | None:
 
 
 def outside_valid_range(da: xr.DataArray) -> np.ndarray | None:
-    """Boolean array, True where a finite value of ``da`` is outside its valid range (CF
-    2.5.1: such values are missing); None without valid-range attributes."""
+    """Boolean array, True where a value of ``da`` is outside its valid range (CF 2.5.1: such
+    values are missing; NaN is never outside); None without valid-range attributes.
+
+    For integer packing the comparison is made on the unpacked values against the unpacked
+    bounds widened by half a packing step: exact (stored values are whole numbers) and one
+    comparison per value, with no copy of a large swath back to stored units."""
     bounds = valid_bounds(da)
     if bounds is None:
         return None
     low, high = bounds
+    scale, offset, stored = _packing(da)
     if _bounds_are_stored(da):
-        values = stored_values(da)
-    else:
-        values = np.asarray(da.values, dtype=np.float64)
-        scale, offset, stored = _packing(da)
-        if stored is not None and stored.kind in "iu":
-            # unpacked bounds against unpacked integers: half a packing step of margin, so a
-            # bound equal to a packed value is inside whatever the float rounding
-            margin = abs(scale) / 2
-            low, high = low - margin, high + margin
+        if stored.kind not in "iu":
+            values = stored_values(da)
+            with np.errstate(invalid="ignore"):
+                return (values < low) | (values > high)
+        low, high = sorted((low * scale + offset, high * scale + offset))
+    values = np.asarray(da.values)
+    if values.dtype.kind != "f":
+        values = values.astype(np.float64)
+    if stored is not None and stored.kind in "iu":
+        # half a packing step of margin: a bound equal to a packed value is inside whatever
+        # the float rounding of the unpacking
+        margin = abs(scale) / 2
+        low, high = low - margin, high + margin
     with np.errstate(invalid="ignore"):
-        return np.isfinite(values) & ((values < low) | (values > high))
+        return (values < low) | (values > high)
