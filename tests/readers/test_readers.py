@@ -944,3 +944,10 @@ def test_attributes_that_are_not_numbers_warn_and_never_refuse(tmp_path):
     table = read_checked(path)
     assert reasons(table) == [None, "provider_flag", None, None, "provider_flag", None]
     assert any("not numbers" in w and "'sst'" in w for w in table.attrs["warnings"])
+
+
+def test_a_status_flag_with_no_flag_attributes_at_all_is_not_used(tmp_path):
+    path = _flagged_sst(tmp_path / "qc.nc", None, None, [1, 2, 4, 8, 0, 0])
+    table = read_checked(path)
+    assert reasons(table) == [None] * 6
+    assert any("'qc'" in w and "no flag attributes" in w for w in table.attrs["warnings"])
