@@ -252,3 +252,11 @@ def test_percent_numbers_in_dimensionless_units_are_read_as_percent(tmp_path):
     table = read(fraction)
     np.testing.assert_allclose(table["value"], [0.1, 0.5, 1.0, 0.0, NAN, 0.9], atol=1e-12)
     assert not table.attrs.get("warnings")
+
+
+def test_grouped_alongtrack_group_named_by_option(tmp_path):
+    path = grouped_alongtrack(tmp_path / "l2.nc")
+    table = read(path, data_group="data_20/ku")
+    assert len(table) == 80 and not table.attrs.get("warnings")
+    with pytest.raises(InputFileError, match="data_99"):
+        read(path, data_group="data_99")

@@ -18,7 +18,7 @@ the groups that do (with 1-D time, latitude and longitude on its dimension, foun
 through the parent groups as CF 2.7 allows) are candidates, and the one with the fewest values
 along that dimension is read: the lowest-rate record, the 1 Hz one that carries the
 corrections, of which the 20 Hz values are the raw samples.  A per-file warning names the
-group read when there were several.
+group read when there were several; option ``data_group`` names another.
 """
 
 from __future__ import annotations
@@ -99,6 +99,9 @@ class AlongTrackOptions(cf.CfOptions):
     pass_variable: str | None = cf.option(
         None, "variable holding the pass/track number (default: the cf_role = trajectory_id "
               "variable, else time gaps)", cf.parse_string)
+    data_group: str | None = cf.option(
+        None, "netCDF-4 group to read, e.g. data_01/ku (default: the root group, else the "
+              "lowest-rate group holding a sea level anomaly)", cf.parse_string)
     add_corrections: tuple = cf.option(
         (), "correction terms added to the value: variable names or standard_names (m, or "
             "any length unit); default none: the product's anomaly as the provider "
@@ -126,7 +129,12 @@ class AlongTrackReader(Reader):
 
     def read_dataset(self, ds, path, *, options, leave_out_rejected, reading_part):
         opts = options
-        if _data_variable(ds) is None:
+        if opts.data_group is not None:
+            if opts.data_group.strip("/") not in cf.group_paths(path):
+                raise InputFileError(path, f"option data_group names group "
+                                           f"'{opts.data_group}', which is not in the file")
+            ds = cf.open_group(path, opts.data_group.strip("/"))
+        elif _data_variable(ds) is None:
             groups = alongtrack_groups(path)
             if groups:
                 group, size = groups[0]
