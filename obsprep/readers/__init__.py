@@ -138,7 +138,15 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    from obsprep.readers.cf import declared_options, open_dataset, out_of_memory, reader_options, unreadable_data
+    from obsprep.model.table import add_warning
+    from obsprep.readers.cf import (
+        collecting_file_warnings,
+        declared_options,
+        open_dataset,
+        out_of_memory,
+        reader_options,
+        unreadable_data,
+    )
     from obsprep.readers.model_output import refuse_model_output
 
     path = os.fspath(path)
@@ -176,9 +184,12 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
             if dimension is None:
                 raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
             ds = ds.isel({dimension: row_slice})
-        table = readers[kind].read_dataset(ds, path, options=parsed,
-                                           leave_out_rejected=bool(leave_out_rejected),
-                                           reading_part=row_slice is not None)
+        with collecting_file_warnings() as quirks:  # the CF layer's per-file warnings
+            table = readers[kind].read_dataset(ds, path, options=parsed,
+                                               leave_out_rejected=bool(leave_out_rejected),
+                                               reading_part=row_slice is not None)
+        for message in quirks:
+            add_warning(table, message)
         if row_slice is not None:
             _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
     except InputFileError:

@@ -46,7 +46,6 @@ def bad_files(tmp_path):
         "sst_truncated.nc": ["truncated"],
         "sst_empty.nc": ["empty"],
         "sst_units.nc": ["'sea_surface_temperature'", "furlongs per fortnight", "degC"],
-        "sst_fill.nc": ["'sea_surface_temperature'", "fill"],
         "argo_nopres.nc": ["'PRES'"],
     }
 
@@ -81,6 +80,10 @@ def test_build_lists_bad_files_and_goes_on(tmp_path):
     result = build(cfg)
     entries = {e.file.rsplit("/", 1)[-1]: e for e in result.ledger.entries}
     assert entries["sst_good.nc"].status == "ok" and entries["sst_good.nc"].kept == 12
+    # a file with nothing valid is read, not unreadable: every value counted under its reason
+    empty = entries["sst_fill.nc"]
+    assert empty.status == "ok" and empty.kept == 0, empty
+    assert any("all 12 values" in w for w in empty.warnings), empty.warnings
     for name, words in expected.items():
         entry = entries[name]
         assert entry.status == "unreadable" and "\n" not in entry.message

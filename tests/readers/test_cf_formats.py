@@ -92,10 +92,11 @@ def ice_file(path, with_latlon, crs="EPSG:3411"):
         "total_uncertainty": var(("time", "yc", "xc"), [[[5.0, 7.5, 2.0], [NAN, 12.0, 3.0]]],
                                  fill=-32767.0, units="%",
                                  standard_name="sea_ice_area_fraction standard_error"),
-        "status_flag": var(("time", "yc", "xc"), [[[0, 0, 0], [0, 1, 4]]], dtype="i1",
+        "status_flag": var(("time", "yc", "xc"), [[[0, 0, 2], [0, 1, 4]]], dtype="i1",
                            standard_name="sea_ice_area_fraction status_flag",
-                           flag_values=np.array([0, 1, 4], np.int8),
-                           flag_meanings="nominal land_spill_over_filter open_water_filter"),
+                           flag_values=np.array([0, 1, 2, 4], np.int8),
+                           flag_meanings="nominal land_spill_over_filter Land "
+                                         "open_water_filter"),
     }
     if with_latlon:
         variables["lat"] = var(("yc", "xc"), lat, standard_name="latitude",
@@ -115,13 +116,15 @@ def test_ice_concentration_percent_uncertainty_flags_with_and_without_latlon(tmp
     np.testing.assert_allclose(table["value"], [0.15, 0.80, 1.0, NAN, 0.42, 0.975], atol=1e-12)
     np.testing.assert_allclose(table["error"], [0.05, 0.075, 0.02, NAN, 0.12, 0.03],
                                atol=1e-12)
-    assert reasons(table) == [None, None, None, "missing_value", "provider_flag",
-                              "provider_flag"]
+    # CF 3.5 flag_values: cell 2 is "Land" (rejected by the default list, case ignored); the
+    # filter meanings are values the provider's filter set, kept (docs/file-conventions.md)
+    assert reasons(table) == [None, None, "provider_flag", "missing_value", None, None]
     # positions: the file's lat/lon, or the grid_mapping inverted by PROJ (same numbers)
     np.testing.assert_allclose(table["lat"], lat.ravel(), atol=1e-9)
     np.testing.assert_allclose(table["lon"], ((lon.ravel() + 180) % 360) - 180, atol=1e-9)
-    kept = read(path, good_flag_meanings="nominal open_water_filter")
-    assert reasons(kept)[5] is None and reasons(kept)[4] == "provider_flag"
+    # the list is an option: without "land" in it the land cell is kept
+    kept = read(path, reject_flag_meanings="coast lake missing")
+    assert reasons(kept) == [None, None, None, "missing_value", None, None]
 
 
 # --- ragged-array profiles -------------------------------------------------------------------
@@ -184,3 +187,76 @@ def test_indexed_ragged_glider_profiles(tmp_path):
     }, featureType="profile")
     with pytest.raises(InputFileError, match="profile_index"):
         read(with_bad_index)
+
+
+# --- along-track records in netCDF-4 groups ---------------------------------------------------
+
+def grouped_alongtrack(path, n1=4, rate=20):
+    """An L2 record with its 1 Hz and 20 Hz data in groups ``data_01`` and ``data_20``, each
+    with a ``ku`` subgroup holding the anomaly; time, latitude and longitude in the parent
+    group (found upward, CF 1.8 section 2.7, from memory)."""
+    import netCDF4
+
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.setncattr("platform", "sat_g")
+        for group, n in (("data_01", n1), ("data_20", n1 * rate)):
+            g = nc.createGroup(group)
+            g.createDimension("time", n)
+            seconds = np.arange(n) / (n / n1)
+            for name, values, attrs in (
+                    ("time", 7.0e8 + seconds, dict(standard_name="time",
+                                                  units="seconds since 2000-01-01 00:00:00")),
+                    ("latitude", np.linspace(10.0, 11.0, n), dict(standard_name="latitude",
+                                                                  units="degrees_north")),
+                    ("longitude", np.linspace(200.0, 201.0, n),
+                     dict(standard_name="longitude", units="degrees_east")),
+                    ("pole_tide", np.full(n, 0.01),
+                     dict(standard_name="sea_surface_height_amplitude_due_to_pole_tide",
+                          units="m"))):
+                v = g.createVariable(name, "f8", ("time",))
+                v.setncatts(attrs)
+                v[:] = values
+            ku = g.createGroup("ku")
+            v = ku.createVariable("ssha", "f8", ("time",), fill_value=-9999.0)
+            v.setncatts(dict(standard_name="sea_surface_height_above_sea_level", units="m",
+                             coordinates="time latitude longitude"))
+            v[:] = np.where(np.arange(n) == 1, -9999.0, np.arange(n) * 0.01)
+    return str(path)
+
+
+def test_grouped_alongtrack_reads_the_lowest_rate_group(tmp_path):
+    path = grouped_alongtrack(tmp_path / "l2.nc")
+    table = read(path)
+    validate_table(table)
+    assert table.attrs["kind"] == "alongtrack" and len(table) == 4
+    assert reasons(table) == [None, "missing_value", None, None]
+    np.testing.assert_allclose(table["value"].dropna(), [0.0, 0.02, 0.03])
+    np.testing.assert_allclose(table["lon"], np.linspace(200.0, 201.0, 4) - 360.0)
+    assert any("'data_01/ku'" in w and "data_20/ku (80)" in w for w in table.attrs["warnings"])
+    # a correction named by its standard_name, found in the parent group
+    corrected = read(path, subtract_corrections="sea_surface_height_amplitude_due_to_pole_tide")
+    np.testing.assert_allclose(corrected["value"].dropna(), [-0.01, 0.01, 0.02])
+
+
+def test_percent_numbers_in_dimensionless_units_are_read_as_percent(tmp_path):
+    # units "1" (a fraction, CF) on values 0..100: read as percent, with a warning
+    from sample_files import ice_concentration_file
+
+    path = ice_concentration_file(tmp_path / "sic.nc", units="1")
+    table = read(path)
+    np.testing.assert_allclose(table["value"], [0.10, 0.55, 1.0, 0.0, NAN, 0.875], atol=1e-12)
+    assert any("read as percent" in w for w in table.attrs["warnings"])
+    # a true fraction (values within 0..1) is left alone
+    fraction = ice_concentration_file(tmp_path / "frac.nc", units="1",
+                                      conc=np.array([[[0.1, 0.5, 1.0], [0.0, NAN, 0.9]]]))
+    table = read(fraction)
+    np.testing.assert_allclose(table["value"], [0.1, 0.5, 1.0, 0.0, NAN, 0.9], atol=1e-12)
+    assert not table.attrs.get("warnings")
+
+
+def test_grouped_alongtrack_group_named_by_option(tmp_path):
+    path = grouped_alongtrack(tmp_path / "l2.nc")
+    table = read(path, data_group="data_20/ku")
+    assert len(table) == 80 and not table.attrs.get("warnings")
+    with pytest.raises(InputFileError, match="data_99"):
+        read(path, data_group="data_99")

@@ -607,11 +607,13 @@ def test_missing_drift_interval_is_named(tmp_path):
     assert path in str(info.value) and "'de'" in str(info.value)
 
 
-def test_all_fill_file_is_an_input_file_error(tmp_path):
+def test_all_fill_file_is_read_with_nothing_kept_and_a_warning(tmp_path):
+    # empty is not broken (a cloud-covered grid): every row under its reason, zero kept
     path = sst_grid_file(tmp_path / "fill.nc", np.full(6, np.nan))
-    with pytest.raises(InputFileError, match="all 6 values are fill") as info:
-        read(path)
-    assert path in str(info.value) and "'sst'" in str(info.value)
+    table = read(path)
+    assert len(table) == 6
+    assert (table["rejected"].astype(object) == "missing_value").all()
+    assert any("all 6 values of sst" in w for w in table.attrs["warnings"])
 
 
 def test_gridded_rows_account_for_every_value(tmp_path):
@@ -695,3 +697,257 @@ def test_reader_reasons_are_registered_by_their_modules_in_stage_order():
     with pytest.raises(ValueError, match="unknown stage"):
         reasons.register_reason("a_new_code", "a new reason", stage="writer")
     assert "a_new_code" not in reasons.REASONS
+
+
+# --- tolerant decoding, loud warnings ---------------------------------------------------------
+# CF 1.11 section 3.5 (flag_values, flag_masks, flag_meanings; looked up in the CF conventions
+# document, cf-convention/cf-conventions ch03), section 2.5.1 (values outside valid_min,
+# valid_max, valid_range are missing, interpreted in the packed values; looked up, ch02).
+
+
+def _flagged_sst(path, flag_values, flag_meanings, flags, **flag_attrs):
+    """A 2 x 3 SST grid with a status_flag ancillary variable of the given attributes."""
+    attrs = dict(standard_name="sea_surface_temperature status_flag", **flag_attrs)
+    if flag_values is not None:
+        attrs["flag_values"] = np.asarray(flag_values, np.int8)
+    if flag_meanings is not None:
+        attrs["flag_meanings"] = flag_meanings
+    return write_nc(path, {"time": 1, "lat": 2, "lon": 3}, {
+        "time": var(("time",), [1.3e9], standard_name="time",
+                    units="seconds since 1981-01-01 00:00:00"),
+        "lat": var(("lat",), [50.0, 51.0], standard_name="latitude", units="degrees_north"),
+        "lon": var(("lon",), [0.0, 1.0, 2.0], standard_name="longitude", units="degrees_east"),
+        "sst": var(("time", "lat", "lon"), np.full((1, 2, 3), 290.0), fill=-999.0,
+                   standard_name="sea_surface_temperature", units="K",
+                   ancillary_variables="qc"),
+        "qc": var(("time", "lat", "lon"), np.asarray(flags, np.int8).reshape(1, 2, 3),
+                  dtype="i1", **attrs),
+    })
+
+
+def test_flag_meanings_match_without_case_or_separators(tmp_path):
+    # the IMOS spelling of the flag scheme: "Good_data Probably_good_data Bad_data ..."
+    path = _flagged_sst(tmp_path / "qc.nc", [0, 1, 2, 3, 4],
+                        "No_QC_performed Good_data Probably-good-data Bad_data Missing_value",
+                        [1, 2, 3, 0, 4, 1])
+    table = read_checked(path)
+    assert reasons(table) == [None, None, "provider_flag", "provider_flag", "provider_flag", None]
+    assert cf.meaning_key("Probably_good_data") == cf.meaning_key("probably good") \
+        == "probably_good"
+
+
+def test_flag_attributes_of_unequal_length_use_the_pairs_that_exist(tmp_path):
+    # 3 flag_values, 4 meanings: the first 3 pairs (good, bad, good_but_odd) are read
+    path = _flagged_sst(tmp_path / "qc.nc", [0, 1, 2], "good bad ok extra",
+                        [0, 1, 2, 0, 1, 2])
+    table = read_checked(path)
+    assert reasons(table) == [None, "provider_flag", None, None, "provider_flag", None]
+    assert any("'qc'" in w and "first 3 pairs" in w for w in table.attrs["warnings"])
+
+
+def test_a_flag_variable_without_meanings_is_not_used_and_said_so(tmp_path):
+    # flag_masks with a misspelt meanings attribute: nothing to interpret, never a refusal
+    path = _flagged_sst(tmp_path / "qc.nc", None, None, [1, 2, 4, 8, 0, 0],
+                        flag_masks=np.array([1, 2, 4, 8], np.int8),
+                        flag_mask_meanings="a b c d")
+    table = read_checked(path)
+    assert reasons(table) == [None] * 6
+    assert any("'qc'" in w and "not used" in w and "flag_mask_meanings" in w
+               for w in table.attrs["warnings"])
+
+
+def test_flag_values_written_as_a_string_are_parsed(tmp_path):
+    path = _flagged_sst(tmp_path / "qc.nc", None, "good bad", [0, 1, 0, 0, 1, 0])
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["qc"].flag_values = "0b, 1b"
+    table = read_checked(path)
+    assert reasons(table) == [None, "provider_flag", None, None, "provider_flag", None]
+    assert any("'0b, 1b'" in w for w in table.attrs["warnings"])
+
+
+def test_valid_min_and_max_make_values_outside_missing(tmp_path):
+    # CF 2.5.1: values outside valid_min .. valid_max are missing, not observations
+    kelvin = np.array([290.0, 250.0, 300.0, 330.0, 271.0, 310.0])
+    path = sst_grid_file(tmp_path / "sst.nc", kelvin, valid_min=260.0, valid_max=310.0)
+    table = read_checked(path)
+    assert reasons(table) == [None, "missing_value", None, "missing_value", None, None]
+
+
+def _packed_ice(path, stored, scale=0.01, meanings="pole_hole lakes coastal land_mask missing"):
+    """A packed (unsigned byte, scale 0.01) ice concentration with its own flags beyond
+    valid_max, in the layout of a polar-stereographic climate data record."""
+    crs = pyproj.CRS("EPSG:3413")
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.createDimension("time", 1)
+        nc.createDimension("y", 2)
+        nc.createDimension("x", 3)
+        t = nc.createVariable("time", "f8", ("time",))
+        t.setncatts(TIME_1950)
+        t[:] = [27000.5]
+        for name, values, axis in (("x", [-1e6, 0.0, 5e5], "projection_x_coordinate"),
+                                   ("y", [-2e6, -1e6], "projection_y_coordinate")):
+            v = nc.createVariable(name, "f8", (name,))
+            v.setncatts(dict(standard_name=axis, units="m"))
+            v[:] = values
+        m = nc.createVariable("crs", "i4", ())
+        m.setncatts({k: v for k, v in crs.to_cf().items() if k != "crs_wkt"})
+        c = nc.createVariable("conc", "u1", ("time", "y", "x"), fill_value=np.uint8(255))
+        c.set_auto_maskandscale(False)
+        c.setncatts(dict(standard_name="sea_ice_area_fraction", units="1", grid_mapping="crs",
+                         scale_factor=np.float32(scale),
+                         valid_range=np.array([0, 100], np.uint8),
+                         flag_values=np.array([251, 252, 253, 254, 255], np.uint8),
+                         flag_meanings=meanings))
+        c[:] = np.asarray(stored, np.uint8).reshape(1, 2, 3)
+    return str(path)
+
+
+def test_flag_values_in_the_data_variable_beyond_valid_max_are_flags(tmp_path):
+    # stored 0, 100, 253 (coastal), 120 (outside 0..100, no flag: missing), 255 (fill), 37
+    path = _packed_ice(tmp_path / "ice.nc", [0, 100, 253, 120, 255, 37])
+    table = read_checked(path)
+    assert reasons(table) == [None, None, "provider_flag", "missing_value", "missing_value",
+                              None]
+    kept = table["rejected"].isna().to_numpy()
+    # netCDF4's own unpacking of the stored bytes (scale_factor 0.01, float32)
+    with netCDF4.Dataset(path) as nc:
+        unpacked = np.ma.filled(nc["conc"][:].astype(np.float64), np.nan).ravel()
+    np.testing.assert_allclose(table["value"].to_numpy()[kept], unpacked[kept], rtol=1e-6)
+
+
+def test_several_variables_with_one_standard_name_chosen_by_the_rule(tmp_path):
+    # two algorithms' concentrations; the one with ancillary variables is the product's own
+    path = ice_concentration_file(tmp_path / "ice.nc")
+    with netCDF4.Dataset(path, "a") as nc:
+        other = nc.createVariable("algo_b", "f8", ("time", "y", "x"), fill_value=-1.0)
+        other.setncatts(dict(standard_name="sea_ice_area_fraction", units="%",
+                             grid_mapping="crs"))
+        other[:] = np.full((1, 2, 3), 50.0)
+        nc.renameVariable("ice_conc", "z_primary")  # after algo_b in name order, not in rule
+        err = nc.createVariable("z_err", "f8", ("time", "y", "x"))
+        err.setncatts(dict(standard_name="sea_ice_area_fraction standard_error", units="%"))
+        err[:] = np.full((1, 2, 3), 5.0)
+        nc["z_primary"].ancillary_variables = "z_err"
+    table = read_checked(path)
+    assert table.attrs["variables"].get("z_primary") == "%"
+    np.testing.assert_allclose(table["error"].dropna(), 0.05)
+    assert any("2 variables have standard_name 'sea_ice_area_fraction'" in w
+               and "'z_primary'" in w for w in table.attrs["warnings"])
+
+
+def test_meanings_reject_by_word_prefix_and_never_for_a_filter():
+    assert cf.meaning_matches("Lakes", ["lake"]) and cf.meaning_matches("coastal", ["coast"])
+    assert cf.meaning_matches("land_mask", ["land"]) and cf.meaning_matches("pole_hole",
+                                                                             ["pole hole"])
+    assert not cf.meaning_matches("nominal", ["no_data"])
+    assert not cf.meaning_matches("island", ["land"])
+    assert cf.is_filter_meaning("land_spill_over_filtered")
+    assert cf.is_filter_meaning("BT_weather_filter_applied")
+    assert not cf.is_filter_meaning("land")
+
+
+# --- drift: per-vector times, ancillary uncertainty ------------------------------------------
+
+def _drift_with_vector_times(path):
+    """Three east/north vectors; nominal period 2 days; each vector with its own start (hours
+    since 2023-12-01) and end (seconds since 1970-01-01); an uncertainty named only in
+    ancillary_variables, in m (the displacements are in km), no standard_name, no flags."""
+    start_hours = np.array([12.0, 13.5, np.nan])
+    end = np.datetime64("2023-12-02T18:00:00", "s") + np.array([0, 3600, 7200])
+    end_seconds = (end - np.datetime64("1970-01-01T00:00:00", "s")).astype(np.float64)
+    return write_nc(path, {"n": 3, "nv": 2}, {
+        "time": var((), 26997.0, bounds="time_bnds", **TIME_1950),
+        "time_bnds": var(("nv",), [26997.0, 26999.0]),
+        "lat": var(("n",), [80.0, 81.0, 82.0], standard_name="latitude", units="degrees_north"),
+        "lon": var(("n",), [0.0, 10.0, 20.0], standard_name="longitude", units="degrees_east"),
+        "t_start": var(("n",), start_hours, fill=-1.0, units="hours since 2023-12-01 00:00:00",
+                       long_name="start time of the displacement"),
+        "t_end": var(("n",), end_seconds, units="seconds since 1970-01-01",
+                     long_name="end time of the displacement"),
+        "de": var(("n",), [1.5, 2.0, -3.0], fill=-1e20, units="km",
+                  standard_name="eastward_sea_ice_displacement",
+                  ancillary_variables="uncert_e"),
+        "dn": var(("n",), [0.5, 2.0, 4.0], fill=-1e20, units="km",
+                  standard_name="northward_sea_ice_displacement",
+                  ancillary_variables="uncert_n"),
+        "uncert_e": var(("n",), [300.0, 400.0, 500.0], units="m"),
+        "uncert_n": var(("n",), [350.0, 450.0, 550.0], units="m"),
+    })
+
+
+def test_drift_uses_per_vector_times_with_their_own_epochs(tmp_path):
+    table = read_checked(_drift_with_vector_times(tmp_path / "drift.nc"))
+    east = table[table["quantity"] == "sea_ice_drift_east"]
+    # cftime decodes the same numbers with each variable's own units (reference library)
+    starts = cftime.num2date([12.0, 13.5], "hours since 2023-12-01 00:00:00",
+                             only_use_cftime_datetimes=False, only_use_python_datetimes=True)
+    assert list(east["time"][:2]) == [np.datetime64(s, "ns") for s in starts]
+    assert np.isnat(east["time"].to_numpy()[2]) and reasons(east)[2] == "bad_time"
+    np.testing.assert_array_equal(
+        east["time_end"].to_numpy(),
+        np.datetime64("2023-12-02T18:00:00", "ns") + np.array([0, 1, 2]) * np.timedelta64(1, "h"))
+
+
+def test_drift_uncertainty_from_ancillary_variables_by_units(tmp_path):
+    table = read_checked(_drift_with_vector_times(tmp_path / "drift.nc"))
+    east = table[table["quantity"] == "sea_ice_drift_east"]
+    north = table[table["quantity"] == "sea_ice_drift_north"]
+    # 300 m etc. in the data's canonical m; the displacements 1.5 km -> 1500 m
+    np.testing.assert_allclose(east["error"], [300.0, 400.0, 500.0])
+    np.testing.assert_allclose(north["error"], [350.0, 450.0, 550.0])
+    np.testing.assert_allclose(east["value"], [1500.0, 2000.0, -3000.0])
+    assert any("uncert_e" in w for w in table.attrs["warnings"])
+
+
+def test_drift_uncertainty_with_flag_attributes_or_other_units_is_not_used(tmp_path):
+    path = _drift_with_vector_times(tmp_path / "drift.nc")
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["uncert_e"].units = "degC"
+        nc["uncert_n"].flag_values = np.array([1.0])
+        nc["uncert_n"].flag_meanings = "bad"
+    table = read_checked(path)
+    assert table["error"].isna().all()
+
+
+def test_drift_per_vector_offsets_from_the_nominal_start_and_end(tmp_path):
+    # durations in seconds, the start one from the nominal start, the end one from the
+    # nominal end (time_bnds 26997 .. 26999 days since 1950)
+    path = _drift_with_vector_times(tmp_path / "drift.nc")
+    with netCDF4.Dataset(path, "a") as nc:
+        for name, seconds, what in (("dt0", [600.0, 1200.0, 0.0], "start"),
+                                    ("dt1", [-600.0, 0.0, 1800.0], "end")):
+            v = nc.createVariable(name, "f8", ("n",))
+            v.setncatts(dict(units="seconds", long_name=f"time offset of the {what} of the "
+                                                         "displacement"))
+            v[:] = seconds
+        for name in ("t_start", "t_end"):
+            nc.renameVariable(name, f"old_{name}")
+            nc[f"old_{name}"].units = "1"  # no longer times
+    table = read_checked(path)
+    east = table[table["quantity"] == "sea_ice_drift_east"]
+    start = np.datetime64("2023-12-01T00:00:00", "ns")  # 26997 days after 1950-01-01
+    end = start + np.timedelta64(2, "D")
+    assert cftime.num2date(26997.0, TIME_1950["units"], only_use_cftime_datetimes=False,
+                           only_use_python_datetimes=True) == start.astype("datetime64[us]").item()
+    np.testing.assert_array_equal(east["time"].to_numpy(),
+                                  start + np.array([600, 1200, 0]) * np.timedelta64(1, "s"))
+    np.testing.assert_array_equal(east["time_end"].to_numpy(),
+                                  end + np.array([-600, 0, 1800]) * np.timedelta64(1, "s"))
+
+
+def test_attributes_that_are_not_numbers_warn_and_never_refuse(tmp_path):
+    # valid_max written as text, flag_values as text: warnings, the file read
+    path = _flagged_sst(tmp_path / "qc.nc", None, "good bad", [0, 1, 0, 0, 1, 0])
+    with netCDF4.Dataset(path, "a") as nc:
+        nc["qc"].flag_values = "0, 1"
+        nc["sst"].setncattr_string("valid_max", "hot")
+    table = read_checked(path)
+    assert reasons(table) == [None, "provider_flag", None, None, "provider_flag", None]
+    assert any("not numbers" in w and "'sst'" in w for w in table.attrs["warnings"])
+
+
+def test_a_status_flag_with_no_flag_attributes_at_all_is_not_used(tmp_path):
+    path = _flagged_sst(tmp_path / "qc.nc", None, None, [1, 2, 4, 8, 0, 0])
+    table = read_checked(path)
+    assert reasons(table) == [None] * 6
+    assert any("'qc'" in w and "no flag attributes" in w for w in table.attrs["warnings"])

@@ -11,7 +11,10 @@ Units are converted with the CF/udunits pint registry of :mod:`cf_xarray.units`;
 
 One module per topic: :mod:`~obsprep.readers.cf.open`, :mod:`~obsprep.readers.cf.find`,
 :mod:`~obsprep.readers.cf.units`, :mod:`~obsprep.readers.cf.time`,
-:mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.positions`,
+:mod:`~obsprep.readers.cf.flags`, :mod:`~obsprep.readers.cf.valid` (valid ranges, stored
+values), :mod:`~obsprep.readers.cf.quirks` (per-file warnings),
+:mod:`~obsprep.readers.cf.groups` (netCDF-4 groups),
+:mod:`~obsprep.readers.cf.positions`,
 :mod:`~obsprep.readers.cf.overrides` (reader profiles), :mod:`~obsprep.readers.cf.options`,
 :mod:`~obsprep.readers.cf.classic` (the size a netCDF-3 header implies)
 and :mod:`~obsprep.readers.cf.table`; their public names are re-exported here so readers
@@ -22,17 +25,31 @@ from __future__ import annotations
 
 from obsprep.readers.cf.find import (  # noqa: F401
     ancillary_variable_names,
+    candidate_variables,
     find_coordinate,
     find_coordinates,
     find_flag_variables,
     find_standard_error,
+    find_uncertainty_variable,
     find_variable,
     require_variable,
     rows_dimension,
 )
 from obsprep.readers.cf.flags import (  # noqa: F401
+    FlagAttributesMissing,
     flag_meaning_masks,
     good_flag_mask,
+    has_flag_attributes,
+    is_filter_meaning,
+    meaning_key,
+    meaning_matches,
+    rejected_by_meanings,
+    usable_flag_variable,
+)
+from obsprep.readers.cf.groups import (  # noqa: F401
+    group_paths,
+    open_group,
+    source_path,
 )
 from obsprep.readers.cf.open import (  # noqa: F401
     check_declared_sizes,
@@ -65,6 +82,11 @@ from obsprep.readers.cf.positions import (  # noqa: F401
     lonlat_from_projection,
     wrap_longitude,
 )
+from obsprep.readers.cf.quirks import (  # noqa: F401
+    FileQuirkWarning,
+    collecting_file_warnings,
+    file_warning,
+)
 from obsprep.readers.cf.table import (  # noqa: F401
     NOT_IN_TABLE,
     ROW_VARIABLE,
@@ -82,12 +104,20 @@ from obsprep.readers.cf.time import (  # noqa: F401
     decode_time_variable,
     observation_interval,
     observation_time,
+    per_vector_interval,
 )
 from obsprep.readers.cf.units import (  # noqa: F401
     PRACTICAL_SALINITY_UNITS,
     convert_units,
+    convertible_units,
     preload,
     values_in_units,
+)
+from obsprep.readers.cf.valid import (  # noqa: F401
+    outside_valid_range,
+    stored_values,
+    unpacked_valid_bounds,
+    valid_bounds,
 )
 
 __all__ = [
@@ -103,6 +133,9 @@ __all__ = [
     "declared_options",
     "reader_options",
     "open_dataset",
+    "group_paths",
+    "open_group",
+    "source_path",
     "unreadable_data",
     "out_of_memory",
     "check_declared_sizes",
@@ -114,13 +147,31 @@ __all__ = [
     "ancillary_variable_names",
     "find_standard_error",
     "find_flag_variables",
+    "candidate_variables",
+    "find_uncertainty_variable",
     "good_flag_mask",
     "flag_meaning_masks",
+    "FlagAttributesMissing",
+    "has_flag_attributes",
+    "is_filter_meaning",
+    "meaning_key",
+    "meaning_matches",
+    "rejected_by_meanings",
+    "usable_flag_variable",
+    "FileQuirkWarning",
+    "collecting_file_warnings",
+    "file_warning",
+    "outside_valid_range",
+    "stored_values",
+    "valid_bounds",
+    "unpacked_valid_bounds",
+    "convertible_units",
     "decode_time",
     "decode_time_variable",
     "add_seconds",
     "observation_time",
     "observation_interval",
+    "per_vector_interval",
     "PRACTICAL_SALINITY_UNITS",
     "preload",
     "convert_units",

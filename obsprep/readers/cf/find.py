@@ -5,21 +5,46 @@ from __future__ import annotations
 import xarray as xr
 
 from obsprep.exceptions import InputFileError
+from obsprep.readers.cf.quirks import file_warning
 
 
-def find_variable(ds: xr.Dataset, standard_names, ndim=None) -> str | None:
-    """Name of the first variable whose ``standard_name`` is one of ``standard_names``.
-
-    The order of ``standard_names`` is the order of preference; ``ndim`` (an int or a
-    collection of ints) restricts the number of dimensions.  Returns None when there is none.
-    """
+def candidate_variables(ds: xr.Dataset, standard_names, ndim=None) -> list[str]:
+    """Every variable with the first of ``standard_names`` that any variable carries, best
+    first by :func:`find_variable`'s rule; ``ndim`` (an int or a collection of ints)
+    restricts the number of dimensions."""
     if isinstance(ndim, int):
         ndim = (ndim,)
     for wanted in standard_names:
-        for name, var in ds.variables.items():
-            if var.attrs.get("standard_name") == wanted and (ndim is None or var.ndim in ndim):
-                return str(name)
-    return None
+        found = [str(name) for name, var in ds.variables.items()
+                 if var.attrs.get("standard_name") == wanted
+                 and (ndim is None or var.ndim in ndim)]
+        if found:
+            return _best_first(ds, found)
+    return []
+
+
+def _best_first(ds: xr.Dataset, names: list[str]) -> list[str]:
+    """Candidates for one role (one standard_name) in order of preference: a variable named in
+    another's ``ancillary_variables`` last (it describes the other), then the one with most
+    ancillary variables present in the file (a product's primary variable carries its
+    uncertainty and quality flags), then file order."""
+    listed = {a for n in names for a in ancillary_variable_names(ds, n)}
+    order = {n: k for k, n in enumerate(names)}
+    return sorted(names, key=lambda n: (n in listed, -len(ancillary_variable_names(ds, n)),
+                                        order[n]))
+
+
+def find_variable(ds: xr.Dataset, standard_names, ndim=None) -> str | None:
+    """Name of the variable whose ``standard_name`` is one of ``standard_names``.
+
+    The order of ``standard_names`` is the order of preference; ``ndim`` (an int or a
+    collection of ints) restricts the number of dimensions.  When several variables carry
+    the same standard_name (one file, several retrieval algorithms) the rule of
+    :func:`candidate_variables` chooses (no warning here: :func:`require_variable` warns).
+    Returns None when there is none.
+    """
+    found = candidate_variables(ds, standard_names, ndim=ndim)
+    return found[0] if found else None
 
 
 def rows_dimension(ds: xr.Dataset, name: str | None) -> str | None:
@@ -33,14 +58,20 @@ def rows_dimension(ds: xr.Dataset, name: str | None) -> str | None:
 
 
 def require_variable(ds: xr.Dataset, path, standard_names, what: str, ndim=None) -> str:
-    """Like :func:`find_variable` but raise :class:`InputFileError` listing what was expected."""
-    name = find_variable(ds, standard_names, ndim=ndim)
-    if name is None:
+    """Like :func:`find_variable` but raise :class:`InputFileError` listing what was expected,
+    and record a per-file warning naming the others when several variables qualify."""
+    found = candidate_variables(ds, standard_names, ndim=ndim)
+    if not found:
         dims = f" with {ndim} dimension(s)" if ndim is not None else ""
         raise InputFileError(
             path, f"no {what} variable{dims}: expected a variable with standard_name "
                   f"{' or '.join(repr(s) for s in standard_names)}")
-    return name
+    if len(found) > 1:
+        file_warning(f"{len(found)} variables have standard_name "
+                     f"'{ds[found[0]].attrs.get('standard_name')}' ({', '.join(found)}); read "
+                     f"'{found[0]}' (not an ancillary of another, most ancillary variables, "
+                     f"first in the file); a reader profile's 'variables' chooses another")
+    return found[0]
 
 
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
@@ -107,6 +138,39 @@ def find_standard_error(ds: xr.Dataset, name: str) -> str | None:
     for a in ancillary_variable_names(ds, name):
         if " ".join(str(ds[a].attrs.get("standard_name", "")).split()) == wanted:
             return a
+    return None
+
+
+def find_uncertainty_variable(ds: xr.Dataset, name: str, path) -> str | None:
+    """The uncertainty of data variable ``name``: its ``standard_error`` ancillary variable
+    (:func:`find_standard_error`), else the one ancillary variable with no standard_name, no
+    flag attributes and units of the same dimension as the data's (a displacement's error in
+    km for a displacement in m), recorded as a per-file warning.  Several such candidates are
+    ambiguous: none is used, and the warning says so."""
+    from obsprep.readers.cf.flags import has_flag_attributes
+    from obsprep.readers.cf.units import convertible_units
+
+    named = find_standard_error(ds, name)
+    if named is not None:
+        return named
+    data_units = ds[name].attrs.get("units")
+    if data_units is None:
+        return None
+    found = [a for a in ancillary_variable_names(ds, name)
+             if not str(ds[a].attrs.get("standard_name", "")).strip()
+             and not has_flag_attributes(ds[a]) and a != name
+             and ds[a].attrs.get("units") is not None
+             and convertible_units(str(ds[a].attrs["units"]), str(data_units))]
+    if len(found) == 1:
+        file_warning(f"uncertainty taken from ancillary variable '{found[0]}' (no "
+                     f"standard_name; units '{ds[found[0]].attrs['units']}' match the data's, "
+                     f"no flag attributes)", variable=name)
+        return found[0]
+    if found:
+        file_warning(f"ancillary variables {', '.join(found)} could each be the uncertainty "
+                     f"(no standard_name, units of the data); none used: give one the "
+                     f"standard_name '<standard_name> standard_error' in a reader profile",
+                     variable=name)
     return None
 
 

@@ -9,15 +9,23 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import Quantity
 from obsprep.model.reasons import REASONS
 from obsprep.model.table import make_table
-from obsprep.readers.cf.find import find_flag_variables, find_standard_error
-from obsprep.readers.cf.flags import good_flag_mask
+from obsprep.readers.cf.find import find_flag_variables, find_uncertainty_variable
+from obsprep.readers.cf.flags import (
+    flag_meaning_masks,
+    good_flag_mask,
+    has_flag_attributes,
+    is_filter_meaning,
+    rejected_by_meanings,
+    usable_flag_variable,
+)
 from obsprep.readers.cf.options import DEFAULT_GOOD_FLAG_MEANINGS, SourceOptions
 from obsprep.readers.cf.positions import broadcast_to_variable
+from obsprep.readers.cf.quirks import file_warning
 from obsprep.readers.cf.units import values_in_units
+from obsprep.readers.cf.valid import outside_valid_range, stored_values
 
 
 def labels_as_strings(values) -> np.ndarray:
@@ -66,40 +74,91 @@ class DecodedVariable:
 
 
 def decode_data_variable(ds: xr.Dataset, name: str, quantity: Quantity, path,
-                         good_flag_meanings=DEFAULT_GOOD_FLAG_MEANINGS) -> DecodedVariable:
-    """Decode data variable ``name`` as ``quantity``: values in canonical units, the
-    ``standard_error`` ancillary variable (converted as a difference, units defaulting to the
-    data's) and the combined "good" mask of every flag ancillary variable."""
+                         good_flag_meanings=DEFAULT_GOOD_FLAG_MEANINGS,
+                         reject_flag_meanings=None) -> DecodedVariable:
+    """Decode data variable ``name`` as ``quantity``.
+
+    - values in canonical units; values outside the variable's ``valid_min``/``valid_max``/
+      ``valid_range`` are missing (NaN; CF 2.5.1), as are those of the error;
+    - flags carried in the data variable itself (``flag_values``/``flag_masks`` with
+      ``flag_meanings`` on it, CF 3.5): a flag value outside the valid range (or, without a
+      valid range, any flag value not naming a filter) is not an observation: its row is not
+      good (``provider_flag``), its value left as stored;
+    - the uncertainty (:func:`~obsprep.readers.cf.find.find_uncertainty_variable`: the
+      ``standard_error`` ancillary variable, else an unnamed ancillary variable in the data's
+      units), converted as a difference, units defaulting to the data's;
+    - the combined "good" mask of every flag ancillary variable: by ``good_flag_meanings``
+      (:func:`~obsprep.readers.cf.flags.good_flag_mask`), or, when ``reject_flag_meanings`` is
+      given, good unless a set meaning matches one of them
+      (:func:`~obsprep.readers.cf.flags.rejected_by_meanings`).  A flag variable that cannot be
+      read as CF flags is not used, with a per-file warning.
+    """
     var = ds[name]
     values = values_in_units(var, quantity.units, path, quantity=quantity)
+    outside = outside_valid_range(var)
+    bad = None
+    if has_flag_attributes(var) and usable_flag_variable(var, path):
+        in_data = _flags_in_data(var, path)
+        if in_data is not None:
+            bad = in_data
+            outside = None if outside is None else outside & ~in_data
+    if outside is not None and outside.any():
+        values = np.where(outside, np.nan, values)
     error = None
-    error_name = find_standard_error(ds, name)
+    error_name = find_uncertainty_variable(ds, name, path)
     if error_name is not None:
-        sigma = values_in_units(ds[error_name], quantity.units, path, quantity=quantity,
+        error_var = ds[error_name]
+        sigma = values_in_units(error_var, quantity.units, path, quantity=quantity,
                                 difference=True, default_units=var.attrs.get("units"))
-        error = np.array(broadcast_to_variable(sigma, ds[error_name].dims, var, path=path))
-    good = None
+        invalid = outside_valid_range(error_var)
+        if invalid is not None and invalid.any():
+            sigma = np.where(invalid, np.nan, sigma)
+        error = np.array(broadcast_to_variable(sigma, error_var.dims, var, path=path))
     for flag_name in find_flag_variables(ds, name):
-        mask = broadcast_to_variable(
-            good_flag_mask(ds[flag_name], good_flag_meanings, path), ds[flag_name].dims, var, path=path)
-        good = mask.copy() if good is None else good & mask
+        flag = ds[flag_name]
+        if not usable_flag_variable(flag, path):
+            continue
+        if reject_flag_meanings is not None:
+            flag_bad = rejected_by_meanings(flag, reject_flag_meanings, path)
+        else:
+            flag_bad = ~good_flag_mask(flag, good_flag_meanings, path)
+        mask = broadcast_to_variable(flag_bad, flag.dims, var, path=path)
+        bad = np.array(mask) if bad is None else bad | mask
+    good = None if bad is None else ~bad
     return DecodedVariable(quantity, name, values, error, good)
 
 
-def require_values(path, decoded: list[DecodedVariable], *, reading_part: bool) -> None:
-    """Raise :class:`InputFileError` when the data variables hold values but every one is fill
-    (an all-fill file is a broken product, not a night without data).
+def _flags_in_data(var: xr.DataArray, path) -> np.ndarray | None:
+    """True where a value of data variable ``var`` is one of its own flag values rather than
+    an observation (see :func:`decode_data_variable`); None when it carries none."""
+    raw = stored_values(var)
+    masks = flag_meaning_masks(var, path, raw=raw)
+    if not masks:
+        return None
+    outside = outside_valid_range(var)
+    flagged = np.zeros(raw.shape, dtype=bool)
+    for meaning, is_set in masks.items():
+        if outside is None:
+            if not is_filter_meaning(meaning):
+                flagged |= is_set
+        else:
+            flagged |= is_set & outside
+    return flagged
 
-    Not for a part of a file (``reading_part``, see ``row_slice`` of
-    :func:`obsprep.readers.read`): rows of fill at the edge of a swath or the polar rows of a
-    global grid are ordinary; their values are counted as ``missing_value``."""
+
+def require_values(path, decoded: list[DecodedVariable], *, reading_part: bool) -> None:
+    """Record a per-file warning when the data variables hold values but every one is fill
+    or invalid: the file is read (every row counted under its reason, zero kept), since an
+    empty file (a cloud-covered grid, a float whose values were all rejected) is not a broken
+    one.  Not for a part of a file (``reading_part``): rows of fill at the edge of a swath or
+    the polar rows of a global grid are ordinary."""
     if reading_part:
         return
     total = sum(d.values.size for d in decoded)
     if total and not any(np.isfinite(d.values).any() for d in decoded):
         names = ", ".join(d.variable for d in decoded)
-        raise InputFileError(path, f"all {total} values are fill/NaN; nothing to read",
-                             variable=names)
+        file_warning(f"all {total} values of {names} are fill or outside the valid range; "
+                     f"the file is read with nothing kept")
 
 
 #: table attribute: {reason: rows} the reader rejected and left out of the table

@@ -183,9 +183,115 @@ def add_seconds(time, seconds) -> np.ndarray:
     return np.where(valid, summed, np.datetime64("NaT", "ns").astype(np.int64)).view("datetime64[ns]")
 
 
+#: words of a name or long_name that mark the start / the end of an interval
+_START_WORDS = frozenset(("start", "begin", "beginning", "first", "initial", "t0", "dt0"))
+_END_WORDS = frozenset(("end", "stop", "last", "final", "t1", "dt1"))
+
+
+def _interval_end_of(var: xr.DataArray) -> str | None:
+    """"start", "end" or None from the words of the variable's name and long_name."""
+    import re
+
+    words = set(re.findall(r"[a-z0-9]+", f"{var.name} {var.attrs.get('long_name', '')}".lower()))
+    start, end = bool(words & _START_WORDS), bool(words & _END_WORDS)
+    return "start" if start and not end else "end" if end and not start else None
+
+
+def per_vector_interval(ds: xr.Dataset, name: str, path, nominal=None):
+    """(start, end) UTC ``datetime64[ns]`` of every value of ``name`` from two per-value time
+    variables, or None when the file has no such pair.
+
+    Candidates are variables on a subset of ``name``'s dimensions that include a dimension of
+    more than one value, with time units: absolute (``"<unit> since <epoch>"``, each decoded
+    with its own epoch and calendar) or a duration (a ``standard_name = "time"`` variable, or
+    one whose long_name speaks of time and whose name or long_name marks a start or an end)
+    added to the nominal interval's start or end (``nominal``: (start, end) broadcast to the
+    variable).  Which one is the start: the words of its name or long_name (start, begin,
+    first, t0 / end, stop, last, t1), else the one earlier at the median.  Only a pair is used;
+    more candidates are ambiguous unless exactly two are marked by those words (a per-file
+    warning, and the nominal interval stays).  A time variable with ``bounds`` is the nominal
+    time, not a candidate.
+    """
+    from obsprep.readers.cf.quirks import file_warning
+
+    var = ds[name]
+    long_dims = {d for d in var.dims if var.sizes[d] > 1}
+    candidates = []
+    for other in ds.variables:
+        v = ds[other]
+        if other == name or not set(v.dims) <= set(var.dims) or not set(v.dims) & long_dims \
+                or "bounds" in v.attrs:  # a time with bounds is the nominal (central) time
+            continue
+        units = str(v.attrs.get("units", ""))
+        absolute = " since " in units
+        # a duration: standard_name time, or a long_name about time marking a start or end
+        duration = units.strip().lower() in _SECONDS_PER_UNIT and (
+            v.attrs.get("standard_name") == "time"
+            or ("time" in str(v.attrs.get("long_name", "")).lower()
+                and _interval_end_of(v) is not None))
+        if absolute or duration:
+            candidates.append((str(other), absolute))
+    if len(candidates) < 2:
+        return None
+    if len(candidates) > 2:
+        marked = [c for c in candidates if _interval_end_of(ds[c[0]]) is not None]
+        if len(marked) == 2:
+            candidates = marked
+    if len(candidates) > 2:
+        file_warning(f"{len(candidates)} per-value time variables "
+                     f"({', '.join(c for c, _ in candidates)}); expected a start and an end; "
+                     f"the nominal interval is used", variable=name)
+        return None
+    ends = [_interval_end_of(ds[c]) for c, _ in candidates]
+    if set(ends) != {"start", "end"} and any(not absolute for _, absolute in candidates):
+        file_warning(f"per-value time offsets {candidates[0][0]}, {candidates[1][0]}: cannot "
+                     f"tell which is the start; the nominal interval is used", variable=name)
+        return None
+    decoded = []
+    for (other, absolute), end in zip(candidates, ends):
+        if absolute:
+            t = decode_time_variable(ds[other], path)
+        else:
+            if nominal is None:
+                return None
+            base = nominal[0 if end == "start" else 1]
+            base = np.asarray(base)
+            seconds = broadcast_to_variable(values_in_units(ds[other], "s", path), ds[other].dims,
+                                            var, path=path)
+            decoded.append(add_seconds(base, seconds))
+            continue
+        decoded.append(np.asarray(broadcast_to_variable(t, ds[other].dims, var, path=path)))
+    if set(ends) != {"start", "end"}:
+        def median(t):
+            ns = t.view(np.int64)[~np.isnat(t)]
+            return np.median(ns) if ns.size else 0
+
+        ends = ["start", "end"] if median(decoded[0]) <= median(decoded[1]) else ["end", "start"]
+    start = decoded[ends.index("start")]
+    end = decoded[ends.index("end")]
+    return start, end
+
+
 def observation_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
-    """(start, end) UTC ``datetime64[ns]`` of every value of ``name`` from the time variable's
-    CF ``bounds`` (CF 7.1: last dimension of length 2, units/calendar of the parent)."""
+    """(start, end) UTC ``datetime64[ns]`` of every value of ``name``.
+
+    Per-value start and end times (:func:`per_vector_interval`) win over the nominal interval;
+    the nominal one is the time variable's CF ``bounds`` (CF 7.1: last dimension of length 2,
+    units/calendar of the parent)."""
+    nominal = None
+    try:
+        nominal = _nominal_interval(ds, name, path)
+    except InputFileError:
+        found = per_vector_interval(ds, name, path)
+        if found is None:
+            raise
+        return found
+    found = per_vector_interval(ds, name, path, nominal=nominal)
+    return nominal if found is None else found
+
+
+def _nominal_interval(ds: xr.Dataset, name: str, path) -> tuple[np.ndarray, np.ndarray]:
+    """(start, end) from the time variable's CF ``bounds``."""
     var = ds[name]
     absolute, _ = _absolute_and_offset_times(ds, name, path)
     with_bounds = [t for t in absolute if ds[t].attrs.get("bounds") in ds.variables]

@@ -100,6 +100,16 @@ def _affine_conversion(units: str, canonical: str, path, variable) -> tuple[floa
     return _AFFINE_CONVERSIONS[key]
 
 
+def convertible_units(units: str, other: str) -> bool:
+    """True when ``units`` converts to ``other`` (same dimension) in the CF/udunits registry;
+    False for a string that is not a unit or of another dimension."""
+    try:
+        _affine_conversion(str(units).strip(), str(other).strip(), None, None)
+    except InputFileError:
+        return False
+    return True
+
+
 def values_in_units(da: xr.DataArray, canonical: str, path, quantity: Quantity | None = None,
                     difference: bool = False, default_units: str | None = None) -> np.ndarray:
     """The values of ``da`` in ``canonical`` units (float64, same shape).

@@ -1,8 +1,12 @@
 """Sea-ice drift: displacement vectors over an interval, east/north or along projection axes.
 
 The table holds two rows per vector, ``sea_ice_drift_east`` and ``sea_ice_drift_north``, with
-the same ``row`` (the vector's flat index), ``time`` and ``time_end`` (from the time ``bounds``)
-and the start position.  Components along a grid_mapping's x/y axes are rotated to east/north
+the same ``row`` (the vector's flat index), ``time`` and ``time_end`` and the start position.
+The interval is per vector where the file stores a start and an end time for each vector, with
+their own units and epochs (:func:`obsprep.readers.cf.per_vector_interval`), else the nominal
+one from the time ``bounds``.  The uncertainty is the ``standard_error`` ancillary variable, else
+an unnamed ancillary variable in the data's units without flag attributes
+(:func:`obsprep.readers.cf.find_uncertainty_variable`).  Components along a grid_mapping's x/y axes are rotated to east/north
 with the CRS (:func:`obsprep.geo.rotation.projection_to_east_north`); after rotation
 each output component depends on both inputs, so it is missing when either is missing and
 flagged when either is flagged.
