@@ -510,3 +510,20 @@ def to_toml(cfg):
                 lines.append(f"[[{k}]]")
                 lines += [f"{kk} = {val(vv)}" for kk, vv in item.items()]
     return "\n".join(lines) + "\n"
+
+
+def write_netcdf4_dimension_bomb(path, n=400_000_000):
+    """A small netCDF-4 along-track file declaring ``n`` times (a "dimension bomb"): HDF5
+    leaves unwritten chunks unallocated, so the file stays small; only 10 values are written."""
+    with netCDF4.Dataset(path, "w") as nc:
+        nc.featureType = "trajectory"
+        nc.createDimension("time", n)
+        for name, attrs in (("time", dict(standard_name="time", units="days since 1950-01-01")),
+                            ("longitude", dict(standard_name="longitude", units="degrees_east")),
+                            ("latitude", dict(standard_name="latitude", units="degrees_north")),
+                            ("sla", dict(standard_name="sea_surface_height_above_sea_level",
+                                         units="m"))):
+            v = nc.createVariable(name, "f8", ("time",), zlib=True, chunksizes=(1 << 16,))
+            v.setncatts(attrs)
+            v[:10] = np.arange(10.0)
+    return path

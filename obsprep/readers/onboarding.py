@@ -206,14 +206,7 @@ def _quantity_guesses(candidates, coordinates) -> dict[str, Guess]:
     # file's "sea_water_temperature at 1 m" is its SST; other quantities only when none fits
     fitting = [q for q in QUANTITIES.values() if q.surface != profile_file]
     others = [q for q in QUANTITIES.values() if q.surface == profile_file]
-    guesses = {}
-    for quantity in fitting:
-        for c in candidates:
-            if c.name not in used and c.standard_name in quantity.accepted_standard_names:
-                guesses[quantity.name] = Guess(quantity.name, c.name,
-                                               f"standard_name {c.standard_name}")
-                used.add(c.name)
-                break
+    guesses = _by_standard_name(fitting, candidates, used)
     for quantity in fitting:
         if quantity.name in guesses:
             continue
@@ -239,13 +232,20 @@ def _quantity_guesses(candidates, coordinates) -> dict[str, Guess]:
             guesses[quantity.name] = best
             used.add(best.variable)
     if not guesses:
-        for quantity in others:
-            for c in candidates:
-                if c.name not in used and c.standard_name in quantity.accepted_standard_names:
-                    guesses[quantity.name] = Guess(quantity.name, c.name,
-                                                   f"standard_name {c.standard_name}")
-                    used.add(c.name)
-                    break
+        guesses = _by_standard_name(others, candidates, used)
+    return guesses
+
+
+def _by_standard_name(quantities, candidates, used: set) -> dict:
+    """{quantity: Guess} of the first unused candidate carrying one of each quantity's
+    accepted standard names (``used`` is updated)."""
+    guesses = {}
+    for quantity in quantities:
+        for c in candidates:
+            if c.name not in used and c.standard_name in quantity.accepted_standard_names:
+                guesses[quantity.name] = Guess(quantity.name, c.name, f"standard_name {c.standard_name}")
+                used.add(c.name)
+                break
     return guesses
 
 

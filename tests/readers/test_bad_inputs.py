@@ -11,7 +11,7 @@ import netCDF4
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from sample_files import GDS2_EPOCH, write_argo, write_gds2
+from sample_files import GDS2_EPOCH, write_argo, write_gds2, write_netcdf4_dimension_bomb
 
 from obsprep.cli.main import cli
 from obsprep.exceptions import InputFileError
@@ -239,17 +239,7 @@ def test_a_netcdf3_dimension_bomb_is_unreadable_without_allocating(tmp_path):
 
 def test_a_netcdf4_dimension_bomb_is_unreadable_without_allocating(tmp_path):
     path = tmp_path / "bomb4.nc"
-    with netCDF4.Dataset(path, "w") as nc:  # netCDF-4: HDF5 leaves unwritten chunks unallocated
-        nc.featureType = "trajectory"
-        nc.createDimension("time", 400_000_000)
-        for name, attrs in (("time", dict(standard_name="time", units="days since 1950-01-01")),
-                            ("longitude", dict(standard_name="longitude", units="degrees_east")),
-                            ("latitude", dict(standard_name="latitude", units="degrees_north")),
-                            ("sla", dict(standard_name="sea_surface_height_above_sea_level",
-                                         units="m"))):
-            v = nc.createVariable(name, "f8", ("time",), zlib=True, chunksizes=(1 << 16,))
-            v.setncatts(attrs)
-            v[:10] = np.arange(10.0)
+    write_netcdf4_dimension_bomb(path)  # netCDF-4: HDF5 leaves unwritten chunks unallocated
     assert path.stat().st_size < 100_000
     with pytest.raises(InputFileError, match="declares 400000000 values") as info:
         read(path)

@@ -14,9 +14,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import netCDF4
 import numpy as np
-from sample_files import write_alongtrack, write_alongtrack_config
+from sample_files import write_alongtrack, write_alongtrack_config, write_netcdf4_dimension_bomb
 
 from obsprep.run.build import build
 
@@ -69,17 +68,7 @@ def corpus(tmp_path):
     (obs / "bomb3.nc").write_bytes(classic.replace(
         entry, b"\x00\x00\x00\x04time" + (400_000_000).to_bytes(4, "big")))
     expect["bomb3.nc"] = ("unreadable", "file is truncated: header implies", 0)
-    with netCDF4.Dataset(obs / "bomb4.nc", "w") as nc:
-        nc.featureType = "trajectory"
-        nc.createDimension("time", 400_000_000)
-        for name, attrs in (("time", dict(standard_name="time", units="days since 1950-01-01")),
-                            ("longitude", dict(standard_name="longitude", units="degrees_east")),
-                            ("latitude", dict(standard_name="latitude", units="degrees_north")),
-                            ("sla", dict(standard_name="sea_surface_height_above_sea_level",
-                                         units="m"))):
-            v = nc.createVariable(name, "f8", ("time",), zlib=True, chunksizes=(1 << 16,))
-            v.setncatts(attrs)
-            v[:10] = np.arange(10.0)
+    write_netcdf4_dimension_bomb(obs / "bomb4.nc")
     expect["bomb4.nc"] = ("unreadable", "declares 400000000 values", 0)
 
     # one time of 1e19 s: that row is a bad time, the other 39 are kept
