@@ -284,6 +284,9 @@ class _GhrsstReader(Reader):
         if type_warning:
             warnings.append(type_warning)
         values = cf.values_in_units(sst, quantity.units, path, quantity=quantity)
+        outside = cf.outside_valid_range(sst)
+        if outside is not None and outside.any():
+            values = np.where(outside, np.nan, values)  # CF 2.5.1: outside the valid range is missing
         used = [name]
 
         def broadcast(var):
