@@ -20,7 +20,15 @@ from obsprep.geo.grid.regular import RegularGrid
 from obsprep.geo.grid.vertical import layer_index_from_depth, layer_interfaces_from_depths
 from obsprep.geo.rotation import axis_angle_from_centres, east_north_to_grid, grid_to_east_north
 from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M, great_circle_distance
-from obsprep.settings.grid import grid_from_config
+
+
+def grid_from_config(cfg: dict, base_dir=None) -> ModelGrid:
+    """The model grid of a ``[grid]`` configuration table (:func:`obsprep.settings.grid.grid_from_config`;
+    imported when called, since the settings module builds on the grid classes of this package)."""
+    from obsprep.settings.grid import grid_from_config as from_settings
+
+    return from_settings(cfg, base_dir)
+
 
 __all__ = [
     "ModelGrid", "RegularGrid", "ProjectedGrid", "CurvilinearGrid", "grid_from_config",
