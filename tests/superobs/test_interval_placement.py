@@ -85,3 +85,21 @@ def test_build_places_the_interval_as_configured(tmp_path, interval_time, offset
     # whatever the placement, time and time_end keep the interval
     assert (superobs["time"] == np.datetime64("2023-12-04T00:00:00", "ns")).all()
     assert (superobs["time_end"] == np.datetime64("2023-12-05T00:00:00", "ns")).all()
+
+
+def test_a_48_hour_drift_is_used_with_a_24_hour_window_by_default(tmp_path):
+    config = _config(tmp_path)
+    # the interval 2023-12-04T00 .. 2023-12-06T00 (48 h) ends at the end of a 24 h window
+    _drift_file(tmp_path / "drift.nc", np.array([27000.0, 27000.0]), np.array([27002.0, 27002.0]))
+    config["window"] = {"analysis_time": "2023-12-06T00:00:00", "start_hours": -24.0,
+                        "end_hours": 0.0, "slot_hours": 6.0}
+    superobs = build(config).superobs
+    assert (superobs["count"] == 2).all() and len(superobs) == 2
+    assert (superobs["slot"] == 3).all()                # placed at its end: the last slot
+    np.testing.assert_allclose(superobs["time_offset"], 0.0, atol=1e-6)
+    # with no lead allowed the same drift is outside the window
+    config["sources"][0]["qc"] = {"interval_start_before_window_hours": 0.0}
+    config["output"] = {"directory": str(tmp_path / "out0")}
+    result = build(config)
+    assert len(result.superobs) == 0
+    assert result.ledger.entries[0].rejected == {"outside_window": 4}
