@@ -679,6 +679,22 @@ def _ice_drift_extent():
             np.floor(np.min(y) / cell) * cell, np.ceil(np.max(y) / cell) * cell)
 
 
+def _map_scale_factor(crs, lon, lat):
+    """Point scale factor of the drift grid's conformal projection (PROJ's get_factors)."""
+    return pyproj.Proj(crs).get_factors(lon, lat).parallel_scale
+
+
+def _map_differences(crs, lon, lat, east, north):
+    """Differences of projected coordinates (m) of a ground displacement ``east``, ``north``
+    (m) from ``lon``, ``lat``: its end laid out on the ellipsoid along the geodesic."""
+    azimuth = np.degrees(np.arctan2(east, north))
+    end_lon, end_lat, _ = crs.get_geod().fwd(lon, lat, azimuth, np.hypot(east, north))
+    to_map = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    x0, y0 = to_map.transform(lon, lat)
+    x1, y1 = to_map.transform(end_lon, end_lat)
+    return x1 - x0, y1 - y0
+
+
 def _write_ice_drift(scn):
     crs, x, y, lon, lat = _projected_cell_centres(ICE_DRIFT_CRS, _ice_drift_extent(),
                                                   ICE_DRIFT_CELL_M)
@@ -697,11 +713,12 @@ def _write_ice_drift(scn):
                  & (rng.random(lon.shape) >= 0.05))         # 5 % of vectors not retrieved
         east = truth.truth_value("sea_ice_drift_east", lon, lat, 0.0, start, end)
         north = truth.truth_value("sea_ice_drift_north", lon, lat, 0.0, start, end)
-        along_x, along_y = truth.east_north_to_map_axes(east, north, lon,
-                                                        ICE_DRIFT_CENTRAL_LONGITUDE)
-        sigma_m = ICE_DRIFT_SIGMA_KM * 1000.0
-        along_x = along_x + sigma_m * rng.standard_normal(lon.shape)
-        along_y = along_y + sigma_m * rng.standard_normal(lon.shape)
+        # as products give it: differences of projected coordinates of the start and end
+        # positions (map metres, the ground distance times the scale factor k)
+        along_x, along_y = _map_differences(crs, lon, lat, east, north)
+        map_sigma_m = ICE_DRIFT_SIGMA_KM * 1000.0 * _map_scale_factor(crs, lon, lat)
+        along_x = along_x + map_sigma_m * rng.standard_normal(lon.shape)
+        along_y = along_y + map_sigma_m * rng.standard_normal(lon.shape)
         fill = np.float32(-999.0)
         path = scn.path(f"obs/ice_drift/drift_{day.astype(object):%Y%m%d}-"
                         f"{end.astype('datetime64[D]').astype(object):%Y%m%d}.nc")
@@ -725,11 +742,12 @@ def _write_ice_drift(scn):
                           np.where(valid, values / 1000.0, fill)[None].astype(np.float32), {
                               "standard_name": f"sea_ice_{axis}_displacement", "units": "km",
                               "long_name": f"ice displacement along the projection {axis} axis",
-                              "comment": "true distance along the local direction of the "
-                                         f"projection {axis} axis (no map scale factor)",
+                              "comment": f"difference of projected {axis} coordinates "
+                                         "of the end and start positions (map distance)",
                               "ancillary_variables": f"d{axis}_uncertainty", **common}, fill=fill)
                 _variable(ds, f"d{axis}_uncertainty", ("time", "y", "x"), np.float32,
-                          np.where(valid, ICE_DRIFT_SIGMA_KM, fill)[None].astype(np.float32), {
+                          np.where(valid, map_sigma_m / 1000.0, fill)[None].astype(np.float32),
+                          {
                               "standard_name": f"sea_ice_{axis}_displacement standard_error",
                               "units": "km", **common}, fill=fill)
         paths.append(path)

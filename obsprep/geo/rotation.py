@@ -154,3 +154,48 @@ def projection_to_east_north(u, v, angle_x, angle_y, sigma_u=None, sigma_v=None)
     sigma_v = np.full(np.shape(v), np.nan) if sigma_v is None else sigma_v
     return (east, north, np.hypot(sigma_u * cos_x, sigma_v * cos_y),
             np.hypot(sigma_u * sin_x, sigma_v * sin_y))
+
+
+def projection_scale_factor(crs, lon, lat) -> np.ndarray:
+    """Point scale factor k (dimensionless) of map projection ``crs`` (a pyproj CRS) at
+    geodetic ``lon``, ``lat`` (degrees): map distance / ground distance, from PROJ's
+    ``pyproj.Proj.get_factors``.  On a conformal projection (polar stereographic, Lambert
+    conformal, Mercator) the meridional and parallel scales are equal and this is k; on another
+    projection it is their geometric mean, an approximation good enough for errors only."""
+    import pyproj
+
+    factors = pyproj.Proj(crs).get_factors(np.asarray(lon, dtype=np.float64),
+                                           np.asarray(lat, dtype=np.float64))
+    return np.sqrt(np.asarray(factors.meridional_scale) * np.asarray(factors.parallel_scale))
+
+
+def map_displacement_to_east_north(crs, lon, lat, dx, dy) -> tuple[np.ndarray, np.ndarray]:
+    """Ground east/north displacement (m) of a vector given as differences ``dx``, ``dy`` of
+    projected coordinates (m, map units of ``crs``) from the start position ``lon``, ``lat``
+    (degrees).
+
+    The end position is the start's projected point plus ``(dx, dy)``, projected back; the
+    geodesic from start to end on the CRS's ellipsoid (``pyproj.Geod.inv``) gives the ground
+    length s and the forward azimuth z at the start (clockwise from north), and the result is
+    ``(s sin z, s cos z)``: the displacement's ground length, pointing along the start of the
+    geodesic.  This applies the map scale factor exactly, including its change along the
+    vector (a distance on a conformal map is the ground distance times k; [Snyder1987], from
+    memory).  Missing (non-finite) inputs give missing outputs.
+    """
+    import pyproj
+
+    lon = np.asarray(lon, dtype=np.float64)
+    lat = np.asarray(lat, dtype=np.float64)
+    dx = np.asarray(dx, dtype=np.float64)
+    dy = np.asarray(dy, dtype=np.float64)
+    forward = pyproj.Transformer.from_crs(crs.geodetic_crs, crs, always_xy=True)
+    inverse = pyproj.Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    finite = np.isfinite(dx) & np.isfinite(dy) & np.isfinite(lon) & np.isfinite(lat)
+    x, y = forward.transform(lon, lat)
+    end_lon, end_lat = inverse.transform(np.where(finite, x + dx, x), np.where(finite, y + dy, y))
+    azimuth, _, length = crs.get_geod().inv(lon, lat, end_lon, end_lat)
+    azimuth = np.radians(np.asarray(azimuth, dtype=np.float64))
+    length = np.asarray(length, dtype=np.float64)
+    east = np.where(finite, length * np.sin(azimuth), np.nan)
+    north = np.where(finite, length * np.cos(azimuth), np.nan)
+    return east, north

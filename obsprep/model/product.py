@@ -129,9 +129,13 @@ OUTPUT_VARIABLES: tuple[OutputVariable, ...] = (
                    "latitude"),
     OutputVariable("depth", "depth", "float64", "mean depth", "m", "depth",
                    leading=(("positive", "down"), ("axis", "Z"))),
-    OutputVariable("time", "time", "datetime64[ns]", "mean observation time", None, "time"),
-    OutputVariable("time_offset", "time_offset", "float64", "mean time minus the analysis time", "s"),
-    OutputVariable("slot", "slot", "int32", "time-slot index counted from the window start", "1"),
+    OutputVariable("time", "time", "datetime64[ns]", "mean observation time (an interval: its "
+                   "start)", None, "time"),
+    OutputVariable("time_offset", "time_offset", "float64",
+                   "mean time minus the analysis time (an interval: its start, middle or end, "
+                   "superobs.interval_time)", "s"),
+    OutputVariable("slot", "slot", "int32", "time-slot index counted from the window start "
+                   "(of the time_offset)", "1"),
     OutputVariable("i", "i", "int32", "model grid column index (0-based)", "1"),
     OutputVariable("j", "j", "int32", "model grid row index (0-based)", "1"),
     OutputVariable("k", "k", "int32", "model layer index (0-based, from the surface)", "1"),

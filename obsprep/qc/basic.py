@@ -12,11 +12,11 @@ import pandas as pd
 from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import REASONS
 from obsprep.model.table import add_warning, kept, reject
-from obsprep.qc.check import QcCheck
+from obsprep.qc.check import QcCheck, QcSetting
 
 
 def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=None,
-                 range_check: bool = True) -> dict:
+                 range_check: bool = True, interval_lead_hours: float = 0.0) -> dict:
     """Apply the basic checks in place; return {reason: newly rejected count}.
 
     Tests, in order:
@@ -26,7 +26,9 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
     - ``bad_position``: lon/lat not finite or ``|lat| > 90``;
     - ``bad_time``: time is NaT, or an interval ends before it starts;
     - ``outside_window``: time outside [window.start, window.end); an interval observation must
-      lie entirely inside [window.start, window.end];
+      end inside the window, in (window.start, window.end], and start at most
+      ``interval_lead_hours`` before window.start (0: the whole interval inside the window;
+      a 48 h drift is usable with a 24 h window, its end compared with the model inside it);
     - ``out_of_range``: value outside the quantity's physically possible range
       (:attr:`obsprep.model.quantities.Quantity.valid_range`), narrowed by ``valid_range`` {quantity:
       [min, max]} (canonical units, inclusive); skipped with ``range_check=False``
@@ -48,7 +50,9 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
     counts["bad_time"] = reject(table, bad_time, "bad_time")
     with np.errstate(invalid="ignore"):
         inside = (time >= window.start) & (time < window.end)
-        inside_interval = (time >= window.start) & (time_end <= window.end)
+        lead = np.timedelta64(int(round(interval_lead_hours * 3600e9)), "ns")
+        inside_interval = ((time >= window.start - lead) & (time_end <= window.end)
+                           & ((time_end > window.start) | (time >= window.start)))
     counts["outside_window"] = reject(table, ~np.where(interval, inside_interval, inside), "outside_window")
     if range_check:
         counts["out_of_range"] = gross_range_check(table, valid_range)
@@ -110,7 +114,8 @@ def _warn_of_units(table: pd.DataFrame, value: np.ndarray, codes: np.ndarray, ca
 
 def _apply_basic(table: pd.DataFrame, context, settings) -> dict:
     return basic_checks(table, context.window, quantities=context.quantities,
-                        valid_range=context.valid_range, range_check=False)
+                        valid_range=context.valid_range, range_check=False,
+                        interval_lead_hours=settings.interval_start_before_window_hours)
 
 
 def _apply_gross_range(table: pd.DataFrame, context, settings) -> dict:
@@ -120,8 +125,12 @@ def _apply_gross_range(table: pd.DataFrame, context, settings) -> dict:
 _BASIC_REASONS = ("missing_value", "quantity_not_selected", "bad_position", "bad_time",
                   "outside_window")
 #: missing value, quantity selection, position, time, window (reasons shared with the readers)
-BASIC_CHECK = QcCheck(name="basic", reasons={code: REASONS[code] for code in _BASIC_REASONS},
-                      apply=_apply_basic)
+BASIC_CHECK = QcCheck(
+    name="basic", reasons={code: REASONS[code] for code in _BASIC_REASONS}, apply=_apply_basic,
+    settings=(QcSetting("interval_start_before_window_hours", "non_negative_number", 48.0,
+                        "an interval observation (drift) ending inside the window may start up "
+                        "to this long before the window start, h; 0: the whole interval "
+                        "inside"),))
 #: the physical range of the quantity, narrowed by the source's ``valid_range``
 GROSS_RANGE_CHECK = QcCheck(name="gross_range", reasons={"out_of_range": REASONS["out_of_range"]},
                             apply=_apply_gross_range)

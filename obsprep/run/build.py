@@ -36,7 +36,7 @@ from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
 from obsprep.superobs.finalize import finalize_superobs
 from obsprep.superobs.keys import NO_PROFILE, group_keys, interval_keys, profile_key, thinning_tiebreak
-from obsprep.superobs.timeslots import seconds_since, slot_index
+from obsprep.superobs.timeslots import interval_placement, seconds_since, slot_index
 
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
 ACCUMULATE_CHUNK_ROWS = 1 << 19
@@ -315,13 +315,18 @@ def accumulate(work: FileWork) -> None:
                 if is_profile.any():
                     profile = np.where(is_profile, profile_key(file_index, group_codes[rows]),
                                        np.int64(NO_PROFILE))
-            t = seconds_since(columns["time"][rows], cfg.window.analysis_time)
-            t_end = seconds_since(columns["time_end"][rows], cfg.window.analysis_time)
-            t_start_key, t_end_key = interval_keys(t, t_end, constant)
+            time_end = columns["time_end"][rows]
+            t_end = seconds_since(time_end, cfg.window.analysis_time)
+            t_start_key, t_end_key = interval_keys(
+                seconds_since(columns["time"][rows], cfg.window.analysis_time), t_end, constant)
+            # slot and time offset at the interval's placement (superobs.interval_time)
+            placed = interval_placement(columns["time"][rows], time_end, cfg.superobs.interval_time)
+            t = seconds_since(placed, cfg.window.analysis_time)
+            at_end = None if cfg.superobs.interval_time != "end" else ~np.isnat(time_end)
             lon, lat = columns["lon"][rows], columns["lat"][rows]
             ii, jj = i[rows], j[rows]
             keys = group_keys(quantity=q_code, sensor=constant(sensor_code),
-                              slot=slot_index(columns["time"][rows], cfg.window), j=jj, i=ii,
+                              slot=slot_index(placed, cfg.window, at_end), j=jj, i=ii,
                               k=k[rows], profile=profile, t_start=t_start_key, t_end=t_end_key)
             reducer.add(Accumulator.from_observations(
                 keys, columns["value"][rows], columns["error"][rows], t, lon, lat,

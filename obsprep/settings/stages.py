@@ -32,6 +32,10 @@ def from_table(cls, table: dict | None):
     return cls(**values)
 
 
+#: where an interval observation is placed in time (``superobs.interval_time``)
+INTERVAL_PLACEMENTS = ("start", "middle", "end")
+
+
 @dataclass(frozen=True)
 class SuperobsSettings:
     """The ``[superobs]`` table: how raw observations become super-observations."""
@@ -54,6 +58,9 @@ class SuperobsSettings:
                                    enum=list(COMBINATION_RULES))
     spread_min_count: int = _key(DEFAULT_SPREAD_MIN_COUNT, "count from which spread_when_n_ge uses "
                                  "the spread", minimum=2)
+    interval_time: str = _key("end", "where an interval observation (drift) is placed in time, "
+                              "for its slot and time_offset: start, middle or end of the interval",
+                              enum=list(INTERVAL_PLACEMENTS))
 
 
 @dataclass(frozen=True)

@@ -32,10 +32,14 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     columns.update((col, frame[col].to_numpy()) for col in TABLE_COLUMNS
                    if col not in columns and col in frame and col != "time")
     columns.update(complete_errors(cfg, accumulator, frame, inputs, sensor_names, QUANTITY_NAMES))
+    # the offset is the mean placement time (superobs.interval_time for intervals); the time
+    # variable of an interval is its start, time_end its end
     offset = frame["time"].to_numpy()
     columns["time_offset"] = offset
-    columns["time"] = cfg.window.analysis_time + (offset * 1e9).round().astype("timedelta64[ns]")
     interval = frame["t_end"].to_numpy() != frame["t_start"].to_numpy()
+    columns["time"] = cfg.window.analysis_time + (
+        np.where(interval, frame["t_start"].to_numpy(), offset) * 1e9).round().astype(
+        "timedelta64[ns]")
     t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
     columns["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
     out = pd.DataFrame({col: columns[col] for col in TABLE_COLUMNS})

@@ -35,8 +35,10 @@ def test_all_quantities_with_indices_times_offsets_errors(demo_run):
             v = ds[f"{q}_{suffix}"].to_numpy()
             assert np.all(np.isfinite(v) if v.dtype.kind == "f" else ~np.isnat(v) if v.dtype.kind == "M" else v >= 0), (q, suffix)
         assert (ds[f"{q}_error"] > 0).all()
-        # offsets are the mean time minus the analysis time (hand computation)
-        offset = (ds[f"{q}_time"].to_numpy() - np.datetime64(ds.attrs["analysis_time"][:-1], "ns")) / np.timedelta64(1, "s")
+        # offsets are the mean time minus the analysis time (hand computation); an interval
+        # (drift) is placed at its end by default (superobs.interval_time)
+        placed = ds[f"{q}_time_end"] if f"{q}_time_end" in ds else ds[f"{q}_time"]
+        offset = (placed.to_numpy() - np.datetime64(ds.attrs["analysis_time"][:-1], "ns")) / np.timedelta64(1, "s")
         np.testing.assert_allclose(ds[f"{q}_time_offset"], offset, atol=1e-3)
         assert (ds[f"{q}_slot"] >= 0).all() and (ds[f"{q}_slot"] < 3).all()
     assert ds.attrs["featureType"] == "point"

@@ -10,14 +10,30 @@ an unnamed ancillary variable in the data's units without flag attributes
 with the CRS (:func:`obsprep.geo.rotation.projection_to_east_north`); after rotation
 each output component depends on both inputs, so it is missing when either is missing and
 flagged when either is flagged.
+
+Map or ground metres: the CF standard names ``sea_ice_x/y_displacement`` say along which axis
+a component lies, not whether it is a difference of projected coordinates (map metres, the
+usual way a product on its own grid gives it) or a ground distance along the axis' local
+direction.  The option ``axis_displacements`` says which: ``"map"`` (the default) applies the
+map scale factor through the end position on the ellipsoid
+(:func:`obsprep.geo.rotation.map_displacement_to_east_north`) and divides the errors by the
+point scale factor (:func:`obsprep.geo.rotation.projection_scale_factor`); ``"ground"``
+rotates the components as they are.  East/north components are always ground metres.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from obsprep.exceptions import InputFileError
-from obsprep.geo.rotation import projection_axis_angles, projection_to_east_north
+from obsprep.geo.rotation import (
+    map_displacement_to_east_north,
+    projection_axis_angles,
+    projection_scale_factor,
+    projection_to_east_north,
+)
 from obsprep.model.quantities import get_quantity
 from obsprep.model.table import concat_tables
 from obsprep.readers import cf
@@ -37,13 +53,37 @@ def _component_variables(ds):
     return None
 
 
+#: what the x/y components along a projection's axes measure (option ``axis_displacements``)
+AXIS_DISPLACEMENT_MEASURES = {
+    "map": "differences of projected coordinates (map metres; the scale factor is applied)",
+    "ground": "ground distances along the local direction of each axis",
+}
+
+
+def _parse_axis_displacements(name, value) -> str:
+    if value not in AXIS_DISPLACEMENT_MEASURES:
+        raise ValueError(f"option '{name}' must be one of {sorted(AXIS_DISPLACEMENT_MEASURES)}, "
+                         f"got {value!r}")
+    return value
+
+
+@dataclass(frozen=True)
+class IceDriftOptions(cf.CfOptions):
+    """Options of the sea-ice drift reader."""
+
+    axis_displacements: str = cf.option(
+        "map", "what sea_ice_x/y_displacement components measure: 'map' (default), differences "
+               "of projected coordinates, divided by the map scale factor to ground metres; "
+               "'ground', ground distances along each axis", _parse_axis_displacements)
+
+
 @register_reader
 class IceDriftReader(Reader):
     """Vectors as a 1-D list or a 2-D grid (flattened), with an interval from time bounds."""
 
     kind = "ice_drift"
     description = "sea-ice drift vectors (east/north or projection x/y displacements)"
-    Options = cf.CfOptions
+    Options = IceDriftOptions
 
     def guess_can_open(self, ds) -> bool:
         return _component_variables(ds) is not None
@@ -73,9 +113,15 @@ class IceDriftReader(Reader):
         if projected:
             crs = cf.crs_for_variable(ds, names[0], path)
             angle_x, angle_y = projection_axis_angles(crs, lon, lat)
+            errors = (u.error, v.error) if u.error is not None or v.error is not None else ()
+            if opts.axis_displacements == "map" and errors:
+                # an error in map metres is the ground error times k (a conformal map)
+                scale = projection_scale_factor(crs, lon, lat)
+                errors = tuple(None if e is None else e / scale for e in errors)
             east, north, *sigma = projection_to_east_north(
-                u.values, v.values, angle_x, angle_y,
-                *((u.error, v.error) if u.error is not None or v.error is not None else ()))
+                u.values, v.values, angle_x, angle_y, *errors)
+            if opts.axis_displacements == "map":
+                east, north = map_displacement_to_east_north(crs, lon, lat, u.values, v.values)
             good = None if u.good is None and v.good is None else (
                 (True if u.good is None else u.good) & (True if v.good is None else v.good))
             u = u.replace(quantity=EAST, values=east, error=sigma[0] if sigma else None,
