@@ -9,8 +9,9 @@ none: a default representation error and a default floor of the super-observatio
 The defaults (canonical units) are typical values of the trade, recalled rather than looked up
 (from memory): the representation error is the typical unresolved variability of a model cell
 of about 10 km (a layer for profiles); the floor is a third of the smaller typical error of one
-raw value, the most that averaging a cell's values can gain when their errors are partly shared
-within a pass, granule or profile (about ten independent values; common practice).  A
+raw value (rounded down), the most that averaging a cell's values can gain when their errors
+are partly shared within a pass, granule or profile (about ten independent values; common
+practice).  A
 configuration that knows better sets ``superobs.representation_error`` / ``superobs.error_floor``.
 """
 
@@ -96,7 +97,7 @@ _DRIFT_ERROR_DEFAULTS = {"default_representation_error": 1000.0, "default_error_
 #: in-situ and potential temperature: instrument 0.002-0.005 degC; the variability a layer
 #: mean does not resolve is 0.1-0.5 degC in the thermocline, less below it
 _PROFILE_TEMPERATURE_ERROR_DEFAULTS = {"default_representation_error": 0.1,
-                                       "default_error_floor": 0.001}
+                                       "default_error_floor": 0.0006}
 
 QUANTITIES: dict[str, Quantity] = {
     q.name: q
@@ -148,7 +149,7 @@ QUANTITIES: dict[str, Quantity] = {
             (-0.25, 1.25),
             # one retrieval 0.05-0.15, more near the ice edge and in the melt season; the
             # unresolved variability of a cell is largest at the edge (from memory)
-            default_representation_error=0.05, default_error_floor=0.02,
+            default_representation_error=0.05, default_error_floor=0.015,
         ),
         Quantity(
             "sea_ice_drift_east", "eastward_sea_ice_displacement", "m",
