@@ -31,10 +31,12 @@ def _number(value) -> str:
 
 def quantities_table() -> str:
     """Markdown table of the quantities: name, standard_name written, canonical units,
-    surface or profile, CF standard names accepted, built-in valid range."""
+    surface or profile, CF standard names accepted, built-in valid range, and the default
+    representation error and error floor of its super-observations (typical values, from
+    memory)."""
     lines = ["| quantity | standard_name written | units | kind | standard names read "
-             "| built-in valid range |",
-             "|---|---|---|---|---|---|"]
+             "| built-in valid range | default representation error | default error floor |",
+             "|---|---|---|---|---|---|---|---|"]
     for q in QUANTITIES.values():
         low, high = q.valid_range
         kind = "surface" if q.surface else "profile"
@@ -42,7 +44,9 @@ def quantities_table() -> str:
             kind += f", {q.component} component of {q.vector}"
         lines.append(f"| `{q.name}` | `{q.standard_name}` | `{q.units}` | {kind} | "
                      f"{_code(q.accepted_standard_names)} | "
-                     f"[{_number(low)}, {_number(high)}] {q.units} |")
+                     f"[{_number(low)}, {_number(high)}] {q.units} | "
+                     f"{_number(q.default_representation_error)} {q.units} | "
+                     f"{_number(q.default_error_floor)} {q.units} |")
     return "\n".join(lines)
 
 

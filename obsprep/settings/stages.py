@@ -9,8 +9,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field, fields
 from types import MappingProxyType
 
+from obsprep.model.quantities import QUANTITIES
 from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
 from obsprep.superobs.errors import COMBINATION_RULES
+
+#: where a super-observation error setting of a quantity comes from
+FROM_CONFIGURATION = "configuration"
+FROM_CONFIGURED_FIELD = "configuration_field"
+FROM_DEFAULT = "default"
 
 
 def _key(default, meaning: str, **constraints):
@@ -49,9 +55,11 @@ class SuperobsSettings:
                                               "(e.g. SST types; same units, all surface or all "
                                               "profile quantities)")
     representation_error: MappingProxyType = _key({}, "quantity -> representation error constant, "
-                                                  "canonical units", minimum=0)
+                                                  "canonical units (default: the quantity's "
+                                                  "default_representation_error)", minimum=0)
     error_floor: MappingProxyType = _key({}, "quantity -> floor of the super-observation error, "
-                                         "canonical units", minimum=0)
+                                         "canonical units, > 0 (default: the quantity's "
+                                         "default_error_floor)", exclusiveMinimum=0)
     representation_error_file: str | None = _key(None, "netCDF file of representation-error fields")
     representation_error_variables: MappingProxyType = _key({}, "quantity -> variable in that file")
     spread_combination: str = _key("instrument", "how instrument error and spread combine",
@@ -61,6 +69,49 @@ class SuperobsSettings:
     interval_time: str = _key("end", "where an interval observation (drift) is placed in time, "
                               "for its slot and time_offset: start, middle or end of the interval",
                               enum=list(INTERVAL_PLACEMENTS))
+
+    def representation_error_for(self, quantity: str) -> tuple[float | None, str]:
+        """The constant representation error of output ``quantity`` (canonical units) and where
+        it comes from: the configured constant, the configured field (value None: looked up per
+        cell) or the quantity's default."""
+        if quantity in self.representation_error_variables:
+            return None, FROM_CONFIGURED_FIELD
+        if quantity in self.representation_error:
+            return float(self.representation_error[quantity]), FROM_CONFIGURATION
+        return QUANTITIES[quantity].default_representation_error, FROM_DEFAULT
+
+    def error_floor_for(self, quantity: str) -> tuple[float, str]:
+        """The floor of the super-observation error of output ``quantity`` (canonical units,
+        > 0) and where it comes from: the configuration or the quantity's default."""
+        if quantity in self.error_floor:
+            return float(self.error_floor[quantity]), FROM_CONFIGURATION
+        return QUANTITIES[quantity].default_error_floor, FROM_DEFAULT
+
+    def error_settings(self, quantity: str) -> dict:
+        """Representation error and floor of output ``quantity`` with their units and origin:
+        ``{"representation_error": {"value", "units", "from"}, "error_floor": {...}}``
+        (value None for a representation-error field)."""
+        units = QUANTITIES[quantity].units
+        representation, representation_from = self.representation_error_for(quantity)
+        floor, floor_from = self.error_floor_for(quantity)
+        return {"representation_error": {"value": representation, "units": units,
+                                         "from": representation_from},
+                "error_floor": {"value": floor, "units": units, "from": floor_from}}
+
+
+def error_settings_of(settings: SuperobsSettings, quantities) -> dict:
+    """:meth:`SuperobsSettings.error_settings` of each output quantity of ``quantities``, in
+    the order given: what the output file records of where its errors' settings came from."""
+    return {q: settings.error_settings(q) for q in quantities}
+
+
+def quantities_on_defaults(settings: SuperobsSettings, quantities) -> dict:
+    """Per error setting (``"representation_error"``, ``"error_floor"``) the quantities of
+    ``quantities`` whose value is the quantity's default, not the configuration's."""
+    recorded = error_settings_of(settings, quantities)
+    return {setting: [q for q, by_setting in recorded.items()
+                      if by_setting[setting]["from"] == FROM_DEFAULT]
+            for setting in ("representation_error", "error_floor")}
 
 
 @dataclass(frozen=True)

@@ -13,10 +13,13 @@ For each group (super-observation) of n raw values:
   itself (the scatter of one value), s / sqrt(1 - rho);
 - the observation part: one of the two, by ``superobs.spread_combination``
   (:func:`~obsprep.superobs.errors.combine_instrument_and_spread`);
-- ``error_representation``: per quantity a constant (``superobs.representation_error``) or a
+- ``error_representation``: per quantity a constant (``superobs.representation_error``), a
   field on the model grid looked up at the group's cell (``superobs.representation_error_file``
-  and ``..._variables``; :mod:`obsprep.superobs.representation`);
-- ``error`` = max(floor, sqrt(observation part^2 + representation^2))
+  and ``..._variables``; :mod:`obsprep.superobs.representation`), or else the quantity's
+  default (:attr:`obsprep.model.quantities.Quantity.default_representation_error`);
+- ``error`` = max(floor, sqrt(observation part^2 + representation^2)), the floor configured
+  (``superobs.error_floor``) or the quantity's default, always > 0, so no error is 0 even where
+  the spread of identical values is 0
   (:func:`obsprep.superobs.error_model.total_error`); ``error_basis`` says which term set it (0 instrument, 1 spread, 2 floor);
 - ``error_raw_rms`` = sqrt(sum sigma_i^2 / n), the typical assigned raw error (for audits);
 - ``error_origin``: the raw error rule(s) of the group's sensor and quantity
@@ -81,10 +84,11 @@ def group_error_inputs(cfg, accumulator, sensor_names, correlations, grid=None,
     keys = accumulator.keys
     q_code = keys["quantity"]
     correlation = np.array([correlations[s] for s in sensor_names])[keys["sensor"]]
-    constants = cfg.superobs.representation_error
-    floors = cfg.superobs.error_floor
-    representation = np.array([constants.get(q, 0.0) for q in quantity_names])[q_code]
-    floor = np.array([floors.get(q, 0.0) for q in quantity_names])[q_code]
+    settings = cfg.superobs
+    # the configured constant or the quantity's default (a field fills its rows below)
+    representation = np.array([settings.representation_error_for(q)[0] or 0.0
+                               for q in quantity_names])[q_code]
+    floor = np.array([settings.error_floor_for(q)[0] for q in quantity_names])[q_code]
     variables = cfg.superobs.representation_error_variables
     if variables:
         from obsprep.superobs.representation import load_representation_fields, representation_at

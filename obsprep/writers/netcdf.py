@@ -5,6 +5,8 @@ Each quantity ``q`` present gets a dimension ``q_obs`` and the variables declare
 canonical units) and ``q_<suffix>`` (errors, spread, count, position, time, grid indices, sensor;
 ``q_profile`` for profiles, ``q_time_end`` for interval observations).  Keeping one dimension per
 quantity lets every variable carry one standard_name and one unit, as CF requires.
+The global attribute ``error_settings`` (JSON) gives per quantity its representation error and
+error floor, their units and whether each came from the configuration or the quantity's default.
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ import xarray as xr
 
 from obsprep.model.product import NETCDF_VARIABLES
 from obsprep.model.quantities import QUANTITIES
+from obsprep.settings.stages import error_settings_of
 
 
 def _iso(t) -> str:
@@ -72,6 +75,10 @@ def superobs_dataset(superobs, cfg, grid, inputs, version: str, created, run_id:
         "window_end": _iso(cfg.window.end),
         "slot_seconds": float(cfg.window.slot_seconds),
         "superobs_mode": cfg.superobs.mode,
+        # per output quantity: representation error and floor with units and whether each is
+        # the configuration's or the quantity's default
+        "error_settings": json.dumps(error_settings_of(
+            cfg.superobs, [q for q in QUANTITIES if q in present])),
         "spread_combination": cfg.superobs.spread_combination,
         "configuration_file": str(cfg.path.resolve()) if cfg.path else "",
         "grid_shape": f"ny={grid.ny} nx={grid.nx} nk={len(grid.layer_interfaces) - 1}",

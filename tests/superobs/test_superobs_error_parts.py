@@ -132,6 +132,8 @@ spread_combination = "{rule}"
 spread_min_count = 5
 representation_error_file = "rep.nc"
 representation_error_variables = {{ sea_surface_temperature = "sst_rep" }}
+# a floor far below every error here, so that the test sees the formula, not the floor
+error_floor = {{ sea_surface_temperature = 0.001 }}
 """
 
 
