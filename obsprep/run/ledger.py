@@ -130,16 +130,19 @@ class Ledger:
         numeric = ["files", "unreadable", "read", "kept"] + [c for c in frame if c.startswith("rejected_")]
         return frame.groupby("sensor", sort=False)[numeric].sum().reset_index()
 
-    def to_json(self) -> str:
-        """The ledger as JSON: ``run`` (metadata), ``reasons`` (code: description), ``entries``."""
-        return json.dumps({"run": self.metadata, "reasons": REASONS,
+    def to_json(self, run_id: str = "") -> str:
+        """The ledger as JSON: ``run_id`` (the output set's, when given), ``run`` (metadata),
+        ``reasons`` (code: description), ``entries``."""
+        head = {"run_id": run_id} if run_id else {}
+        return json.dumps({**head, "run": self.metadata, "reasons": REASONS,
                            "entries": [e.__dict__ for e in self.entries]}, indent=1, default=str)
 
-    def write(self, csv_path, json_path) -> None:
-        """Write the ledger as CSV (one row per file and sensor) and JSON."""
+    def write(self, csv_path, json_path, run_id: str = "") -> None:
+        """Write the ledger as CSV (one row per file and sensor) and JSON (with ``run_id``
+        first when given)."""
         self.to_frame().to_csv(csv_path, index=False)
         with open(json_path, "w") as fh:
-            fh.write(self.to_json())
+            fh.write(self.to_json(run_id))
 
 
 def reason_totals(entries) -> dict:

@@ -12,16 +12,4 @@ from __future__ import annotations
 from obsprep.writers.atomic import atomic_path
 from obsprep.writers.outputs import OutputSet
 
-
-def write_outputs(cfg, superobs, ledger, grid, inputs, out_dir=None, version="", created=None) -> dict:
-    """Write the super-observation netCDF, optional Parquet copy and the ledger (CSV + JSON)
-    as one :class:`OutputSet`.
-
-    Returns a dict of the paths written: ``netcdf``, ``parquet`` (when enabled), ``ledger_csv``,
-    ``ledger_json`` and ``manifest``.
-    """
-    with OutputSet(cfg, out_dir) as output_set:
-        return output_set.publish(superobs, ledger, grid, inputs, version=version, created=created)
-
-
-__all__ = ["write_outputs", "atomic_path", "OutputSet"]
+__all__ = ["atomic_path", "OutputSet"]

@@ -34,7 +34,6 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import datetime as dt
-import json
 import os
 import uuid
 from pathlib import Path
@@ -154,8 +153,7 @@ class OutputSet:
             writing = paths["ledger_csv"]
             staged["ledger_csv"] = temporary_path(paths["ledger_csv"])
             staged["ledger_json"] = temporary_path(paths["ledger_json"])
-            ledger.write(staged["ledger_csv"], staged["ledger_json"])
-            _add_run_id_to_json(staged["ledger_json"], self.run_id)
+            ledger.write(staged["ledger_csv"], staged["ledger_json"], run_id=self.run_id)
             for role, tmp in staged.items():
                 writing = paths[role]
                 fsync_file(tmp)
@@ -224,13 +222,6 @@ def _write_parquet(superobs, path, run_id: str) -> None:
     metadata = dict(table.schema.metadata or {})
     metadata[PARQUET_RUN_ID_KEY] = run_id.encode("utf-8")
     pq.write_table(table.replace_schema_metadata(metadata), path)
-
-
-def _add_run_id_to_json(path: Path, run_id: str) -> None:
-    """Put ``run_id`` first in the JSON object at ``path``."""
-    data = json.loads(path.read_text(encoding="utf-8"))
-    data.pop("run_id", None)
-    path.write_text(json.dumps({"run_id": run_id, **data}, indent=1), encoding="utf-8")
 
 
 def _remove_all(paths) -> None:
