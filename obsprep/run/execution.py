@@ -30,7 +30,7 @@ import os
 import threading
 from concurrent.futures import ProcessPoolExecutor
 
-from obsprep.run.ledger import DUPLICATE_FILE, LedgerEntry
+from obsprep.run.ledger import DUPLICATE_FILE, UNREADABLE, LedgerEntry
 from obsprep.run.tasks import ExecutionResult, FileResult, FileTask
 from obsprep.superobs import Accumulator
 
@@ -300,8 +300,6 @@ POLL_SECONDS = 1.0
 #: running it were lost (the scheduler itself first moves it to another worker, up to
 #: ``distributed.scheduler.allowed-failures`` times); then the file is listed as unreadable
 FILE_RESUBMISSIONS = 1
-#: the ledger status of a file whose task could not be run (as for a file that cannot be read)
-LOST_STATUS = "unreadable"
 
 
 def _summary(result):
@@ -318,7 +316,7 @@ def _identity(value):
 def _lost_result(task: FileTask, attempts: int, address: str) -> FileResult:
     """The ledger entry of a file whose task lost a worker every time it was tried."""
     return FileResult(LedgerEntry(
-        file=task.path, sensor=task.source.sensor, kind=task.source.kind, status=LOST_STATUS,
+        file=task.path, sensor=task.source.sensor, kind=task.source.kind, status=UNREADABLE,
         message=f"the Dask workers running its task were lost {attempts} time(s) (killed, e.g. "
                 f"out of memory, on the cluster at {address}); not read",
         size_bytes=os.path.getsize(task.path) if os.path.exists(task.path) else 0))

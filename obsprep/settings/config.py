@@ -108,10 +108,6 @@ class Source:
     #: a required source that delivers nothing makes the build's outcome ``source_missing``
     required: bool = True
 
-    def files(self, base_dir: Path, days) -> list[str]:
-        """Expand the path patterns for the given UTC days; sorted, de-duplicated, absolute."""
-        return self.find_files(base_dir, days)[0]
-
     def find_files(self, base_dir: Path, days) -> tuple[list[str], list[str]]:
         """The files of the source for the given UTC days (sorted per pattern, de-duplicated,
         absolute) and the expanded glob patterns that matched no file.
