@@ -231,8 +231,8 @@ def _analysis_time(text: str, src) -> np.datetime64:
 
 def _check_window_bounds(start_h, end_h, slot_h, src) -> None:
     """ConfigError naming the window key unless the window stays within
-    :data:`MAX_WINDOW_HOURS` of the analysis time, is no longer than that and has at most
-    :data:`MAX_TIME_SLOTS` slots."""
+    :data:`MAX_WINDOW_HOURS` of the analysis time and is no longer than that (checked before
+    the hours become nanoseconds, which would overflow)."""
     for name, value in (("start_hours", start_h), ("end_hours", end_h)):
         if abs(value) > MAX_WINDOW_HOURS:
             raise ConfigError(f"window.{name}", f"{value} h is more than {MAX_WINDOW_HOURS:g} h "
@@ -240,10 +240,6 @@ def _check_window_bounds(start_h, end_h, slot_h, src) -> None:
     if end_h - start_h > MAX_WINDOW_HOURS:
         raise ConfigError("window.end_hours", f"a window of {end_h - start_h:g} h is longer than "
                           f"{MAX_WINDOW_HOURS:g} h ({MAX_WINDOW_HOURS / 24:g} days)", src)
-    slots = np.ceil((end_h - start_h) / slot_h - 1e-9)
-    if slots > MAX_TIME_SLOTS:
-        raise ConfigError("window.slot_hours", f"slots of {slot_h:g} h cut the {end_h - start_h:g} h "
-                          f"window into {slots:.0f} slots, more than {MAX_TIME_SLOTS}", src)
 
 
 def load_config(config, date: str | dt.date | None = None) -> Config:
@@ -292,6 +288,9 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     to_ns = lambda h: np.timedelta64(int(round(h * 3600e9)), "ns")  # noqa: E731
     window = Window(analysis, analysis + to_ns(start_h), analysis + to_ns(end_h),
                     slot_h * 3600.0)
+    if window.n_slots > MAX_TIME_SLOTS:
+        raise ConfigError("window.slot_hours", f"slots of {slot_h:g} h cut the {end_h - start_h:g} h "
+                          f"window into {window.n_slots} slots, more than {MAX_TIME_SLOTS}", src)
 
     sources, seen = [], set()
     for n, s in enumerate(raw["sources"]):
