@@ -44,7 +44,7 @@ import pandas as pd
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import register_reason
-from obsprep.model.table import add_warning, category_masks, kept, reject
+from obsprep.model.table import category_masks, reject, warn_of_large_shares
 
 register_reason("implausible_error", "raw error infinite, not positive, or larger than the "
                 "quantity's whole physical range", stage="errors")
@@ -174,19 +174,16 @@ def largest_plausible_error(quantity: str) -> float:
 
 
 def _warn_of_units(table: pd.DataFrame, masks: dict, missing, implausible, rule_name: str) -> None:
-    """Warn (:func:`obsprep.model.table.add_warning`) when more than
-    :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a quantity's raw errors
-    (rows still kept, with an error) are implausible: the errors' units may be wrong, and the
-    errors that pass may be just as wrong."""
-    live = kept(table) & ~missing
-    for q, mask in masks.items():
-        rows = live & mask
-        n = int(np.count_nonzero(rows))
-        if n and np.count_nonzero(rows & implausible) > SUSPICIOUS_OUT_OF_RANGE_SHARE * n:
-            where = "the file's uncertainty" if rule_name == "file" else "the error rule"
-            add_warning(table, f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the raw errors "
-                               f"of {q} are infinite, not positive or larger than its whole "
-                               f"physical range: the units or scale of {where} may be wrong")
+    """Warn when more than :data:`~obsprep.model.quantities.SUSPICIOUS_OUT_OF_RANGE_SHARE` of a
+    quantity's raw errors (rows still kept, with an error) are implausible: the errors' units
+    may be wrong, and the errors that pass may be just as wrong."""
+    where = "the file's uncertainty" if rule_name == "file" else "the error rule"
+    with_error = {q: mask & ~missing for q, mask in masks.items()}
+    warn_of_large_shares(
+        table, with_error, implausible, SUSPICIOUS_OUT_OF_RANGE_SHARE,
+        lambda q: (f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the raw errors of {q} are "
+                   f"infinite, not positive or larger than its whole physical range: the units "
+                   f"or scale of {where} may be wrong"))
 
 
 def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:

@@ -49,6 +49,19 @@ def add_warning(table: pd.DataFrame, message: str) -> None:
         warnings.append(message)
 
 
+def warn_of_large_shares(table: pd.DataFrame, rows_of: dict, bad: np.ndarray, share: float,
+                         message) -> None:
+    """Warn (:func:`add_warning`) for each group of rows where more than ``share`` (0..1) of
+    its rows still kept are ``bad``: ``rows_of`` {name: boolean mask}, ``message(name)`` the
+    line for that group (used by the units checks of values and of raw errors)."""
+    live = kept(table)
+    for name, mask in rows_of.items():
+        rows = live & mask
+        n = int(np.count_nonzero(rows))
+        if n and np.count_nonzero(rows & bad) > share * n:
+            add_warning(table, message(name))
+
+
 def make_table(n: int | None = None, **columns) -> pd.DataFrame:
     """Build an observation table from column arrays.
 

@@ -11,7 +11,7 @@ import pandas as pd
 
 from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import REASONS
-from obsprep.model.table import add_warning, kept, reject
+from obsprep.model.table import reject, warn_of_large_shares
 from obsprep.qc.check import QcCheck, QcSetting
 
 
@@ -94,22 +94,24 @@ def gross_range_check(table: pd.DataFrame, valid_range=None) -> int:
 def _warn_of_units(table: pd.DataFrame, value: np.ndarray, codes: np.ndarray, categories) -> None:
     """The warning of :func:`gross_range_check` for each quantity with a suspicious share of
     values outside its physical range (among its rows still kept)."""
-    live = kept(table)
+    rows_of, outside = {}, np.zeros(len(value), dtype=bool)
     for c, name in enumerate(categories):
         known = QUANTITIES.get(str(name))
         if known is None:
             continue
-        rows = live & (codes == c)
-        n = int(np.count_nonzero(rows))
-        if not n:
-            continue
+        rows_of[str(name)] = rows = codes == c
         lo, hi = known.valid_range
         with np.errstate(invalid="ignore"):
-            outside = int(np.count_nonzero(rows & ((value < lo) | (value > hi))))
-        if outside > SUSPICIOUS_OUT_OF_RANGE_SHARE * n:
-            add_warning(table, f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the values of "
-                               f"{name} are outside its physical range [{lo:g}, {hi:g}] "
-                               f"'{known.units}': the file's units or scale may be wrong")
+            outside |= rows & ((value < lo) | (value > hi))
+
+    def message(name):
+        known = QUANTITIES[name]
+        lo, hi = known.valid_range
+        return (f"more than {SUSPICIOUS_OUT_OF_RANGE_SHARE:.0%} of the values of {name} are outside "
+                f"its physical range [{lo:g}, {hi:g}] '{known.units}': the file's units or scale may "
+                "be wrong")
+
+    warn_of_large_shares(table, rows_of, outside, SUSPICIOUS_OUT_OF_RANGE_SHARE, message)
 
 
 def _apply_basic(table: pd.DataFrame, context, settings) -> dict:
