@@ -1,9 +1,11 @@
 """Writers of the "weddell-spring" demo scenario: model grid, observation files, truth, config.
 
 Every observation is the known truth (:mod:`obsprep.demo.truth`) at the observation's position
-and time plus Gaussian noise of a known standard deviation per sensor, drawn from a seeded
-generator (``numpy.random.default_rng([seed, stream])``, one stream per file), so two runs with
-the same seed write the same values.  Files are CF-1.10 netCDF-4 following
+and time, plus a sub-cell variability the model grid cannot resolve, plus Gaussian noise of a
+known standard deviation per sensor, correlated within an error group (an altimeter pass, an
+SST granule, a gridded SST file; :mod:`obsprep.demo.noise`), drawn from a seeded generator
+(``numpy.random.default_rng([seed, stream])``, one stream per file), so two runs with the same
+seed write the same values.  Files are CF-1.10 netCDF-4 following
 ``docs/file-conventions.md``; they are written with netCDF4 from whole numpy arrays.
 
 Where a file is packed (``scale_factor``/``add_offset``), the noise is drawn with the standard
@@ -38,6 +40,13 @@ import pyproj
 from scipy import ndimage
 
 from obsprep.demo import truth
+from obsprep.demo.noise import (
+    ERROR_CORRELATION,
+    FOOTPRINT_KM2,
+    SUBCELL_SIGMA,
+    sensor_noise,
+    subcell_variability,
+)
 from obsprep.geo.seawater import depth_from_pressure, pressure_from_depth
 from obsprep.model.quantities import get_quantity
 
@@ -358,7 +367,10 @@ def _write_altimetry(scn, sensor, sensor_index):
         # passes split at the turning latitudes (u = pi/2, 3pi/2): half revolutions
         pass_number = np.floor((u + np.pi / 2.0) / np.pi).astype(np.int32)
         rng = scn.rng(1, sensor_index, day_index)
-        value = truth.sea_level_anomaly(lon, lat, times) + sigma * rng.standard_normal(lon.size)
+        # the reader's error group of a value is its pass_number (cf_role trajectory_id)
+        value = (truth.sea_level_anomaly(lon, lat, times)
+                 + subcell_variability(rng, "sea_level_anomaly", lon.size)
+                 + sensor_noise(rng, sensor, np.full(lon.size, sigma), pass_number))
         present = rng.random(lon.size) >= 0.01           # 1 % dropouts
         path = scn.path(f"obs/altimetry/alt_{letter}_{day.astype(object):%Y%m%d}.nc")
         with _create(path, f"demo along-track sea level anomaly, {sensor}",
@@ -459,8 +471,9 @@ def _write_sst_swath(scn):
         status[cloudy] = 3
         sigma = nadir + (edge - nadir) * (view / np.radians(SWATH_MAX_VIEW_DEG)) ** 2
         sigma = np.round(sigma / 0.01) * 0.01               # as stored (packing step 0.01 K)
-        kelvin = 273.15 + truth.sea_surface_temperature(lon64, lat64, times)
-        kelvin = kelvin + sigma * rng.standard_normal(lon.shape)
+        kelvin = (273.15 + truth.sea_surface_temperature(lon64, lat64, times)
+                  + subcell_variability(rng, "sea_surface_temperature", lon.shape)
+                  + sensor_noise(rng, "sst_swath_ir", sigma))   # one error group: the granule
         gross = rng.uniform(*SST_SWATH_GROSS_COLD_BIAS_K, size=lon.shape)
         kelvin = np.where(status == 1, kelvin - gross, kelvin)
         ice_sheet = 273.15 - 22.0 + 3.0 * rng.standard_normal(lon.shape)  # land surface
@@ -575,7 +588,8 @@ def _write_sst_grid(scn):
         time = day.astype("datetime64[s]") + np.timedelta64(12 * 3600, "s")
         rng = scn.rng(3, day_index)
         kelvin = (273.15 + truth.sea_surface_temperature(lon2, lat2, time)
-                  + SST_GRID_SIGMA_K * rng.standard_normal(lon2.shape))
+                  + subcell_variability(rng, "sea_surface_temperature", lon2.shape)
+                  + sensor_noise(rng, "sst_grid", np.full(lon2.shape, SST_GRID_SIGMA_K)))
         # bit mask (CF flag_masks): 1 land, 2 sea ice; no bit set = open water (good)
         ice = sea & (truth.sea_ice_concentration(lon2, lat2, time) >= SWATH_ICE_THRESHOLD)
         mask = np.where(sea, 0, 1) + np.where(ice, 2, 0)
@@ -759,7 +773,9 @@ def _write_ice_drift(scn):
 
 #: CTD section stations (lon, lat) across the shelf break, occupied 6 h apart
 CTD_STATIONS = ((-42.0, -76.0), (-42.0, -74.5), (-42.0, -73.8), (-42.0, -73.2))
-FLOAT_COUNT = 8
+#: many more floats than the real Weddell Sea has in three days (about 10), so that the demo's
+#: per-layer super-observations are numerous enough to check their errors statistically
+FLOAT_COUNT = 60
 FLOAT_LEVELS_M = np.concatenate([np.arange(5.0, 101.0, 5.0), np.arange(110.0, 501.0, 10.0),
                                  np.arange(550.0, 2001.0, 50.0)])
 FLAG_VALUES = np.array([1, 2, 3, 4], dtype=np.int8)
@@ -769,8 +785,8 @@ FLAG_MEANINGS = "good probably_good probably_bad bad"
 def _float_positions(rng, count):
     """Float positions over the deep interior (sea floor deeper than 2200 m, inside the domain),
     from uniform candidates in 50-15 deg W, 69-62 deg S."""
-    lon = rng.uniform(-50.0, -15.0, 400)
-    lat = rng.uniform(-69.0, -62.0, 400)
+    lon = rng.uniform(-50.0, -15.0, 40 * count)
+    lat = rng.uniform(-69.0, -62.0, 40 * count)
     depth = truth.sea_floor_depth(lon, lat)
     good = np.flatnonzero((np.nan_to_num(depth) > 2200.0)
                           & _inside_model_domain(lon, lat, margin_m=-50000.0))
@@ -793,7 +809,7 @@ def _write_profiles(scn):
     times = np.concatenate([ctd_times, float_times])
     bottom = truth.sea_floor_depth(lon, lat)
     nominal = []
-    for k in range(n_profiles):          # 12 profiles: level lists differ in length
+    for k in range(n_profiles):          # level lists differ in length
         if k < n_ctd:                     # ship CTD: 2 m bins to 15 m above the bottom or 2000 m
             deepest = min(bottom[k] - 15.0, 2000.0)
             nominal.append(np.arange(2.0, deepest + 1e-9, 2.0))
@@ -815,8 +831,13 @@ def _write_profiles(scn):
     time2 = np.broadcast_to(times[:, None], depth.shape)
     temperature = truth.sea_water_temperature(lon2, lat2, np.nan_to_num(depth), time2)
     salinity = truth.sea_water_salinity(lon2, lat2, np.nan_to_num(depth), time2)
-    temperature += PROFILE_SIGMA["sea_water_temperature"] * rng.standard_normal(depth.shape)
-    salinity += PROFILE_SIGMA["sea_water_salinity"] * rng.standard_normal(depth.shape)
+    # sub-cell variability: one value per profile and model layer (water of one profile's layer
+    # differs from the cell's large-scale state as a whole); instrument noise per level
+    layer = np.searchsorted(np.asarray(LAYER_INTERFACES_M), np.nan_to_num(depth), side="right")
+    for name, values in (("sea_water_temperature", temperature), ("sea_water_salinity", salinity)):
+        per_layer = subcell_variability(rng, name, (n_profiles, len(LAYER_INTERFACES_M) + 1))
+        values += np.take_along_axis(per_layer, layer, axis=1)
+        values += PROFILE_SIGMA[name] * rng.standard_normal(depth.shape)
     # quality flags: a few gross errors flagged bad, a few normal values flagged probably good
     valid_index = np.flatnonzero(present)
     flags = {}
@@ -1002,7 +1023,7 @@ def _write_config(scn):
         lines += ["", "[[sources]]", f'sensor = "{sensor}"', f'paths = ["{pattern}"]',
                   f'kind = "{kind}"',
                   "quantities = [" + ", ".join(f'"{q}"' for q in quantities) + "]",
-                  "correlation = 0.0", "[sources.error]", *rule,
+                  f"correlation = {ERROR_CORRELATION.get(sensor, 0.0)}", "[sources.error]", *rule,
                   f"factor = {0.5 if sensor == scn.misassign else 1.0}", "floor = 0.0"]
         if sensor == scn.misassign:
             lines.insert(-2, "# deliberately wrong: half the true noise (obsprep demo --misassign)")
@@ -1020,12 +1041,20 @@ def _write_config(scn):
         "[superobs.merge_quantities]",
         'sea_surface_temperature = ["sea_surface_foundation_temperature", '
         '"sea_surface_subskin_temperature"]',
-        "# The demo truth is smooth horizontally on the 10 km grid (scales of a few hundred km),",
-        "# so there is no unresolved horizontal variability: representation errors are zero.",
-        "# Vertically, the T/S truth is linear inside each model layer, so layer means carry no",
-        "# vertical representation error either.",
+        "# Errors are correlated within a pass, granule or file (sources' correlation) and not",
+        "# across them. Observations also sample a sub-cell variability (one independent value",
+        "# per raw footprint) that the 10 km grid cannot resolve: the sampling model gives a",
+        "# super-observation of n of the N = cell area / footprint footprints of its cell the",
+        "# representation error sigma_sub sqrt((1/n - 1/N) N / (N - 1)). Ice products have",
+        "# footprints larger than a model cell: no sub-cell variability.",
+        'representation_model = "sampling"',
+        "# The T/S truth is curved inside model layers (a thermocline): a layer's value is a",
+        "# quadratic fit in depth at the super-observation's depth, not the mean of the values.",
+        'layer_value = "fit"',
         "[superobs.representation_error]",
-        *[f"{q} = 0.0" for q in ERROR_FLOORS],
+        *[f"{q} = {SUBCELL_SIGMA.get(q, 0.0)}" for q in ERROR_FLOORS],
+        "[superobs.footprint_km2]",
+        *[f"{q} = {area}" for q, area in FOOTPRINT_KM2.items()],
         "# Floors well below sigma / sqrt(n), so they never bind in the demo.",
         "[superobs.error_floor]",
         *[f"{q} = {v}" for q, v in ERROR_FLOORS.items()],

@@ -6,7 +6,8 @@ tens of km, with errors of 0.5-0.8 K; their side lobes contaminate the cells nea
 ice hides the sea (FIELD notes; values from memory).  The demo product: a regular 0.25 degree
 grid over the sea of the model domain, one file per window day, time the centre of the day,
 subskin SST in packed int16 K, a constant stored error, and a bit mask for land, sea ice and
-cells near the coast.  Noise is Gaussian with the stored sigma, from its own random stream.
+cells near the coast.  Noise is Gaussian with the stored sigma, correlated within the file
+(:mod:`obsprep.demo.noise`), plus the sub-cell variability, from its own random stream.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from obsprep.demo import truth
+from obsprep.demo.noise import sensor_noise, subcell_variability
 from obsprep.demo.scenario import PLATFORMS, SST_GRID_EXTENT, SWATH_ICE_THRESHOLD, write_daily_latlon_sst
 
 SENSOR = "sst_microwave"
@@ -41,7 +43,8 @@ def write_sst_microwave(scn):
         time = day.astype("datetime64[s]") + np.timedelta64(12 * 3600, "s")
         rng = scn.rng(RANDOM_STREAM, day_index)
         kelvin = (273.15 + truth.sea_surface_temperature(lon2, lat2, time)
-                  + SIGMA_K * rng.standard_normal(lon2.shape))
+                  + subcell_variability(rng, "sea_surface_temperature", lon2.shape)
+                  + sensor_noise(rng, SENSOR, np.full(lon2.shape, SIGMA_K)))  # group: the file
         ice = sea & (truth.sea_ice_concentration(lon2, lat2, time) >= SWATH_ICE_THRESHOLD)
         mask = np.where(sea, 0, 1) + np.where(ice, 2, 0) + np.where(near_coast, 4, 0)
         path = scn.path(f"obs/sst_microwave/sst_mw_{day.astype(object):%Y%m%d}.nc")

@@ -316,17 +316,12 @@ def map_axes_to_east_north(x_component, y_component, lon, central_longitude=0.0)
 
 # --- water column -----------------------------------------------------------------------------
 
-#: Model layer interfaces of the demo (m).  The vertical shapes of the truth are linear between
-#: them (knots at the interfaces, then at 3000 and 6000 m), so the truth is one the model layers
-#: can represent: the mean of the truth over any depths inside one layer equals the truth at the
-#: mean depth, and per-layer super-observations carry no vertical representation error.
+#: Model layer interfaces of the demo (m).  The vertical shapes of the truth are smooth (tanh
+#: clines, a softplus deep cooling), not linear between them: the mean of the truth over the
+#: depths inside a layer differs from the truth at their mean depth, as in the real ocean, so a
+#: per-layer super-observation needs a vertical fit (``layer_value = "fit"``) to be unbiased.
 LAYER_INTERFACES_M = (0.0, 10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0)
-_VERTICAL_KNOTS_M = np.array(LAYER_INTERFACES_M + (3000.0, 6000.0))
 
-
-def _linear_between_layers(shape, depth):
-    """``shape`` (a function of depth) sampled at the layer interfaces and linearly interpolated."""
-    return np.interp(np.asarray(depth, dtype=np.float64), _VERTICAL_KNOTS_M, shape(_VERTICAL_KNOTS_M))
 
 def _cline(depth, centre, width):
     """0 at the surface rising to 1 at depth: (tanh((z - c)/w) + tanh(c/w)) / (1 + tanh(c/w))."""
@@ -343,22 +338,22 @@ def sea_water_temperature(lon, lat, depth, time):
     """In-situ temperature (degC): the SST in a ~50 m mixed layer, a thermocline centred at
     150 m up to a warm deep layer of 0.3-0.6 degC at 300-600 m, cooling slowly (~0.35 degC per
     km) below 600 m to about -0.7 degC at 4000 m.  Equals :func:`sea_surface_temperature` at 0 m.
-    The vertical shapes are linear between the model layer interfaces (see LAYER_INTERFACES_M)."""
+    The vertical shapes are smooth (tanh cline, softplus cooling), curved inside model layers."""
     lon = np.asarray(lon, dtype=np.float64)
     lat = np.asarray(lat, dtype=np.float64)
     depth = np.asarray(depth, dtype=np.float64)
     surface = sea_surface_temperature(lon, lat, time)
     x, y = map_xy_km(lon, lat)
     warm_deep = 0.45 + 0.15 * np.sin(x / 400.0) * np.cos(y / 350.0)
-    cooling = _linear_between_layers(
-        lambda z: 0.35e-3 * 300.0 * (_softplus((z - 600.0) / 300.0) - _softplus(-2.0)), depth)
-    cline = _linear_between_layers(lambda z: _cline(z, 150.0, 60.0), depth)
+    cooling = 0.35e-3 * 300.0 * (_softplus((depth - 600.0) / 300.0) - _softplus(-2.0))
+    cline = _cline(depth, 150.0, 60.0)
     return surface + (warm_deep - surface) * cline - cooling
 
 
 def sea_water_salinity(lon, lat, depth, time):
     """Practical salinity (PSU): 33.95-34.25 at the surface (freshest under the ice), a
-    halocline centred at 110 m, 34.66-34.70 below 300 m."""
+    halocline (a tanh shape, curved inside model layers) centred at 110 m, 34.66-34.70 below
+    300 m."""
     lon = np.asarray(lon, dtype=np.float64)
     lat = np.asarray(lat, dtype=np.float64)
     depth = np.asarray(depth, dtype=np.float64)
@@ -366,7 +361,7 @@ def sea_water_salinity(lon, lat, depth, time):
     x, y = map_xy_km(lon, lat)
     surface = 33.95 + 0.3 * _open_water_weight(lon, lat, days)
     deep = 34.68 + 0.02 * np.cos(x / 300.0) * np.sin(y / 380.0)
-    return surface + (deep - surface) * _linear_between_layers(lambda z: _cline(z, 110.0, 45.0), depth)
+    return surface + (deep - surface) * _cline(depth, 110.0, 45.0)
 
 
 # --- one entry point --------------------------------------------------------------------------

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from obsprep.demo.ensemble import write_ensemble
+from obsprep.demo.noise import ERROR_CORRELATION, FOOTPRINT_KM2, SUBCELL_SIGMA
 from obsprep.demo.scenario import (
     ALTIMETER_SIGMA_M,
     ICE_DRIFT_HOURS,
@@ -130,8 +131,9 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0, misass
                            "counts": counts[sensor]}
     manifest = {
         "scenario": SCENARIO_NAME,
-        "description": "Invented Weddell Sea spring state: smooth analytic truth plus Gaussian "
-                       "noise of known sigma per sensor.",
+        "description": "Invented Weddell Sea spring state: smooth analytic truth plus sub-cell "
+                       "variability plus Gaussian noise of known sigma per sensor, correlated "
+                       "within passes, granules and files.",
         "analysis_time": f"{scn.analysis_time}",
         "window": {"start": f"{start}", "end": f"{end}", "slot_hours": SLOT_HOURS},
         "seed": int(seed), "scale": float(scale),
@@ -140,8 +142,13 @@ def write_demo(directory, *, date="2026-11-20", seed=20261120, scale=1.0, misass
                  "layer_interfaces": list(LAYER_INTERFACES_M), **grid_counts},
         "truth": {"file": _relative(scn, truth_path), "function": "obsprep.demo.truth:truth_value",
                   "drift_interval_hours": ICE_DRIFT_HOURS},
-        "representation_error": "zero: the truth is smooth horizontally on the model grid "
-                                "and linear in depth inside each model layer",
+        "representation_error": {
+            "model": "sampling: one independent sub-cell value per raw footprint (per profile "
+                     "and model layer for profiles); not part of the truth",
+            "subcell_sigma": dict(SUBCELL_SIGMA), "footprint_km2": dict(FOOTPRINT_KM2)},
+        "error_correlation": {"model": "constant pairwise correlation within a pass, granule "
+                                       "or file; none across them",
+                              "correlation": dict(ERROR_CORRELATION)},
         "sensors": sensors,
         "ensemble": ensemble_record,
         "misassigned": ({"sensor": misassign, "factor": 0.5} if misassign else None),
