@@ -773,9 +773,9 @@ def _write_ice_drift(scn):
 
 #: CTD section stations (lon, lat) across the shelf break, occupied 6 h apart
 CTD_STATIONS = ((-42.0, -76.0), (-42.0, -74.5), (-42.0, -73.8), (-42.0, -73.2))
-#: many more floats than the real Weddell Sea has in three days (about 10), so that the demo's
+#: many more floats than the real Weddell Sea has in three days (about 10; from memory), so that the demo's
 #: per-layer super-observations are numerous enough to check their errors statistically
-FLOAT_COUNT = 60
+FLOAT_COUNT = 80
 FLOAT_LEVELS_M = np.concatenate([np.arange(5.0, 101.0, 5.0), np.arange(110.0, 501.0, 10.0),
                                  np.arange(550.0, 2001.0, 50.0)])
 FLAG_VALUES = np.array([1, 2, 3, 4], dtype=np.int8)
@@ -1035,12 +1035,6 @@ def _write_config(scn):
         'mode = "mean"',
         'profiles = "per_profile"',
         "merge_sensors = { }",
-        "# The demo truth has no diurnal cycle and no skin effect: its foundation (sst_grid) and",
-        "# subskin (sst_microwave) SST equal the SST of the infrared swath, so the three SST types",
-        "# are averaged together, as sea_surface_temperature. Real products differ by type.",
-        "[superobs.merge_quantities]",
-        'sea_surface_temperature = ["sea_surface_foundation_temperature", '
-        '"sea_surface_subskin_temperature"]',
         "# Errors are correlated within a pass, granule or file (sources' correlation) and not",
         "# across them. Observations also sample a sub-cell variability (one independent value",
         "# per raw footprint) that the 10 km grid cannot resolve: the sampling model gives a",
@@ -1051,6 +1045,12 @@ def _write_config(scn):
         "# The T/S truth is curved inside model layers (a thermocline): a layer's value is a",
         "# quadratic fit in depth at the super-observation's depth, not the mean of the values.",
         'layer_value = "fit"',
+        "# The demo truth has no diurnal cycle and no skin effect: its foundation (sst_grid) and",
+        "# subskin (sst_microwave) SST equal the SST of the infrared swath, so the three SST types",
+        "# are averaged together, as sea_surface_temperature. Real products differ by type.",
+        "[superobs.merge_quantities]",
+        'sea_surface_temperature = ["sea_surface_foundation_temperature", '
+        '"sea_surface_subskin_temperature"]',
         "[superobs.representation_error]",
         *[f"{q} = {SUBCELL_SIGMA.get(q, 0.0)}" for q in ERROR_FLOORS],
         "[superobs.footprint_km2]",

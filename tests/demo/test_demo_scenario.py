@@ -5,11 +5,14 @@ xarray's decoding, PROJ through pyproj (grid cell centres, CRS from CF grid mapp
 convergence), pyproj.Geod (geodesics, [Karney2013], J. Geodesy 87), TEOS-10 through gsw
 (pressure to depth, freezing point) and pint through cf_xarray (units).
 
-Statistical tolerances: for n independent draws of N(0, sigma^2), the sample mean has standard
-error sigma / sqrt(n) and the sample standard deviation has standard error close to
-sigma / sqrt(2 (n - 1)) (large-n normal theory, any statistics textbook).  Checks allow
-5 standard errors, so a correct generator fails with probability below 1e-6 per check, while
-a sigma wrong by 2 % or more (n > 10 000) or a bias of sigma/10 fails.
+Statistical tolerances: the residuals (value - truth) are Gaussian with a known covariance C:
+the raw error sigma_i with a pairwise correlation rho inside an error group (pass, granule,
+file; obsprep.demo.noise) plus the sub-cell variability s^2, shared by the values of one
+sub-cell unit (a pixel, a point, a profile's model layer).  The sample mean then has variance
+sum_ij C_ij / n^2 and the mean square about zero, m2 = sum r_i^2 / n, has expectation
+sum_i C_ii / n and variance 2 sum_ij C_ij^2 / n^2 (Isserlis' theorem for Gaussian fourth
+moments; from memory).  Checks allow 5 standard errors, so a correct generator fails with
+probability below 1e-6 per check, while a sigma wrong by a few % or a bias of sigma/10 fails.
 """
 
 from __future__ import annotations
@@ -23,12 +26,15 @@ from pathlib import Path
 import gsw
 import netCDF4
 import numpy as np
+import pandas as pd
 import pyproj
 import pytest
 import xarray as xr
 
 from obsprep.demo import truth as demo_truth
 from obsprep.demo import truth_value, write_demo
+from obsprep.demo.noise import ERROR_CORRELATION, FOOTPRINT_KM2, SUBCELL_SIGMA
+from obsprep.demo.scenario import CTD_STATIONS, FLOAT_COUNT, LAYER_INTERFACES_M
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 
@@ -72,18 +78,44 @@ def decoded_time(path, name):
         return ds[name].values.astype("datetime64[ns]")
 
 
-def assert_gaussian(residual, sigma, label):
-    """Sample mean within 5 standard errors of 0 and sample std within 5 standard errors of
-    ``sigma`` (standard errors sigma / sqrt(n) and sigma / sqrt(2 (n - 1)))."""
-    residual = np.asarray(residual, dtype=np.float64).ravel()
-    n = residual.size
+def _block_sums(weights, *labels):
+    """sum over blocks of equal labels of (sum of weights in the block)^2."""
+    frame = pd.DataFrame({f"l{k}": np.asarray(v).ravel() for k, v in enumerate(labels)})
+    return float((pd.Series(weights).groupby([frame[c] for c in frame]).sum() ** 2).sum())
+
+
+def assert_gaussian(residual, sigma, label, *, groups=None, correlation=0.0, subcell=0.0,
+                    subcell_units=None):
+    """Residuals with covariance C_ij = sigma_i^2 (i = j) + rho sigma_i sigma_j (same error
+    group, i != j) + s^2 (same sub-cell unit): the sample mean within 5 standard errors of 0 and
+    the mean square within 5 standard errors of its expectation (see the module docstring).
+
+    ``groups``: error-group label per value (None: independent errors); ``correlation``: rho;
+    ``subcell``: s; ``subcell_units``: sub-cell unit label per value (None: one per value).
+    """
+    r = np.asarray(residual, dtype=np.float64).ravel()
+    n = r.size
     assert n > 100, f"{label}: only {n} values"
-    mean, std = residual.mean(), residual.std(ddof=1)
-    mean_tolerance = STANDARD_ERRORS * sigma / np.sqrt(n)
-    std_tolerance = STANDARD_ERRORS * sigma / np.sqrt(2.0 * (n - 1))
+    sd = np.broadcast_to(np.asarray(sigma, dtype=np.float64), r.shape).ravel()
+    index = np.arange(n)
+    g = index if groups is None else np.asarray(groups).ravel()
+    h = index if subcell_units is None else np.asarray(subcell_units).ravel()
+    rho, s2 = correlation, subcell ** 2
+    diagonal = (1.0 - rho) * sd ** 2                    # C = diag(d) + rho (sd sd^T o G) + s2 H
+    sum_c = diagonal.sum() + rho * _block_sums(sd, g) + s2 * _block_sums(np.ones(n), h)
+    sum_c2 = (np.sum(diagonal ** 2) + rho ** 2 * _block_sums(sd ** 2, g)
+              + s2 ** 2 * _block_sums(np.ones(n), h)
+              + 2.0 * rho * np.sum(diagonal * sd ** 2) + 2.0 * s2 * diagonal.sum()
+              + 2.0 * rho * s2 * _block_sums(sd, g, h))
+    mean, mean_square = r.mean(), np.mean(r ** 2)
+    expected_square = np.mean(sd ** 2) + s2
+    mean_tolerance = STANDARD_ERRORS * np.sqrt(sum_c) / n
+    square_tolerance = STANDARD_ERRORS * np.sqrt(2.0 * sum_c2) / n
     assert abs(mean) < mean_tolerance, f"{label}: mean {mean:.3g}, tolerance {mean_tolerance:.3g}"
-    assert abs(std - sigma) < std_tolerance, (
-        f"{label}: std {std:.4g} vs sigma {sigma:.4g}, tolerance {std_tolerance:.3g} (n = {n})")
+    assert abs(mean_square - expected_square) < square_tolerance, (
+        f"{label}: rms {np.sqrt(mean_square):.4g} vs {np.sqrt(expected_square):.4g}, mean-square "
+        f"tolerance {square_tolerance:.3g} (n = {n})")
+
 
 
 def flag_value(path, name, meaning):
@@ -190,16 +222,20 @@ def test_model_grid_mask_and_bathymetry_are_plausible(demo):
 @pytest.mark.parametrize("sensor", ["altimeter_a", "altimeter_b"])
 def test_altimetry_residuals_have_the_sensor_sigma(demo, manifest, sensor):
     sigma = manifest["sensors"][sensor]["error"]["sigma"]
-    residuals = []
+    residuals, groups = [], []
     for path in demo["files"][sensor]:
         sla = decoded(path, "sla")
+        passes = decoded(path, "pass_number")
         lon, lat = decoded(path, "lon"), decoded(path, "lat")
         times = decoded_time(path, "time")
         good = np.isfinite(sla)
         assert 0.95 < good.mean() < 1.0          # a few dropouts, written as fill
         residuals.append(sla[good] - truth_value("sea_level_anomaly", lon[good], lat[good],
                                                  None, times[good]))
-    assert_gaussian(np.concatenate(residuals), sigma, sensor)
+        groups.append([f"{Path(path).name}/{p:.0f}" for p in passes[good]])
+    assert_gaussian(np.concatenate(residuals), sigma, sensor, groups=np.concatenate(groups),
+                    correlation=ERROR_CORRELATION[sensor],
+                    subcell=SUBCELL_SIGMA["sea_level_anomaly"])
 
 
 def test_altimetry_passes_are_1hz_tracks_of_6_to_7_km(demo):
@@ -254,9 +290,10 @@ def test_sst_swath_packing_decodes_alike_in_xarray_and_netcdf4(demo):
 
 
 def test_sst_swath_good_pixels_have_the_file_sigma(demo):
-    """(SST - 273.15 - truth) / uncertainty of the good pixels is N(0, 1); the truth is taken
-    at the decoded pixel position and pixel time."""
-    normalised, sigmas = [], []
+    """SST - 273.15 - truth of the good pixels has the file's uncertainty (correlated within the
+    granule) plus the sub-cell variability; the truth is taken at the decoded pixel position and
+    pixel time."""
+    residuals, sigmas, groups = [], [], []
     for path in demo["files"]["sst_swath_ir"]:
         sst = decoded(path, "sea_surface_temperature") - KELVIN_OFFSET
         sigma = decoded(path, "sst_uncertainty")
@@ -266,11 +303,14 @@ def test_sst_swath_good_pixels_have_the_file_sigma(demo):
         lon, lat = decoded(path, "lon"), decoded(path, "lat")
         times = decoded_time(path, "pixel_time")
         expected = truth_value("sea_surface_temperature", lon[good], lat[good], None, times[good])
-        normalised.append((sst[good] - expected) / sigma[good])
+        residuals.append(sst[good] - expected)
         sigmas.append(sigma[good])
+        groups.append(np.full(good.sum(), Path(path).name))
     sigmas = np.concatenate(sigmas)
     assert 0.30 - 1e-9 <= sigmas.min() and sigmas.max() <= 0.45 + 1e-9
-    assert_gaussian(np.concatenate(normalised), 1.0, "sst swath (normalised)")
+    assert_gaussian(np.concatenate(residuals), sigmas, "sst swath", groups=np.concatenate(groups),
+                    correlation=ERROR_CORRELATION["sst_swath_ir"],
+                    subcell=SUBCELL_SIGMA["sea_surface_temperature"])
 
 
 def test_sst_swath_flagged_pixels_are_wrong(demo):
@@ -299,7 +339,7 @@ def test_sst_swath_flagged_pixels_are_wrong(demo):
 
 def test_sst_grid_open_water_has_the_sensor_sigma(demo, manifest):
     sigma = manifest["sensors"]["sst_grid"]["error"]["sigma"]
-    residuals = []
+    residuals, groups = [], []
     for path in demo["files"]["sst_grid"]:
         sst = decoded(path, "analysed_sst")[0] - KELVIN_OFFSET
         mask = decoded(path, "surface_mask")[0].astype(int)
@@ -317,7 +357,10 @@ def test_sst_grid_open_water_has_the_sensor_sigma(demo, manifest):
         water = mask == 0
         residuals.append(sst[water] - truth_value("sea_surface_temperature", lon[water],
                                                   lat[water], None, time_))
-    assert_gaussian(np.concatenate(residuals), sigma, "sst grid")
+        groups.append(np.full(water.sum(), Path(path).name))
+    assert_gaussian(np.concatenate(residuals), sigma, "sst grid", groups=np.concatenate(groups),
+                    correlation=ERROR_CORRELATION["sst_grid"],
+                    subcell=SUBCELL_SIGMA["sea_surface_temperature"])
 
 
 # --- ice concentration ------------------------------------------------------------------------
@@ -410,7 +453,7 @@ def test_profiles_residuals_and_flags(demo, manifest):
     pressure = decoded(path, "pressure")
     lon, lat = decoded(path, "lon"), decoded(path, "lat")
     times = decoded_time(path, "time")
-    assert pressure.shape[0] == 12
+    assert pressure.shape[0] == len(CTD_STATIONS) + FLOAT_COUNT
     depth = -gsw.z_from_p(pressure, lat[:, None])
     for k in range(pressure.shape[0]):
         levels = np.isfinite(pressure[k])
@@ -431,7 +474,12 @@ def test_profiles_residuals_and_flags(demo, manifest):
         bad = flag == flag_value(path, f"{name}_qc", "bad")
         assert 1 <= bad.sum() <= 10 and good.sum() + bad.sum() == flag.size
         assert np.all(np.abs(residual[bad]) > 0.3)
-        assert_gaussian(residual[good], sigmas[quantity], f"profiles {name}")
+        # sub-cell variability: one value per profile and model layer
+        profile = np.broadcast_to(np.arange(pressure.shape[0])[:, None], pressure.shape)
+        layer = np.searchsorted(np.asarray(LAYER_INTERFACES_M), depth, side="right")
+        units = (profile * 100 + layer)[present]
+        assert_gaussian(residual[good], sigmas[quantity], f"profiles {name}",
+                        subcell=SUBCELL_SIGMA[quantity], subcell_units=units[good])
 
 
 # --- the truth itself -------------------------------------------------------------------------
@@ -489,7 +537,7 @@ def test_truth_ranges_on_the_model_grid(demo, manifest):
         absolute = gsw.SA_from_SP(s, p, lon[sample], lat[sample])
         assert np.all(t > gsw.t_freezing(absolute, p, 0.0))
         assert np.all((33.9 < s) & (s < 34.75))
-    # the warm deep layer, at the 500 m layer interface (a knot of the piecewise-linear shape)
+    # the warm deep layer, at the 500 m layer interface
     t500 = truth_value("sea_water_temperature", lon, lat, 500.0, when)
     assert 0.2 < t500.min() and t500.max() < 0.8
     s1000 = truth_value("sea_water_salinity", lon, lat, 1000.0, when)
@@ -531,7 +579,9 @@ def test_config_follows_the_draft_format_and_finds_the_files(demo, manifest, con
     for source in config["sources"]:
         record = manifest["sensors"][source["sensor"]]
         error = source["error"]
-        assert source["correlation"] == 0.0 and error["factor"] == 1.0
+        # the correlation the noise is drawn with (obsprep.demo.noise)
+        assert source["correlation"] == ERROR_CORRELATION.get(source["sensor"], 0.0)
+        assert error["factor"] == 1.0
         assert error["rule"] == record["error"]["rule"]
         if error["rule"] == "constant":
             assert error["value"] == record["error"]["sigma"]
@@ -547,7 +597,12 @@ def test_config_follows_the_draft_format_and_finds_the_files(demo, manifest, con
             value = sigma[quantity] if isinstance(sigma, dict) else sigma
             smallest_sigma[quantity] = min(value, smallest_sigma.get(quantity, np.inf))
     superobs = config["superobs"]
-    assert all(v == 0.0 for v in superobs["representation_error"].values())
+    # the sampling model with the sub-cell sigmas and footprints the demo draws with
+    assert superobs["representation_model"] == "sampling" and superobs["layer_value"] == "fit"
+    assert superobs["representation_error"] == {q: SUBCELL_SIGMA.get(q, 0.0)
+                                                for q in superobs["representation_error"]}
+    assert set(SUBCELL_SIGMA) <= set(superobs["representation_error"])
+    assert superobs["footprint_km2"] == FOOTPRINT_KM2
     for quantity, floor in superobs["error_floor"].items():
         assert quantity in QUANTITIES
         if quantity in smallest_sigma:        # well below sigma / sqrt(n) (n up to ~100)
@@ -626,3 +681,18 @@ def test_full_size_demo_is_fast_and_small(tmp_path):
     assert size < 50e6
     with netCDF4.Dataset(result["files"]["sst_swath_ir"][0]) as ds:
         assert ds.dimensions["nj"].size == 1000 and ds.dimensions["ni"].size == 800
+
+
+def test_thermocline_is_curved_inside_a_model_layer():
+    """The layer mean of the T/S truth differs from the truth at the layer's mid-depth by more
+    than the profile noise (0.01) in the layers where the clines curve (T: 200-500 m below the
+    thermocline, S: 50-100 m above the halocline); the mean is the trapezoidal rule on 1 m
+    steps (numpy)."""
+    when = np.datetime64("2026-11-19T12:00:00")
+    for quantity, (top, bottom) in (("sea_water_temperature", (200.0, 500.0)),
+                                    ("sea_water_salinity", (50.0, 100.0))):
+        depth = np.arange(top, bottom + 0.5, 1.0)
+        profile = truth_value(quantity, -30.0, -65.0, depth, when)
+        layer_mean = np.trapezoid(profile, depth) / (bottom - top)
+        middle = truth_value(quantity, -30.0, -65.0, (top + bottom) / 2.0, when)
+        assert abs(layer_mean - middle) > 0.01, quantity
