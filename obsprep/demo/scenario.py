@@ -61,7 +61,7 @@ LAYER_INTERFACES_M = truth.LAYER_INTERFACES_M
 WINDOW_START_HOURS, WINDOW_END_HOURS, SLOT_HOURS = -72.0, 0.0, 24.0
 
 # --- sensors ----------------------------------------------------------------------------------
-ALTIMETER_SIGMA_M = {"altimeter_a": 0.03, "altimeter_b": 0.04}
+ALTIMETER_SIGMA_M = {"altimeter_a": 0.03, "altimeter_b": 0.04, "altimeter_c": 0.035}
 SST_SWATH_SIGMA_K = (0.30, 0.45)          # at nadir, at the swath edge (grows with view angle^2)
 SST_SWATH_GROSS_COLD_BIAS_K = (0.5, 3.0)  # uniform range of the error of cloud_suspected pixels
 SST_GRID_SIGMA_K = 0.5
@@ -71,7 +71,8 @@ PROFILE_SIGMA = {"sea_water_temperature": 0.01, "sea_water_salinity": 0.01}
 ICE_CONCENTRATION_TRUNCATION = 5.0
 
 #: invented platforms
-PLATFORMS = {"altimeter_a": "Skua-1", "altimeter_b": "Petrel-2", "sst_swath_ir": "Fulmar-3",
+PLATFORMS = {"altimeter_a": "Skua-1", "altimeter_b": "Petrel-2", "altimeter_c": "Prion-5",
+             "sst_swath_ir": "Fulmar-3",
              "sst_grid": "demo-sst-analysis", "sst_microwave": "Gannet-4",
              "ice_concentration": "demo-ice-radiometry",
              "ice_drift": "demo-ice-motion", "ts_profiles": "various"}
@@ -117,6 +118,7 @@ class Orbit:
 ORBITS = {
     "altimeter_a": Orbit(98.5, 6060.0, 20.0, 0.0),
     "altimeter_b": Orbit(92.0, 5950.0, 140.0, 75.0, 0.2),
+    "altimeter_c": Orbit(81.5, 6020.0, 250.0, 140.0, 0.6),
     "sst_swath_ir": Orbit(98.7, 6090.0, 60.0, 30.0),
 }
 SWATH_ROWS, SWATH_COLUMNS = 1000, 800       # full-size granule
@@ -929,15 +931,13 @@ def _write_truth_on_grid(scn):
 
 def _sensor_table():
     """Sensor name -> (kind, path pattern, quantities, error rule as TOML lines, sigma record)."""
+    altimeters = {
+        sensor: ("alongtrack", f"obs/altimetry/alt_{sensor.rsplit('_', 1)[-1]}_{{date:%Y%m%d}}.nc",
+                 ["sea_level_anomaly"], ['rule = "constant"', f"value = {sigma}"],
+                 {"rule": "constant", "sigma": sigma, "units": "m"})
+        for sensor, sigma in ALTIMETER_SIGMA_M.items()}
     return {
-        "altimeter_a": ("alongtrack", "obs/altimetry/alt_a_{date:%Y%m%d}.nc", ["sea_level_anomaly"],
-                        ['rule = "constant"', f"value = {ALTIMETER_SIGMA_M['altimeter_a']}"],
-                        {"rule": "constant", "sigma": ALTIMETER_SIGMA_M["altimeter_a"],
-                         "units": "m"}),
-        "altimeter_b": ("alongtrack", "obs/altimetry/alt_b_{date:%Y%m%d}.nc", ["sea_level_anomaly"],
-                        ['rule = "constant"', f"value = {ALTIMETER_SIGMA_M['altimeter_b']}"],
-                        {"rule": "constant", "sigma": ALTIMETER_SIGMA_M["altimeter_b"],
-                         "units": "m"}),
+        **altimeters,
         "sst_swath_ir": ("sst_swath", "obs/sst_swath/sst_l2_{date:%Y%m%d}T*.nc",
                          ["sea_surface_temperature"], ['rule = "file"'],
                          {"rule": "file", "variable": "sst_uncertainty",

@@ -219,7 +219,7 @@ def test_model_grid_mask_and_bathymetry_are_plausible(demo):
 
 # --- altimetry --------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("sensor", ["altimeter_a", "altimeter_b"])
+@pytest.mark.parametrize("sensor", ["altimeter_a", "altimeter_b", "altimeter_c"])
 def test_altimetry_residuals_have_the_sensor_sigma(demo, manifest, sensor):
     sigma = manifest["sensors"][sensor]["error"]["sigma"]
     residuals, groups = [], []
@@ -242,7 +242,7 @@ def test_altimetry_passes_are_1hz_tracks_of_6_to_7_km(demo):
     """Within a pass, time increases by 1 s and consecutive points are 6-7 km apart on the
     WGS 84 ellipsoid (pyproj.Geod); passes cross the domain."""
     geod = pyproj.Geod(ellps="WGS84")
-    for path in demo["files"]["altimeter_a"] + demo["files"]["altimeter_b"]:
+    for path in [p for s in ("altimeter_a", "altimeter_b", "altimeter_c") for p in demo["files"][s]]:
         lon, lat = decoded(path, "lon"), decoded(path, "lat")
         times = decoded_time(path, "time")
         passes = decoded(path, "pass_number")
@@ -611,7 +611,7 @@ def test_config_follows_the_draft_format_and_finds_the_files(demo, manifest, con
 
 
 #: noise standard deviations of the scenario specification (the brief of the demo)
-SPECIFIED_SIGMA = {"altimeter_a": 0.03, "altimeter_b": 0.04, "sst_grid": 0.5, "sst_microwave": 0.6,
+SPECIFIED_SIGMA = {"altimeter_a": 0.03, "altimeter_b": 0.04, "altimeter_c": 0.035, "sst_grid": 0.5, "sst_microwave": 0.6,
                    "ice_drift": 2000.0,
                    "ts_profiles": {"sea_water_temperature": 0.01, "sea_water_salinity": 0.01}}
 
