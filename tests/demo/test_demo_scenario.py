@@ -139,7 +139,7 @@ def test_every_file_opens_with_xarray_and_references_resolve(demo):
     ancillary_variables, grid_mapping and bounds exists (CF-1.10 sections 2.6, 3.4, 5, 7.1);
     grid mappings build a CRS with PROJ; dimensional data variables have units."""
     files = all_netcdf_files(demo)
-    assert len(files) == 3 + 6 + 3 + 3 + 3 + 3 + 2 + 1
+    assert len(files) == 3 + 9 + 3 + 3 + 3 + 3 + 2 + 1     # 9: three altimeters, three days
     for path in files:
         with xr.open_dataset(path) as ds:
             assert ds.attrs["Conventions"] == "CF-1.10", path
