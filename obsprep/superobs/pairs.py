@@ -135,11 +135,17 @@ def _pair_sums_loop(order, starts, x, y, z, a, b, rho0, length_m, radius_m):
 
     For row i the inner sums over j > i of a_j rho_ij and b_j rho_ij share one distance and one
     exponential; scaled by a_i and b_i they add up to the group's sums over i < j.
+
+    Within a super-observation the points are close, and there the first six terms of the
+    series asin h = h + h^3/6 + 3 h^5/40 + 5 h^7/112 + 35 h^9/1152 + 63 h^11/2816 + ...
+    ([AbramowitzStegun1964] 4.4.40, from memory) are cheaper than the library call: the first
+    term left out, 231 h^13 / 13312, is below 5e-18 of the sum for h < 0.05.
     """
     n_groups = len(starts)
     pair_a = np.zeros(n_groups)
     pair_b = np.zeros(n_groups)
-    inverse_length = 1.0 / length_m
+    # d / L = (2 R / L) asin(chord / 2)
+    arc_per_length = 2.0 * radius_m / length_m
     for g in range(n_groups):
         begin = starts[g]
         end = starts[g + 1] if g + 1 < n_groups else len(order)
@@ -156,9 +162,14 @@ def _pair_sums_loop(order, starts, x, y, z, a, b, rho0, length_m, radius_m):
                 dy = yi - y[j]
                 dz = zi - z[j]
                 half_chord = 0.5 * math.sqrt(dx * dx + dy * dy + dz * dz)
-                # rounding can put two antipodal unit vectors a hair over 2 apart
-                distance = 2.0 * radius_m * math.asin(min(half_chord, 1.0))
-                decay = math.exp(-distance * inverse_length)
+                if half_chord < _SERIES_HALF_CHORD:
+                    h2 = half_chord * half_chord
+                    half_angle = half_chord * (1.0 + h2 * (1.0 / 6.0 + h2 * (3.0 / 40.0 + h2 * (
+                        5.0 / 112.0 + h2 * (35.0 / 1152.0 + h2 * (63.0 / 2816.0))))))
+                else:
+                    # rounding can put two antipodal unit vectors a hair over 2 apart
+                    half_angle = math.asin(min(half_chord, 1.0))
+                decay = math.exp(-arc_per_length * half_angle)
                 row_a += a[j] * decay
                 row_b += b[j] * decay
             sum_a += a[i] * row_a
@@ -166,6 +177,10 @@ def _pair_sums_loop(order, starts, x, y, z, a, b, rho0, length_m, radius_m):
         pair_a[g] = 2.0 * rho0 * sum_a
         pair_b[g] = 2.0 * rho0 * sum_b
     return pair_a, pair_b
+
+
+#: below this half chord (a distance of about 637 km) the pair loop sums the arcsine's series
+_SERIES_HALF_CHORD = 0.05
 
 
 @functools.cache
