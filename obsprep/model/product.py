@@ -108,13 +108,16 @@ OUTPUT_VARIABLES: tuple[OutputVariable, ...] = (
                    "sample standard deviation of the raw values in the group (ddof=1)", _Q,
                    undefined_as_nan=True),
     OutputVariable("error_spread", "error_spread", "float64",
-                   "spread-based error (1-sigma): spread * sqrt((1 + (n-1) rho) / (n (1 - rho))); "
-                   "NaN for n < 2", _Q, error_part=True, undefined_as_nan=True),
+                   "spread-based error (1-sigma): error_instrument * sqrt(R / E[R]), R the "
+                   "(weighted) residual sum of squares of the raw values and E[R] its expectation "
+                   "under the assigned errors; NaN where undefined", _Q, error_part=True,
+                   undefined_as_nan=True),
     OutputVariable("error_raw_rms", "error_raw_rms", "float64",
                    "root mean square of the assigned raw errors in the group, sqrt(sum sigma_i^2 / n)",
                    _Q, error_part=True),
     OutputVariable("spread_detrended", "spread_detrended", "float64",
-                   "standard deviation of the raw values about a straight line in depth (ddof=2)",
+                   "standard deviation of the raw values about their fit in depth (quadratic, "
+                   "line or mean; ddof = the fitted parameters)",
                    _Q, only_for="profile", error_part=True, undefined_as_nan=True),
     OutputVariable("error_basis", "error_basis", "int8", "which term set the total error", "1",
                    error_part=True, flag_values=ERROR_BASIS),
@@ -145,6 +148,11 @@ OUTPUT_VARIABLES: tuple[OutputVariable, ...] = (
     OutputVariable("time_end", "time_end", "datetime64[ns]",
                    "end of the displacement interval (start is the time variable)", None, "time",
                    only_for="vector"),
+    OutputVariable("error_correlation", "error_correlation", "float64",
+                   "correlation of this component's total error with the other component's of "
+                   "the same cell, slot and interval (drift x with drift y, east with north); "
+                   "NaN where the other component is absent", "1", only_for="vector",
+                   undefined_as_nan=True),
     # table (and Parquet) only
     OutputVariable("quantity", None, "str", "quantity name"),
     OutputVariable("value_min", None, "float64", "lowest raw value in the group", _Q),
@@ -159,7 +167,7 @@ TABLE_COLUMNS: tuple[str, ...] = (
     "quantity", "sensor", "slot", "i", "j", "k", "profile", "count", "value", "spread", "value_min",
     "value_max", "error", "error_instrument", "error_representation", "lon", "lat", "depth",
     "error_spread", "error_basis", "error_raw_rms", "spread_detrended", "error_origin",
-    "time_offset", "time", "time_end",
+    "time_offset", "time", "time_end", "error_correlation",
 )
 
 BY_COLUMN: dict[str, OutputVariable] = {v.column: v for v in OUTPUT_VARIABLES}

@@ -35,7 +35,14 @@ from obsprep.run.tasks import FileResult, FileTask
 from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
 from obsprep.superobs.finalize import finalize_superobs
-from obsprep.superobs.keys import NO_PROFILE, group_keys, interval_keys, profile_key, thinning_tiebreak
+from obsprep.superobs.keys import (
+    ERROR_GROUP_KEY,
+    NO_PROFILE,
+    group_keys,
+    interval_keys,
+    profile_key,
+    thinning_tiebreak,
+)
 from obsprep.superobs.timeslots import interval_placement, seconds_since, slot_index
 
 #: kept rows of one file accumulated per step (bounds the temporary memory; see process_file)
@@ -77,7 +84,7 @@ def _quantity_codes(table: pd.DataFrame) -> np.ndarray:
     return lookup[table["quantity"].cat.codes.to_numpy().astype(np.int64)]
 
 
-def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray) -> None:
+def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray):
     """Pair east/north drift components of one file by ``row`` and rotate them onto the grid axes.
 
     A component whose partner is missing or rejected is rejected as ``vector_incomplete``.  With
@@ -85,12 +92,17 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
     :meth:`obsprep.geo.grid.ModelGrid.east_north_to_grid`):
     ``u_x = u cos a + v sin a``, ``v_y = -u sin a + v cos a``; component errors rotate as
     variances, ``sx^2 = cos^2 a se^2 + sin^2 a sn^2``, ``sy^2 = sin^2 a se^2 + cos^2 a sn^2``
-    (independent component errors, common practice).
+    (independent component errors, common practice), and their covariance is
+    ``cov(u_x, v_y) = sin a cos a (sn^2 - se^2)``.
+
+    Returns ``(covariance, partner_error)`` per row of the table (the covariance of a
+    component's error with its partner's, and the partner's error; 0 and 1 for other rows), or
+    ``(None, None)`` when the file holds no complete vector.
     """
     east = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_east"))
     north = np.flatnonzero(_quantity_mask(table, "sea_ice_drift_north"))
     if len(east) == 0 and len(north) == 0:
-        return
+        return None, None
     rows = table["row"].to_numpy()
     ok = kept(table)
     east = east[np.argsort(rows[east], kind="stable")]
@@ -107,7 +119,7 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
     reject(table, is_drift & ~paired, "vector_incomplete")
     pe, pn = pair_e[both], pair_n[both]
     if len(pe) == 0:
-        return
+        return None, None
     u, v = table["value"].to_numpy()[pe], table["value"].to_numpy()[pn]
     ux, vy = grid.east_north_to_grid(u, v, i[pe], j[pe])
     a = grid.axis_angle(i[pe], j[pe])
@@ -118,11 +130,18 @@ def rotate_drift_to_grid(table: pd.DataFrame, grid, i: np.ndarray, j: np.ndarray
     values[pe], values[pn] = ux, vy
     errors[pe], errors[pn] = np.sqrt(c2 * se**2 + s2 * sn**2), np.sqrt(s2 * se**2 + c2 * sn**2)
     table["value"], table["error"] = values, errors
+    # cov(u_x, v_y) = sin a cos a (sn^2 - se^2): kept on both components' rows with the
+    # partner's error, for the covariance of the two super-observations
+    covariance = np.zeros(len(table))
+    covariance[pe] = covariance[pn] = np.sin(a) * np.cos(a) * (sn**2 - se**2)
+    partner = np.ones(len(table))
+    partner[pe], partner[pn] = errors[pn], errors[pe]
     quantity = table["quantity"].cat.add_categories(
         [c for c in ("sea_ice_drift_x", "sea_ice_drift_y") if c not in table["quantity"].cat.categories])
     quantity[pe] = "sea_ice_drift_x"
     quantity[pn] = "sea_ice_drift_y"
     table["quantity"] = quantity
+    return covariance, partner
 
 
 def _rows(array: np.ndarray, selected: np.ndarray) -> np.ndarray:
@@ -166,7 +185,19 @@ def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_n
         message = (f"variable '{exc.variable}': " if exc.variable else "") + str(exc.reason)
         return FileResult(LedgerEntry(file=path, sensor=source.sensor, kind=source.kind,
                                       status=UNREADABLE, message=message, size_bytes=size))
-    return results[0] if len(results) == 1 else _combine_parts(results)
+    result = results[0] if len(results) == 1 else _combine_parts(results)
+    if result.accumulator is not None:
+        # every error group of the file is complete now: keep its structure, drop the key
+        result.accumulator = result.accumulator.collapse(ERROR_GROUP_KEY, source.correlation)
+    return result
+
+
+def pair_correlation_of(source):
+    """``(rho0, length_m)`` of a source whose within-group correlation falls off with distance
+    (``correlation_length_km``), else None (a constant correlation)."""
+    if source.correlation_length_km is None or source.correlation == 0:
+        return None
+    return source.correlation, source.correlation_length_km * 1000.0
 
 
 def _combine_parts(results: list[FileResult]) -> FileResult:
@@ -212,6 +243,10 @@ class FileWork:
     i: np.ndarray | None = None
     j: np.ndarray | None = None
     k: np.ndarray | None = None
+    #: per row, the error covariance with the row's vector partner and the partner's error
+    #: (drift components), or None
+    cross_covariance: np.ndarray | None = None
+    partner_error: np.ndarray | None = None
     result: FileResult = field(default_factory=lambda: FileResult(entry=None))
     #: problems met on the way that did not stop the file (one line each, for the ledger)
     warnings: list = field(default_factory=list)
@@ -267,8 +302,10 @@ def locate_on_grid(work: FileWork) -> None:
 
 
 def rotate_drift(work: FileWork) -> None:
-    """Drift vectors from east/north onto the model grid axes (:func:`rotate_drift_to_grid`)."""
-    rotate_drift_to_grid(work.table, work.grid, work.i, work.j)
+    """Drift vectors from east/north onto the model grid axes (:func:`rotate_drift_to_grid`),
+    with the covariance of the two components' errors."""
+    work.cross_covariance, work.partner_error = rotate_drift_to_grid(work.table, work.grid,
+                                                                     work.i, work.j)
 
 
 def accumulate(work: FileWork) -> None:
@@ -328,11 +365,16 @@ def accumulate(work: FileWork) -> None:
             keys = group_keys(quantity=q_code, sensor=constant(sensor_code),
                               slot=slot_index(placed, cfg.window, at_end), j=jj, i=ii,
                               k=k[rows], profile=profile, t_start=t_start_key, t_end=t_end_key)
+            keys[ERROR_GROUP_KEY] = profile_key(file_index, group_codes[rows])
+            cross = None if work.cross_covariance is None else work.cross_covariance[rows]
+            partner = None if work.partner_error is None else work.partner_error[rows]
             reducer.add(Accumulator.from_observations(
                 keys, columns["value"][rows], columns["error"][rows], t, lon, lat,
                 columns["depth"][rows],
                 score=grid.cell_center_distance(lon, lat, ii, jj) if thinning else None,
                 tiebreak=thinning_tiebreak(file_index, columns["row"][rows]) if thinning else None,
+                cross_covariance=cross, partner_error=partner,
+                pair_correlation=pair_correlation_of(source),
             ))
         result.accumulator = reducer.result()
 

@@ -97,6 +97,9 @@ class Source:
     kind: str = "auto"
     quantities: list[str] | None = None
     correlation: float = 0.0
+    #: the within-group correlation falls off as exp(-d / correlation_length_km) when set
+    correlation_length_km: float | None = None
+    correlation_across_groups: float = 0.0
     valid_range: dict = field(default_factory=dict)
     error: ErrorRule = None
     options: dict = field(default_factory=dict)
@@ -321,6 +324,9 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
         sources.append(Source(
             sensor=s["sensor"], paths=list(s["paths"]), kind=s.get("kind", "auto"),
             quantities=s.get("quantities"), correlation=float(s.get("correlation", 0.0)),
+            correlation_length_km=(float(s["correlation_length_km"])
+                                   if "correlation_length_km" in s else None),
+            correlation_across_groups=float(s.get("correlation_across_groups", 0.0)),
             valid_range=dict(s.get("valid_range", {})),
             error=ErrorRule(err["rule"], err.get("value"), float(err.get("factor", 1.0)), float(err.get("floor", 0.0)),
                             table=err.get("table"), add_in_quadrature=err.get("add_in_quadrature"),
@@ -362,7 +368,7 @@ def load_config(config, date: str | dt.date | None = None) -> Config:
     config = Config(raw=raw, path=path, base_dir=base_dir, date=run_date, window=window,
                   grid=dict(raw["grid"]), sources=sources,
                   superobs=from_table(SuperobsSettings, superobs), output=output)
-    sensor_correlations(config)  # sources merged into one sensor must agree
+    sensor_across_correlations(config)  # sources merged into one sensor must agree
     return config
 
 
@@ -399,14 +405,16 @@ def output_sensors(cfg: Config) -> list[str]:
     return sorted({cfg.output_sensor(s.sensor) for s in cfg.sources})
 
 
-def sensor_correlations(cfg: Config) -> dict:
-    """Within-sensor error correlation per output sensor; merged sources must agree."""
+def sensor_across_correlations(cfg: Config) -> dict:
+    """Error correlation across error groups per output sensor (``correlation_across_groups``);
+    sources merged into one sensor must agree.  The within-group correlation is each source's
+    own: it is applied per file, where every error group belongs to one source."""
     out: dict[str, float] = {}
     for s in cfg.sources:
         name = cfg.output_sensor(s.sensor)
-        if name in out and out[name] != s.correlation:
-            raise ConfigError(f"sources[{s.index}].correlation",
+        if name in out and out[name] != s.correlation_across_groups:
+            raise ConfigError(f"sources[{s.index}].correlation_across_groups",
                               f"sources merged into '{name}' have different correlations "
-                              f"({out[name]} and {s.correlation})")
-        out[name] = s.correlation
+                              f"across groups ({out[name]} and {s.correlation_across_groups})")
+        out[name] = s.correlation_across_groups
     return out

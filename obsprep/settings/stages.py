@@ -12,6 +12,8 @@ from types import MappingProxyType
 from obsprep.model.quantities import QUANTITIES
 from obsprep.settings.errors import DEFAULT_SPREAD_MIN_COUNT
 from obsprep.superobs.errors import COMBINATION_RULES
+from obsprep.superobs.layers import LAYER_VALUES
+from obsprep.superobs.representation import REPRESENTATION_MODELS
 
 #: where a super-observation error setting of a quantity comes from
 FROM_CONFIGURATION = "configuration"
@@ -66,6 +68,19 @@ class SuperobsSettings:
                                    enum=list(COMBINATION_RULES))
     spread_min_count: int = _key(DEFAULT_SPREAD_MIN_COUNT, "count from which spread_when_n_ge uses "
                                  "the spread", minimum=2)
+    spread_prior_dof: float = _key(4.0, "prior degrees of freedom of the instrument error in the "
+                                   "small-sample shrinkage of spread_when_n_ge",
+                                   exclusiveMinimum=0)
+    representation_model: str = _key("constant", "constant: representation_error as given; "
+                                     "sampling: it is the sub-cell standard deviation, reduced "
+                                     "by the sampling of the cell",
+                                     enum=list(REPRESENTATION_MODELS))
+    footprint_km2: MappingProxyType = _key({}, "quantity -> area of one raw value's footprint, "
+                                           "km2 (sampling model; default 0: point values)",
+                                           minimum=0)
+    layer_value: str = _key("fit", "sub-surface value: fit (quadratic in depth at the "
+                            "super-observation's depth) or mean (layer mean, curvature offset "
+                            "added to the representation error)", enum=list(LAYER_VALUES))
     interval_time: str = _key("end", "where an interval observation (drift) is placed in time, "
                               "for its slot and time_offset: start, middle or end of the interval",
                               enum=list(INTERVAL_PLACEMENTS))

@@ -45,7 +45,7 @@ import numpy as np
 
 from obsprep.geo.sphere import cos_sin_degrees
 from obsprep.superobs.error_model import total_error
-from obsprep.superobs.errors import error_of_mean, error_of_weighted_mean
+from obsprep.superobs.errors import variance_of_mean, variance_of_weighted_mean
 from obsprep.superobs.spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
@@ -76,6 +76,37 @@ STATE_FIELDS: dict[str, str] = {
     "depth_mean": "mean depth (m, positive down)",
     "depth_m2": "sum of squared deviations of the depths about depth_mean (m^2)",
     "depth_value_c2": "sum of (depth - depth_mean)(value - value_mean) (m times units of the value)",
+    "depth_m3": "sum of (depth - depth_mean)^3 (m^3)",
+    "depth_m4": "sum of (depth - depth_mean)^4 (m^4)",
+    "depth2_value_c3": "sum of (depth - depth_mean)^2 (value - value_mean) (m^2 times units of "
+                       "the value)",
+    "weighted_m2": "sum of w (value - weighted_mean)^2, w = 1/sigma^2 (dimensionless)",
+    "weighted_time_mean": "mean time with weights 1/sigma^2 (s)",
+    "weighted_depth_mean": "mean depth with weights 1/sigma^2 (m)",
+    "sum_weighted_x": "sum of unit-vector x components times 1/sigma^2",
+    "sum_weighted_y": "sum of unit-vector y components times 1/sigma^2",
+    "sum_weighted_z": "sum of unit-vector z components times 1/sigma^2",
+    "sum_cross_covariance": "sum of the raw values' error covariance with a partner quantity "
+                            "(drift x with drift y; units of the value squared; 0 for others)",
+    "sum_weighted_cross_covariance": "sum of that covariance divided by sigma^2 sigma_partner^2",
+}
+
+#: Per-group sums of an accumulator whose groups still include the error-group key (before
+#: :meth:`Accumulator.collapse`): within-group pair sums of the distance correlation model.
+PAIR_FIELDS: dict[str, str] = {
+    "pair_sum_sigma": "sum over pairs i != j of sigma_i sigma_j rho_ij (units squared)",
+    "pair_sum_inverse_sigma": "sum over pairs i != j of rho_ij / (sigma_i sigma_j)",
+}
+
+#: Per-group error structure of a collapsed accumulator (one group = one super-observation
+#: made of one or more error groups g: passes, granules, profiles); all add over error groups.
+STRUCTURE_FIELDS: dict[str, str] = {
+    "group_count": "number of error groups (int64)",
+    "sum_group_sigma_squared": "sum over error groups of (sum of sigma in the group)^2",
+    "sum_group_inverse_sigma_squared": "sum over error groups of (sum of 1/sigma in the group)^2",
+    "within_pairs_sigma": "sum over pairs i != j of one error group of sigma_i sigma_j rho_ij",
+    "within_pairs_inverse_sigma": "sum over pairs i != j of one error group of "
+                                  "rho_ij / (sigma_i sigma_j)",
 }
 
 #: Per-group representative raw observation, kept when a thinning score is given.
@@ -335,16 +366,25 @@ def _representative_rows(grouping, score, tiebreak):
     return grouping.compress(grouping.minimum(row, n))
 
 
-def _shifted_mean_and_m2(x, grouping, count_float, work=None):
-    """Per-bin mean and M2 of ``x``: one pass about the batch mean, two-pass where that loses
-    too many digits (module docstring).  Empty bins give NaN.  ``work``: a scratch array like
-    ``x`` (overwritten)."""
+def _shifted_mean_and_m2(x, grouping, count_float, work=None, weights=None, total_weight=None):
+    """Per-bin (weighted) mean and M2 of ``x``: one pass about the batch mean, two-pass where
+    that loses too many digits (module docstring).  With ``weights`` (per row, total per bin
+    ``total_weight``) M2 is :math:`\\sum w (x - \\bar x_w)^2`.  Empty bins give NaN.
+    ``work``: a scratch array like ``x`` (overwritten)."""
     shift = float(np.mean(x)) if x.size else 0.0
     deviation = np.subtract(x, shift, out=work)
-    s1 = grouping.sum(deviation)
-    s2 = grouping.sum(np.multiply(deviation, deviation, out=deviation))
+    if weights is None:
+        total = count_float
+        s1 = grouping.sum(deviation)
+        s2 = grouping.sum(np.multiply(deviation, deviation, out=deviation))
+    else:
+        total = total_weight
+        weighted = weights * deviation
+        s1 = grouping.sum(weighted)
+        s2 = grouping.sum(np.multiply(weighted, deviation, out=weighted))
+        del weighted
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean_deviation = s1 / count_float
+        mean_deviation = s1 / total
         between = s1 * mean_deviation
         m2 = np.maximum(s2 - between, 0.0)
         mean = shift + mean_deviation
@@ -352,11 +392,63 @@ def _shifted_mean_and_m2(x, grouping, count_float, work=None):
     if risky.any():
         rows = np.flatnonzero(risky[grouping.index])
         with np.errstate(invalid="ignore", divide="ignore"):
-            exact_mean, exact_m2 = _grouped_mean(x[rows], grouping.index[rows], grouping.n_bins,
-                                                 None, count_float)
+            exact_mean, exact_m2 = _grouped_mean(
+                x[rows], grouping.index[rows], grouping.n_bins,
+                None if weights is None else weights[rows], total)
         mean = np.where(risky, exact_mean, mean)
         m2 = np.where(risky, exact_m2, m2)
     return mean, m2
+
+
+#: the depth state of a group (see :data:`STATE_FIELDS`)
+DEPTH_FIELDS = ("depth_mean", "depth_m2", "depth_m3", "depth_m4", "depth_value_c2",
+                "depth2_value_c3", "weighted_depth_mean")
+
+
+def _depth_moments(depth, value, value_mean, grouping, count_float) -> dict:
+    """Per-bin mean depth, central depth moments of order 2-4 and the depth-value co-moments
+    ``sum (d - dbar)(v - vbar)`` and ``sum (d - dbar)^2 (v - vbar)``.
+
+    Power sums are taken about a first-pass mean :math:`d_f` and moved to the exact mean
+    :math:`\\bar d = d_f + s` by the binomial theorem (with :math:`P_p = \\sum (d - d_f)^p`,
+    :math:`P_1 = n s`): :math:`M_2 = P_2 - n s^2`, :math:`M_3 = P_3 - 3 s P_2 + 2 n s^3`,
+    :math:`M_4 = P_4 - 4 s P_3 + 6 s^2 P_2 - 3 n s^4` (the corrected two-pass scheme of
+    [Chan1983] carried to higher moments).  ``weighted_depth_mean`` is filled by the caller.
+    """
+    n_bins = grouping.n_bins
+    if not depth.size or depth.min() == depth.max():
+        zeros = np.zeros(n_bins)
+        out = {name: zeros for name in DEPTH_FIELDS}
+        out["depth_mean"] = np.full(n_bins, depth[0] if depth.size else np.nan)
+        out["depth_varies"] = False
+        return out
+    index = grouping.index
+    with np.errstate(invalid="ignore", divide="ignore"):
+        first = grouping.sum(depth) / count_float
+        d = depth - first[index]
+        v = value - value_mean[index]
+        p1 = grouping.sum(d)
+        shift = p1 / count_float
+        d2 = d * d
+        p2 = grouping.sum(d2)
+        p3 = grouping.sum(d2 * d)
+        p4 = grouping.sum(d2 * d2)
+        sum_v = grouping.sum(v)
+        dv = grouping.sum(d * v)
+        d2v = grouping.sum(d2 * v)
+        n = count_float
+        return {
+            "depth_mean": first + shift,
+            "depth_m2": np.maximum(p2 - n * shift ** 2, 0.0),
+            "depth_m3": p3 - 3.0 * shift * p2 + 2.0 * n * shift ** 3,
+            "depth_m4": np.maximum(p4 - 4.0 * shift * p3 + 6.0 * shift ** 2 * p2
+                                   - 3.0 * n * shift ** 4, 0.0),
+            # sum (d - s)(v) and sum (d - s)^2 v, v already about the exact value mean
+            "depth_value_c2": dv - shift * sum_v,
+            "depth2_value_c3": d2v - 2.0 * shift * dv + shift ** 2 * sum_v,
+            "weighted_depth_mean": None,
+            "depth_varies": True,
+        }
 
 
 def _shifted_mean(x, grouping, count_float, weights=None, total_weight=None, work=None):
@@ -374,10 +466,11 @@ def _shifted_mean(x, grouping, count_float, weights=None, total_weight=None, wor
 _UNIT_VECTOR_BLOCK = 1 << 16
 
 
-def _unit_vector_sums(lon, lat, grouping, work, work_2):
+def _unit_vector_sums(lon, lat, grouping, work, work_2, weights=None):
     """Per-bin sums of the unit vectors of the positions, the arithmetic of
     :func:`~obsprep.superobs.spherical.unit_vectors` (tangent half-angle identities) evaluated
-    in cache-sized blocks into the scratch arrays ``work`` and ``work_2`` (overwritten)."""
+    in cache-sized blocks into the scratch arrays ``work`` and ``work_2`` (overwritten).
+    With per-row ``weights`` the weighted sums follow: six sums instead of three."""
     n = lon.size
     z = np.empty(n)
     block = min(_UNIT_VECTOR_BLOCK, max(n, 1))
@@ -389,7 +482,31 @@ def _unit_vector_sums(lon, lat, grouping, work, work_2):
         x, y = cos_sin_degrees(lon[start:stop], work[start:stop], work_2[start:stop])
         np.multiply(x, c, out=x)
         np.multiply(y, c, out=y)
-    return grouping.sum(work), grouping.sum(work_2), grouping.sum(z)
+    sums = (grouping.sum(work), grouping.sum(work_2), grouping.sum(z))
+    if weights is None:
+        return sums
+    return sums + tuple(grouping.sum(np.multiply(component, weights, out=component))
+                        for component in (work, work_2, z))
+
+
+def _pair_sums_of_rows(grouping, lon, lat, error, pair_correlation):
+    """Per-bin within-group pair sums of the distance correlation model
+    (:func:`obsprep.superobs.pairs.within_group_pair_sums`) for rows of one batch."""
+    from obsprep.superobs.pairs import within_group_pair_sums
+    from obsprep.superobs.spherical import unit_vectors
+
+    order, starts = _bin_order(grouping.index, grouping.n_bins)
+    x, y, z = unit_vectors(lon, lat)
+    rho0, length_m = pair_correlation
+    return within_group_pair_sums(order, starts, x, y, z, error, 1.0 / error, rho0, length_m)
+
+
+def _bin_order(index, n_bins):
+    """Rows sorted by bin (stable) and where each bin begins (empty bins included)."""
+    order = np.argsort(index, kind="stable")
+    count = np.bincount(index, minlength=n_bins)
+    starts = (np.cumsum(count) - count).astype(np.intp)
+    return order.astype(np.intp, copy=False), starts
 
 
 def _pick_representative(score, tiebreak, order, starts, inverse):
@@ -457,6 +574,30 @@ def _float_column(where, name, array, n, *, positive=False, low=None, high=None)
     return array
 
 
+def _cross_covariance_columns(where, cross_covariance, partner_error, n):
+    if cross_covariance is None and partner_error is None:
+        return None, None
+    if cross_covariance is None or partner_error is None:
+        raise ValueError(f"{where}: 'cross_covariance' and 'partner_error' go together; "
+                         f"got only one of them")
+    return (_float_column(where, "cross_covariance", cross_covariance, n),
+            _float_column(where, "partner_error", partner_error, n, positive=True))
+
+
+def _pair_correlation(where, pair_correlation):
+    if pair_correlation is None:
+        return None
+    try:
+        rho0, length_m = (float(v) for v in pair_correlation)
+    except (TypeError, ValueError):
+        raise ValueError(f"{where}: 'pair_correlation' must be (rho0, length_m); "
+                         f"got {pair_correlation!r}") from None
+    if not (0.0 <= rho0 <= 1.0) or not (np.isfinite(length_m) and length_m > 0):
+        raise ValueError(f"{where}: 'pair_correlation' must be (rho0 in 0..1, length_m > 0, "
+                         f"finite); got {pair_correlation!r}")
+    return rho0, length_m
+
+
 def _per_group(name, value, n_groups, *, low, high):
     array = np.asarray(value, dtype=np.float64)
     if array.ndim == 0:
@@ -470,6 +611,119 @@ def _per_group(name, value, n_groups, *, low, high):
         raise ValueError(f"finalize: '{name}' must be within {low}..{high}; group {index} "
                          f"has {array[index]!r}")
     return array
+
+
+def _merge_state(parts, key_names, collapsed, pair_correlation, has_representative):
+    """The merged per-group state of accumulators ``parts`` (see :meth:`Accumulator.merge`):
+    ``(state, group_keys, grouping)``."""
+    grouping = _grouping_of_parts(parts, key_names)
+    group_keys = dict(zip(key_names, grouping.group_keys))
+    inverse, n_groups = grouping.index, grouping.n_bins
+    n_rows = len(inverse)
+
+    def part(name):
+        # one field of every part at a time: a merge of big partial results would
+        # otherwise hold every field twice
+        return np.concatenate([a._state[name] for a in parts])
+
+    def total(values):
+        return np.bincount(inverse, values, n_groups)
+
+    part_count = part("count").astype(np.float64)
+    count = total(part_count).astype(np.int64)
+    value_min = grouping.minimum(part("value_min"), np.inf)
+    value_max = grouping.maximum(part("value_max"), -np.inf)
+    count_float = count.astype(np.float64)
+    state = {"count": count, "value_min": value_min, "value_max": value_max}
+    # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2 (empty bins of a
+    # direct grouping give NaN here and are dropped by compress)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        part_value_mean = part("value_mean")
+        value_mean, between = _grouped_mean(part_value_mean, inverse, n_groups, part_count,
+                                            count_float)
+        state["value_mean"] = value_mean
+        state["value_m2"] = total(part("value_m2")) + between
+        part_weight = part("sum_inverse_variance")
+        sum_inverse_variance = total(part_weight)
+        state["sum_inverse_variance"] = sum_inverse_variance
+        state["weighted_mean"], weighted_between = _grouped_mean(
+            part("weighted_mean"), inverse, n_groups, part_weight, sum_inverse_variance)
+        state["weighted_m2"] = total(part("weighted_m2")) + weighted_between
+        state["weighted_time_mean"], _ = _grouped_mean(part("weighted_time_mean"), inverse,
+                                                       n_groups, part_weight,
+                                                       sum_inverse_variance)
+        state["weighted_depth_mean"], _ = _grouped_mean(part("weighted_depth_mean"), inverse,
+                                                        n_groups, part_weight,
+                                                        sum_inverse_variance)
+        del part_weight
+        state["time_mean"], _ = _grouped_mean(part("time_mean"), inverse, n_groups,
+                                              part_count, count_float)
+        part_depth_mean = part("depth_mean")
+        depth_mean, depth_between = _grouped_mean(part_depth_mean, inverse, n_groups,
+                                                  part_count, count_float)
+        state["depth_mean"] = depth_mean
+        # central moments move to the merged mean by the binomial theorem, with
+        # delta = d_k - d and eps = v_k - v (Chan et al. for M2, the same algebra above it):
+        # M3 = sum M3_k + 3 delta M2_k + n_k delta^3,
+        # M4 = sum M4_k + 4 delta M3_k + 6 delta^2 M2_k + n_k delta^4,
+        # C(d,v) = sum C_k + n_k delta eps,
+        # C(d^2,v) = sum C2_k + 2 delta C_k + eps M2_k + n_k delta^2 eps
+        delta = part_depth_mean - depth_mean[inverse]
+        eps = part_value_mean - value_mean[inverse]
+        del part_depth_mean, part_value_mean
+        m2_k, m3_k, c_k = part("depth_m2"), part("depth_m3"), part("depth_value_c2")
+        state["depth_m2"] = total(m2_k) + depth_between
+        state["depth_m3"] = total(m3_k + 3.0 * delta * m2_k + part_count * delta ** 3)
+        state["depth_m4"] = total(part("depth_m4") + 4.0 * delta * m3_k
+                                  + 6.0 * delta ** 2 * m2_k + part_count * delta ** 4)
+        state["depth_value_c2"] = total(c_k + part_count * delta * eps)
+        state["depth2_value_c3"] = total(part("depth2_value_c3") + 2.0 * delta * c_k
+                                         + eps * m2_k + part_count * delta ** 2 * eps)
+        del delta, eps, m2_k, m3_k, c_k
+        for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
+                     "sum_z", "sum_weighted_x", "sum_weighted_y", "sum_weighted_z",
+                     "sum_cross_covariance", "sum_weighted_cross_covariance"):
+            state[name] = total(part(name))
+        extra = STRUCTURE_FIELDS if collapsed else PAIR_FIELDS
+        for name in extra:
+            state[name] = total(part(name))
+        if collapsed:
+            state["group_count"] = state["group_count"].round().astype(np.int64)
+        elif pair_correlation is not None and n_rows > n_groups:
+            # pairs between parts of one group: each part at its centroid (exact when the
+            # parts are small against the correlation length)
+            cross_sigma, cross_inverse = _pairs_between_parts(parts, inverse, n_groups,
+                                                              pair_correlation)
+            state["pair_sum_sigma"] += cross_sigma
+            state["pair_sum_inverse_sigma"] += cross_inverse
+    names = (*STATE_FIELDS, *(STRUCTURE_FIELDS if collapsed else PAIR_FIELDS))
+    state = {name: grouping.compress(state[name]) for name in names}
+    if has_representative:
+        if n_rows:
+            row = _representative_rows(grouping, part("representative_score"),
+                                       part("representative_tiebreak"))
+        else:
+            row = np.zeros(0, dtype=np.intp)
+        for name in REPRESENTATIVE_FIELDS:
+            state[name] = part(name)[row]
+    return state, group_keys, grouping
+
+
+def _pairs_between_parts(parts, inverse, n_groups, pair_correlation):
+    """Pair sums between the parts of each merged group, every part a point at its mean
+    position carrying its sums of sigma and 1/sigma."""
+    from obsprep.superobs.pairs import within_group_pair_sums
+
+    sx, sy, sz = (np.concatenate([a._state[name] for a in parts])
+                  for name in ("sum_x", "sum_y", "sum_z"))
+    norm = np.sqrt(sx * sx + sy * sy + sz * sz)
+    norm[norm == 0] = 1.0
+    order, starts = _bin_order(inverse, n_groups)
+    a = np.concatenate([p._state["sum_sigma"] for p in parts])
+    b = np.concatenate([p._state["sum_inverse_sigma"] for p in parts])
+    rho0, length_m = pair_correlation
+    return within_group_pair_sums(order, starts, sx / norm, sy / norm, sz / norm, a, b,
+                                  rho0, length_m)
 
 
 # --------------------------------------------------------------------------------------------
@@ -502,12 +756,13 @@ class Accumulator:
     :meth:`merge`, turn into super-observations with :meth:`finalize`.
     """
 
-    def __init__(self, key_names, keys, state, has_representative):
-        # Internal: use from_observations or merge.
+    def __init__(self, key_names, keys, state, has_representative, pair_correlation=None):
+        # Internal: use from_observations, merge or collapse.
         self._key_names = tuple(key_names)
         self._keys = {name: keys[name] for name in self._key_names}
         self._state = dict(state)
         self._has_representative = bool(has_representative)
+        self._pair_correlation = pair_correlation
         for array in (*self._keys.values(), *self._state.values()):
             array.flags.writeable = False
 
@@ -538,6 +793,17 @@ class Accumulator:
         return dict(self._state)
 
     @property
+    def collapsed(self) -> bool:
+        """Whether the groups hold their error structure (:data:`STRUCTURE_FIELDS`, after
+        :meth:`collapse`) rather than within-group pair sums (:data:`PAIR_FIELDS`)."""
+        return "group_count" in self._state
+
+    @property
+    def pair_correlation(self):
+        """``(rho0, length_m)`` of the distance correlation model, or None (constant model)."""
+        return self._pair_correlation
+
+    @property
     def has_representative(self) -> bool:
         """Whether a thinning representative is kept (a score was given)."""
         return self._has_representative
@@ -549,7 +815,8 @@ class Accumulator:
     # ---- construction ------------------------------------------------------------------------
     @classmethod
     def from_observations(cls, keys, value, error, time, lon, lat, depth, *,
-                          score=None, tiebreak=None) -> Accumulator:
+                          score=None, tiebreak=None, cross_covariance=None, partner_error=None,
+                          pair_correlation=None) -> Accumulator:
         """Accumulate one batch of raw observations.
 
         Parameters
@@ -575,6 +842,16 @@ class Accumulator:
             Breaks ties in score (lowest wins).  Give one that is unique and independent of how
             files are split (e.g. file number * 2**32 + row); without it ties go to the first
             row of the batch (first accumulator on merge), which depends on the split.
+        cross_covariance : array (n,), optional
+            Error covariance of each raw value with its partner value of another quantity
+            (the other drift component of the same vector), units of the value squared; with
+            ``partner_error`` (the partner's 1-sigma error).  Kept as sums for the covariance
+            of the two super-observations (:meth:`finalize`).
+        pair_correlation : (float, float), optional
+            ``(rho0, length_m)``: the errors of two values of one group correlate as
+            :math:`\\rho_0 \\exp(-d/L)`, d the great-circle distance (m); the within-group pair
+            sums are kept (:mod:`obsprep.superobs.pairs`).  Without it the correlation is a
+            constant given at :meth:`collapse` or :meth:`finalize`.
 
         Returns
         -------
@@ -606,6 +883,10 @@ class Accumulator:
                                      f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
                 tiebreak = tiebreak.astype(np.int64, copy=False)
 
+        cross_covariance, partner_error = _cross_covariance_columns(
+            where, cross_covariance, partner_error, n)
+        pair_correlation = _pair_correlation(where, pair_correlation)
+
         grouping = _grouping(key_arrays)
         group_keys = dict(zip(key_names, grouping.group_keys))
         count_float = grouping.count.astype(np.float64)
@@ -616,46 +897,53 @@ class Accumulator:
         work = np.empty(n)
         work_2 = np.empty(n)
         value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
+        weights = None  # per-row 1/sigma^2; None: one error for the whole batch
         if n and error.min() == error.max():
             # one error for the whole batch (a constant error rule): the error sums follow
-            # from the counts, and the weighted mean is the plain mean
+            # from the counts, and every weighted mean is the plain mean
             sigma = float(error[0])
+            weight = 1.0 / (sigma * sigma)
             sum_variance = count_float * (sigma * sigma)
             sum_sigma = count_float * sigma
             sum_inverse_sigma = count_float * (1.0 / sigma)
-            sum_inverse_variance = count_float * (1.0 / (sigma * sigma))
+            sum_inverse_variance = count_float * weight
             weighted_mean = value_mean
+            weighted_m2 = value_m2 * weight
         else:
-            inverse_sigma = np.divide(1.0, error, out=work)
-            sum_inverse_sigma = grouping.sum(inverse_sigma)
-            inverse_variance = np.multiply(inverse_sigma, inverse_sigma, out=work)
-            sum_inverse_variance = grouping.sum(inverse_variance)
-            weighted_mean = _shifted_mean(value, grouping, count_float, inverse_variance,
-                                          sum_inverse_variance, work_2)
+            weights = np.divide(1.0, error)
+            sum_inverse_sigma = grouping.sum(weights)
+            np.multiply(weights, weights, out=weights)
+            sum_inverse_variance = grouping.sum(weights)
+            weighted_mean, weighted_m2 = _shifted_mean_and_m2(
+                value, grouping, count_float, work, weights, sum_inverse_variance)
             sum_variance = grouping.sum(np.multiply(error, error, out=work))
             sum_sigma = grouping.sum(error)
         time_mean = _shifted_mean(time, grouping, count_float, work=work)
-        if n and depth.min() == depth.max():
-            depth_mean = np.full(grouping.n_bins, depth[0])
-            depth_m2 = depth_value_c2 = np.zeros(grouping.n_bins)
+        weighted_time_mean = time_mean if weights is None else _shifted_mean(
+            time, grouping, count_float, weights, sum_inverse_variance, work)
+        depth_state = _depth_moments(depth, value, value_mean, grouping, count_float)
+        depth_state["weighted_depth_mean"] = (
+            depth_state["depth_mean"] if weights is None or not depth_state["depth_varies"]
+            else _shifted_mean(depth, grouping, count_float, weights, sum_inverse_variance, work))
+        sums = _unit_vector_sums(lon, lat, grouping, work, work_2, weights)
+        if weights is None:  # constant weight: the weighted sums are the plain ones times it
+            sums += tuple(total * weight for total in sums)
+        if cross_covariance is None:
+            sum_cross = sum_weighted_cross = np.zeros(grouping.n_bins)
         else:
-            # depth spread and depth-value co-moment, corrected two-pass about the group means
-            with np.errstate(invalid="ignore", divide="ignore"):
-                depth_first = grouping.sum(depth) / count_float
-                depth_deviation = depth - depth_first[grouping.index]
-                value_deviation = value - value_mean[grouping.index]
-                sum_depth_deviation = grouping.sum(depth_deviation)
-                sum_value_deviation = grouping.sum(value_deviation)
-                depth_mean = depth_first + sum_depth_deviation / count_float
-                depth_m2 = np.maximum(grouping.sum(depth_deviation * depth_deviation)
-                                      - sum_depth_deviation ** 2 / count_float, 0.0)
-                depth_value_c2 = (grouping.sum(depth_deviation * value_deviation)
-                                  - sum_depth_deviation * sum_value_deviation / count_float)
-                del depth_deviation, value_deviation
-        sum_x, sum_y, sum_z = _unit_vector_sums(lon, lat, grouping, work, work_2)
-        del work, work_2
+            sum_cross = grouping.sum(cross_covariance)
+            # weights of the two components' weighted means: 1/sigma^2 and 1/sigma_partner^2
+            np.divide(cross_covariance, np.multiply(error, partner_error, out=work) ** 2,
+                      out=work)
+            sum_weighted_cross = grouping.sum(work)
+        del work, work_2, weights
         value_min = grouping.minimum(value, np.inf)
         value_max = grouping.maximum(value, -np.inf)
+        if pair_correlation is None:
+            pair_sigma = pair_inverse_sigma = np.zeros(grouping.n_bins)
+        else:
+            pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
+                grouping, lon, lat, error, pair_correlation)
 
         state = {
             "count": compress(grouping.count).astype(np.int64, copy=False),
@@ -664,19 +952,24 @@ class Accumulator:
             "value_min": compress(value_min),
             "value_max": compress(value_max),
             "weighted_mean": compress(weighted_mean),
+            "weighted_m2": compress(weighted_m2),
             "sum_inverse_variance": compress(sum_inverse_variance),
             "sum_inverse_sigma": compress(sum_inverse_sigma),
             "sum_variance": compress(sum_variance),
             "sum_sigma": compress(sum_sigma),
             "time_mean": compress(time_mean),
-            "sum_x": compress(sum_x),
-            "sum_y": compress(sum_y),
-            "sum_z": compress(sum_z),
-            "depth_mean": compress(depth_mean),
-            "depth_m2": compress(depth_m2),
-            "depth_value_c2": compress(depth_value_c2),
+            "weighted_time_mean": compress(weighted_time_mean),
+            "sum_x": compress(sums[0]), "sum_y": compress(sums[1]), "sum_z": compress(sums[2]),
+            "sum_weighted_x": compress(sums[3]), "sum_weighted_y": compress(sums[4]),
+            "sum_weighted_z": compress(sums[5]),
+            "sum_cross_covariance": compress(sum_cross),
+            "sum_weighted_cross_covariance": compress(sum_weighted_cross),
+            "pair_sum_sigma": compress(pair_sigma),
+            "pair_sum_inverse_sigma": compress(pair_inverse_sigma),
         }
-        state = {name: state[name] for name in STATE_FIELDS}
+        for name in DEPTH_FIELDS:
+            state[name] = compress(depth_state[name])
+        state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
         if score is not None:
             if n:
                 row = _representative_rows(grouping, score, tiebreak)
@@ -686,7 +979,8 @@ class Accumulator:
                                  ("error", error), ("time", time), ("lon", lon), ("lat", lat),
                                  ("depth", depth)):
                 state["representative_" + name] = source[row]
-        return cls(key_names, group_keys, state, score is not None)
+        return cls(key_names, group_keys, state, score is not None,
+                   pair_correlation=pair_correlation)
 
     @classmethod
     def merge(cls, accumulators) -> Accumulator:
@@ -726,80 +1020,100 @@ class Accumulator:
                              "representative (a score was given) and others do not")
         has_representative = flags.pop()
         parts = non_empty or accumulators[:1]
+        kinds = {a.collapsed for a in parts}
+        if len(kinds) > 1:
+            raise ValueError("Accumulator.merge: some accumulators are collapsed (error "
+                             "structure kept per super-observation) and others are not")
+        collapsed = kinds.pop()
+        pair_models = {a.pair_correlation for a in parts}
+        if len(pair_models) > 1:
+            raise ValueError(f"Accumulator.merge: the accumulators have different distance "
+                             f"correlation models {sorted(map(str, pair_models))}")
+        pair_correlation = pair_models.pop()
+        state, group_keys, grouping = _merge_state(parts, key_names, collapsed,
+                                                   pair_correlation, has_representative)
+        return cls(key_names, group_keys, state, has_representative,
+                   pair_correlation=pair_correlation)
 
-        grouping = _grouping_of_parts(parts, key_names)
-        group_keys = dict(zip(key_names, grouping.group_keys))
-        inverse, n_groups = grouping.index, grouping.n_bins
-        n_rows = len(inverse)
+    def collapse(self, key=None, within_correlation=0.0) -> Accumulator:
+        """The super-observations of this accumulator with their error structure.
 
-        def part(name):
-            # one field of every part at a time: a merge of big partial results would
-            # otherwise hold every field twice
-            return np.concatenate([a._state[name] for a in parts])
+        ``key`` names the error-group key (pass, granule, profile): groups that differ only
+        in it are one super-observation made of several error groups, whose errors are
+        correlated within an error group and (by the ``across_correlation`` given to
+        :meth:`finalize`) across them.  ``key=None``: every group is one error group.
 
-        part_count = part("count").astype(np.float64)
-        count = grouping.sum(part_count).astype(np.int64)
-        value_min = grouping.minimum(part("value_min"), np.inf)
-        value_max = grouping.maximum(part("value_max"), -np.inf)
-        count_float = count.astype(np.float64)
-        state = {"count": count, "value_min": value_min, "value_max": value_max}
-        # k-way Chan-Golub-LeVeque: M2 = sum M2_k + sum n_k (mean_k - mean)^2 (empty bins of a
-        # direct grouping give NaN here and are dropped by compress)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            part_value_mean = part("value_mean")
-            value_mean, between = _grouped_mean(part_value_mean, inverse, n_groups, part_count,
-                                                count_float)
-            state["value_mean"] = value_mean
-            state["value_m2"] = np.bincount(inverse, part("value_m2"), n_groups) + between
-            part_weight = part("sum_inverse_variance")
-            sum_inverse_variance = np.bincount(inverse, part_weight, n_groups)
-            state["sum_inverse_variance"] = sum_inverse_variance
-            state["weighted_mean"], _ = _grouped_mean(part("weighted_mean"), inverse, n_groups,
-                                                      part_weight, sum_inverse_variance)
-            del part_weight
-            state["time_mean"], _ = _grouped_mean(part("time_mean"), inverse, n_groups,
-                                                  part_count, count_float)
-            part_depth_mean = part("depth_mean")
-            depth_mean, depth_between = _grouped_mean(part_depth_mean, inverse, n_groups,
-                                                      part_count, count_float)
-            state["depth_mean"] = depth_mean
-            # co-moments merge like M2: C = sum C_k + sum n_k (d_k - d)(v_k - v) (Chan et al.)
-            depth_value_between = np.bincount(
-                inverse, part_count * (part_depth_mean - depth_mean[inverse])
-                * (part_value_mean - value_mean[inverse]), n_groups)
-            del part_depth_mean, part_value_mean
-            state["depth_m2"] = np.bincount(inverse, part("depth_m2"), n_groups) + depth_between
-            state["depth_value_c2"] = (np.bincount(inverse, part("depth_value_c2"), n_groups)
-                                       + depth_value_between)
-            for name in ("sum_inverse_sigma", "sum_variance", "sum_sigma", "sum_x", "sum_y",
-                         "sum_z"):
-                state[name] = np.bincount(inverse, part(name), n_groups)
-        state = {name: grouping.compress(state[name]) for name in STATE_FIELDS}
-        if has_representative:
-            if n_rows:
-                row = _representative_rows(grouping, part("representative_score"),
-                                           part("representative_tiebreak"))
+        Within one error group g the pair sum is
+        :math:`\\sum_{i \\ne j \\in g} \\sigma_i \\sigma_j \\rho_{ij}`: with the distance
+        model (``pair_correlation`` given to :meth:`from_observations`) the kept pair sums; else
+        :math:`\\rho [(\\sum_g \\sigma_i)^2 - \\sum_g \\sigma_i^2]` with the constant
+        ``within_correlation`` rho (scalar or one value per group of this accumulator, 0..1),
+        the same with :math:`1/\\sigma` for the weighted mean.  Merge the collapsed
+        accumulators of different files (different error groups) with :meth:`merge`: every
+        structure field adds.  An error group must not be split between accumulators that are
+        collapsed separately (the pairs across the split would be lost).
+        """
+        if self.collapsed:
+            raise ValueError("Accumulator.collapse: already collapsed")
+        if key is not None and key not in self._key_names:
+            raise ValueError(f"Accumulator.collapse: no key {key!r}; keys are "
+                             f"{list(self._key_names)}")
+        rho = _per_group("within_correlation", within_correlation, self.n_groups,
+                         low=0.0, high=1.0)
+        s = self._state
+        with np.errstate(invalid="ignore"):
+            group_sigma_squared = s["sum_sigma"] * s["sum_sigma"]
+            group_inverse_squared = s["sum_inverse_sigma"] * s["sum_inverse_sigma"]
+            if self._pair_correlation is not None:
+                within_sigma = s["pair_sum_sigma"]
+                within_inverse = s["pair_sum_inverse_sigma"]
             else:
-                row = np.zeros(0, dtype=np.intp)
-            for name in REPRESENTATIVE_FIELDS:
-                state[name] = part(name)[row]
-        return cls(key_names, group_keys, state, has_representative)
+                # the bracket is >= 0 exactly; rounding may make it a hair negative for n = 1
+                within_sigma = rho * np.maximum(group_sigma_squared - s["sum_variance"], 0.0)
+                within_inverse = rho * np.maximum(group_inverse_squared
+                                                  - s["sum_inverse_variance"], 0.0)
+        state = {name: s[name] for name in (*STATE_FIELDS, *self._representative_names())}
+        state.update({"group_count": np.ones(self.n_groups, dtype=np.int64),
+                      "sum_group_sigma_squared": group_sigma_squared,
+                      "sum_group_inverse_sigma_squared": group_inverse_squared,
+                      "within_pairs_sigma": within_sigma,
+                      "within_pairs_inverse_sigma": within_inverse})
+        if key is None:
+            return Accumulator(self._key_names, self._keys, {n: np.array(a) for n, a in
+                                                            state.items()},
+                               self._has_representative)
+        remaining = tuple(name for name in self._key_names if name != key)
+        if not remaining:
+            raise ValueError("Accumulator.collapse: at least one key must remain")
+        view = Accumulator(remaining, self._keys, state, self._has_representative)
+        return Accumulator.merge([view])
+
+    def _representative_names(self):
+        return tuple(REPRESENTATIVE_FIELDS) if self._has_representative else ()
 
     # ---- output ------------------------------------------------------------------------------
-    def finalize(self, *, mode="mean", correlation=0.0, representation_error=0.0, floor=0.0):
+    def finalize(self, *, mode="mean", correlation=0.0, across_correlation=0.0,
+                 representation_error=0.0, floor=0.0):
         """Super-observations, one row per group, as a pandas DataFrame.
 
         Parameters
         ----------
         mode : {"mean", "weighted", "thin"}
-            ``"mean"``: equally weighted mean, error from
-            :func:`~obsprep.superobs.errors.error_of_mean`.  ``"weighted"``: inverse-variance
-            weighted mean, error from :func:`~obsprep.superobs.errors.error_of_weighted_mean`.
-            ``"thin"``: the representative raw observation (lowest score); its value, time,
-            position, depth and error.
+            ``"mean"``: equally weighted mean of the values, times, depths and positions, error
+            from :func:`~obsprep.superobs.errors.variance_of_mean`.  ``"weighted"``:
+            inverse-variance weighted mean of the values, times, depths and positions (weights
+            :math:`1/\\sigma_i^2`), error from
+            :func:`~obsprep.superobs.errors.variance_of_weighted_mean`.  ``"thin"``: the
+            representative raw observation (lowest score); its value, time, position, depth and
+            error.
         correlation : float or array (n_groups,)
-            Common pairwise error correlation of the raw observations in a group, 0..1.
-            Ignored for ``"thin"``.
+            For an accumulator not yet collapsed: the common pairwise error correlation of the
+            raw observations of a group (each group one error group, :meth:`collapse` with
+            ``key=None``), 0..1.  Must be 0 for a collapsed accumulator (its within-group
+            correlation was applied by :meth:`collapse`).
+        across_correlation : float or array (n_groups,)
+            Error correlation between values of different error groups of a super-observation,
+            0..1 (default 0: independent).
         representation_error : float or array (n_groups,)
             1-sigma representation error (units of the value, >= 0), added in quadrature; it
             does not shrink with the count.
@@ -819,12 +1133,22 @@ class Accumulator:
 
         if mode not in MODES:
             raise ValueError(f"finalize: mode must be one of {list(MODES)}, got {mode!r}")
-        n_groups = self.n_groups
-        correlation = _per_group("correlation", correlation, n_groups, low=0.0, high=1.0)
+        if self.collapsed:
+            if np.any(np.asarray(correlation) != 0):
+                raise ValueError("finalize: this accumulator is collapsed, its within-group "
+                                 "correlation was applied by collapse(); give "
+                                 "across_correlation only")
+            accumulator = self
+        else:
+            accumulator = self.collapse(None, _per_group("correlation", correlation,
+                                                         self.n_groups, low=0.0, high=1.0))
+        n_groups = self.n_groups if accumulator is self else accumulator.n_groups
+        across = _per_group("across_correlation", across_correlation, n_groups, low=0.0,
+                            high=1.0)
         representation = _per_group("representation_error", representation_error, n_groups,
                                     low=0.0, high=np.inf)
         floor = _per_group("floor", floor, n_groups, low=0.0, high=np.inf)
-        s = self._state
+        s = accumulator._state
         count = s["count"]
         with np.errstate(invalid="ignore", divide="ignore"):
             spread = np.where(count > 1, np.sqrt(s["value_m2"] / (count - 1)), np.nan)
@@ -839,20 +1163,22 @@ class Accumulator:
             lat = s["representative_lat"]
             depth = s["representative_depth"]
             error_instrument = s["representative_error"]
-        else:
-            time = s["time_mean"]
+        elif mode == "mean":
+            value, time, depth = s["value_mean"], s["time_mean"], s["depth_mean"]
             lon, lat = mean_position(s["sum_x"], s["sum_y"], s["sum_z"])
-            depth = s["depth_mean"]
-            if mode == "mean":
-                value = s["value_mean"]
-                error_instrument = error_of_mean(s["sum_variance"], s["sum_sigma"], count,
-                                                 correlation)
-            else:
-                value = s["weighted_mean"]
-                error_instrument = error_of_weighted_mean(s["sum_inverse_variance"],
-                                                          s["sum_inverse_sigma"], correlation)
+            error_instrument = np.sqrt(variance_of_mean(
+                s["sum_variance"], count, s["within_pairs_sigma"], s["sum_sigma"],
+                s["sum_group_sigma_squared"], across))
+        else:
+            value, time = s["weighted_mean"], s["weighted_time_mean"]
+            depth = s["weighted_depth_mean"]
+            lon, lat = mean_position(s["sum_weighted_x"], s["sum_weighted_y"],
+                                     s["sum_weighted_z"])
+            error_instrument = np.sqrt(variance_of_weighted_mean(
+                s["sum_inverse_variance"], s["within_pairs_inverse_sigma"],
+                s["sum_inverse_sigma"], s["sum_group_inverse_sigma_squared"], across))
         error, _ = total_error(error_instrument, representation, floor)
-        columns = {name: np.array(self._keys[name]) for name in self._key_names}
+        columns = {name: np.array(accumulator._keys[name]) for name in self._key_names}
         columns.update({
             "count": np.array(count, dtype=np.int64),
             "value": np.array(value, dtype=np.float64),

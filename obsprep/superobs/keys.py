@@ -15,6 +15,12 @@ the one place that gives them meaning:
 
 The order of :data:`GROUP_KEYS` is the order in which groups are sorted, so it is part of the
 output's row order.
+
+While one file is accumulated, raw values also carry :data:`ERROR_GROUP_KEY`: their error
+group (pass, granule or profile: the reader's ``group`` in that file, :func:`profile_key`), so
+that errors can be correlated within a group and not across groups; the file's accumulator is
+then collapsed over it (:meth:`obsprep.superobs.Accumulator.collapse`), and it never reaches the
+output.
 """
 
 from __future__ import annotations
@@ -22,6 +28,8 @@ from __future__ import annotations
 import numpy as np
 
 GROUP_KEYS = ("quantity", "sensor", "slot", "j", "i", "k", "profile", "t_start", "t_end")
+#: the key of a raw value's error group inside one file's accumulation
+ERROR_GROUP_KEY = "error_group"
 #: the profile key of a value that is not averaged per profile
 NO_PROFILE = -1
 #: bits of the file index above the per-file profile code / row number in the keys

@@ -15,6 +15,47 @@ import numpy as np
 from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import QUANTITIES
 
+#: how the representation error of a super-observation is formed (``superobs.representation_model``)
+REPRESENTATION_MODELS = ("constant", "sampling")
+
+
+def sampled_representation_error(sub_cell_sigma, n_samples, cell_area_m2, footprint_m2):
+    """Representation error of a cell mean estimated from n raw values (the sampling model).
+
+    The cell is N = cell area / footprint area footprints whose values have the sub-cell
+    standard deviation :math:`\\sigma_{sub}` about the cell mean; n of them are observed.  For
+    a simple random sample without replacement the error of the sample mean as an estimate of
+    the cell mean is [Cochran1977] (from memory)
+
+    .. math::
+        \\sigma_r = \\sigma_{sub}\\sqrt{\\left(\\frac1n - \\frac1N\\right)\\frac{N}{N - 1}}
+
+    one value gives :math:`\\sigma_{sub}`, a fully covered cell (n = N) gives 0, and point values
+    (footprint 0, N infinite) give :math:`\\sigma_{sub}/\\sqrt n`.  n is capped at N; a
+    footprint as large as the cell gives 0.  Values clustered in part of the cell, or a sub-cell
+    field correlated over several footprints, make the true error larger than this model says.
+
+    Parameters
+    ----------
+    sub_cell_sigma : array_like
+        :math:`\\sigma_{sub}`, units of the value.
+    n_samples : array_like
+        n (>= 1): raw values (surface) or profiles (sub-surface) in the super-observation.
+    cell_area_m2, footprint_m2 : array_like
+        Areas in m^2; footprint 0 for point values.
+    """
+    sigma = np.asarray(sub_cell_sigma, dtype=np.float64)
+    n = np.maximum(np.asarray(n_samples, dtype=np.float64), 1.0)
+    footprint = np.asarray(footprint_m2, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cells = np.where(footprint > 0, np.asarray(cell_area_m2, dtype=np.float64) / footprint,
+                         np.inf)
+        n = np.minimum(n, cells)
+        finite = np.where(cells > 1.0, (1.0 / n - 1.0 / cells) * cells / (cells - 1.0), 0.0)
+        factor = np.where(np.isinf(cells), 1.0 / n, finite)
+    return sigma * np.sqrt(np.maximum(factor, 0.0))
+
+
 
 def load_representation_fields(path, variables: dict, grid_shape, nk: int) -> dict:
     """Read the representation-error fields.

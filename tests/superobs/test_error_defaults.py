@@ -141,10 +141,15 @@ def test_identical_values_never_give_an_error_of_zero(configured_floor):
              else QUANTITIES["sea_ice_concentration"].default_error_floor)
     ice = out.loc["sea_ice_concentration"]
     assert ice["error_spread"] == 0.0      # the spread of identical values, by definition
-    assert ice["error"] == floor and ice["error"] > 0
-    assert ice["error_basis"] == ERROR_BASIS["floor"]
+    # the small-sample shrinkage keeps nu0 / (nu0 + nu) of the instrument variance (nu0 = 4
+    # prior degrees of freedom, nu = 7), then the floor applies (hand computation)
+    shrunk = ice["error_instrument"] * np.sqrt(4.0 / 11.0)
+    assert ice["error"] == pytest.approx(max(floor, shrunk), rel=1e-12) and ice["error"] > 0
+    assert ice["error_basis"] == (ERROR_BASIS["floor"] if floor > shrunk else ERROR_BASIS["spread"])
     sla = out.loc["sea_level_anomaly"]
-    assert sla["error"] == QUANTITIES["sea_level_anomaly"].default_error_floor
+    assert sla["error"] == pytest.approx(max(QUANTITIES["sea_level_anomaly"].default_error_floor,
+                                             sla["error_instrument"] * np.sqrt(4.0 / 9.0)),
+                                         rel=1e-12)
     assert (out["error"] > 0).all() and np.isfinite(out["error"]).all()
     check_finite(out.reset_index())   # the write-time check accepts it
 

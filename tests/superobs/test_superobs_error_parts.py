@@ -1,6 +1,6 @@
-"""The complete super-observation error: spread-based error, spread about a line in depth, the
+"""The complete super-observation error: spread-based error, the fit in depth, the
 combination rules, representation-error fields, checked against numpy Monte Carlo, numpy's
-least-squares line fit (reference implementation) and hand computations.
+least-squares polynomial fit (reference implementation) and hand computations.
 
 Monte Carlo tolerances: a mean of T independent draws is compared with its expectation within
 5 standard errors (sample std / sqrt(T)), so a correct formula fails with probability below
@@ -16,8 +16,15 @@ from obsprep.exceptions import InputFileError
 from obsprep.model.quantities import QUANTITY_NAMES
 from obsprep.settings.config import load_config
 from obsprep.superobs import Accumulator
-from obsprep.superobs.errors import combine_instrument_and_spread, error_from_spread, spread_about_depth_line
+from obsprep.superobs.errors import (
+    combine_instrument_and_spread,
+    expected_residual_of_mean,
+    max_rule_normaliser,
+    residual_variance_factor,
+    variance_of_mean,
+)
 from obsprep.superobs.finalize import finalize_superobs
+from obsprep.superobs.layers import fit_in_depth
 
 STANDARD_ERRORS = 5.0
 
@@ -41,28 +48,37 @@ def test_spread_based_error_matches_the_variance_of_the_mean(rho):
     rng = np.random.default_rng(11)
     n, sigma, trials = 8, 0.5, 40000
     errors = equicorrelated_errors(rng, trials, n, sigma, rho)
-    spread = errors.std(axis=1, ddof=1)
-    estimate = error_from_spread(spread, n, rho)
-    # E[estimate^2] = var(mean) = sigma^2 (1 + (n-1) rho) / n (textbook), and the Monte Carlo
+    m2 = ((errors - errors.mean(1, keepdims=True)) ** 2).sum(1)
+    variance = variance_of_mean(n * sigma**2, n, rho * (n**2 - n) * sigma**2, n * sigma,
+                                (n * sigma) ** 2)
+    estimate = variance * residual_variance_factor(m2, expected_residual_of_mean(
+        n * sigma**2, n, variance))
+    # E[estimate] = var(mean) = sigma^2 (1 + (n-1) rho) / n (textbook), and the Monte Carlo
     # variance of the means must agree with both
     expected = sigma**2 * (1 + (n - 1) * rho) / n
-    assert_mean_close(estimate**2, expected, "spread-based")
+    np.testing.assert_allclose(variance, expected, rtol=1e-12)
+    assert_mean_close(estimate, expected, "spread-based")
     assert_mean_close(errors.mean(axis=1) ** 2, expected, "Monte Carlo of the mean")
 
 
-def test_spread_based_error_is_undefined_for_single_values_and_full_correlation():
-    assert np.isnan(error_from_spread(0.3, 1, 0.0))
-    assert np.isnan(error_from_spread(0.3, 5, 1.0))
-    np.testing.assert_allclose(error_from_spread(0.3, 9, 0.0), 0.1)   # s / sqrt(n), by hand
+def test_spread_factor_is_undefined_for_single_values_and_full_correlation():
+    # one value: E[R] = sigma^2 - 1 * sigma^2 = 0; rho = 1: the residuals see nothing
+    assert np.isnan(residual_variance_factor(0.0, expected_residual_of_mean(0.09, 1, 0.09)))
+    assert np.isnan(residual_variance_factor(0.1, expected_residual_of_mean(5 * 0.09, 5, 0.09)))
+    # s / sqrt(n) for independent equal errors, by hand: R = 8 s^2, E[R] = 8 sigma^2
+    variance = 0.09 / 9
+    factor = residual_variance_factor(8 * 0.3**2, expected_residual_of_mean(9 * 0.09, 9, variance))
+    np.testing.assert_allclose(np.sqrt(variance * factor), 0.1)
 
 
-def test_spread_about_a_depth_line_equals_numpy_polyfit_and_merges():
+def test_quadratic_fit_in_depth_equals_numpy_polyfit_and_merges():
     rng = np.random.default_rng(3)
     groups, per_group = 40, 12
     group = np.repeat(np.arange(groups), per_group)
     depth = rng.uniform(20.0, 50.0, group.size)
-    value = 1.0 + 0.05 * depth + rng.normal(0.0, 0.01, group.size) + group * 0.1
+    value = 1.0 + 0.05 * depth - 4e-4 * depth**2 + rng.normal(0.0, 0.01, group.size) + group * 0.1
     keys = {"g": group.astype(np.int64)}
+
     def accumulate(rows):
         return Accumulator.from_observations({"g": keys["g"][rows]}, value[rows],
                                              np.full(rows.size, 0.01), np.zeros(rows.size),
@@ -70,42 +86,55 @@ def test_spread_about_a_depth_line_equals_numpy_polyfit_and_merges():
     half = rng.permutation(group.size)
     merged = Accumulator.merge([accumulate(np.sort(half[: group.size // 2])),
                                 accumulate(np.sort(half[group.size // 2:]))])
+    reference_depth = np.linspace(25.0, 45.0, groups)
     for acc in (accumulate(np.arange(group.size)), merged):
-        s = acc.state
-        line = spread_about_depth_line(s["value_m2"], s["depth_m2"], s["depth_value_c2"],
-                                       s["count"])
-        for g in range(groups):     # reference: numpy least squares, residual std with ddof=2
+        fit = fit_in_depth(acc.state, reference_depth)
+        assert (fit.parameters == 3).all()
+        for g in range(groups):     # reference: numpy least squares of degree 2 (numpy.polyfit)
             rows = group == g
-            coefficients = np.polyfit(depth[rows], value[rows], 1)
+            coefficients = np.polyfit(depth[rows], value[rows], 2)
             residual = value[rows] - np.polyval(coefficients, depth[rows])
-            np.testing.assert_allclose(line[g], np.sqrt(np.sum(residual**2) / (per_group - 2)),
-                                       rtol=1e-6)
+            np.testing.assert_allclose(fit.value[g], np.polyval(coefficients, reference_depth[g]),
+                                       rtol=1e-9)
+            np.testing.assert_allclose(fit.residual[g], np.sum(residual**2), rtol=1e-6)
+            # sum of squared coefficients of the fitted value: from the design matrix (numpy)
+            design = np.vander(depth[rows], 3)
+            c = np.vander([reference_depth[g]], 3) @ np.linalg.pinv(design)
+            np.testing.assert_allclose(fit.coefficient_squares[g], np.sum(c**2), rtol=1e-8)
 
 
-def test_spread_about_a_depth_line_estimates_the_noise_by_monte_carlo():
+def test_residual_about_the_fit_estimates_the_noise_by_monte_carlo():
     rng = np.random.default_rng(5)
     trials, n, sigma = 20000, 6, 0.02
     depth = rng.uniform(0.0, 100.0, (trials, n))
-    value = 3.0 - 0.01 * depth + sigma * rng.standard_normal((trials, n))
-    dd = depth - depth.mean(1, keepdims=True)
-    dv = value - value.mean(1, keepdims=True)
-    line = spread_about_depth_line((dv**2).sum(1), (dd**2).sum(1), (dd * dv).sum(1), n)
-    assert_mean_close(line**2, sigma**2, "residual variance")      # E[SSR/(n-2)] = sigma^2
+    value = 3.0 - 0.01 * depth + 2e-4 * depth**2 + sigma * rng.standard_normal((trials, n))
+    group = np.repeat(np.arange(trials), n)
+    acc = Accumulator.from_observations({"g": group}, value.ravel(), np.full(group.size, sigma),
+                                        np.zeros(group.size), np.zeros(group.size),
+                                        np.zeros(group.size), depth.ravel())
+    fit = fit_in_depth(acc.state, acc.state["depth_mean"])
+    assert (fit.parameters == 3).all()
+    assert_mean_close(fit.residual / (n - 3), sigma**2, "residual variance")  # E[SSR/(n-3)]
 
 
 def test_combination_rules_by_hand():
     instrument = np.array([0.1, 0.1, 0.1, 0.1])
-    spread = np.array([0.2, 0.05, np.nan, 0.3])
+    factor = np.array([4.0, 0.25, np.nan, 9.0])
     count = np.array([10, 10, 10, 3])
-    chosen, basis = combine_instrument_and_spread(instrument, spread, count, "max", 5)
-    np.testing.assert_array_equal(chosen, [0.2, 0.1, 0.1, 0.1])
+    dof = count - 1
+    m9 = max_rule_normaliser(9.0)
+    chosen, basis = combine_instrument_and_spread(instrument, factor, dof, count, "max", 5)
+    np.testing.assert_allclose(chosen, [0.2 / np.sqrt(m9), 0.1 / np.sqrt(m9), 0.1, 0.1])
     np.testing.assert_array_equal(basis, [1, 0, 0, 0])
-    chosen, basis = combine_instrument_and_spread(instrument, spread, count, "spread_when_n_ge", 5)
-    np.testing.assert_array_equal(chosen, [0.2, 0.05, 0.1, 0.1])
-    chosen, _ = combine_instrument_and_spread(instrument, spread, count, "instrument", 5)
+    chosen, basis = combine_instrument_and_spread(instrument, factor, dof, count,
+                                                  "spread_when_n_ge", 5, prior_dof=4.0)
+    # shrinkage (4 + 9 k^2) / 13 by hand
+    np.testing.assert_allclose(chosen, [0.1 * np.sqrt(40 / 13), 0.1 * np.sqrt(6.25 / 13), 0.1, 0.1])
+    np.testing.assert_array_equal(basis, [1, 1, 0, 0])
+    chosen, _ = combine_instrument_and_spread(instrument, factor, dof, count, "instrument", 5)
     np.testing.assert_array_equal(chosen, instrument)
     with pytest.raises(ValueError, match="spread combination"):
-        combine_instrument_and_spread(instrument, spread, count, "median", 5)
+        combine_instrument_and_spread(instrument, factor, dof, count, "median", 5)
 
 
 CONFIG = """

@@ -188,6 +188,26 @@ class ModelGrid:
                                                     self.lat_center[jv, iv])
         return distance
 
+    def cell_area(self, i, j):
+        """Approximate area in m^2 of cells (j, i): the product of the cell's widths along i and
+        along j, each half the great-circle distance between the centres of its two neighbours
+        (one-sided at the grid's edges; a grid of one cell along an axis has no width: NaN).
+        Exact to first order for an orthogonal grid (common practice)."""
+        i = np.asarray(i, dtype=np.int64)
+        j = np.asarray(j, dtype=np.int64)
+        lon, lat = self.lon_center, self.lat_center
+
+        def width(lo_j, lo_i, hi_j, hi_i, steps):
+            with np.errstate(invalid="ignore", divide="ignore"):
+                return great_circle_distance(lon[lo_j, lo_i], lat[lo_j, lo_i],
+                                             lon[hi_j, hi_i], lat[hi_j, hi_i]) / steps
+
+        i_lo, i_hi = np.maximum(i - 1, 0), np.minimum(i + 1, self.nx - 1)
+        j_lo, j_hi = np.maximum(j - 1, 0), np.minimum(j + 1, self.ny - 1)
+        along_i = width(j, i_lo, j, i_hi, np.where(i_hi > i_lo, i_hi - i_lo, np.nan))
+        along_j = width(j_lo, i, j_hi, i, np.where(j_hi > j_lo, j_hi - j_lo, np.nan))
+        return along_i * along_j
+
     def classify(self, lon, lat, depth):
         """Cell, layer and rejection reason of each observation position.
 
