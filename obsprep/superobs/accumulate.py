@@ -710,20 +710,49 @@ def _merge_state(parts, key_names, collapsed, pair_correlation, has_representati
 
 
 def _pairs_between_parts(parts, inverse, n_groups, pair_correlation):
-    """Pair sums between the parts of each merged group, every part a point at its mean
-    position carrying its sums of sigma and 1/sigma."""
-    from obsprep.superobs.pairs import within_group_pair_sums
+    """Pair sums between the parts of each merged group (parts of one error group in one cell
+    accumulated separately: pieces of a file read in parts, chunks of rows).
 
-    sx, sy, sz = (np.concatenate([a._state[name] for a in parts])
-                  for name in ("sum_x", "sum_y", "sum_z"))
-    norm = np.sqrt(sx * sx + sy * sy + sz * sz)
-    norm[norm == 0] = 1.0
-    order, starts = _bin_order(inverse, n_groups)
+    Each part k is a cloud of raw values with mean unit vector :math:`\\bar u_k` (the sums of
+    unit vectors over the count) and spread :math:`r_k^2 = 1 - |\\bar u_k|^2` (the mean squared
+    distance of its unit vectors from their mean direction, nearly planar at cell scales).  The
+    separation of a value of part k and one of part l is modelled as the separation c of the
+    means plus an isotropic Gaussian offset of variance :math:`R^2 (r_k^2 + r_l^2)` (half per
+    axis), and the mean pair correlation :math:`E[\\rho_0 e^{-d/L}]` over it is found by a 6 x 6
+    point Gauss-Hermite rule (numpy.polynomial.hermite_e); the pairs add
+    :math:`2 E[\\rho]\\,S_k S_l` (S: the parts' sums of sigma; the same with 1/sigma).  Exact for
+    parts small against L; the Gaussian cloud is an approximation for larger parts."""
+    from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M
+
+    count = np.concatenate([a._state["count"] for a in parts]).astype(np.float64)
+    mean_u = [np.concatenate([a._state[name] for a in parts]) / count
+              for name in ("sum_x", "sum_y", "sum_z")]
+    spread = np.maximum(1.0 - (mean_u[0] ** 2 + mean_u[1] ** 2 + mean_u[2] ** 2), 0.0)
     a = np.concatenate([p._state["sum_sigma"] for p in parts])
     b = np.concatenate([p._state["sum_inverse_sigma"] for p in parts])
     rho0, length_m = pair_correlation
-    return within_group_pair_sums(order, starts, sx / norm, sy / norm, sz / norm, a, b,
-                                  rho0, length_m)
+    order, starts = _bin_order(inverse, n_groups)
+    sizes = np.diff(np.r_[starts, len(order)])
+    cross_a, cross_b = np.zeros(n_groups), np.zeros(n_groups)
+    nodes, weights = np.polynomial.hermite_e.hermegauss(6)
+    weights = np.outer(weights, weights).ravel() / (2.0 * np.pi)  # standard normal, 2-D
+    along, across = np.meshgrid(nodes, nodes, indexing="ij")
+    along, across = along.ravel(), across.ravel()
+    for size in np.unique(sizes[sizes >= 2]):  # loop over part counts (a few), not rows
+        groups = np.flatnonzero(sizes == size)
+        first = starts[groups]
+        for p in range(size):
+            for q in range(p + 1, size):
+                rp, rq = order[first + p], order[first + q]
+                separation = EARTH_MEAN_RADIUS_M * np.sqrt(
+                    sum((u[rp] - u[rq]) ** 2 for u in mean_u))
+                offset = EARTH_MEAN_RADIUS_M * np.sqrt((spread[rp] + spread[rq]) / 2.0)
+                distance = np.hypot(separation[:, None] + offset[:, None] * along,
+                                    offset[:, None] * across)
+                rho = rho0 * (np.exp(-distance / length_m) @ weights)
+                cross_a[groups] += 2.0 * rho * a[rp] * a[rq]
+                cross_b[groups] += 2.0 * rho * b[rp] * b[rq]
+    return cross_a, cross_b
 
 
 # --------------------------------------------------------------------------------------------

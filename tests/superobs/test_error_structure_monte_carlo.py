@@ -294,3 +294,57 @@ def test_cell_area_of_a_polar_stereographic_grid_matches_the_projection_scale_fa
     # the grid's widths are great-circle distances on the mean sphere, each within -0.45 % ..
     # +0.56 % of the WGS 84 geodesic (ModelGrid.cell_center_distance): the area within 1.2 %
     np.testing.assert_allclose(grid.cell_area(i, j), expected, rtol=1.2e-2)
+
+
+def exponential_errors(rng, sigma, lon, lat, group, rho0, length_m, trials):
+    """Errors with covariance rho0 exp(-d/L) sigma_i sigma_j within a group (d great-circle,
+    pyproj.Geod on the sphere of the mean Earth radius), independent across groups: numpy
+    Cholesky of the covariance."""
+    import pyproj
+
+    geod = pyproj.Geod(a=6371008.8, f=0.0)
+    n = sigma.size
+    a, b = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
+    _, _, distance = geod.inv(lon[a.ravel()], lat[a.ravel()], lon[b.ravel()], lat[b.ravel()])
+    rho = rho0 * np.exp(-distance.reshape(n, n) / length_m)
+    rho = np.where(group[:, None] == group[None, :], rho, 0.0)
+    np.fill_diagonal(rho, 1.0)
+    chol = np.linalg.cholesky(rho * np.outer(sigma, sigma))
+    return rng.standard_normal((trials, n)) @ chol.T
+
+
+@pytest.mark.parametrize("mode", ["mean", "weighted"])
+@pytest.mark.parametrize("split", [False, True])
+def test_distance_correlated_errors_match_the_empirical_error(mode, split):
+    """Two granules of pixels 2 km apart in a 10 km cell, correlation 0.8 exp(-d / 5 km)
+    within a granule; with ``split`` each granule's pixels come in two accumulators (parts of
+    a file read in pieces), whose pairs are then taken at the parts' mean positions."""
+    rng = np.random.default_rng(31 + int(split))
+    side = np.arange(5) * 0.018        # about 2 km in latitude
+    lat = np.repeat(-60.0 + side, 5)
+    lon = np.tile(10.0 + side * 2.0, 5)   # about 2 km in longitude at 60 S
+    lon, lat = np.r_[lon, lon + 0.004], np.r_[lat, lat + 0.002]
+    group = np.repeat([0, 1], 25)
+    sigma = rng.uniform(0.2, 0.4, 50)
+    trials = 20000
+    errors = exponential_errors(rng, sigma, lon, lat, group, 0.8, 5000.0, trials)
+    cells = np.repeat(np.arange(trials, dtype=np.int64), 50)
+
+    def acc(columns):
+        rows = (cells.reshape(trials, 50)[:, columns]).ravel()
+        picked = np.tile(columns, trials)
+        return Accumulator.from_observations(
+            {"cell": rows, "error_group": group[picked].astype(np.int64)},
+            (errors[:, columns]).ravel(), sigma[picked], np.zeros(rows.size), lon[picked],
+            lat[picked], np.zeros(rows.size), pair_correlation=(0.8, 5000.0))
+    if split:
+        first = np.r_[0:12, 25:37]
+        parts = [acc(first), acc(np.setdiff1d(np.arange(50), first))]
+        merged = Accumulator.merge(parts).collapse("error_group")
+    else:
+        merged = acc(np.arange(50)).collapse("error_group")
+    frame = merged.finalize(mode=mode)
+    predicted = frame["error_instrument"].to_numpy()
+    z2 = (frame["value"].to_numpy() / predicted) ** 2
+    # exact within one accumulator; parts at their mean positions: within the same 5 %
+    assert abs(z2.mean() - 1.0) < WITHIN_5_PERCENT, (z2.mean(), predicted[0])
