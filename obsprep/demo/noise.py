@@ -27,15 +27,13 @@ import numpy as np
 #: pairwise error correlation within one error group, per demo sensor (common practice, order
 #: of magnitude only): infrared SST within one granule, altimeter within one pass (0.1-0.5 is
 #: the usual range; the demo takes the low end, left after along-track corrections, so that its
-#: ~100 passes can check the errors statistically), gridded SST within one daily file.  Sensors
-#: not listed have independent errors.
+#: ~100 passes can check the errors statistically).  Sensors not listed (the gridded SST
+#: products among them) have independent errors.
 ERROR_CORRELATION = {
     "altimeter_a": 0.1,
     "altimeter_b": 0.1,
     "altimeter_c": 0.1,
     "sst_swath_ir": 0.2,
-    "sst_grid": 0.1,
-    "sst_microwave": 0.1,
 }
 
 #: standard deviation of the sub-cell variability per quantity, canonical units (common

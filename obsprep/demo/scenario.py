@@ -121,7 +121,9 @@ ORBITS = {
     "altimeter_c": Orbit(81.5, 6020.0, 250.0, 140.0, 0.6),
     "sst_swath_ir": Orbit(98.7, 6090.0, 60.0, 30.0),
 }
-SWATH_ROWS, SWATH_COLUMNS = 1000, 800       # full-size granule
+SWATH_ROWS, SWATH_COLUMNS = 1000, 800       # full-size pass of one day
+#: granule files per day's pass (real L2P granules are a few minutes of a pass each)
+SWATH_GRANULES_PER_DAY = 8
 SWATH_NADIR_PIXEL_KM = 1.2
 SWATH_MAX_VIEW_DEG = 45.0
 SWATH_GROUND_SPEED_KM_S = 6.6
@@ -473,58 +475,72 @@ def _write_sst_swath(scn):
         status[cloudy] = 3
         sigma = nadir + (edge - nadir) * (view / np.radians(SWATH_MAX_VIEW_DEG)) ** 2
         sigma = np.round(sigma / 0.01) * 0.01               # as stored (packing step 0.01 K)
+        # the day's pass is cut along track into SWATH_GRANULES_PER_DAY granule files, each
+        # one error group
+        granule_of_row = np.minimum(np.arange(rows) * SWATH_GRANULES_PER_DAY // rows,
+                                    SWATH_GRANULES_PER_DAY - 1)
         kelvin = (273.15 + truth.sea_surface_temperature(lon64, lat64, times)
                   + subcell_variability(rng, "sea_surface_temperature", lon.shape)
-                  + sensor_noise(rng, "sst_swath_ir", sigma))   # one error group: the granule
+                  + sensor_noise(rng, "sst_swath_ir", sigma, granule_of_row[:, None]))
         gross = rng.uniform(*SST_SWATH_GROSS_COLD_BIAS_K, size=lon.shape)
         kelvin = np.where(status == 1, kelvin - gross, kelvin)
         ice_sheet = 273.15 - 22.0 + 3.0 * rng.standard_normal(lon.shape)  # land surface
         kelvin = np.where(status == 2, ice_sheet, kelvin)
         ice_surface = 273.15 - 8.0 + 3.0 * rng.standard_normal(lon.shape)  # seen through no water
         kelvin = np.where(status == 4, ice_surface, kelvin)
-        present = status != 3
-        start = times[0, 0].astype(object)
-        granule = f"FULMAR3-IR-{start:%Y%m%dT%H%M%S}"
-        path = scn.path(f"obs/sst_swath/sst_l2_{start:%Y%m%dT%H%M%S}.nc")
-        with _create(path, "demo infrared SST swath (L2-like)", platform=PLATFORMS["sst_swath_ir"],
-                     id=granule,
-                     time_coverage_start=f"{times[0, 0].astype(object):%Y-%m-%dT%H:%M:%SZ}",
-                     time_coverage_end=f"{times[-1, 0].astype(object):%Y-%m-%dT%H:%M:%SZ}") as ds:
-            ds.createDimension("nj", rows)
-            ds.createDimension("ni", columns)
-            dims = ("nj", "ni")
-            _lonlat_variables(ds, dims, lon, lat, dtype=np.float32, what="pixel")
-            _variable(ds, "pixel_time", dims, np.float64,
-                      _time_number(times, "1981-01-01", 1.0), {
-                          "standard_name": "time", "long_name": "pixel observation time",
-                          "units": "seconds since 1981-01-01 00:00:00", "calendar": "gregorian"})
-            _variable(ds, "sea_surface_temperature", dims, np.int16,
-                      _pack(kelvin, 0.01, 273.15, -32768, np.int16, present), {
-                          "standard_name": "sea_surface_temperature", "units": "K",
-                          "long_name": "sea surface temperature (infrared)",
-                          "scale_factor": 0.01, "add_offset": 273.15,
-                          "coordinates": "pixel_time lat lon",
-                          "ancillary_variables": "sst_uncertainty sst_status"},
-                      fill=np.int16(-32768))
-            _variable(ds, "sst_uncertainty", dims, np.int16,
-                      _pack(sigma, 0.01, 0.0, -32768, np.int16, present), {
-                          "standard_name": "sea_surface_temperature standard_error",
-                          "units": "K", "long_name": "SST error standard deviation",
-                          "scale_factor": 0.01, "add_offset": 0.0,
-                          "coordinates": "pixel_time lat lon"}, fill=np.int16(-32768))
-            _variable(ds, "sst_status", dims, np.int8, status, {
-                "standard_name": "sea_surface_temperature status_flag",
-                "long_name": "pixel status", "flag_values": np.array([0, 1, 2, 3, 4], np.int8),
-                "flag_meanings": "good cloud_suspected land cloudy sea_ice",
-                "coordinates": "pixel_time lat lon"})
-        paths.append(path)
-        counts[path.name] = {"pixels": int(status.size),
-                             "good": int(np.count_nonzero(status == 0)),
-                             "cloud_suspected": int(np.count_nonzero(status == 1)),
-                             "land": int(np.count_nonzero(status == 2)),
-                             "cloudy": int(np.count_nonzero(status == 3)),
-                             "sea_ice": int(np.count_nonzero(status == 4))}
+        day_arrays = (lon, lat, times, status, sigma, kelvin)
+        for granule_index in range(SWATH_GRANULES_PER_DAY):
+            rows_of = granule_of_row == granule_index
+            lon, lat, times, status, sigma, kelvin = (a[rows_of] for a in day_arrays)
+            _write_swath_granule(scn, lon, lat, times, status, sigma, kelvin, paths, counts)
     return paths, counts
+
+
+def _write_swath_granule(scn, lon, lat, times, status, sigma, kelvin, paths, counts):
+    """One granule file of the infrared swath (rows of the day's pass)."""
+    present = status != 3
+    rows, columns = lon.shape
+    start = times[0, 0].astype(object)
+    granule = f"FULMAR3-IR-{start:%Y%m%dT%H%M%S}"
+    path = scn.path(f"obs/sst_swath/sst_l2_{start:%Y%m%dT%H%M%S}.nc")
+    with _create(path, "demo infrared SST swath (L2-like)", platform=PLATFORMS["sst_swath_ir"],
+                 id=granule,
+                 time_coverage_start=f"{times[0, 0].astype(object):%Y-%m-%dT%H:%M:%SZ}",
+                 time_coverage_end=f"{times[-1, 0].astype(object):%Y-%m-%dT%H:%M:%SZ}") as ds:
+        ds.createDimension("nj", rows)
+        ds.createDimension("ni", columns)
+        dims = ("nj", "ni")
+        _lonlat_variables(ds, dims, lon, lat, dtype=np.float32, what="pixel")
+        _variable(ds, "pixel_time", dims, np.float64,
+                  _time_number(times, "1981-01-01", 1.0), {
+                      "standard_name": "time", "long_name": "pixel observation time",
+                      "units": "seconds since 1981-01-01 00:00:00", "calendar": "gregorian"})
+        _variable(ds, "sea_surface_temperature", dims, np.int16,
+                  _pack(kelvin, 0.01, 273.15, -32768, np.int16, present), {
+                      "standard_name": "sea_surface_temperature", "units": "K",
+                      "long_name": "sea surface temperature (infrared)",
+                      "scale_factor": 0.01, "add_offset": 273.15,
+                      "coordinates": "pixel_time lat lon",
+                      "ancillary_variables": "sst_uncertainty sst_status"},
+                  fill=np.int16(-32768))
+        _variable(ds, "sst_uncertainty", dims, np.int16,
+                  _pack(sigma, 0.01, 0.0, -32768, np.int16, present), {
+                      "standard_name": "sea_surface_temperature standard_error",
+                      "units": "K", "long_name": "SST error standard deviation",
+                      "scale_factor": 0.01, "add_offset": 0.0,
+                      "coordinates": "pixel_time lat lon"}, fill=np.int16(-32768))
+        _variable(ds, "sst_status", dims, np.int8, status, {
+            "standard_name": "sea_surface_temperature status_flag",
+            "long_name": "pixel status", "flag_values": np.array([0, 1, 2, 3, 4], np.int8),
+            "flag_meanings": "good cloud_suspected land cloudy sea_ice",
+            "coordinates": "pixel_time lat lon"})
+    paths.append(path)
+    counts[path.name] = {"pixels": int(status.size),
+                         "good": int(np.count_nonzero(status == 0)),
+                         "cloud_suspected": int(np.count_nonzero(status == 1)),
+                         "land": int(np.count_nonzero(status == 2)),
+                         "cloudy": int(np.count_nonzero(status == 3)),
+                         "sea_ice": int(np.count_nonzero(status == 4))}
 
 
 # --- gridded SST ------------------------------------------------------------------------------

@@ -13,13 +13,17 @@ left if all z of a group were equal.
 
 from __future__ import annotations
 
+import json
+import os
+
 import numpy as np
 import pandas as pd
 
 from obsprep.demo.truth import truth_value
 
-#: sensors whose errors are correlated within one file (one granule or one daily grid per file)
-FILE_GROUPED_SENSORS = ("sst_swath_ir", "sst_grid", "sst_microwave")
+#: sensors whose errors are correlated within one granule file, the granule's start time in its
+#: file name (the demo's obs/sst_swath/sst_l2_YYYYMMDDTHHMMSS.nc)
+GRANULE_SENSORS = {"sst_swath_ir": "sst_l2_"}
 #: along-track sensors (also merged, as "altimetry" in examples/regular_grid.toml)
 ALONG_TRACK_SENSORS = ("altimeter_a", "altimeter_b", "altimeter_c", "altimetry")
 #: a new pass starts after this gap between a sensor's super-observations: one satellite's
@@ -31,8 +35,8 @@ PASS_GAP = np.timedelta64(20, "m")
 def error_groups(ds, quantity, truth_fn=None):
     """Error-group label of each super-observation of ``quantity`` in dataset ``ds``: (sensor,
     day, pass) for along-track sensors, passes split at gaps of :data:`PASS_GAP` in time (the
-    day because each daily file's pass is its own group), (sensor, day) for the file-grouped SST
-    sensors (one granule or grid per day), else the super-observation itself."""
+    day because each daily file's pass is its own group), the granule for the granule sensors
+    (:data:`GRANULE_SENSORS`), else the super-observation itself."""
     sensor = ds[f"{quantity}_sensor"].to_numpy().astype(str)
     time = ds[f"{quantity}_time"].to_numpy()
     day = time.astype("datetime64[D]").astype(str)
@@ -43,9 +47,18 @@ def error_groups(ds, quantity, truth_fn=None):
             order = chosen[np.argsort(time[chosen], kind="stable")]
             passes = np.concatenate([[0], np.cumsum(np.diff(time[order]) > PASS_GAP)])
             labels[order] = [f"{name}/{d}/{p}" for d, p in zip(day[order], passes)]
-    for name in FILE_GROUPED_SENSORS:
-        chosen = sensor == name
-        labels[chosen] = [f"{name}/{d}" for d in day[chosen]]
+    files = [str(f.get("file", f.get("path", ""))) if isinstance(f, dict) else str(f)
+             for f in json.loads(ds.attrs.get("input_files", "[]"))]
+    for name, prefix in GRANULE_SENSORS.items():
+        chosen = np.flatnonzero(sensor == name)
+        starts = np.sort(np.array(
+            [np.datetime64(pd.Timestamp(os.path.basename(f)[len(prefix):-3]).to_datetime64(), "ns")
+             for f in files if os.path.basename(f).startswith(prefix)], dtype="datetime64[ns]"))
+        if chosen.size and starts.size:
+            # a super-observation belongs to the granule in which its mean time lies (one in a
+            # cell shared by two granules is given one of them)
+            granule = np.searchsorted(starts, time[chosen], side="right") - 1
+            labels[chosen] = [f"{name}/{g}" for g in granule]
     return labels
 
 

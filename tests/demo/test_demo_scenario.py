@@ -34,7 +34,14 @@ import xarray as xr
 from obsprep.demo import truth as demo_truth
 from obsprep.demo import truth_value, write_demo
 from obsprep.demo.noise import ERROR_CORRELATION, FOOTPRINT_KM2, SUBCELL_SIGMA
-from obsprep.demo.scenario import CTD_STATIONS, FLOAT_COUNT, LAYER_INTERFACES_M
+from obsprep.demo.scenario import (
+    CTD_STATIONS,
+    FLOAT_COUNT,
+    LAYER_INTERFACES_M,
+    SWATH_COLUMNS,
+    SWATH_GRANULES_PER_DAY,
+    SWATH_ROWS,
+)
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES
 
@@ -139,7 +146,8 @@ def test_every_file_opens_with_xarray_and_references_resolve(demo):
     ancillary_variables, grid_mapping and bounds exists (CF-1.10 sections 2.6, 3.4, 5, 7.1);
     grid mappings build a CRS with PROJ; dimensional data variables have units."""
     files = all_netcdf_files(demo)
-    assert len(files) == 3 + 9 + 3 + 3 + 3 + 3 + 2 + 1     # 9: three altimeters, three days
+    # 9: three altimeters, three days; the infrared pass of each day in granule files
+    assert len(files) == 3 + 9 + 3 * SWATH_GRANULES_PER_DAY + 3 + 3 + 3 + 2 + 1
     for path in files:
         with xr.open_dataset(path) as ds:
             assert ds.attrs["Conventions"] == "CF-1.10", path
@@ -359,7 +367,7 @@ def test_sst_grid_open_water_has_the_sensor_sigma(demo, manifest):
                                                   lat[water], None, time_))
         groups.append(np.full(water.sum(), Path(path).name))
     assert_gaussian(np.concatenate(residuals), sigma, "sst grid", groups=np.concatenate(groups),
-                    correlation=ERROR_CORRELATION["sst_grid"],
+                    correlation=ERROR_CORRELATION.get("sst_grid", 0.0),
                     subcell=SUBCELL_SIGMA["sea_surface_temperature"])
 
 
@@ -680,7 +688,9 @@ def test_full_size_demo_is_fast_and_small(tmp_path):
     assert elapsed < 30.0
     assert size < 50e6
     with netCDF4.Dataset(result["files"]["sst_swath_ir"][0]) as ds:
-        assert ds.dimensions["nj"].size == 1000 and ds.dimensions["ni"].size == 800
+        # one granule of the day's 1000-row pass
+        assert ds.dimensions["nj"].size == SWATH_ROWS // SWATH_GRANULES_PER_DAY
+        assert ds.dimensions["ni"].size == SWATH_COLUMNS
 
 
 def test_thermocline_is_curved_inside_a_model_layer():
