@@ -176,7 +176,11 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
                 instrument = np.where(fitted, np.sqrt(fit_variance(
                     mean_variance, uncorrelated, fit.coefficient_squares, n)), instrument)
             else:
-                curvature = np.where(sub_surface, np.abs(fit.curvature_offset), 0.0)
+                # the squared offset less the noise of its estimate (unbiased, kept >= 0)
+                with np.errstate(invalid="ignore"):
+                    squared = fit.curvature_offset ** 2 - uncorrelated * fit.curvature_offset_noise
+                curvature = np.where(sub_surface, np.sqrt(np.maximum(np.nan_to_num(squared), 0.0)),
+                                     0.0)
         residual = np.where(sub_surface, fit.residual, residual)
         expected = np.where(sub_surface, fit_expected, expected)
         dof = np.where(sub_surface, n - parameters, dof)

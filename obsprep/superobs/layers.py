@@ -21,8 +21,9 @@ With fewer than four values, or fewer than three distinct depths, a straight lin
 distinct depths, three values) or the plain mean is fitted instead.
 
 ``superobs.layer_value`` chooses what a sub-surface super-observation reports
-(:data:`LAYER_VALUES`): ``"mean"`` the layer mean at the mean depth, with the estimated
-curvature offset :math:`|c|\\,M_2/n` added to the representation error; ``"fit"`` the fitted
+(:data:`LAYER_VALUES`): ``"mean"`` the layer mean at the mean depth, with the curvature offset
+:math:`c\\,M_2/n` added to the representation error, its square estimated without the noise of
+the fitted c (:math:`\\hat o^2 - \\operatorname{var}(\\hat o)`, kept >= 0); ``"fit"`` the fitted
 value at the super-observation's depth (the mean depth; the weighted mean depth in weighted
 mode), with the error of the fit (:func:`fit_variance`).
 """
@@ -44,14 +45,18 @@ _DETERMINED = 1e-9
 class LayerFit:
     """Per group: the fitted value at the reference depth (units of the value), the residual
     sum of squares about the fit (units squared), the number of fitted parameters (1, 2 or 3),
-    q = sum of the squared coefficients of the fitted value, and the curvature offset
-    (mean of the values minus the fitted value at the mean depth; 0 without a quadratic)."""
+    q = sum of the squared coefficients of the fitted value, the curvature offset (mean of the
+    values minus the fitted value at the mean depth; 0 without a quadratic) and the variance of
+    that estimated offset per unit of uncorrelated error variance of a value,
+    :math:`(M_2/n)^2 M_2 / \\det S` (the (2, 2) element of the inverse normal matrix; 0 without
+    a quadratic)."""
 
     value: np.ndarray
     residual: np.ndarray
     parameters: np.ndarray
     coefficient_squares: np.ndarray
     curvature_offset: np.ndarray
+    curvature_offset_noise: np.ndarray
 
 
 def fit_in_depth(state: dict, reference_depth) -> LayerFit:
@@ -83,8 +88,9 @@ def fit_in_depth(state: dict, reference_depth) -> LayerFit:
                             np.where(linear, svv - b_linear * c1, svv))
         q = np.where(quadratic, q_quadratic, np.where(linear, q_linear, 1.0 / n))
         offset = np.where(quadratic, c_quadratic * m2 / n, 0.0)
+        offset_noise = np.where(quadratic, (m2 / n) ** 2 * m2 / det, 0.0)
     parameters = np.where(quadratic, 3, np.where(linear, 2, 1)).astype(np.int64)
-    return LayerFit(value, np.maximum(residual, 0.0), parameters, q, offset)
+    return LayerFit(value, np.maximum(residual, 0.0), parameters, q, offset, offset_noise)
 
 
 def fit_variance(mean_variance, uncorrelated_variance, coefficient_squares, count):

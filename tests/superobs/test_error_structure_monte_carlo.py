@@ -348,3 +348,22 @@ def test_distance_correlated_errors_match_the_empirical_error(mode, split):
     z2 = (frame["value"].to_numpy() / predicted) ** 2
     # exact within one accumulator; parts at their mean positions: within the same 5 %
     assert abs(z2.mean() - 1.0) < WITHIN_5_PERCENT, (z2.mean(), predicted[0])
+
+
+def test_curvature_offset_estimate_is_unbiased_in_a_straight_layer_and_a_curved_one():
+    """ô^2 - u var-factor estimates the squared offset (mean minus value at the mean depth)
+    without bias: 0 for a straight profile, the true offset^2 in a thermocline (numpy draws)."""
+    rng = np.random.default_rng(23)
+    trials, sigma = 40000, 0.01
+    group = np.zeros(6, dtype=int)
+    for shape in (lambda d: 3.0 - 0.01 * d, thermocline):
+        depth = np.sort(rng.uniform(46.0, 54.0, (trials, 6)), axis=1)
+        noise = structured_errors(rng, np.full(6, sigma), group, 0.0, 0.0, trials=trials)
+        acc = collapsed(shape(depth) + noise, np.full(6, sigma), group, 0.0, depth=depth)
+        fit = fit_in_depth(acc.state, acc.state["depth_mean"])
+        estimate = fit.curvature_offset ** 2 - sigma**2 * fit.curvature_offset_noise
+        clean = fit_in_depth(collapsed(shape(depth), np.full(6, sigma), group, 0.0,
+                                       depth=depth).state, acc.state["depth_mean"])
+        truth = clean.curvature_offset ** 2     # the noise-free fit's offset
+        se = estimate.std() / np.sqrt(trials)
+        assert abs(estimate.mean() - truth.mean()) < 5 * se, (estimate.mean(), truth.mean(), se)
