@@ -64,13 +64,8 @@ def variance_of_mean(sum_variance, count, within_pairs, sum_sigma, sum_group_sig
     numpy.ndarray
         Variance, units of the value squared.
     """
-    across = _check_correlation(across_correlation)
-    n = np.asarray(count, dtype=np.float64)
-    total = np.asarray(sum_sigma, dtype=np.float64)
-    between = np.maximum(total * total - np.asarray(sum_group_sigma_squared, dtype=np.float64),
-                         0.0)
-    return (np.asarray(sum_variance, dtype=np.float64) + np.asarray(within_pairs)
-            + across * between) / (n * n)
+    return _variance_of_grouped_sum(sum_variance, within_pairs, sum_sigma,
+                                    sum_group_sigma_squared, across_correlation, count)
 
 
 def variance_of_weighted_mean(sum_inverse_variance, within_pairs_inverse, sum_inverse_sigma,
@@ -107,12 +102,21 @@ def variance_of_weighted_mean(sum_inverse_variance, within_pairs_inverse, sum_in
     numpy.ndarray
         Variance, units of the value squared.
     """
+    return _variance_of_grouped_sum(sum_inverse_variance, within_pairs_inverse,
+                                    sum_inverse_sigma, sum_group_inverse_sigma_squared,
+                                    across_correlation, sum_inverse_variance)
+
+
+def _variance_of_grouped_sum(diagonal, within_pairs, total, sum_group_squared, across_correlation,
+                             normaliser):
+    """``(diagonal + within_pairs + rho_x (total^2 - sum_group_squared)) / normaliser^2``, the
+    one formula behind :func:`variance_of_mean` and :func:`variance_of_weighted_mean`."""
     across = _check_correlation(across_correlation)
-    weight = np.asarray(sum_inverse_variance, dtype=np.float64)
-    total = np.asarray(sum_inverse_sigma, dtype=np.float64)
-    between = np.maximum(total * total
-                         - np.asarray(sum_group_inverse_sigma_squared, dtype=np.float64), 0.0)
-    return (weight + np.asarray(within_pairs_inverse) + across * between) / (weight * weight)
+    total = np.asarray(total, dtype=np.float64)
+    between = np.maximum(total * total - np.asarray(sum_group_squared, dtype=np.float64), 0.0)
+    normaliser = np.asarray(normaliser, dtype=np.float64)
+    return (np.asarray(diagonal, dtype=np.float64) + np.asarray(within_pairs)
+            + across * between) / (normaliser * normaliser)
 
 
 def error_of_mean(sum_var, sum_sigma, n, correlation=0.0):
