@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pyproj
 import pytest
-from sample_files import TIME_1950, projected_drift_file, var, write_gds2, write_nc
+from sample_files import TIME_1950, projected_drift_file, var, write_alongtrack, write_gds2, write_nc
 
 from obsprep.run.build import build
 
@@ -230,3 +230,238 @@ def test_spread_rule_corrects_errors_stated_too_small_by_two(understated_error_f
           np.std(residual / frame["error_instrument"].to_numpy(), ddof=1))
     assert np.std(residual / frame["error_instrument"].to_numpy(), ddof=1) > 1.8
     assert_normalised(z, error, len(z), mode)
+
+
+# --------------------------------------------------------------------------------------------
+# 5. a thermocline sampled by CF profiles, several levels per model layer
+# --------------------------------------------------------------------------------------------
+
+N_PROFILES = 120
+LAYER_INTERFACES = list(np.arange(0.0, 201.0, 10.0))     # 20 layers of 10 m
+PROFILE_SIGMA = 0.05                                     # degC, independent per level
+
+
+def thermocline(depth):
+    """Truth, degC: a tanh thermocline centred at 80 m, 12 m thick, 10 degC across."""
+    return 12.0 + 5.0 * np.tanh((80.0 - np.asarray(depth)) / 12.0)
+
+
+@pytest.fixture(scope="module")
+def thermocline_file(tmp_path_factory):
+    """N_PROFILES CF profiles (orthogonal multidimensional layout, CF 1.10 H.3.1, from memory)
+    with levels every 1.3 m from a random start near the surface down to 199 m (7 or 8 levels
+    per layer, not centred in it), temperature = thermocline + N(0, PROFILE_SIGMA)."""
+    tmp_path = tmp_path_factory.mktemp("profiles")
+    rng = np.random.default_rng(17)
+    levels = np.arange(0.0, 199.0, 1.3)
+    depth = np.clip(rng.uniform(0.3, 1.3, (N_PROFILES, 1)) + levels[None, :], None, 199.5)
+    temperature = thermocline(depth) + PROFILE_SIGMA * rng.standard_normal(depth.shape)
+    path = write_nc(tmp_path / "profiles.nc", {"profile": N_PROFILES, "level": levels.size}, {
+        "profile_id": var(("profile",), np.arange(N_PROFILES), dtype="i4", cf_role="profile_id"),
+        "time": var(("profile",), np.full(N_PROFILES, 27000.25), **TIME_1950),
+        "lat": var(("profile",), rng.uniform(30.2, 39.8, N_PROFILES), standard_name="latitude",
+                   units="degrees_north"),
+        "lon": var(("profile",), rng.uniform(-29.8, -20.2, N_PROFILES),
+                   standard_name="longitude", units="degrees_east"),
+        "depth": var(("profile", "level"), depth, fill=-999.0, standard_name="depth", units="m",
+                     positive="down"),
+        "temp": var(("profile", "level"), temperature, fill=99999.0,
+                    standard_name="sea_water_temperature", units="degree_Celsius",
+                    coordinates="time lat lon depth"),
+    }, featureType="profile")
+    return path
+
+
+def profile_config(path, out, layer_value):
+    return {
+        "window": {"analysis_time": "2023-12-06T00:00:00", "start_hours": -48.0},
+        "grid": {"type": "regular", "lon_min": -30.0, "lat_min": 30.0, "dlon": 1.0, "dlat": 1.0,
+                 "nlon": 10, "nlat": 10, "layer_interfaces": LAYER_INTERFACES},
+        "sources": [{"sensor": "ctd", "kind": "profiles", "paths": [str(path)],
+                     "error": {"rule": "constant", "value": PROFILE_SIGMA}}],
+        "superobs": {"layer_value": layer_value,
+                     "representation_error": {"sea_water_temperature": 0.0},
+                     "error_floor": {"sea_water_temperature": 1e-5}},
+        "output": {"directory": str(out)},
+    }
+
+
+def test_thermocline_fit_matches_the_truth_at_the_reported_depth(thermocline_file, tmp_path):
+    """n = N_PROFILES x 20 layers = 2400 independent super-observations (independent level
+    errors, one super-observation per profile and layer): 4 standard errors on the standard
+    deviation are 0.058."""
+    frame = build(profile_config(thermocline_file, tmp_path / "fit", "fit")).superobs
+    assert len(frame) == N_PROFILES * 20
+    error = frame["error"].to_numpy()
+    z = (frame["value"].to_numpy() - thermocline(frame["depth"].to_numpy())) / error
+    print("CASE5 fit", np.mean(z), np.std(z, ddof=1), len(z))
+    assert_normalised(z, error, len(z), "fit")
+
+
+def test_thermocline_layer_mean_is_not_silently_biased(thermocline_file, tmp_path):
+    """layer_value = "mean": the layer mean differs from the truth at the mean depth by the
+    curvature of the profile (many instrument errors in the thermocline); the error must carry
+    it, so |z| is not systematically large: mean z^2 <= 1 + 4 standard errors (sqrt(2 / n),
+    n = 2400), where the instrument part alone gives far more."""
+    frame = build(profile_config(thermocline_file, tmp_path / "mean", "mean")).superobs
+    error = frame["error"].to_numpy()
+    offset = frame["value"].to_numpy() - thermocline(frame["depth"].to_numpy())
+    assert np.all(np.isfinite(error)) and np.all(error > 0)
+    z = offset / error
+    z_instrument = offset / frame["error_instrument"].to_numpy()
+    print("CASE5 mean", np.mean(z), np.std(z, ddof=1), np.mean(z ** 2), len(z),
+          np.mean(z_instrument ** 2))
+    assert np.mean(z_instrument ** 2) > 4.0          # the curvature offset matters here
+    assert np.mean(z ** 2) <= 1.0 + STANDARD_ERRORS * np.sqrt(2.0 / len(z))
+
+
+# --------------------------------------------------------------------------------------------
+# 6. drift in map coordinates of a polar stereographic projection, 55..89 N
+# --------------------------------------------------------------------------------------------
+
+DRIFT_CRS = "EPSG:3413"        # NSIDC sea ice polar stereographic north, true scale at 70 N
+DRIFT_CELL_M = 50e3
+DRIFT_HALF_WIDTH_M = 4.0e6
+
+
+def test_map_drift_magnitude_matches_the_ground_displacement(tmp_path):
+    """Vectors at 55..89 N, all longitudes, 5..40 km long, given as differences of projected
+    coordinates (the reader's default axis_displacements = "map"); one vector per cell, so the
+    super-observation is the vector itself.  The point scale factor of this projection ranges
+    from 0.94 to 1.03 over these latitudes (map distances are off by up to 6 %); the
+    super-observation's length must be within 0.5 % of the geodesic distance from the start
+    to the end position on the WGS 84 ellipsoid (pyproj.Geod, the reference)."""
+    rng = np.random.default_rng(23)
+    n = 400
+    lat = rng.uniform(55.0, 89.0, n)
+    lon = rng.uniform(-180.0, 180.0, n)
+    to_map = pyproj.Transformer.from_crs("EPSG:4326", DRIFT_CRS, always_xy=True)
+    x, y = to_map.transform(lon, lat)
+    # one vector per cell: snap to cell centres, keep the first of any two in one cell
+    column = np.floor((x + DRIFT_HALF_WIDTH_M) / DRIFT_CELL_M)
+    row = np.floor((y + DRIFT_HALF_WIDTH_M) / DRIFT_CELL_M)
+    _, first = np.unique(column * 1e4 + row, return_index=True)
+    x = (column[first] + 0.5) * DRIFT_CELL_M - DRIFT_HALF_WIDTH_M
+    y = (row[first] + 0.5) * DRIFT_CELL_M - DRIFT_HALF_WIDTH_M
+    n = x.size
+    length_km = rng.uniform(5.0, 40.0, n)
+    angle = rng.uniform(0.0, 2.0 * np.pi, n)
+    dx_km, dy_km = length_km * np.cos(angle), length_km * np.sin(angle)
+    path = projected_drift_file(tmp_path / "drift.nc", x, y, dx_km, dy_km, crs=DRIFT_CRS,
+                                sigma_km=np.full(n, 1.0))
+    nx = int(2 * DRIFT_HALF_WIDTH_M / DRIFT_CELL_M)
+    config = {
+        "window": {"analysis_time": "2023-12-07T00:00:00", "start_hours": -72.0,
+                   "end_hours": 24.0, "slot_hours": 96.0},
+        "grid": {"type": "projected", "crs": DRIFT_CRS, "x_min": -DRIFT_HALF_WIDTH_M,
+                 "y_min": -DRIFT_HALF_WIDTH_M, "dx": DRIFT_CELL_M, "dy": DRIFT_CELL_M,
+                 "nx": nx, "ny": nx},
+        "sources": [{"sensor": "drift", "kind": "ice_drift", "paths": [path],
+                     "error": {"rule": "file"}}],
+        "output": {"directory": str(tmp_path / "out")},
+    }
+    frame = build(config).superobs
+    components = frame.pivot_table(index=["i", "j"], columns="quantity", values="value")
+    assert len(components) == n
+    i = components.index.get_level_values("i").to_numpy()
+    j = components.index.get_level_values("j").to_numpy()
+    x_start = (i + 0.5) * DRIFT_CELL_M - DRIFT_HALF_WIDTH_M
+    y_start = (j + 0.5) * DRIFT_CELL_M - DRIFT_HALF_WIDTH_M
+    by_start = {(round(a), round(b)): k for k, (a, b) in enumerate(zip(x, y))}
+    order = np.array([by_start[(round(a), round(b))] for a, b in zip(x_start, y_start)])
+    to_geographic = pyproj.Transformer.from_crs(DRIFT_CRS, "EPSG:4326", always_xy=True)
+    lon0, lat0 = to_geographic.transform(x[order], y[order])
+    lon1, lat1 = to_geographic.transform(x[order] + 1e3 * dx_km[order],
+                                         y[order] + 1e3 * dy_km[order])
+    _, _, ground_m = pyproj.Geod(ellps="WGS84").inv(lon0, lat0, lon1, lat1)
+    magnitude = np.hypot(components["sea_ice_drift_x"].to_numpy(),
+                         components["sea_ice_drift_y"].to_numpy())
+    relative = magnitude / ground_m - 1.0
+    map_relative = 1e3 * length_km[order] / ground_m - 1.0
+    print("CASE6", n, np.abs(relative).max(), np.abs(map_relative).max())
+    assert np.abs(map_relative).max() > 0.03        # the map lengths alone would fail
+    assert np.abs(relative).max() < 0.005, np.abs(relative).max()
+
+
+# --------------------------------------------------------------------------------------------
+# 7. errors correlated in distance along a pass
+# --------------------------------------------------------------------------------------------
+
+EARTH_RADIUS_M = 6371008.8     # mean radius (IUGG), the sphere the pairs are measured on
+TRACK_LAT0 = 45.0
+TRACK_DLAT = 0.09              # ~10 km cells
+TRACK_DLON = 0.127             # ~10 km at 45 N
+TRACK_L_KM = 20.0
+TRACK_RHO0 = 0.8
+TRACK_SIGMA_M = 0.05
+TRACK_COLUMNS, TRACK_ROW_PAIRS = 50, 12   # 600 passes, each crossing two cells
+POINTS_PER_CELL = 10
+
+
+def great_circle_m(lat_a, lon_a, lat_b, lon_b):
+    """Haversine distance on the sphere of EARTH_RADIUS_M (any geodesy text)."""
+    pa, pb, dl = np.radians(lat_a), np.radians(lat_b), np.radians(lon_b - lon_a)
+    h = np.sin((pb - pa) / 2) ** 2 + np.cos(pa) * np.cos(pb) * np.sin(dl / 2) ** 2
+    return 2.0 * EARTH_RADIUS_M * np.arcsin(np.sqrt(h))
+
+
+def test_distance_correlated_errors_along_passes(tmp_path):
+    """600 meridional passes in one along-track file (split at time gaps), each over two
+    ~10 km cells with 10 points per cell; errors drawn with numpy's Cholesky factor of
+    C_ij = sigma^2 (rho0 exp(-d_ij / L) + (1 - rho0) delta_ij), L = 20 km, rho0 = 0.8.  The
+    two cells of a pass have correlated errors (coefficient r computed below from C); the
+    effective number of independent super-observations is 1200 / (1 + r^2) (the variance of a
+    sum of squared correlated Gaussians): r = 0.70, n = 802, 4 standard errors on the standard
+    deviation 0.0999.  Every pass has the same layout, so every predicted error must also equal
+    the exact standard deviation of a cell's mean under C, sqrt(1^T C_cell 1) / 10."""
+    rng = np.random.default_rng(31)
+    n_pass = TRACK_COLUMNS * TRACK_ROW_PAIRS
+    per_pass = 2 * POINTS_PER_CELL
+    offsets = (np.arange(per_pass) + 0.5) / POINTS_PER_CELL * TRACK_DLAT   # degrees north
+    lat = np.empty((n_pass, per_pass))
+    lon = np.empty((n_pass, per_pass))
+    for p in range(n_pass):
+        column, row_pair = p % TRACK_COLUMNS, p // TRACK_COLUMNS
+        lat[p] = TRACK_LAT0 + 2 * row_pair * TRACK_DLAT + offsets
+        lon[p] = (column + 0.5) * TRACK_DLON
+    distance = great_circle_m(lat[0][:, None], lon[0][:, None], lat[0][None, :],
+                              lon[0][None, :])
+    # the same covariance for every pass (same shape, same latitude spacing; the small change
+    # of the metres per degree of longitude does not enter a meridional track)
+    covariance = TRACK_SIGMA_M ** 2 * (TRACK_RHO0 * np.exp(-distance / (1e3 * TRACK_L_KM))
+                                       + (1.0 - TRACK_RHO0) * np.eye(per_pass))
+    factor = np.linalg.cholesky(covariance)
+    errors = rng.standard_normal((n_pass, per_pass)) @ factor.T
+    # 2 s between points, passes starting 120 s apart: split at the default 60 s gap
+    time = (np.arange(n_pass)[:, None] * 120.0 + np.arange(per_pass)[None, :] * 2.0).ravel()
+    reference = (np.datetime64("2026-11-19T02:00:00") - np.datetime64("1950-01-01T00:00:00")
+                 ).astype("timedelta64[s]").astype(float)
+    path = str(tmp_path / "track.nc")
+    write_alongtrack(path, lon.ravel(), lat.ravel(), reference + time, errors.ravel())
+    config = {
+        "window": {"analysis_time": "2026-11-20T00:00:00", "start_hours": -24.0,
+                   "slot_hours": 24.0},
+        "grid": {"type": "regular", "lon_min": 0.0, "lat_min": TRACK_LAT0, "dlon": TRACK_DLON,
+                 "dlat": TRACK_DLAT, "nlon": TRACK_COLUMNS, "nlat": 2 * TRACK_ROW_PAIRS},
+        "sources": [{"sensor": "alt", "kind": "alongtrack", "paths": [path],
+                     "correlation": TRACK_RHO0, "correlation_length_km": TRACK_L_KM,
+                     "error": {"rule": "constant", "value": TRACK_SIGMA_M}}],
+        "superobs": {"representation_error": {"sea_level_anomaly": 0.0},
+                     "error_floor": {"sea_level_anomaly": 1e-5}},
+        "output": {"directory": str(tmp_path / "out")},
+    }
+    frame = build(config).superobs
+    assert len(frame) == 2 * n_pass and (frame["count"] == POINTS_PER_CELL).all()
+    error = frame["error"].to_numpy()
+    z = frame["value"].to_numpy() / error          # truth 0
+    first, second = np.zeros(per_pass), np.zeros(per_pass)
+    first[:POINTS_PER_CELL], second[POINTS_PER_CELL:] = 1.0, 1.0
+    r = first @ covariance @ second / np.sqrt((first @ covariance @ first)
+                                              * (second @ covariance @ second))
+    n_independent = 2 * n_pass / (1.0 + r * r)
+    # the predicted error is the exact one of a cell's mean under C
+    exact = np.sqrt(first @ covariance @ first) / POINTS_PER_CELL
+    print("CASE7", np.mean(z), np.std(z, ddof=1), len(z), n_independent, r,
+          np.median(error), exact)
+    np.testing.assert_allclose(error, exact, rtol=1e-6)
+    assert_normalised(z, error, n_independent, "distance")
