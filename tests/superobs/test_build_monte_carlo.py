@@ -78,7 +78,7 @@ def cell_frame(result):
 
 #: blocks of three cells a, b, c in a row; granule 1 covers a, b, c, granule 2 b, c, granule 3
 #: c only: cell a has pixels of 1 granule, b of 2, c of 3
-N_BLOCKS = 60
+N_BLOCKS = 120
 GRANULE_RHO = 0.3
 PIXELS_PER_SIDE = 2
 
@@ -112,10 +112,10 @@ def test_correlated_granules(granule_files, mode):
     share granule 1 (and b, c granule 2), so the 3 N_BLOCKS z values count as fewer.  With the
     correlations of their errors (about 0.45, 0.37, 0.52 between a-b, a-c, b-c for equal
     sigma) the sum of z^2 over a block has variance 2 (3 + 2 (0.2 + 0.14 + 0.27)) = 8.4 instead
-    of 6, so n = 3 N_BLOCKS 6 / 8.4 = 129 independent values (about: the granules' sigma
-    differ).  Four standard errors on the standard deviation would be 0.25, wider than the
-    [0.9, 1.1] asked for, which is kept (1.6 standard errors: a right model passes with about
-    90 % chance per seed; the seed is fixed).  Files cost ~50 ms each in a build, which bounds
+    of 6, so n = 3 N_BLOCKS 6 / 8.4 = 257 independent values (about: the granules' sigma
+    differ).  Four standard errors on the standard deviation would be 0.18, wider than the
+    [0.9, 1.1] asked for, which is kept (2.3 standard errors: a right model passes with about
+    98 % chance per seed; the seed is fixed).  Files cost ~50 ms each in a build, which bounds
     N_BLOCKS within the time budget."""
     cfg = sst_config(granule_files, "granule_*.nc", mode=mode, error={"rule": "file"},
                      correlation=GRANULE_RHO)
