@@ -15,7 +15,15 @@ from __future__ import annotations
 import numpy as np
 import pyproj
 import pytest
-from sample_files import TIME_1950, projected_drift_file, var, write_alongtrack, write_gds2, write_nc
+from sample_files import (
+    TIME_1950,
+    ice_concentration_file,
+    projected_drift_file,
+    var,
+    write_alongtrack,
+    write_gds2,
+    write_nc,
+)
 
 from obsprep.run.build import build
 
@@ -465,3 +473,38 @@ def test_distance_correlated_errors_along_passes(tmp_path):
           np.median(error), exact)
     np.testing.assert_allclose(error, exact, rtol=1e-6)
     assert_normalised(z, error, n_independent, "distance")
+
+
+@pytest.mark.parametrize("mode", ["mean", "weighted"])
+def test_ice_concentration_of_exactly_one_with_the_spread_rule(tmp_path, mode):
+    """Pack ice: every pixel 100 % on a polar stereographic grid, 4 x 4 pixels per 25 km cell;
+    the spread is 0, the error must still be positive and at least the floor."""
+    cell, per_side, n_cells = 25e3, 4, 10
+    step = cell / per_side
+    x0, y0 = -1.0e6, -1.5e6
+    x = x0 + (np.arange(n_cells * per_side) + 0.5) * step
+    y = y0 + (np.arange(n_cells * per_side) + 0.5) * step
+    path = ice_concentration_file(tmp_path / "ice.nc", conc=np.full((1, y.size, x.size), 100.0),
+                                  x=x, y=y)
+    floor = 0.005     # below the shrunk spread error (~0.012), so the rule itself is seen
+    config = {
+        "window": {"analysis_time": "2023-12-06T00:00:00", "start_hours": -48.0},
+        "grid": {"type": "projected", "crs": "EPSG:3413", "x_min": x0, "y_min": y0, "dx": cell,
+                 "dy": cell, "nx": n_cells, "ny": n_cells},
+        "sources": [{"sensor": "ice", "kind": "ice_concentration", "paths": [path],
+                     "correlation": 0.2, "error": {"rule": "constant", "value": 0.05}}],
+        "superobs": {"mode": mode, "spread_combination": "spread_when_n_ge",
+                     "spread_min_count": 5, "representation_error": {"sea_ice_concentration": 0.0},
+                     "error_floor": {"sea_ice_concentration": floor}},
+        "output": {"directory": str(tmp_path / "out")},
+    }
+    frame = build(config).superobs
+    assert len(frame) == n_cells ** 2 and (frame["count"] == per_side ** 2).all()
+    assert np.all(frame["value"].to_numpy() == pytest.approx(1.0, abs=1e-12))
+    error = frame["error"].to_numpy()
+    print("CASE3 ice", mode, error.min(), error.max(), frame["error_basis"].unique())
+    assert np.all(np.isfinite(error)) and np.all(error > 0) and np.all(error >= floor)
+    assert (frame["error_basis"] == 1).all()    # the spread rule, shrunk toward its prior
+    # R = 0: error_instrument sqrt(nu0 / (nu0 + nu)), nu0 = 4 (default), nu = 16 - 1 (README)
+    np.testing.assert_allclose(error, frame["error_instrument"] * np.sqrt(4.0 / 19.0),
+                               rtol=1e-12)
