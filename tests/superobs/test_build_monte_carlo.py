@@ -244,7 +244,7 @@ def test_spread_rule_corrects_errors_stated_too_small_by_two(understated_error_f
 # 5. a thermocline sampled by CF profiles, several levels per model layer
 # --------------------------------------------------------------------------------------------
 
-N_PROFILES = 120
+N_PROFILES = 400
 LAYER_INTERFACES = list(np.arange(0.0, 201.0, 10.0))     # 20 layers of 10 m
 PROFILE_SIGMA = 0.05                                     # degC, independent per level
 
@@ -280,29 +280,34 @@ def thermocline_file(tmp_path_factory):
     return path
 
 
-def profile_config(path, out, layer_value):
+def profile_config(path, out, layer_value, spread_combination="instrument"):
     return {
         "window": {"analysis_time": "2023-12-06T00:00:00", "start_hours": -48.0},
         "grid": {"type": "regular", "lon_min": -30.0, "lat_min": 30.0, "dlon": 1.0, "dlat": 1.0,
                  "nlon": 10, "nlat": 10, "layer_interfaces": LAYER_INTERFACES},
         "sources": [{"sensor": "ctd", "kind": "profiles", "paths": [str(path)],
                      "error": {"rule": "constant", "value": PROFILE_SIGMA}}],
-        "superobs": {"layer_value": layer_value,
+        "superobs": {"layer_value": layer_value, "spread_combination": spread_combination,
                      "representation_error": {"sea_water_temperature": 0.0},
                      "error_floor": {"sea_water_temperature": 1e-5}},
         "output": {"directory": str(out)},
     }
 
 
-def test_thermocline_fit_matches_the_truth_at_the_reported_depth(thermocline_file, tmp_path):
-    """n = N_PROFILES x 20 layers = 2400 independent super-observations (independent level
+@pytest.mark.parametrize("spread_combination", ["instrument", "spread_when_n_ge"])
+def test_thermocline_fit_matches_the_truth_at_the_reported_depth(thermocline_file, tmp_path,
+                                                                 spread_combination):
+    """n = N_PROFILES x 20 layers = 8000 independent super-observations (independent level
     errors, one super-observation per profile and layer): 4 standard errors on the standard
-    deviation are 0.058."""
-    frame = build(profile_config(thermocline_file, tmp_path / "fit", "fit")).superobs
+    deviation are 0.032.  With the spread rule the residuals about the fit (7 or 8 values, 3
+    parameters: nu = 4 or 5) set the error; its shrinkage gives E[z^2] = E[(4 + nu) /
+    (4 + chi2_nu)] = 1.11 (numpy draws), z std 1.054, inside the range."""
+    frame = build(profile_config(thermocline_file, tmp_path / "fit", "fit",
+                                 spread_combination)).superobs
     assert len(frame) == N_PROFILES * 20
     error = frame["error"].to_numpy()
     z = (frame["value"].to_numpy() - thermocline(frame["depth"].to_numpy())) / error
-    print("CASE5 fit", np.mean(z), np.std(z, ddof=1), len(z))
+    print("CASE5 fit", spread_combination, np.mean(z), np.std(z, ddof=1), len(z))
     assert_normalised(z, error, len(z), "fit")
 
 
@@ -310,7 +315,7 @@ def test_thermocline_layer_mean_is_not_silently_biased(thermocline_file, tmp_pat
     """layer_value = "mean": the layer mean differs from the truth at the mean depth by the
     curvature of the profile (many instrument errors in the thermocline); the error must carry
     it, so |z| is not systematically large: mean z^2 <= 1 + 4 standard errors (sqrt(2 / n),
-    n = 2400), where the instrument part alone gives far more."""
+    n = 8000), where the instrument part alone gives far more."""
     frame = build(profile_config(thermocline_file, tmp_path / "mean", "mean")).superobs
     error = frame["error"].to_numpy()
     offset = frame["value"].to_numpy() - thermocline(frame["depth"].to_numpy())
@@ -508,3 +513,28 @@ def test_ice_concentration_of_exactly_one_with_the_spread_rule(tmp_path, mode):
     # R = 0: error_instrument sqrt(nu0 / (nu0 + nu)), nu0 = 4 (default), nu = 16 - 1 (README)
     np.testing.assert_allclose(error, frame["error_instrument"] * np.sqrt(4.0 / 19.0),
                                rtol=1e-12)
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "layer_value = 'mean' adds the estimated curvature offset |c_hat| M2 / n in quadrature "
+    "without removing its own noise: E[offset_hat^2] = offset^2 + u (q - 1/n), so in layers "
+    "without curvature the mean square of the added term is 1.33 times the instrument variance and "
+    "z std is 0.75 (0.96 with the instrument part alone)"))
+def test_thermocline_layer_mean_error_is_right_where_the_profile_is_straight(thermocline_file,
+                                                                            tmp_path):
+    """Below 140 m the thermocline is flat (its true curvature offset is < 0.01 of the
+    instrument error there), so the layer mean is the value at the mean depth and its error should be the
+    instrument part: z std within [0.9, 1.1].  n = N_PROFILES x 6 layers = 2400 independent
+    super-observations (4 standard errors on the standard deviation: 0.058).  The instrument
+    part alone passes (checked below); the total error does not."""
+    frame = build(profile_config(thermocline_file, tmp_path / "mean", "mean")).superobs
+    depth = frame["depth"].to_numpy()
+    flat = depth > 140.0
+    offset = frame["value"].to_numpy()[flat] - thermocline(depth[flat])
+    instrument = frame["error_instrument"].to_numpy()[flat]
+    error = frame["error"].to_numpy()[flat]
+    print("CASE5 mean flat", np.mean(offset / error), np.std(offset / error, ddof=1),
+          np.std(offset / instrument, ddof=1), flat.sum())
+    assert flat.sum() == N_PROFILES * 6
+    assert abs(np.std(offset / instrument, ddof=1) - 1.0) < 0.1
+    assert_normalised(offset / error, error, flat.sum(), "mean, straight layers")
