@@ -418,39 +418,36 @@ def great_circle_m(lat_a, lon_a, lat_b, lon_b):
     return 2.0 * EARTH_RADIUS_M * np.arcsin(np.sqrt(h))
 
 
-def test_distance_correlated_errors_along_passes(tmp_path):
-    """600 meridional passes in one along-track file (split at time gaps), each over two
-    ~10 km cells with 10 points per cell; errors drawn with numpy's Cholesky factor of
-    C_ij = sigma^2 (rho0 exp(-d_ij / L) + (1 - rho0) delta_ij), L = 20 km, rho0 = 0.8.  The
-    two cells of a pass have correlated errors (coefficient r computed below from C); the
-    effective number of independent super-observations is 1200 / (1 + r^2) (the variance of a
-    sum of squared correlated Gaussians): r = 0.70, n = 802, 4 standard errors on the standard
-    deviation 0.0999.  Every pass has the same layout, so every predicted error must also equal
-    the exact standard deviation of a cell's mean under C, sqrt(1^T C_cell 1) / 10."""
-    rng = np.random.default_rng(31)
+def track_layout():
+    """Latitudes and longitudes (n_pass, 20) of the passes and the correlation matrix of one
+    pass's errors, rho0 exp(-d / L) + (1 - rho0) delta (the same for every pass: same shape and
+    latitude spacing; a meridional track does not feel the metres per degree of longitude)."""
     n_pass = TRACK_COLUMNS * TRACK_ROW_PAIRS
     per_pass = 2 * POINTS_PER_CELL
     offsets = (np.arange(per_pass) + 0.5) / POINTS_PER_CELL * TRACK_DLAT   # degrees north
-    lat = np.empty((n_pass, per_pass))
-    lon = np.empty((n_pass, per_pass))
-    for p in range(n_pass):
-        column, row_pair = p % TRACK_COLUMNS, p // TRACK_COLUMNS
-        lat[p] = TRACK_LAT0 + 2 * row_pair * TRACK_DLAT + offsets
-        lon[p] = (column + 0.5) * TRACK_DLON
+    column, row_pair = np.arange(n_pass) % TRACK_COLUMNS, np.arange(n_pass) // TRACK_COLUMNS
+    lat = TRACK_LAT0 + 2 * row_pair[:, None] * TRACK_DLAT + offsets[None, :]
+    lon = np.broadcast_to(((column + 0.5) * TRACK_DLON)[:, None], lat.shape).copy()
     distance = great_circle_m(lat[0][:, None], lon[0][:, None], lat[0][None, :],
                               lon[0][None, :])
-    # the same covariance for every pass (same shape, same latitude spacing; the small change
-    # of the metres per degree of longitude does not enter a meridional track)
-    covariance = TRACK_SIGMA_M ** 2 * (TRACK_RHO0 * np.exp(-distance / (1e3 * TRACK_L_KM))
-                                       + (1.0 - TRACK_RHO0) * np.eye(per_pass))
-    factor = np.linalg.cholesky(covariance)
-    errors = rng.standard_normal((n_pass, per_pass)) @ factor.T
-    # 2 s between points, passes starting 120 s apart: split at the default 60 s gap
+    correlation = (TRACK_RHO0 * np.exp(-distance / (1e3 * TRACK_L_KM))
+                   + (1.0 - TRACK_RHO0) * np.eye(per_pass))
+    return lat, lon, correlation
+
+
+def build_passes(tmp_path, lat, lon, errors, *, mode="mean", file_sigma=None):
+    """One along-track file of the passes (2 s between points, passes starting 120 s apart:
+    split at the reader's default 60 s gap), built on ~10 km cells; the raw error is
+    TRACK_SIGMA_M, or ``file_sigma`` stored as the file's standard_error (rule "file")."""
+    n_pass, per_pass = lat.shape
     time = (np.arange(n_pass)[:, None] * 120.0 + np.arange(per_pass)[None, :] * 2.0).ravel()
     reference = (np.datetime64("2026-11-19T02:00:00") - np.datetime64("1950-01-01T00:00:00")
                  ).astype("timedelta64[s]").astype(float)
     path = str(tmp_path / "track.nc")
-    write_alongtrack(path, lon.ravel(), lat.ravel(), reference + time, errors.ravel())
+    write_alongtrack(path, lon.ravel(), lat.ravel(), reference + time, errors.ravel(),
+                     error=None if file_sigma is None else file_sigma.ravel())
+    error_rule = ({"rule": "constant", "value": TRACK_SIGMA_M} if file_sigma is None
+                  else {"rule": "file"})
     config = {
         "window": {"analysis_time": "2026-11-20T00:00:00", "start_hours": -24.0,
                    "slot_hours": 24.0},
@@ -458,26 +455,66 @@ def test_distance_correlated_errors_along_passes(tmp_path):
                  "dlat": TRACK_DLAT, "nlon": TRACK_COLUMNS, "nlat": 2 * TRACK_ROW_PAIRS},
         "sources": [{"sensor": "alt", "kind": "alongtrack", "paths": [path],
                      "correlation": TRACK_RHO0, "correlation_length_km": TRACK_L_KM,
-                     "error": {"rule": "constant", "value": TRACK_SIGMA_M}}],
-        "superobs": {"representation_error": {"sea_level_anomaly": 0.0},
+                     "error": error_rule}],
+        "superobs": {"mode": mode, "representation_error": {"sea_level_anomaly": 0.0},
                      "error_floor": {"sea_level_anomaly": 1e-5}},
         "output": {"directory": str(tmp_path / "out")},
     }
     frame = build(config).superobs
     assert len(frame) == 2 * n_pass and (frame["count"] == POINTS_PER_CELL).all()
-    error = frame["error"].to_numpy()
-    z = frame["value"].to_numpy() / error          # truth 0
-    first, second = np.zeros(per_pass), np.zeros(per_pass)
-    first[:POINTS_PER_CELL], second[POINTS_PER_CELL:] = 1.0, 1.0
+    return frame
+
+
+def independent_count(covariance, n_pass):
+    """1200 / (1 + r^2), r the correlation of the errors of a pass's two cell means under
+    ``covariance`` (the variance of a sum of squared correlated Gaussians)."""
+    first = np.r_[np.ones(POINTS_PER_CELL), np.zeros(POINTS_PER_CELL)]
+    second = 1.0 - first
     r = first @ covariance @ second / np.sqrt((first @ covariance @ first)
                                               * (second @ covariance @ second))
-    n_independent = 2 * n_pass / (1.0 + r * r)
-    # the predicted error is the exact one of a cell's mean under C
-    exact = np.sqrt(first @ covariance @ first) / POINTS_PER_CELL
+    return 2 * n_pass / (1.0 + r * r), r
+
+
+def test_distance_correlated_errors_along_passes(tmp_path):
+    """600 meridional passes in one along-track file, each over two ~10 km cells with 10
+    points per cell; errors drawn with numpy's Cholesky factor of
+    C_ij = sigma^2 (rho0 exp(-d_ij / L) + (1 - rho0) delta_ij), L = 20 km, rho0 = 0.8.  The
+    two cells of a pass have correlated errors (coefficient r computed from C): r = 0.70, the
+    effective number of independent super-observations n = 1200 / (1 + r^2) = 802, 4
+    standard errors on the standard deviation 0.0999.  Every pass has the same layout, so every
+    predicted error must also equal the exact standard deviation of a cell's mean under C,
+    sqrt(1^T C_cell 1) / 10."""
+    rng = np.random.default_rng(31)
+    lat, lon, correlation = track_layout()
+    covariance = TRACK_SIGMA_M ** 2 * correlation
+    errors = rng.standard_normal(lat.shape) @ np.linalg.cholesky(covariance).T
+    frame = build_passes(tmp_path, lat, lon, errors)
+    error = frame["error"].to_numpy()
+    z = frame["value"].to_numpy() / error          # truth 0
+    n_independent, r = independent_count(covariance, lat.shape[0])
+    cell = np.r_[np.ones(POINTS_PER_CELL), np.zeros(POINTS_PER_CELL)]
+    exact = np.sqrt(cell @ covariance @ cell) / POINTS_PER_CELL
     print("CASE7", np.mean(z), np.std(z, ddof=1), len(z), n_independent, r,
           np.median(error), exact)
     np.testing.assert_allclose(error, exact, rtol=1e-6)
     assert_normalised(z, error, n_independent, "distance")
+
+
+@pytest.mark.parametrize("mode", ["mean", "weighted"])
+def test_distance_correlated_errors_with_unequal_sigma(tmp_path, mode):
+    """As above with per-point sigma 0.02..0.10 m from the file's standard_error:
+    C_ij = sigma_i sigma_j (rho0 exp(-d_ij / L) + (1 - rho0) delta_ij).  n is taken as for
+    equal sigma (802; unequal sigma changes r a little either way)."""
+    rng = np.random.default_rng(37)
+    lat, lon, correlation = track_layout()
+    sigma = np.round(rng.uniform(0.02, 0.10, lat.shape), 4)
+    errors = sigma * (rng.standard_normal(lat.shape) @ np.linalg.cholesky(correlation).T)
+    frame = build_passes(tmp_path, lat, lon, errors, mode=mode, file_sigma=sigma)
+    error = frame["error"].to_numpy()
+    z = frame["value"].to_numpy() / error
+    n_independent, _ = independent_count(correlation, lat.shape[0])
+    print("CASE7 unequal", mode, np.mean(z), np.std(z, ddof=1), len(z))
+    assert_normalised(z, error, n_independent, f"distance, unequal sigma, {mode}")
 
 
 @pytest.mark.parametrize("mode", ["mean", "weighted"])
