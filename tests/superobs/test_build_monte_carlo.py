@@ -12,6 +12,7 @@ sample standard deviation has a standard error of about 1 / sqrt(2 n) and the me
 
 from __future__ import annotations
 
+import netCDF4
 import numpy as np
 import pyproj
 import pytest
@@ -515,6 +516,94 @@ def test_distance_correlated_errors_with_unequal_sigma(tmp_path, mode):
     n_independent, _ = independent_count(correlation, lat.shape[0])
     print("CASE7 unequal", mode, np.mean(z), np.std(z, ddof=1), len(z))
     assert_normalised(z, error, n_independent, f"distance, unequal sigma, {mode}")
+
+
+SWATH_SEGMENTS, SWATH_ROWS, SWATH_COLUMNS = 40, 100, 8     # 4 x 4 pixels per ~10 km cell
+SWATH_SIGMA_K = 0.3
+
+
+@pytest.fixture(scope="module")
+def correlated_swath(tmp_path_factory):
+    """One L2P granule of 40 swath segments (100 rows x 8 pixels, 2.5 km pixels, segments
+    ~30 km apart in longitude), errors drawn per segment with numpy's Cholesky factor of
+    C_ij = sigma^2 (rho0 exp(-d_ij / L) + (1 - rho0) delta_ij), d on the sphere, L = 20 km.
+    Returns the path and, per cell (i, j), the exact error of its mean (sqrt(a^T C a), a the
+    cell's averaging weights) and the cells' error correlation matrices per segment."""
+    tmp_path = tmp_path_factory.mktemp("swath")
+    rng = np.random.default_rng(41)
+    pixel_lat, pixel_lon = TRACK_DLAT / 4, TRACK_DLON / 4
+    rows, columns = np.meshgrid(np.arange(SWATH_ROWS), np.arange(SWATH_COLUMNS), indexing="ij")
+    lat_blocks, lon_blocks, error_blocks, exact, correlations = [], [], [], {}, []
+    for segment in range(SWATH_SEGMENTS):
+        lat = TRACK_LAT0 + (rows + 0.5) * pixel_lat
+        lon = 3 * segment * TRACK_DLON + (columns + 0.5) * pixel_lon
+        d = great_circle_m(lat.ravel()[:, None], lon.ravel()[:, None], lat.ravel()[None, :],
+                           lon.ravel()[None, :])
+        covariance = SWATH_SIGMA_K ** 2 * (TRACK_RHO0 * np.exp(-d / (1e3 * TRACK_L_KM))
+                                           + (1.0 - TRACK_RHO0) * np.eye(d.shape[0]))
+        draws = np.linalg.cholesky(covariance) @ rng.standard_normal(d.shape[0])
+        lat_blocks.append(lat)
+        lon_blocks.append(lon)
+        error_blocks.append(draws.reshape(lat.shape))
+        cell_i = (3 * segment + columns // 4).ravel()
+        cell_j = (rows // 4).ravel()
+        cells = sorted(set(zip(cell_i.tolist(), cell_j.tolist())))
+        weights = np.array([((cell_i == i) & (cell_j == j)) / 16.0 for i, j in cells])
+        cell_covariance = weights @ covariance @ weights.T
+        sd = np.sqrt(np.diag(cell_covariance))
+        exact.update({cell: value for cell, value in zip(cells, sd)})
+        correlations.append(cell_covariance / np.outer(sd, sd))
+    # the packing step of sea_surface_temperature is 0.01 K: write the rounded value
+    sst = np.round(TRUTH_KELVIN + np.vstack(error_blocks), 2)
+    path = write_gds2(tmp_path / "swath.nc", sst, lat=np.zeros(SWATH_ROWS * SWATH_SEGMENTS),
+                      lon=np.zeros(SWATH_COLUMNS), sd=np.full(sst.shape, SWATH_SIGMA_K),
+                      reference_seconds=GDS2_REFERENCE_SECONDS)
+    with netCDF4.Dataset(path, "a") as nc:      # the swath's own 2-D positions
+        nc["lat"][:] = np.vstack(lat_blocks)
+        nc["lon"][:] = np.vstack(lon_blocks)
+    return path, exact, correlations
+
+
+@pytest.mark.parametrize("read_in_parts", [False, True])
+def test_distance_correlated_errors_in_a_swath(correlated_swath, tmp_path, monkeypatch,
+                                               read_in_parts):
+    """Read whole, every predicted error equals the exact one (the pair sums are exact within
+    a part); read in parts of 18 rows (cells of 4 rows cut at about half of the part
+    boundaries), the pairs between parts are approximated, and z must still pass.  n: the
+    2000 cells' z are correlated with their neighbours; for the standard deviation the
+    effective count is N^2 / sum_ij r_ij^2 (r the cells' error correlations, exact from C),
+    452 here: 4 standard errors on the standard deviation 0.13, so [0.9, 1.1] is the tighter
+    check (3 standard errors)."""
+    import obsprep.run.build as build_module
+
+    path, exact, correlations = correlated_swath
+    if read_in_parts:
+        monkeypatch.setattr(build_module, "READ_PART_VALUES", 18 * SWATH_COLUMNS)
+    config = {
+        "window": SST_WINDOW,
+        "grid": {"type": "regular", "lon_min": 0.0, "lat_min": TRACK_LAT0, "dlon": TRACK_DLON,
+                 "dlat": TRACK_DLAT, "nlon": 3 * SWATH_SEGMENTS, "nlat": SWATH_ROWS // 4},
+        "sources": [{"sensor": "ir", "kind": "ghrsst_l2p", "paths": [path],
+                     "correlation": TRACK_RHO0, "correlation_length_km": TRACK_L_KM,
+                     "error": {"rule": "file"}}],
+        "superobs": {"representation_error": {SKIN: 0.0}, "error_floor": {SKIN: TINY_FLOOR}},
+        "output": {"directory": str(tmp_path / "out")},
+    }
+    frame = build(config).superobs
+    assert len(frame) == len(exact) and (frame["count"] == 16).all()
+    error = frame["error"].to_numpy()
+    expected = np.array([exact[(i, j)] for i, j in zip(frame["i"], frame["j"])])
+    z = (frame["value"].to_numpy() - (TRUTH_KELVIN - 273.15)) / error
+    n_independent = len(z) ** 2 / sum(float(np.sum(r * r)) for r in correlations)
+    print("CASE7 swath", read_in_parts, np.mean(z), np.std(z, ddof=1), len(z), n_independent,
+          (error / expected).min(), (error / expected).max())
+    if not read_in_parts:
+        np.testing.assert_allclose(error, expected, rtol=1e-5)
+    # the 0.01 K packing adds 0.0029 K per pixel: negligible against 0.3 K
+    std = np.std(z, ddof=1)
+    assert np.all(np.isfinite(error)) and np.all(error > 0)
+    assert 0.9 <= std <= 1.1, (read_in_parts, std)
+    assert abs(np.mean(z)) < STANDARD_ERRORS / np.sqrt(n_independent)
 
 
 @pytest.mark.parametrize("mode", ["mean", "weighted"])
