@@ -52,7 +52,7 @@ from obsprep.superobs.errors import (
     residual_variance_factor,
     variance_of_mean,
 )
-from obsprep.superobs.layers import fit_in_depth, fit_variance
+from obsprep.superobs.layers import fit_in_depth, fit_variance, significant_curvature
 from obsprep.superobs.representation import sampled_representation_error
 
 #: the pairs of components of a vector quantity whose error covariance is kept
@@ -176,11 +176,8 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
                 instrument = np.where(fitted, np.sqrt(fit_variance(
                     mean_variance, uncorrelated, fit.coefficient_squares, n)), instrument)
             else:
-                # the squared offset less the noise of its estimate (unbiased, kept >= 0)
-                with np.errstate(invalid="ignore"):
-                    squared = fit.curvature_offset ** 2 - uncorrelated * fit.curvature_offset_noise
-                curvature = np.where(sub_surface, np.sqrt(np.maximum(np.nan_to_num(squared), 0.0)),
-                                     0.0)
+                curvature = np.where(sub_surface, significant_curvature(
+                    fit.curvature_offset, uncorrelated * fit.curvature_offset_noise), 0.0)
         residual = np.where(sub_surface, fit.residual, residual)
         expected = np.where(sub_surface, fit_expected, expected)
         dof = np.where(sub_surface, n - parameters, dof)
