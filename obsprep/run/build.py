@@ -346,12 +346,14 @@ def accumulate(work: FileWork) -> None:
                 return np.broadcast_to(np.int64(value), (m,))  # no memory per row
 
             q_code = q_all[rows]
+            # the rows' pass, granule or profile in this file: their error group, and the
+            # profile key when profiles are averaged one by one
+            error_group = profile_key(file_index, group_codes[rows])
             profile = constant(NO_PROFILE)
             if per_profile:
                 is_profile = is_profile_quantity[q_code]
                 if is_profile.any():
-                    profile = np.where(is_profile, profile_key(file_index, group_codes[rows]),
-                                       np.int64(NO_PROFILE))
+                    profile = np.where(is_profile, error_group, np.int64(NO_PROFILE))
             time_end = columns["time_end"][rows]
             t_end = seconds_since(time_end, cfg.window.analysis_time)
             t_start_key, t_end_key = interval_keys(
@@ -365,7 +367,7 @@ def accumulate(work: FileWork) -> None:
             keys = group_keys(quantity=q_code, sensor=constant(sensor_code),
                               slot=slot_index(placed, cfg.window, at_end), j=jj, i=ii,
                               k=k[rows], profile=profile, t_start=t_start_key, t_end=t_end_key)
-            keys[ERROR_GROUP_KEY] = profile_key(file_index, group_codes[rows])
+            keys[ERROR_GROUP_KEY] = error_group
             cross = None if work.cross_covariance is None else work.cross_covariance[rows]
             partner = None if work.partner_error is None else work.partner_error[rows]
             reducer.add(Accumulator.from_observations(

@@ -45,7 +45,11 @@ import numpy as np
 
 from obsprep.geo.sphere import cos_sin_degrees
 from obsprep.superobs.error_model import total_error
-from obsprep.superobs.errors import variance_of_mean, variance_of_weighted_mean
+from obsprep.superobs.errors import (
+    constant_correlation_pairs,
+    variance_of_mean,
+    variance_of_weighted_mean,
+)
 from obsprep.superobs.spherical import mean_position
 
 _INT64_MAX = int(np.iinfo(np.int64).max)
@@ -690,8 +694,7 @@ def _merge_state(parts, key_names, collapsed, pair_correlation, has_representati
         if collapsed:
             state["group_count"] = state["group_count"].round().astype(np.int64)
         elif pair_correlation is not None and n_rows > n_groups:
-            # pairs between parts of one group: each part at its centroid (exact when the
-            # parts are small against the correlation length)
+            # pairs between parts of one group, from the parts' mean positions and spreads
             cross_sigma, cross_inverse = _pairs_between_parts(parts, inverse, n_groups,
                                                               pair_correlation)
             state["pair_sum_sigma"] += cross_sigma
@@ -1097,20 +1100,17 @@ class Accumulator:
                 within_sigma = s["pair_sum_sigma"]
                 within_inverse = s["pair_sum_inverse_sigma"]
             else:
-                # the bracket is >= 0 exactly; rounding may make it a hair negative for n = 1
-                within_sigma = rho * np.maximum(group_sigma_squared - s["sum_variance"], 0.0)
-                within_inverse = rho * np.maximum(group_inverse_squared
-                                                  - s["sum_inverse_variance"], 0.0)
+                within_sigma = constant_correlation_pairs(s["sum_sigma"], s["sum_variance"], rho)
+                within_inverse = constant_correlation_pairs(s["sum_inverse_sigma"],
+                                                            s["sum_inverse_variance"], rho)
         state = {name: s[name] for name in (*STATE_FIELDS, *self._representative_names())}
         state.update({"group_count": np.ones(self.n_groups, dtype=np.int64),
                       "sum_group_sigma_squared": group_sigma_squared,
                       "sum_group_inverse_sigma_squared": group_inverse_squared,
                       "within_pairs_sigma": within_sigma,
                       "within_pairs_inverse_sigma": within_inverse})
-        if key is None:
-            return Accumulator(self._key_names, self._keys, {n: np.array(a) for n, a in
-                                                            state.items()},
-                               self._has_representative)
+        if key is None:  # the state arrays are read-only: shared, not copied
+            return Accumulator(self._key_names, self._keys, state, self._has_representative)
         remaining = tuple(name for name in self._key_names if name != key)
         if not remaining:
             raise ValueError("Accumulator.collapse: at least one key must remain")
@@ -1171,7 +1171,7 @@ class Accumulator:
         else:
             accumulator = self.collapse(None, _per_group("correlation", correlation,
                                                          self.n_groups, low=0.0, high=1.0))
-        n_groups = self.n_groups if accumulator is self else accumulator.n_groups
+        n_groups = accumulator.n_groups
         across = _per_group("across_correlation", across_correlation, n_groups, low=0.0,
                             high=1.0)
         representation = _per_group("representation_error", representation_error, n_groups,

@@ -145,19 +145,19 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
     mode = settings.mode
     sub_surface = np.array([not QUANTITIES[q].surface for q in quantity_names])[keys["quantity"]]
     across = inputs.across_correlation
-    value = frame["value"].to_numpy().copy()
-    instrument = frame["error_instrument"].to_numpy().copy()
+    value = frame["value"].to_numpy()
+    instrument = frame["error_instrument"].to_numpy()
     # the equally weighted mean's error variance and the residuals it leads one to expect
     mean_variance = variance_of_mean(state["sum_variance"], count, state["within_pairs_sigma"],
                                      state["sum_sigma"], state["sum_group_sigma_squared"], across)
     expected_mean = expected_residual_of_mean(state["sum_variance"], count, mean_variance)
     if mode == "weighted":
-        residual = state["weighted_m2"].copy()
+        residual = state["weighted_m2"]
         expected = expected_residual_of_weighted_mean(count, state["sum_inverse_variance"],
                                                       instrument ** 2)
     else:
-        residual = state["value_m2"].copy()
-        expected = expected_mean.copy()
+        residual = state["value_m2"]
+        expected = expected_mean
     dof = n - 1.0
     curvature = np.zeros(len(count))
     spread_detrended = np.full(len(count), np.nan)
@@ -203,7 +203,7 @@ def complete_errors(cfg, accumulator, frame, inputs: GroupErrorInputs, sensor_na
         "error_spread": spread_error,
         "error_basis": basis,
         "error_raw_rms": raw_rms,
-        "spread_detrended": np.where(sub_surface, spread_detrended, np.nan),
+        "spread_detrended": spread_detrended,
         "error_origin": origins[keys["sensor"], keys["quantity"]],
         "error_correlation": component_error_correlation(accumulator, error, mode,
                                                          quantity_names),

@@ -119,6 +119,16 @@ def _variance_of_grouped_sum(diagonal, within_pairs, total, sum_group_squared, a
             + across * between) / (normaliser * normaliser)
 
 
+def constant_correlation_pairs(total, sum_of_squares, correlation):
+    """Pair sum of one error group with a constant correlation rho:
+    :math:`\\sum_{i \\ne j} \\rho a_i a_j = \\rho[(\\sum a_i)^2 - \\sum a_i^2]`, from the
+    group's ``total`` :math:`\\sum a_i` and ``sum_of_squares`` :math:`\\sum a_i^2`
+    (:math:`a = \\sigma` for the mean, :math:`1/\\sigma` for the weighted mean).  The bracket is
+    >= 0 exactly; rounding may make it a hair negative for one value, so it is kept >= 0."""
+    total = np.asarray(total, dtype=np.float64)
+    return correlation * np.maximum(total * total - np.asarray(sum_of_squares), 0.0)
+
+
 def error_of_mean(sum_var, sum_sigma, n, correlation=0.0):
     """Error of the equally weighted mean of n values with a common pairwise error correlation.
 
@@ -154,9 +164,7 @@ def error_of_mean(sum_var, sum_sigma, n, correlation=0.0):
     rho = _check_correlation(correlation)
     sum_var = np.asarray(sum_var, dtype=np.float64)
     sum_sigma = np.asarray(sum_sigma, dtype=np.float64)
-    # one error group: the pairs are rho times the bracket, which is >= 0 exactly (rounding
-    # may make it a hair negative for n = 1)
-    within = rho * np.maximum(sum_sigma * sum_sigma - sum_var, 0.0)
+    within = constant_correlation_pairs(sum_sigma, sum_var, rho)   # one error group
     return np.sqrt(variance_of_mean(sum_var, n, within, sum_sigma, sum_sigma * sum_sigma))
 
 
@@ -195,7 +203,7 @@ def error_of_weighted_mean(sum_inv_var, sum_inv_sigma, correlation=0.0):
     rho = _check_correlation(correlation)
     weight = np.asarray(sum_inv_var, dtype=np.float64)
     sum_inv_sigma = np.asarray(sum_inv_sigma, dtype=np.float64)
-    within = rho * np.maximum(sum_inv_sigma * sum_inv_sigma - weight, 0.0)
+    within = constant_correlation_pairs(sum_inv_sigma, weight, rho)   # one error group
     return np.sqrt(variance_of_weighted_mean(weight, within, sum_inv_sigma,
                                              sum_inv_sigma * sum_inv_sigma))
 
