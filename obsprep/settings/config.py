@@ -409,12 +409,18 @@ def sensor_across_correlations(cfg: Config) -> dict:
     """Error correlation across error groups per output sensor (``correlation_across_groups``);
     sources merged into one sensor must agree.  The within-group correlation is each source's
     own: it is applied per file, where every error group belongs to one source."""
-    out: dict[str, float] = {}
+    return agreed_per_output_sensor(cfg, "correlation_across_groups")
+
+
+def agreed_per_output_sensor(cfg: Config, setting: str) -> dict:
+    """The value of source ``setting`` per output sensor; sources merged into one sensor must
+    agree (else a ConfigError naming ``sources[i].<setting>``)."""
+    out: dict = {}
     for s in cfg.sources:
         name = cfg.output_sensor(s.sensor)
-        if name in out and out[name] != s.correlation_across_groups:
-            raise ConfigError(f"sources[{s.index}].correlation_across_groups",
-                              f"sources merged into '{name}' have different correlations "
-                              f"across groups ({out[name]} and {s.correlation_across_groups})")
-        out[name] = s.correlation_across_groups
+        value = getattr(s, setting)
+        if out.setdefault(name, value) != value:
+            raise ConfigError(f"sources[{s.index}].{setting}",
+                              f"sources merged into '{name}' have different values "
+                              f"({out[name]} and {value})")
     return out

@@ -7,7 +7,7 @@ import pandas as pd
 
 from obsprep.model.product import TABLE_COLUMNS
 from obsprep.model.quantities import QUANTITY_NAMES
-from obsprep.settings.config import Config, sensor_across_correlations
+from obsprep.settings.config import Config, agreed_per_output_sensor, sensor_across_correlations
 from obsprep.superobs.accumulate import Accumulator
 from obsprep.superobs.complete import complete_errors, group_error_inputs
 from obsprep.superobs.keys import decode_group_keys
@@ -25,8 +25,8 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
         return pd.DataFrame(columns=["quantity", "sensor", "slot", "i", "j", "k", "count", "value", "error"])
     if not accumulator.collapsed:
         # a caller's own accumulator, without error groups: each group is one error group
-        # with its sensor's within-group correlation
-        within = _within_correlation_by_sensor(cfg)
+        # with its sensor's within-group correlation (merged sources must then agree on it)
+        within = agreed_per_output_sensor(cfg, "correlation")
         accumulator = accumulator.collapse(None, np.array(
             [within[name] for name in sensor_names])[accumulator.keys["sensor"]])
     inputs = group_error_inputs(cfg, accumulator, sensor_names, sensor_across_correlations(cfg),
@@ -50,18 +50,6 @@ def finalize_superobs(cfg: Config, accumulator: Accumulator, sensor_names, profi
     t_end = cfg.window.analysis_time + (frame["t_end"].to_numpy() * 10**9).astype("timedelta64[ns]")
     columns["time_end"] = np.where(interval, t_end, np.datetime64("NaT", "ns"))
     out = pd.DataFrame({col: columns[col] for col in TABLE_COLUMNS})
-    return out
-
-
-def _within_correlation_by_sensor(cfg: Config) -> dict:
-    """The within-group correlation per output sensor, for accumulators without error groups
-    (sources merged into one sensor must then agree)."""
-    out: dict = {}
-    for source in cfg.sources:
-        name = cfg.output_sensor(source.sensor)
-        if out.setdefault(name, source.correlation) != source.correlation:
-            raise ValueError(f"sensor '{name}': merged sources have different correlations; an "
-                             f"accumulator without error groups cannot tell them apart")
     return out
 
 
