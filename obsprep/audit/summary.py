@@ -2,8 +2,9 @@
 
 Spread test.  Inside one super-observation the raw values scatter by their errors (and by the
 true variability inside the cell).  Pooled over the groups g of a sensor and quantity with
-n_g >= 2 raw values (n_g >= 3 for profile layers, where the spread is taken about a straight
-line in depth, :func:`obsprep.superobs.errors.spread_about_depth_line`):
+n_g >= 2 raw values (n_g >= 3 for profile layers, where the spread is taken about the fit in
+depth, :func:`obsprep.superobs.layers.fit_in_depth`: a quadratic from four values on, whose
+ddof of 3 this test does not yet use):
 
 .. math::
     f_{spread}^2 = \\frac{\\sum_g (n_g - 1)\\, s_g^2}{(1 - \\rho) \\sum_g (n_g - 1)\\, \\bar\\sigma_g^2}
