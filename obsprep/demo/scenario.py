@@ -3,7 +3,7 @@
 Every observation is the known truth (:mod:`obsprep.demo.truth`) at the observation's position
 and time, plus a sub-cell variability the model grid cannot resolve, plus Gaussian noise of a
 known standard deviation per sensor, correlated within an error group (an altimeter pass, an
-SST granule, a gridded SST file; :mod:`obsprep.demo.noise`), drawn from a seeded generator
+infrared SST granule; :mod:`obsprep.demo.noise`), drawn from a seeded generator
 (``numpy.random.default_rng([seed, stream])``, one stream per file), so two runs with the same
 seed write the same values.  Files are CF-1.10 netCDF-4 following
 ``docs/file-conventions.md``; they are written with netCDF4 from whole numpy arrays.
