@@ -1,7 +1,7 @@
 """The demo's super-observation errors against its known truth, with realistic errors.
 
 The demo (obsprep.demo.noise) draws raw errors correlated within each error group (an
-altimeter pass, an infrared SST granule, a gridded SST file) and a sub-cell variability per raw
+altimeter pass, an infrared SST granule) and a sub-cell variability per raw
 footprint; its configuration tells the build both (sources' ``correlation``, the "sampling"
 representation model, ``layer_value = "fit"`` for the curved thermocline).  If the build's
 errors are right, z = (super-observation - truth) / error is N(0, 1) for every quantity: mean
