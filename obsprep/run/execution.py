@@ -343,10 +343,12 @@ class _ClusterWatch:
         self.client = client
         self.address = address
         self._finished = as_completed()
+        self._watched = set()  # added and not yet handed out
         self._empty_since = None
 
     def add(self, future) -> None:
         """Watch ``future`` too."""
+        self._watched.add(future)
         self._finished.add(future)
 
     def _workers(self) -> int:
@@ -383,23 +385,35 @@ class _ClusterWatch:
 
         last_look = time.monotonic()
         while True:
-            finished = self._finished.next_batch(block=False)
+            finished = [f for f in self._finished.next_batch(block=False) if f in self._watched]
             if any(f.status == "cancelled" for f in finished):  # e.g. the scheduler went away
                 raise ClusterError(f"the Dask scheduler at {self.address} cancelled the build's "
                                    f"tasks ({done} of {total} files done); the build stops")
             if finished:
+                self._watched.difference_update(finished)
                 return finished
             time.sleep(self._NAP)
             if time.monotonic() - last_look >= POLL_SECONDS:
                 self.check(done, total)
+                # a result lost with the worker holding it is never "completed": hand it out
+                # as done, for the caller to submit again (see _is_lost_worker)
+                lost = [f for f in self._watched if f.status == "lost"]
+                if lost:
+                    self._watched.difference_update(lost)
+                    return lost
                 last_look = time.monotonic()
 
 
 def _is_lost_worker(future) -> bool:
-    """The future failed because the workers running it were lost (distributed.KilledWorker)."""
+    """The future of a done task was lost with a worker: it failed because the workers running
+    it were lost (distributed.KilledWorker), or its result went with the worker holding it
+    (handed out as done, but neither finished nor erred: status "lost" or back to pending).
+    Asking such a future for its result would wait for a recomputation that may never come."""
     from distributed import KilledWorker
 
-    return future.status == "error" and isinstance(future.exception(), KilledWorker)
+    if future.status == "error":
+        return isinstance(future.exception(), KilledWorker)
+    return future.status != "finished"
 
 
 def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, scheduler,
