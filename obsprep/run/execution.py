@@ -377,6 +377,19 @@ class _ClusterWatch:
                                f"{NO_WORKER_TIMEOUT_SECONDS:g} s ({done} of {total} files done); "
                                "the build stops")
 
+    def result_of(self, future, done: int, total: int):
+        """The result of a finished ``future`` (its task's exception raised as itself), fetched
+        while the cluster is watched: the data may go with their worker before they are
+        fetched, and then the fetch would wait for a recomputation that may never come.  Returns
+        :data:`_LOST` when the result was lost; raises ClusterError as :meth:`check` does."""
+        while True:
+            try:
+                return future.result(timeout=POLL_SECONDS)
+            except TimeoutError:
+                if future.status in ("lost", "pending"):
+                    return _LOST
+                self.check(done, total)
+
     def next_done(self, done: int, total: int) -> list:
         """The watched futures finished since the last call (at least one)."""
         import time
@@ -402,6 +415,10 @@ class _ClusterWatch:
                     self._watched.difference_update(lost)
                     return lost
                 last_look = time.monotonic()
+
+
+#: what :meth:`_ClusterWatch.result_of` returns for a result lost with its worker
+_LOST = object()
 
 
 def _is_lost_worker(future) -> bool:
@@ -502,9 +519,12 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
             for summary in watch.next_done(len(entries), len(tasks)):
                 task = waiting.pop(summary)
                 index = task.file_index
-                if summary.status == "finished":
-                    entries[index] = summary.result()
-                elif _is_lost_worker(file_of[index]) or _is_lost_worker(summary):
+                was_finished = summary.status == "finished"
+                result = watch.result_of(summary, len(entries), len(tasks)) if was_finished \
+                    else _LOST
+                if result is not _LOST:
+                    entries[index] = result
+                elif was_finished or _is_lost_worker(file_of[index]) or _is_lost_worker(summary):
                     if attempts[index] <= FILE_RESUBMISSIONS:
                         attempts[index] += 1
                         file_of[index], again = submit(task, attempts[index])
@@ -520,10 +540,13 @@ def _run_on_dask(process, cfg, grid, tasks, duplicates, sensor_names, strict, sc
         if root is not None:
             watch.add(root)
             watch.next_done(len(tasks), len(tasks))
-            if _is_lost_worker(root):
+            lost = _is_lost_worker(root)
+            if not lost:
+                root = watch.result_of(root, len(tasks), len(tasks))
+                lost = root is _LOST
+            if lost:
                 raise ClusterError(f"merging the partial results lost the Dask workers of the "
                                    f"cluster at {address}; the build stops")
-            root = root.result()
         for index in range(len(tasks)):
             entry, names = entries[index]
             outcome.entries.append(entry)
