@@ -351,14 +351,15 @@ class _ClusterWatch:
         self._watched.add(future)
         self._finished.add(future)
 
-    def _workers(self) -> int:
+    def _workers(self, done: int, total: int) -> int:
         from obsprep.exceptions import ClusterError
 
         try:
             return len(self.client.nthreads(callback_timeout=max(5.0, 5 * POLL_SECONDS)))
         except (OSError, TimeoutError) as exc:
             raise ClusterError(f"lost the connection to the Dask scheduler at {self.address} "
-                               f"({type(exc).__name__}: {exc}); the build stops") from None
+                               f"({type(exc).__name__}: {exc}; {done} of {total} files done); "
+                               f"the build stops") from None
 
     def check(self, done: int, total: int) -> None:
         """Raise ClusterError when the cluster has had no worker for too long."""
@@ -366,7 +367,7 @@ class _ClusterWatch:
 
         from obsprep.exceptions import ClusterError
 
-        if self._workers():
+        if self._workers(done, total):
             self._empty_since = None
             return
         now = time.monotonic()
