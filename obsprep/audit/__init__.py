@@ -45,6 +45,8 @@ class AuditResult:
     tolerance: float
     model_description: str
     grid_shape: tuple | None = None
+    #: the run's model grid (for maps), None when its files cannot be found
+    grid: object = None
     figures: list = field(default_factory=list)
     outputs: dict = field(default_factory=dict)
 
@@ -106,7 +108,7 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     if ensemble_paths and background_paths:
         raise InputFileError(background, "give either an ensemble or a background, not both")
     model_paths = ensemble_paths or background_paths
-    table, innovations, grid_shape = None, pd.DataFrame(), None
+    table, innovations, grid_shape, grid = None, pd.DataFrame(), None, None
     description = "none (no ensemble or background given)"
     if model_paths:
         from obsprep.audit.ensemble import model_equivalents
@@ -126,7 +128,13 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     result = AuditResult(run=run, summary=pd.DataFrame(), collocation=collocation_table(run.superobs),
                          triple=triple_collocation_table(run.superobs), innovations=innovations,
                          table=table, tolerance=tolerance, model_description=description,
-                         grid_shape=grid_shape)
+                         grid_shape=grid_shape, grid=grid)
+    if grid is None and figures:
+        try:
+            result.grid = run.grid(config)
+            result.grid_shape = result.grid.shape
+        except InputFileError:
+            result.grid = None  # maps fall back to grid indices; the report says so
     result.summary = sensor_summary(run, innovations, result.triple, tolerance)
     out_dir = Path(out) if out else Path(run_dir) / "audit"
     result.outputs = write_report(result, out_dir, with_figures=figures)
