@@ -137,16 +137,30 @@ def configure(directory, paths, *, correlation=None, representation=0.0):
     }
 
 
+def true_factors(superobs):
+    """Per sensor, the factor its assigned errors should be multiplied by, from the truth:
+    the rms of (value - truth) / error (numpy), the truth (what the model represents: no
+    representation error) taken at the super-observation's mean position (the truth is
+    smooth: linear to 0.01 K over a cell)."""
+    factors = {}
+    for sensor, group in superobs.groupby("sensor"):
+        truth = truth_kelvin(group["lon"].to_numpy(), group["lat"].to_numpy()) - 273.15
+        residual = group["value"].to_numpy() - truth
+        factors[sensor] = float(np.sqrt(np.mean((residual / group["error"].to_numpy()) ** 2)))
+    return factors
+
+
 def built_and_audited(directory, paths, **config):
-    """The build's output directory, and the summaries audited with and without the
-    ensemble, indexed by sensor."""
+    """The summaries audited with and without the ensemble, indexed by sensor, and the true
+    factors (``true_factors``)."""
     result = build(configure(directory, paths, **config))
     run_dir = result.outputs["netcdf"].parent
     with_model = audit(run_dir, ensemble=[paths["ensemble"]], out=directory / "audit_ensemble",
                        figures=False)
     without = audit(run_dir, out=directory / "audit_collocation", figures=False)
     return {"ensemble": with_model.summary.set_index("sensor"),
-            "collocation only": without.summary.set_index("sensor")}
+            "collocation only": without.summary.set_index("sensor"),
+            "true": true_factors(result.superobs)}
 
 
 def verdicts(summaries, way):
@@ -158,7 +172,7 @@ def verdicts(summaries, way):
 def assert_accepted(summaries, way, expected: dict):
     """Every sensor's flag within the accepted set of its right verdict."""
     found = verdicts(summaries, way)
-    print(way, {s: f for s, (f, _) in found.items()})
+    print(way, {s: f for s, (f, _) in found.items()}, "true factors", summaries["true"])
     for sensor, right in expected.items():
         flag, reason = found[sensor]
         assert flag in ACCEPTED[right], (way, sensor, right, flag, reason)
@@ -205,6 +219,8 @@ def test_unstated_correlated_error_field_is_never_called_ok(correlated_field, wa
 def test_wrongly_configured_correlation_is_never_called_too_small(configured_correlation, way):
     """ir_c's assigned errors are sqrt(1 + (n - 1) 0.6) times its true ones (independent
     pixel noise): too large, never too small."""
+    true = configured_correlation["true"]
+    assert true["ir_c"] < 0.55 and all(0.85 < true[s] < 1.15 for s in ("ir_a", "ir_b")), true
     assert_accepted(configured_correlation, way, {"ir_a": "ok", "ir_b": "ok",
                                                   "ir_c": "too_large"})
 
@@ -214,6 +230,7 @@ def test_coarse_grid_with_subcell_variability_flags_no_correct_sensor(coarse_gri
     """Sub-cell variability inflates the spread (0.8 K rms on top of 0.5-0.8 K noise) but
     not the super-observations; a representation error common to all sensors is configured
     as it is, and cancels in the sensors' differences."""
+    assert all(0.85 < f < 1.15 for f in coarse_grid["true"].values()), coarse_grid["true"]
     assert_accepted(coarse_grid, way, {"ir_a": "ok", "ir_b": "ok", "ir_c": "ok"})
 
 
@@ -221,8 +238,11 @@ def test_coarse_grid_with_subcell_variability_flags_no_correct_sensor(coarse_gri
 def test_sensor_misassigned_by_three_is_found(misassigned_by_three, way):
     """ir_b's stated errors are a third of its true ones, 900 cells: a confident too_small,
     and the correct sensors are not flagged."""
+    true = misassigned_by_three["true"]
+    assert 2.6 < true["ir_b"] < 3.4 and all(0.85 < true[s] < 1.15 for s in ("ir_a", "ir_c")), \
+        true
     found = verdicts(misassigned_by_three, way)
-    print(way, {s: f for s, (f, _) in found.items()})
+    print(way, {s: f for s, (f, _) in found.items()}, "true", misassigned_by_three["true"])
     assert found["ir_b"][0] == "too_small", found["ir_b"]
     for sensor in ("ir_a", "ir_c"):
         assert found[sensor][0] not in FLAGS, (sensor, found[sensor])
