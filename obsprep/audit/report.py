@@ -39,13 +39,13 @@ def summary_markdown(result) -> str:
                      f"(tolerance: a factor {result.tolerance:g}).")
     for _, row in flagged.iterrows():
         lines.append(f"- **{row['sensor']}** ({row['quantity']}): {row['flag'].replace('_', ' ')}; "
-                     f"suggested error scale factor **{row['suggested_factor']:.2f}** "
-                     f"(± {row['suggested_factor_se']:.2g}). {row['reason']}.")
+                     f"multiply the assigned error by **F = {row['factor']:.3g}** "
+                     f"({row['factor_low']:.3g} to {row['factor_high']:.3g}). {row['reason']}.")
     lines += ["", "## Per sensor and quantity", ""]
     lines.append(markdown_table(s, ["sensor", "quantity", "files", "read", "kept", "superobs",
-                                    "median_raw_error", "median_superobs_error", "spread_ratio",
-                                    "innovation_ratio", "innovation_factor", "tc_ratio",
-                                    "suggested_factor", "flag"]))
+                                    "median_raw_error", "median_superobs_error", "noise_ratio",
+                                    "noise_check", "factor", "factor_low", "factor_high",
+                                    "flag"]))
     lines += ["", "Rejected raw observations per reason (all quantities of a sensor):", ""]
     reasons = [c for c in s if c.startswith("rejected_")]
     if reasons:
@@ -73,8 +73,8 @@ def summary_markdown(result) -> str:
                   "scale of sigma_o that makes them consistent; sensitivity = the share of the "
                   "innovation variance the observation error accounts for.", ""]
         lines.append(markdown_table(result.innovations, [
-            "sensor", "quantity", "n", "mean", "std", "ratio", "factor", "factor_se",
-            "sensitivity", "factor_upper", "median_time_gap_h"]))
+            "sensor", "quantity", "n", "mean", "std", "ratio", "factor_sq", "factor_sq_se",
+            "sensitivity", "upper_sq", "median_time_gap_h"]))
     if result.figures:
         lines += ["", "## Figures", ""]
         lines += [f"![{p.stem}]({p.name})" for p in result.figures]
