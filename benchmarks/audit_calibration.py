@@ -1,7 +1,7 @@
 """Calibration of the error audit's verdict on synthetic nights of known error.
 
-    python benchmarks/audit_calibration.py            # full: 100 trials per case
-    python benchmarks/audit_calibration.py --quick    # 20 trials per case
+    python benchmarks/audit_calibration.py            # full: 100 trials per case, ~15 min
+    python benchmarks/audit_calibration.py --quick    # 20 trials per case, ~3-6 min
     python benchmarks/audit_calibration.py --record   # also write the table into README.md
 
 Each trial draws one table of three sensors (benchmarks/audit_synthetic.py: spatially
@@ -11,7 +11,8 @@ sensors), with one sensor (a, b, c in turn) assigned its true error divided by F
 1.5, 2, 3 (F = 1: every sensor correct), and gives it to
 ``obsprep.audit.summary.assess``.  Two ways of auditing are run: with the ensemble, and
 without any model (pairs and triple collocation only).  Seeds are fixed: a rerun gives the
-same table on the same library versions.
+same table on the same library versions.  Trials run in ``--jobs`` processes (default 2: the
+full run is about 15 minutes on two idle cores, the audit's block statistics being most of it).
 
 What is counted, per case (way, F, super-observations per sensor):
 
@@ -187,7 +188,7 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--quick", action="store_true", help="20 trials per case")
     parser.add_argument("--trials", type=int, help="trials per case (overrides the default)")
-    parser.add_argument("--jobs", type=int, default=1, help="worker processes")
+    parser.add_argument("--jobs", type=int, default=2, help="worker processes (default 2)")
     parser.add_argument("--record", action="store_true",
                         help="write the table into benchmarks/README.md between its markers")
     parser.add_argument("--csv", type=Path, help="also write every verdict to this CSV file")
