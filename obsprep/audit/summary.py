@@ -102,8 +102,11 @@ def _evidence_of(sensor, quantity, innovations: dict, triples: dict, context: Au
                                   stats["upper_estimate"]))
         used = context.analysis_factors.get(sensor)
         if used is not None:
-            found.append(Evidence(f"analysis residuals (analyses made with F = {used:g})",
-                                  "estimate", stats["desroziers_estimate"]))
+            step = stats["desroziers_estimate"]
+            following = float(np.sqrt(max(step.value, 0.0))) if np.isfinite(step.value) else np.nan
+            found.append(Evidence(f"analysis residuals of analyses made with F = {used:.3g} "
+                                  f"(the next iterate is F = {following:.3g}; redo the analyses "
+                                  f"with it until the two agree)", "estimate", step))
         elif np.isfinite(stats["desroziers_sq"]):
             found.append(Evidence("one-step analysis residuals, biased toward the assigned "
                                   "errors", "diagnostic", stats["desroziers_estimate"]))
@@ -150,7 +153,11 @@ def evaluate(table: pd.DataFrame, context: AuditContext) -> Assessment:
     rows = []
     for (sensor, quantity), group in table.groupby(["sensor", "quantity"], sort=True):
         evidence = _evidence_of(sensor, quantity, innovation_estimates, triple_estimates, context)
-        if context.members >= 2:
+        own = innovation_estimates.get((sensor, quantity))
+        if context.members >= 2 and (own is None or not own["factor_estimate"].usable):
+            # only for a sensor without innovations of its own: the partner's innovations share
+            # its background errors, so the two estimates would be anti-correlated and the
+            # agreement test, which takes them as independent, would see disagreement
             partners = {s: stats["factor_estimate"] for (s, q), stats in innovation_estimates.items()
                         if q == quantity and s != sensor}
             evidence += _pair_evidence(table, quantity, sensor, partners)
