@@ -95,13 +95,15 @@ def write_report(result, out_dir, with_figures: bool = True) -> dict:
             frame.to_csv(tmp, index=False)
         written[name] = out / name
     if with_figures:
-        shape = result.grid_shape
-        made = [figures.counts_map(result.run.superobs, out / "counts_map.png", shape)]
+        shape, grid, so = result.grid_shape, result.grid, result.run.superobs
+        correlation = {sensor: result.run.correlation(sensor) for sensor in so["sensor"].unique()}
+        made = [figures.counts_map(so, out / "counts_map.png", shape, grid)]
         if result.table is not None:
-            made.append(figures.innovation_map(result.table, out / "innovation_map.png", shape))
+            made.append(figures.innovation_map(result.table, out / "innovation_map.png", shape,
+                                               grid))
             made.append(figures.normalised_innovation_histograms(
                 result.table, out / "normalised_innovations.png"))
-        made.append(figures.spread_vs_error(result.run.superobs, out / "spread_vs_error.png"))
+        made.append(figures.spread_vs_error(so, out / "spread_vs_error.png", correlation))
         result.figures = [p for p in made if p is not None]
         written.update({p.name: p for p in result.figures})
     with atomic_path(out / "summary.md") as tmp:
