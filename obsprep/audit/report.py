@@ -1,7 +1,15 @@
-"""Writing the audit report folder: CSV tables, a readable Markdown summary, figures."""
+"""Writing the audit report folder: CSV tables, a readable Markdown summary, figures and the
+self-contained HTML report (:mod:`obsprep.audit.html`).
+
+One convention everywhere: the factor F is the number by which the assigned error should be
+multiplied (F > 1: errors too small; F < 1: errors too large).  Numbers are printed with
+significant digits, never with a fixed number of decimals, so that F = 0.003 is never "0.00".
+Tables are rendered from every column their DataFrame has, so new columns appear unasked.
+"""
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import numpy as np
@@ -9,20 +17,158 @@ import pandas as pd
 
 from obsprep.writers.atomic import atomic_path
 
+#: significant digits of every number in the reports
+SIGNIFICANT_DIGITS = 3
+#: summary columns shown in the verdict table rather than in the per-sensor table
+VERDICT_TEXT_COLUMNS = ("reason", "conclusion")
+#: flags meaning "the assigned error is wrong"
+WRONG_FLAGS = ("too_small", "too_large")
 
-def _fmt(value, digits=3) -> str:
+
+def format_value(value, digits: int = SIGNIFICANT_DIGITS) -> str:
+    """A table cell as text: whole numbers as integers, other numbers with ``digits``
+    significant digits (so 0.00298 stays "0.00298", 335.4 is "335"), missing as ""."""
+    if value is None or (isinstance(value, (float, np.floating)) and not np.isfinite(value)):
+        return ""
+    if isinstance(value, (bool, np.bool_)):
+        return str(bool(value))
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
     if isinstance(value, (float, np.floating)):
-        return "" if not np.isfinite(value) else f"{value:.{digits}g}"
+        value = float(value)
+        if value == 0.0:
+            return "0"
+        if value.is_integer() and abs(value) < 1e15:
+            return str(int(value))
+        # the decimal exponent after rounding to ``digits`` (9.996 -> 10.0, exponent 1)
+        magnitude = math.floor(math.log10(abs(float(f"{value:.{digits - 1}e}"))))
+        if magnitude >= digits - 1:              # 335.42 -> "335", 29864.3 -> "29864"
+            return f"{value:.0f}"
+        if magnitude < -4:
+            return f"{value:.{digits - 1}e}"
+        return f"{value:.{max(digits - 1 - magnitude, 0)}f}"
+    try:
+        if pd.isna(value):
+            return ""
+    except (TypeError, ValueError):  # an array-like cell: shown as it is
+        pass
     return str(value)
 
 
-def markdown_table(frame: pd.DataFrame, columns) -> str:
-    """A Markdown table of ``columns`` of ``frame`` (numbers with 3 significant digits)."""
-    columns = [c for c in columns if c in frame]
-    lines = ["| " + " | ".join(columns) + " |", "|" + "---|" * len(columns)]
+def _number(row, name) -> float:
+    value = row.get(name, np.nan)
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return np.nan
+
+
+def factor_of(row) -> dict:
+    """The factor F of one summary row, with its interval or standard error where given.
+
+    Reads ``factor``, ``factor_low``, ``factor_high`` (the new verdict) or, before them,
+    ``suggested_factor`` and ``suggested_factor_se``.  Returns ``factor``, ``low``, ``high``,
+    ``se`` (NaN where absent) and ``text``: e.g. "0.00298 (0.0025 to 0.0035)" or "2.17 ± 0.017".
+    """
+    factor = _number(row, "factor")
+    if not np.isfinite(factor):
+        factor = _number(row, "suggested_factor")
+    low, high = _number(row, "factor_low"), _number(row, "factor_high")
+    se = _number(row, "factor_se")
+    if not np.isfinite(se):
+        se = _number(row, "suggested_factor_se")
+    if not np.isfinite(factor):
+        text = ""
+    elif np.isfinite(low) and np.isfinite(high):
+        text = f"{format_value(factor)} ({format_value(low)} to {format_value(high)})"
+    elif np.isfinite(se):
+        text = f"{format_value(factor)} ± {format_value(se, 2)}"
+    else:
+        text = format_value(factor)
+    return {"factor": factor, "low": low, "high": high, "se": se, "text": text}
+
+
+def verdict_table(summary: pd.DataFrame) -> pd.DataFrame:
+    """One row per sensor and quantity: sensor, quantity, flag, F (with its interval), the
+    conclusion where the summary has one, and the reason."""
+    rows = []
+    for _, row in summary.iterrows():  # report rows (sensors), not observations
+        entry = {"sensor": row.get("sensor", ""), "quantity": row.get("quantity", ""),
+                 "flag": row.get("flag", ""),
+                 "F (multiply the assigned error by)": factor_of(row)["text"]}
+        for name in VERDICT_TEXT_COLUMNS:
+            if name in summary:
+                entry[name] = row.get(name, "")
+        rows.append(entry)
+    return pd.DataFrame(rows)
+
+
+def sensor_columns(summary: pd.DataFrame) -> list:
+    """Columns of the per-sensor table: all but the rejection counts (a table of their own)
+    and the long texts (in the verdict table)."""
+    return [c for c in summary if not str(c).startswith("rejected_")
+            and c not in VERDICT_TEXT_COLUMNS]
+
+
+def rejection_table(summary: pd.DataFrame) -> pd.DataFrame:
+    """Per sensor: read, kept and the rejections per reason (columns with any rejection)."""
+    reasons = [c for c in summary if str(c).startswith("rejected_")]
+    if not reasons or "sensor" not in summary:
+        return pd.DataFrame()
+    per_sensor = summary.drop_duplicates("sensor")
+    used = [c for c in reasons if pd.to_numeric(per_sensor[c], errors="coerce").fillna(0).gt(0)
+            .any()]
+    return per_sensor[[c for c in ("sensor", "read", "kept") if c in summary] + used]
+
+
+def markdown_table(frame: pd.DataFrame, columns=None) -> str:
+    """A Markdown table of ``columns`` (default all) of ``frame``, numbers by
+    :func:`format_value`; "|" in text is escaped."""
+    columns = [c for c in (frame.columns if columns is None else columns) if c in frame]
+    if not columns:
+        return "(no columns)"
+
+    def cell(value):
+        return format_value(value).replace("|", "\\|").replace("\n", " ")
+
+    lines = ["| " + " | ".join(cell(c) for c in columns) + " |", "|" + "---|" * len(columns)]
     for _, row in frame.iterrows():  # report rows (sensors), not observations
-        lines.append("| " + " | ".join(_fmt(row[c]) for c in columns) + " |")
+        lines.append("| " + " | ".join(cell(row[c]) for c in columns) + " |")
     return "\n".join(lines)
+
+
+#: what each table of the report is, shared by the Markdown and the HTML report
+SECTIONS = {
+    "collocation": ("Collocated pairs",
+                    "var(a - b) against sigma_a² + sigma_b² for super-observations of two "
+                    "sensors in the same cell, layer and slot (ratio 1 when the two errors are "
+                    "right together)."),
+    "triple": ("Triple collocation",
+               "Error of each sensor from three collocated sensors [Stoffelen1998], with its "
+               "standard error, against the assigned super-observation error."),
+    "innovations": ("Innovations",
+                    "d = y - H(mean); ratio = var(d) / (sigma_o² + sigma_ens²); factor = the F "
+                    "by which sigma_o should be multiplied to make them consistent; "
+                    "sensitivity = the share of the innovation variance the observation error "
+                    "accounts for."),
+}
+
+#: captions of the figures, by file stem
+CAPTIONS = {
+    "counts_map": "Super-observations per model grid cell, one panel per sensor (all slots and "
+                  "layers). Dark grey: land from the grid's sea mask; light grey: sea without "
+                  "data.",
+    "innovation_map": "Mean innovation (observation minus model) per cell, one panel per sensor "
+                      "and quantity, in the quantity's units; colours centred on zero, light "
+                      "grey where there is no data.",
+    "normalised_innovations": "Normalised innovations d / sqrt(sigma_o² + sigma_ens²) against "
+                              "the standard normal density: wider than N(0, 1) means errors "
+                              "too small, narrower too large.",
+    "spread_vs_error": "Within-cell spread of the raw values against their assigned error: "
+                       "rms spread per bin of assigned error with its standard error, the 1:1 "
+                       "line and the fitted factor. The spread sees only the uncorrelated part "
+                       "of the raw error (and grows with sub-cell variability).",
+}
 
 
 def summary_markdown(result) -> str:
@@ -30,60 +176,44 @@ def summary_markdown(result) -> str:
     s = result.summary
     lines = [f"# obsprep error audit of {result.run.directory}", ""]
     lines += [f"Super-observation files: {', '.join(p.name for p in result.run.files)}.",
-              f"Model: {result.model_description}.", ""]
-    flagged = s[s["flag"].isin(["too_small", "too_large"])] if len(s) else s
-    lines.append("## Flags")
-    lines.append("")
+              f"Model: {result.model_description}.", "",
+              "F is the factor by which the assigned error should be multiplied: F > 1 means "
+              "the errors are too small, F < 1 too large.", ""]
+    flagged = s[s["flag"].isin(WRONG_FLAGS)] if len(s) and "flag" in s else s.iloc[0:0]
+    lines += ["## Flags", ""]
     if len(flagged) == 0:
-        lines.append("No sensor is flagged: the assigned errors are consistent with the data "
-                     f"(tolerance: a factor {result.tolerance:g}).")
+        lines.append(f"No sensor is flagged too small or too large (tolerance: a factor "
+                     f"{result.tolerance:g}).")
     for _, row in flagged.iterrows():
-        lines.append(f"- **{row['sensor']}** ({row['quantity']}): {row['flag'].replace('_', ' ')}; "
-                     f"suggested error scale factor **{row['suggested_factor']:.2f}** "
-                     f"(± {row['suggested_factor_se']:.2g}). {row['reason']}.")
+        f = factor_of(row)
+        interval = f["text"][len(format_value(f["factor"])):]
+        lines.append(f"- **{row['sensor']}** ({row['quantity']}): "
+                     f"{str(row['flag']).replace('_', ' ')}; multiply the assigned error by "
+                     f"F = **{format_value(f['factor'])}**{interval}. {row.get('reason', '')}.")
+    lines += ["", "## Verdicts", ""]
+    lines.append(markdown_table(verdict_table(s)) if len(s) else "(no sensors)")
     lines += ["", "## Per sensor and quantity", ""]
-    lines.append(markdown_table(s, ["sensor", "quantity", "files", "read", "kept", "superobs",
-                                    "median_raw_error", "median_superobs_error", "spread_ratio",
-                                    "innovation_ratio", "innovation_factor", "tc_ratio",
-                                    "suggested_factor", "flag"]))
-    lines += ["", "Rejected raw observations per reason (all quantities of a sensor):", ""]
-    reasons = [c for c in s if c.startswith("rejected_")]
-    if reasons:
-        per_sensor = s.drop_duplicates("sensor")
-        lines.append(markdown_table(per_sensor, ["sensor", "read", "kept", *reasons]))
-    lines += ["", "Verdicts:", ""]
-    for _, row in s.iterrows():
-        lines.append(f"- {row['sensor']} / {row['quantity']}: {row['flag']}: {row['reason']}")
-    if len(result.collocation):
-        lines += ["", "## Collocated pairs", "",
-                  "var(a - b) against sigma_a² + sigma_b² for super-observations of two sensors "
-                  "in the same cell, layer and slot (ratio 1 when the two errors are right "
-                  "together).", ""]
-        lines.append(markdown_table(result.collocation, ["quantity", "sensor_a", "sensor_b", "n",
-                                                         "mean_difference", "ratio", "ratio_se"]))
-    if len(result.triple):
-        lines += ["", "## Triple collocation", "",
-                  "Error of each sensor from three collocated sensors (Stoffelen 1998), with its "
-                  "standard error, against the assigned super-observation error.", ""]
-        lines.append(markdown_table(result.triple, ["quantity", "sensor", "with", "n", "sigma",
-                                                    "sigma_se", "assigned", "ratio", "ratio_se"]))
-    if len(result.innovations):
-        lines += ["", "## Innovations", "",
-                  "d = y - H(mean); ratio = var(d) / (sigma_o² + sigma_ens²); factor = the "
-                  "scale of sigma_o that makes them consistent; sensitivity = the share of the "
-                  "innovation variance the observation error accounts for.", ""]
-        lines.append(markdown_table(result.innovations, [
-            "sensor", "quantity", "n", "mean", "std", "ratio", "factor", "factor_se",
-            "sensitivity", "factor_upper", "median_time_gap_h"]))
+    lines.append(markdown_table(s, sensor_columns(s)) if len(s) else "(no sensors)")
+    rejected = rejection_table(s)
+    if len(rejected):
+        lines += ["", "Rejected raw observations per reason (all quantities of a sensor):", ""]
+        lines.append(markdown_table(rejected))
+    for key, frame in (("collocation", result.collocation), ("triple", result.triple),
+                       ("innovations", result.innovations)):
+        if frame is not None and len(frame):
+            title, text = SECTIONS[key]
+            lines += ["", f"## {title}", "", text, "", markdown_table(frame)]
     if result.figures:
         lines += ["", "## Figures", ""]
-        lines += [f"![{p.stem}]({p.name})" for p in result.figures]
+        for p in result.figures:
+            lines += [f"![{p.stem}]({p.name})", "", CAPTIONS.get(p.stem, ""), ""]
     return "\n".join(lines) + "\n"
 
 
 def write_report(result, out_dir, with_figures: bool = True) -> dict:
     """Write the report folder; returns name -> path of every file written."""
     from obsprep.audit import figures
+    from obsprep.audit.html import report_html
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -109,4 +239,7 @@ def write_report(result, out_dir, with_figures: bool = True) -> dict:
     with atomic_path(out / "summary.md") as tmp:
         Path(tmp).write_text(summary_markdown(result), encoding="utf-8")
     written["summary.md"] = out / "summary.md"
+    with atomic_path(out / "report.html") as tmp:
+        Path(tmp).write_text(report_html(result), encoding="utf-8")
+    written["report.html"] = out / "report.html"
     return written
