@@ -74,7 +74,7 @@ def _save(plt, fig, path, title=None) -> Path:
         fig.suptitle(title)
     path = Path(path)
     with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=DPI, format="png")
+        fig.savefig(tmp, dpi=DPI, format="png", bbox_inches="tight", pad_inches=0.1)
     plt.close(fig)
     return path
 
@@ -170,7 +170,8 @@ class MapPlane:
 
         cx, cy = to_plane(lon, lat)
         self.corners_x, self.corners_y = _corners_from_centres(cx), _corners_from_centres(cy)
-        self.xlabel = f"x (km, azimuthal equidistant about {lon0:.1f}°E {lat0:.1f}°N)"
+        self.xlabel = (f"x (km, azimuthal equidistant about {_lon_text(round(lon0, 1))} "
+                       f"{_lat_text(round(lat0, 1))})")
         self.ylabel = "y (km)"
         self.note = "curvilinear grid, cell corners interpolated; grey lines: longitude/latitude"
         self.to_plane = to_plane
