@@ -451,7 +451,9 @@ def spread_bins(raw_error, spread, dof, bins: int = SPREAD_BINS) -> pd.DataFrame
     bin: ``error``, the dof-weighted rms assigned raw error; ``spread``, the dof-weighted rms
     spread sqrt(sum dof s^2 / sum dof), which is the error for correct errors (E[s^2] =
     sigma^2, textbook); ``spread_se``, its standard error by the delta method from the standard
-    error of the weighted mean of s^2 (se(rms) = se(mean s^2) / (2 rms)); ``n``, groups.
+    error of the weighted mean of s^2 (se(rms) = se(mean s^2) / (2 rms)), that standard error
+    from the weighted variance of s^2 over the effective number of groups (sum w)^2 / sum w^2
+    [Kish1965]; ``n``, groups.
     """
     raw_error, spread, dof = (np.asarray(a, float) for a in (raw_error, spread, dof))
     edges = np.unique(np.quantile(raw_error, np.linspace(0.0, 1.0, bins + 1)))
@@ -463,7 +465,7 @@ def spread_bins(raw_error, spread, dof, bins: int = SPREAD_BINS) -> pd.DataFrame
         w, s2 = dof[sel], spread[sel] ** 2
         n = int(sel.sum())
         mean_s2 = float(np.sum(w * s2) / np.sum(w))
-        # weighted variance of s^2 over the effective number of groups (Kish)
+        # weighted variance of s^2 over the effective number of groups [Kish1965]
         n_eff = float(np.sum(w) ** 2 / np.sum(w * w))
         var_s2 = float(np.sum(w * (s2 - mean_s2) ** 2) / np.sum(w))
         se_s2 = np.sqrt(var_s2 / n_eff) if n_eff > 1 else np.nan

@@ -1,6 +1,6 @@
 """The audit report as one self-contained HTML file (``report.html``).
 
-Everything is inside the file: inline CSS, the figures as PNG ``data:`` URIs (RFC 2397, base64),
+Everything is inside the file: inline CSS, the figures as PNG ``data:`` URIs ([RFC2397], base64),
 no JavaScript, no external resource, so it opens from disk in any browser and can be mailed.
 The verdict table comes first, then the per-sensor table, the rejections, collocations, triple
 collocation, innovations and the figures with captions.  Tables are rendered from every column
@@ -96,7 +96,7 @@ def html_table(frame: pd.DataFrame, name: str, columns=None) -> str:
 
 
 def png_data_uri(path) -> str:
-    """The PNG file at ``path`` as a ``data:image/png;base64,...`` URI (RFC 2397)."""
+    """The PNG file at ``path`` as a ``data:image/png;base64,...`` URI [RFC2397]."""
     return "data:image/png;base64," + base64.b64encode(Path(path).read_bytes()).decode("ascii")
 
 
