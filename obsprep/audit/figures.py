@@ -309,6 +309,20 @@ def _shape(frame, grid, shape):
     return int(frame["j"].max()) + 1, int(frame["i"].max()) + 1
 
 
+def _inside_grid(frame, shape):
+    """The rows of ``frame`` whose cell (j, i) is on a (ny, nx) grid, and the number of the
+    others (told in the figure title: a grid that does not match the run is not hidden)."""
+    i = pd.to_numeric(frame["i"], errors="coerce").to_numpy(float)
+    j = pd.to_numeric(frame["j"], errors="coerce").to_numpy(float)
+    inside = (i >= 0) & (i < shape[1]) & (j >= 0) & (j < shape[0])
+    return frame[inside], int((~inside).sum())
+
+
+def _outside_note(outside, shape) -> str:
+    return (f"\n{outside} super-observations outside the {shape[0]} x {shape[1]} grid not drawn"
+            if outside else "")
+
+
 def cell_field(frame, shape, value=None) -> np.ndarray:
     """Per cell of a (ny, nx) grid: the number of rows of ``frame`` (``value`` None) or the
     mean of its column ``value``; NaN where the cell has no rows."""
@@ -349,13 +363,19 @@ def _count_colours(maximum: int):
         [t for t in ticks if 1 <= t <= maximum]
 
 
-def counts_map(superobs: pd.DataFrame, path, shape=None, grid=None) -> Path:
+def counts_map(superobs: pd.DataFrame, path, shape=None, grid=None) -> Path | None:
     """Map of the number of super-observations per cell (all slots and layers), one panel per
-    sensor; for a sensor with several quantities, the count of its most observed quantity."""
+    sensor; for a sensor with several quantities, the count of its most observed quantity;
+    None without super-observations."""
     plt = _pyplot()
+    if superobs.empty:
+        return None
     shape = _shape(superobs, grid, shape)
+    superobs, outside = _inside_grid(superobs, shape)
     plane = MapPlane(grid, shape)
     sensors = sorted(superobs["sensor"].unique())
+    if not sensors:
+        return None
     fig, axes = _panels(plt, len(sensors))
     for ax, sensor in zip(axes, sensors):
         rows = superobs[superobs["sensor"] == sensor]
@@ -376,7 +396,8 @@ def counts_map(superobs: pd.DataFrame, path, shape=None, grid=None) -> Path:
         plane.finish(ax)
         _legend_patches(ax, plane)
     title = "super-observations per model grid cell (all slots and layers)"
-    return _save(plt, fig, path, title + (f"\n{plane.note}" if plane.note else ""))
+    return _save(plt, fig, path, title + (f"\n{plane.note}" if plane.note else "")
+                 + _outside_note(outside, shape))
 
 
 def innovation_map(table: pd.DataFrame, path, shape=None, grid=None) -> Path | None:
@@ -389,8 +410,11 @@ def innovation_map(table: pd.DataFrame, path, shape=None, grid=None) -> Path | N
     if usable.empty:
         return None
     shape = _shape(table, grid, shape)
+    usable, outside = _inside_grid(usable, shape)
     plane = MapPlane(grid, shape)
     groups = list(usable.groupby(["sensor", "quantity"], sort=True))
+    if not groups:
+        return None
     fig, axes = _panels(plt, len(groups))
     for ax, ((sensor, quantity), group) in zip(axes, groups):
         field = cell_field(group, shape, "innovation")
@@ -412,7 +436,8 @@ def innovation_map(table: pd.DataFrame, path, shape=None, grid=None) -> Path | N
         plane.finish(ax)
         _legend_patches(ax, plane)
     title = "mean innovation per model grid cell (observation minus model, all slots and layers)"
-    return _save(plt, fig, path, title + (f"\n{plane.note}" if plane.note else ""))
+    return _save(plt, fig, path, title + (f"\n{plane.note}" if plane.note else "")
+                 + _outside_note(outside, shape))
 
 
 def normalised_innovation_histograms(table: pd.DataFrame, path) -> Path | None:

@@ -304,3 +304,34 @@ def test_map_plane_of_each_grid_kind():
     assert np.abs(cx[1:-1, 1:-1] - x[1:-1, 1:-1]).max() < 0.01 * width
     without = MapPlane(None, (5, 7))
     assert "grid-index" in without.note and without.corners_x.shape == (6, 8)
+
+
+def test_figures_without_a_grid_and_on_a_regular_grid(tmp_path):
+    from PIL import Image
+
+    from obsprep.audit import figures
+    from obsprep.geo.grid.regular import RegularGrid
+
+    rng = np.random.default_rng(3)
+    n = 300
+    frame = pd.DataFrame({"sensor": np.repeat(["alt_a", "sst_b"], n // 2),
+                          "quantity": np.repeat(["sea_level_anomaly", "sea_surface_temperature"],
+                                                n // 2),
+                          "i": rng.integers(0, 40, n), "j": rng.integers(0, 8, n),
+                          "count": rng.integers(1, 6, n), "error_raw_rms": 0.05,
+                          "spread": np.abs(rng.normal(0.05, 0.01, n)), "spread_detrended": np.nan,
+                          "innovation": rng.normal(0.0, 0.1, n)})
+    frame["normalised_innovation"] = frame["innovation"] / 0.1
+    frame.loc[0, "i"] = 400                  # outside both grids: counted in the title, not drawn
+    grid = RegularGrid(170.0, -60.0, 0.5, 0.25, 40, 8)
+    made = [figures.counts_map(frame, tmp_path / "counts_none.png", (8, 40)),
+            figures.counts_map(frame, tmp_path / "counts_regular.png", grid=grid),
+            figures.innovation_map(frame, tmp_path / "innovation_regular.png", grid=grid),
+            figures.normalised_innovation_histograms(frame, tmp_path / "histograms.png"),
+            figures.spread_vs_error(frame, tmp_path / "spread.png")]
+    for path in made:
+        with Image.open(path) as image:
+            image.load()
+            assert min(image.info["dpi"]) >= 119.9, path.name
+    # nothing left behind by the atomic writes
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(p.name for p in made)
