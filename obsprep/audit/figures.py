@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from obsprep.audit.report import format_value
 from obsprep.model.quantities import QUANTITIES
 from obsprep.writers.atomic import atomic_path
 
@@ -504,7 +505,8 @@ def spread_bins(raw_error, spread, dof, bins: int = SPREAD_BINS) -> pd.DataFrame
 def spread_vs_error(superobs: pd.DataFrame, path, correlation=None) -> Path | None:
     """Within-cell spread against the assigned raw error, binned (groups of 2 or more raw
     values; profile layers use the spread about the fit in depth), with the 1:1 line and the
-    fitted factor F = sqrt(sum dof s^2 / sum dof sigma^2).  Faint dots are single groups;
+    fitted factor f = sqrt(sum dof s^2 / sum dof sigma^2) (standard error f / sqrt(2 sum dof),
+    chi-square sampling of a Gaussian variance, textbook).  Faint dots are single groups;
     those beyond the axes are counted in the panel text.  ``correlation``: sensor -> configured
     within-sensor correlation rho, drawn as the expected sqrt(1 - rho) line when rho > 0."""
     plt = _pyplot()
@@ -539,11 +541,16 @@ def spread_vs_error(superobs: pd.DataFrame, path, correlation=None) -> Path | No
         line = np.array([0.0, right])
         ax.plot(line, line, "k--", lw=1, label="spread = error (1:1)", zorder=2)
         ax.plot(line, factor * line, "-", color="tab:red", lw=1,
-                label=f"fitted: spread = F × error, F = {factor:.3g} ± {factor_se:.2g}", zorder=2)
+                label=f"fitted: spread = f × error, f = {format_value(factor)} ± "
+                      f"{format_value(factor_se, 2)}", zorder=2)
         rho = (correlation or {}).get(sensor, 0.0)
-        if rho > 0:
+        if 0 < rho < 1:
+            # correlated errors hide inside a cell: E[s^2] = (1 - rho) sigma^2, so the
+            # summary's spread ratio is f / sqrt(1 - rho)
             ax.plot(line, np.sqrt(1 - rho) * line, ":", color="tab:green", lw=1,
-                    label=f"expected with ρ = {rho:g}: √(1 − ρ) × error", zorder=2)
+                    label=f"expected with ρ = {rho:g}: √(1 − ρ) × error "
+                          f"(f / √(1 − ρ) = {format_value(factor / np.sqrt(1 - rho))})",
+                    zorder=2)
         ax.errorbar(binned["error"], binned["spread"], yerr=binned["spread_se"], fmt="o",
                     color="tab:blue", ms=4, capsize=3, zorder=3,
                     label="rms spread per error bin ± standard error")
