@@ -1,17 +1,22 @@
 """The error audit of a build: are the assigned errors consistent with the data and the model?
 
-``audit(run_dir, ensemble=[...])`` reads a build output directory, compares the assigned errors
-with the scatter of the raw values inside each super-observation, with collocated sensors (pairs
-and triple collocation) and with a model ensemble (innovations), flags the sensors whose errors
-look too small or too large and writes a report folder.
+``audit(run_dir, ensemble=[...])`` reads a build output directory and answers two questions
+per sensor and quantity: (i) is the raw noise consistent with the spread of the raw values inside
+cells, and (ii) is the super-observation error right, judged from a model ensemble
+(innovations) and collocated sensors (pairs and triple collocation), combined with a test of
+their agreement.  It writes a report folder and, with an ensemble, the configuration lines that
+would make the errors consistent.
 
 - :mod:`.rundir`: reading the run directory (super-observations, ledgers, grid);
-- :mod:`.summary`: counts, the spread test, the verdict per sensor;
-- :mod:`.collocation`: pairs of sensors in the same cell and slot;
-- :mod:`.triple`: triple collocation ([Stoffelen1998];
+- :mod:`.summary`: everything per sensor from one table (:func:`.summary.assess`);
+- :mod:`.uncertainty`: block standard errors for correlated super-observations;
+- :mod:`.noise`: question (i), the raw-noise check;
+- :mod:`.innovations`: innovation statistics ([Desroziers2005]);
+- :mod:`.collocation`, :mod:`.triple`: pairs of sensors and triple collocation ([Stoffelen1998]);
+- :mod:`.verdict`: question (ii), combining the estimates and deciding;
+- :mod:`.configure`: the correlation and representation error to configure;
 - :mod:`.ensemble`: model equivalents from an ensemble or a background on the model grid;
-- :mod:`.innovations`: innovation statistics ([Desroziers2005];
-- :mod:`.figures`, :mod:`.report`: the PNG figures and the report files.
+- :mod:`.figures`, :mod:`.report`: the figures and the report files.
 """
 
 from __future__ import annotations
@@ -22,14 +27,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from obsprep.audit.collocation import collocation_table
-from obsprep.audit.innovations import add_innovations, innovation_table
+from obsprep.audit.configure import configuration_lines
+from obsprep.audit.innovations import add_innovations
 from obsprep.audit.rundir import RunData, load_run
-from obsprep.audit.summary import sensor_summary
-from obsprep.audit.triple import triple_collocation_table
+from obsprep.audit.summary import DEFAULT_TOLERANCE, AuditContext, evaluate, ledger_counts
 from obsprep.exceptions import InputFileError
+from obsprep.writers.atomic import atomic_path
 
-DEFAULT_TOLERANCE = 1.5
+SUGGESTED_CONFIGURATION = "suggested_configuration.toml"
 
 
 @dataclass
@@ -49,6 +54,8 @@ class AuditResult:
     grid: object = None
     figures: list = field(default_factory=list)
     outputs: dict = field(default_factory=dict)
+    #: TOML lines that would set the estimated correlations and representation errors
+    suggested_configuration: str = ""
 
     @property
     def flagged(self) -> pd.DataFrame:
@@ -72,7 +79,8 @@ def _expand(paths) -> list:
 
 
 def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
-          tolerance: float = DEFAULT_TOLERANCE, config=None, figures: bool = True) -> AuditResult:
+          tolerance: float = DEFAULT_TOLERANCE, config=None, figures: bool = True,
+          analysis_factors: dict | None = None) -> AuditResult:
     """Audit the errors of a build and write the report.
 
     Parameters
@@ -84,16 +92,22 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     background : path, optional
         A single model state instead of an ensemble (innovation statistics only).
     analysis : path, optional
-        An analysis state (or ensemble-mean analysis) for the Desroziers estimate.
+        An analysis state (or ensemble-mean analysis) for the analysis-residual estimate, a
+        diagnostic unless ``analysis_factors`` says which errors the analysis used.
     out : path, optional
         Report folder (default ``RUN_DIR/audit``).
     tolerance : float
-        A sensor is flagged when its suggested error scale factor is beyond this factor
-        (or below its inverse) by more than 3 standard errors.
+        Errors within this factor of right count as right: a sensor is flagged when its factor
+        F is beyond it (or below its inverse) with 95 % confidence, and ok when the 95 %
+        interval of F lies inside (:mod:`obsprep.audit.verdict`).
     config : path, optional
         The build configuration, for resolving the grid files when the output does not say.
     figures : bool
         Write the PNG figures.
+    analysis_factors : dict, optional
+        Output sensor -> the factor by which its errors were multiplied in the analysis given
+        (the analysis was redone with updated errors); those sensors' analysis-residual
+        estimates then count as evidence.
 
     Returns
     -------
@@ -108,7 +122,7 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
     if ensemble_paths and background_paths:
         raise InputFileError(background, "give either an ensemble or a background, not both")
     model_paths = ensemble_paths or background_paths
-    table, innovations, grid_shape, grid = None, pd.DataFrame(), None, None
+    table, grid_shape, grid, members = run.superobs, None, None, 0
     description = "none (no ensemble or background given)"
     if model_paths:
         from obsprep.audit.ensemble import model_equivalents
@@ -119,26 +133,42 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
         analysis_eq = model_equivalents(analysis_paths, run.superobs, grid) if analysis_paths \
             else None
         members = max((e.members for e in equivalents.values()), default=0)
-        with_spread = members > 1
-        table = add_innovations(run.superobs, equivalents, analysis_eq, with_spread)
-        innovations = innovation_table(table, with_spread)
-        kind = f"ensemble of {members} members" if with_spread else "single background"
+        table = add_innovations(run.superobs, equivalents, analysis_eq, members > 1)
+        kind = f"ensemble of {members} members" if members > 1 else "single background"
         description = f"{kind} from {', '.join(Path(p).name for p in model_paths)}; " \
                       f"quantities {', '.join(sorted(equivalents)) or 'none'}"
-    result = AuditResult(run=run, summary=pd.DataFrame(), collocation=collocation_table(run.superobs),
-                         triple=triple_collocation_table(run.superobs), innovations=innovations,
-                         table=table, tolerance=tolerance, model_description=description,
-                         grid_shape=grid_shape, grid=grid)
+    context = AuditContext(
+        members=members, tolerance=tolerance,
+        correlation={s: run.correlation(s) for s in run.superobs["sensor"].unique()},
+        representation_common=run.representation_model() != "sampling",
+        analysis_factors=dict(analysis_factors or {}))
+    assessment = evaluate(table, context)
+    summary = assessment.summary
+    if not run.ledger.empty:
+        counts = ledger_counts(run)
+        summary = counts.merge(summary, on="sensor", how="right")
+        first = ["sensor", "quantity"]
+        summary = summary[first + [c for c in summary if c not in first]]
+    result = AuditResult(run=run, summary=summary, collocation=assessment.collocation,
+                         triple=assessment.triple, innovations=assessment.innovations,
+                         table=table if model_paths else None, tolerance=tolerance,
+                         model_description=description, grid_shape=grid_shape, grid=grid)
+    result.suggested_configuration = configuration_lines(summary, run.source_sensors())
     if grid is None and figures:
         try:
             result.grid = run.grid(config)
             result.grid_shape = result.grid.shape
         except InputFileError:
             result.grid = None  # maps fall back to grid indices; the report says so
-    result.summary = sensor_summary(run, innovations, result.triple, tolerance)
     out_dir = Path(out) if out else Path(run_dir) / "audit"
     result.outputs = write_report(result, out_dir, with_figures=figures)
+    if result.suggested_configuration:
+        path = out_dir / SUGGESTED_CONFIGURATION
+        with atomic_path(path) as tmp:
+            Path(tmp).write_text("# Estimated from the innovations by obsprep audit: check before "
+                                 "use\n" + result.suggested_configuration + "\n", encoding="utf-8")
+        result.outputs[SUGGESTED_CONFIGURATION] = path
     return result
 
 
-__all__ = ["audit", "AuditResult", "load_run", "DEFAULT_TOLERANCE"]
+__all__ = ["audit", "AuditResult", "AuditContext", "load_run", "DEFAULT_TOLERANCE"]

@@ -1,34 +1,38 @@
 """Innovation statistics per sensor: observation minus model, against the assigned errors.
 
-With the innovation d = y - H(x_mean) of a super-observation of assigned error sigma_o and the
-ensemble variance sigma_ens^2 of H(x) at it, a consistent system has ([Desroziers2005],
-Q. J. R. Meteorol. Soc. 131, 3385-3396, for d = y - H(x_b): E[d d^T] = H B H^T + R)
+With the innovation d = y - H(x_mean) of a super-observation of assigned error sigma_o, and an
+ensemble of N members whose variance of H(x) there is sigma_ens^2, a consistent system has
+([Desroziers2005], Q. J. R. Meteorol. Soc. 131, 3385-3396, for d = y - H(x_b):
+E[d d^T] = H B H^T + R)
 
-.. math:: E[d^2] = \\sigma_o^2 + \\sigma_{ens}^2
+.. math:: E[(d - \\bar d)^2] = F^2 \\sigma_o^2 + (1 + 1/N)\\, \\sigma_{ens}^2
 
-if the ensemble variance represents the background error variance and the two errors are
-independent.  Per sensor and quantity, over n super-observations:
+where F is the factor by which the assigned error should be multiplied (1 when right) and
+(1 + 1/N) sigma_ens^2 the error variance of the ensemble mean when the truth is statistically
+one more member (the mean of N exchangeable draws misses a further draw by
+sigma^2 + sigma^2 / N; [Murphy1988], from memory).  Per sensor and quantity, over n
+super-observations:
 
-- ``mean`` = mean(d) (bias), standard error std(d)/sqrt(n);
-- ``ratio`` = var(d) / mean(sigma_o^2 + sigma_ens^2) (1 when consistent), with the Gaussian
-  standard error ratio sqrt(2 / (n - 1));
-- ``factor``: the scale alpha of the assigned observation errors that makes them consistent,
-  var(d) = alpha^2 mean(sigma_o^2) + mean(sigma_ens^2), i.e.
-  alpha = sqrt((var(d) - mean(sigma_ens^2)) / mean(sigma_o^2)) (NaN when the ensemble
-  variance alone exceeds var(d)); standard error se(var d) / (2 alpha mean(sigma_o^2));
-- ``sensitivity`` = mean(sigma_o^2) / mean(sigma_o^2 + sigma_ens^2): how much of the innovation
-  variance the observation error accounts for.  Where it is small, alpha is poorly determined
-  (its standard error grows as 1 / sensitivity) and any unmodelled model error lands in it.
+- ``mean`` = mean(d) (bias), with its block standard error (:mod:`obsprep.audit.uncertainty`);
+- ``ratio`` = var(d) / mean(sigma_o^2 + (1 + 1/N) sigma_ens^2) (1 when consistent);
+- ``factor_sq``: the estimate of F^2 = (sum (d - mean d)^2 n / (n - 1) - sum (1 + 1/N)
+  sigma_ens^2) / sum sigma_o^2, a ratio of sums whose standard error ``factor_sq_se`` allows for
+  the correlation of neighbouring innovations (block standard error); it may be negative when
+  the ensemble variance alone exceeds the innovation variance (then the assigned errors, or the
+  ensemble spread, are too large);
+- ``sensitivity`` = mean(sigma_o^2) / mean(sigma_o^2 + (1 + 1/N) sigma_ens^2): the share of the
+  innovation variance the observation error accounts for.  Where it is small, F is poorly
+  determined; this shows in its standard error (no threshold is applied).
 
-With a single background (no ensemble) the background error is unknown: ``factor_upper`` =
-sqrt(var(d) / mean(sigma_o^2)) is an upper bound of alpha (background error >= 0).
+With a single background (no ensemble) the background error is unknown: ``upper_sq`` =
+sum (d - mean d)^2 n / (n - 1) / sum sigma_o^2 bounds F^2 from above (background error >= 0).
 
-With an analysis as well, the residual d_a = y - H(x_a) gives the estimate
-E[d_a d] = sigma_o^2 ([Desroziers2005], for an analysis using the true error
-statistics): ``desroziers_factor`` = sqrt(mean(d_a d) / mean(sigma_o^2)).
-
-The standard errors assume independent innovations; neighbouring super-observations share
-background errors, so they are lower bounds.
+With an analysis as well, the residual d_a = y - H(x_a) gives E[d_a d] = R for an analysis made
+with the true error statistics ([Desroziers2005]): ``desroziers_sq`` = sum d_a d / sum
+sigma_o^2.  Made with other errors, one step is biased toward the assigned ones (their
+iteration converges to the right R only as the analyses are redone with the updated errors), so
+it is a diagnostic unless the analysis was made with updated errors (see
+:mod:`obsprep.audit.verdict`).
 """
 
 from __future__ import annotations
@@ -36,8 +40,18 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from obsprep.audit.uncertainty import NOT_ESTIMATED, Blocks, blocked_ratio
 
-def innovation_statistics(d, sigma_o, sigma_ens2=None, d_analysis=None) -> dict:
+
+def ensemble_mean_error_factor(members: int) -> float:
+    """1 + 1/N: the error variance of an N-member ensemble mean in units of the ensemble
+    variance, when the truth is statistically one more member (module docstring); NaN for fewer
+    than 2 members."""
+    return 1.0 + 1.0 / members if members >= 2 else np.nan
+
+
+def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: int = 0,
+                          d_analysis=None) -> dict:
     """Statistics of innovations d with assigned errors sigma_o (see the module docstring).
 
     Parameters
@@ -46,42 +60,52 @@ def innovation_statistics(d, sigma_o, sigma_ens2=None, d_analysis=None) -> dict:
         Innovations y - H(x_mean), units of the value.
     sigma_o : array
         Assigned observation errors (1-sigma), same units.
+    blocks : :class:`obsprep.audit.uncertainty.Blocks` of the rows
     sigma_ens2 : array, optional
-        Ensemble variance of H(x) at each observation (units squared); None for a single
-        background.
+        Ensemble variance (ddof = 1) of H(x) at each observation (units squared); None for a
+        single background.
+    members : int
+        Ensemble size N.
     d_analysis : array, optional
         Analysis residuals y - H(x_a).
 
     Returns
     -------
-    dict of floats
+    dict: floats, and the :class:`~obsprep.audit.uncertainty.BlockedEstimate` of F^2
+    (``factor_estimate``), of its upper bound (``upper_estimate``) and of the Desroziers estimate
+    (``desroziers_estimate``).
     """
     d = np.asarray(d, dtype=np.float64)
     sigma_o2 = np.asarray(sigma_o, dtype=np.float64) ** 2
     n = d.size
     out = {"n": n, "mean": np.nan, "mean_se": np.nan, "std": np.nan, "mean_sigma_o2": np.nan,
-           "mean_sigma_ens2": np.nan, "ratio": np.nan, "ratio_se": np.nan, "factor": np.nan,
-           "factor_se": np.nan, "sensitivity": np.nan, "factor_upper": np.nan,
-           "desroziers_factor": np.nan}
+           "mean_sigma_ens2": np.nan, "members": members, "ratio": np.nan, "factor_sq": np.nan,
+           "factor_sq_se": np.nan, "factor_blocks": 0, "factor_block_cells": 0,
+           "factor_levelled": False, "sensitivity": np.nan, "upper_sq": np.nan,
+           "upper_sq_se": np.nan, "desroziers_sq": np.nan, "desroziers_sq_se": np.nan,
+           "factor_estimate": NOT_ESTIMATED, "upper_estimate": NOT_ESTIMATED,
+           "desroziers_estimate": NOT_ESTIMATED}
     if n < 3:
         return out
-    var = float(np.var(d, ddof=1))
-    var_se = var * float(np.sqrt(2.0 / (n - 1)))
+    centred = (d - d.mean()) ** 2 * (n / (n - 1.0))
+    bias = blocked_ratio(d, np.ones(n), blocks)
     mean_o2 = float(sigma_o2.mean())
-    out.update(n=n, mean=float(d.mean()), mean_se=float(np.sqrt(var / n)), std=float(np.sqrt(var)),
-               mean_sigma_o2=mean_o2, factor_upper=float(np.sqrt(var / mean_o2)))
-    if sigma_ens2 is not None:
-        mean_e2 = float(np.mean(sigma_ens2))
-        expected = mean_o2 + mean_e2
-        out.update(mean_sigma_ens2=mean_e2, ratio=var / expected,
-                   ratio_se=var_se / expected, sensitivity=mean_o2 / expected)
-        excess = var - mean_e2
-        if excess > 0:
-            factor = float(np.sqrt(excess / mean_o2))
-            out.update(factor=factor, factor_se=var_se / (2.0 * factor * mean_o2))
+    upper = blocked_ratio(centred, sigma_o2, blocks)
+    out.update(mean=float(d.mean()), mean_se=bias.se, std=float(np.sqrt(centred.mean())),
+               mean_sigma_o2=mean_o2, upper_sq=upper.value, upper_sq_se=upper.se,
+               upper_estimate=upper)
+    if sigma_ens2 is not None and members >= 2:
+        background = ensemble_mean_error_factor(members) * np.asarray(sigma_ens2, dtype=np.float64)
+        expected = mean_o2 + float(background.mean())
+        factor = blocked_ratio(centred - background, sigma_o2, blocks)
+        out.update(mean_sigma_ens2=float(np.mean(sigma_ens2)), ratio=float(centred.mean()) / expected,
+                   sensitivity=mean_o2 / expected, factor_sq=factor.value, factor_sq_se=factor.se,
+                   factor_blocks=factor.blocks, factor_block_cells=factor.block_cells,
+                   factor_levelled=factor.levelled, factor_estimate=factor)
     if d_analysis is not None:
-        cross = float(np.mean(np.asarray(d_analysis, dtype=np.float64) * d))
-        out["desroziers_factor"] = float(np.sqrt(cross / mean_o2)) if cross > 0 else np.nan
+        desroziers = blocked_ratio(np.asarray(d_analysis, dtype=np.float64) * d, sigma_o2, blocks)
+        out.update(desroziers_sq=desroziers.value, desroziers_sq_se=desroziers.se,
+                   desroziers_estimate=desroziers)
     return out
 
 
@@ -118,21 +142,36 @@ def add_innovations(superobs: pd.DataFrame, equivalents: dict, analysis: dict | 
     return out
 
 
-def innovation_table(table: pd.DataFrame, with_spread: bool = True) -> pd.DataFrame:
-    """One row of :func:`innovation_statistics` per sensor and quantity with model
-    equivalents (``table`` from :func:`add_innovations`)."""
-    rows = []
-    usable = table[np.isfinite(table["innovation"])]
+INNOVATION_COLUMNS = ["sensor", "quantity", "n", "mean", "mean_se", "std", "mean_sigma_o2",
+                      "mean_sigma_ens2", "members", "ratio", "factor_sq", "factor_sq_se",
+                      "factor_blocks", "factor_block_cells", "factor_levelled", "sensitivity",
+                      "upper_sq", "upper_sq_se", "desroziers_sq", "desroziers_sq_se",
+                      "median_time_gap_h"]
+
+
+def innovation_table(table: pd.DataFrame, members: int = 0) -> tuple[pd.DataFrame, dict]:
+    """Innovation statistics per sensor and quantity with model equivalents (``table`` from
+    :func:`add_innovations`; ``members`` the ensemble size, 0 or 1 for a single background).
+
+    Returns the table (:data:`INNOVATION_COLUMNS`) and {(sensor, quantity): the statistics with
+    their block estimates}."""
+    rows, estimates = [], {}
+    if "innovation" not in table:
+        return pd.DataFrame(columns=INNOVATION_COLUMNS), estimates
+    usable = table[np.isfinite(table["innovation"].to_numpy(dtype=float))]
     for (sensor, quantity), group in usable.groupby(["sensor", "quantity"], sort=True):
-        residual = group["analysis_residual"].to_numpy()
+        residual = group["analysis_residual"].to_numpy(dtype=float) \
+            if "analysis_residual" in group else np.full(len(group), np.nan)
+        spread = group["model_variance"].to_numpy(dtype=float)
+        with_spread = members >= 2 and np.isfinite(spread).all()
         stats = innovation_statistics(
-            group["innovation"].to_numpy(), group["error"].to_numpy(),
-            group["model_variance"].to_numpy() if with_spread else None,
+            group["innovation"].to_numpy(dtype=float), group["error"].to_numpy(dtype=float),
+            Blocks.from_table(group), spread if with_spread else None, members,
             residual if np.isfinite(residual).all() else None)
-        stats["median_time_gap_h"] = float(np.nanmedian(group["time_gap"])) / 3600.0 \
-            if np.isfinite(group["time_gap"]).any() else np.nan
-        rows.append({"sensor": sensor, "quantity": quantity, **stats})
-    columns = ["sensor", "quantity", "n", "mean", "mean_se", "std", "mean_sigma_o2",
-               "mean_sigma_ens2", "ratio", "ratio_se", "factor", "factor_se", "sensitivity",
-               "factor_upper", "desroziers_factor", "median_time_gap_h"]
-    return pd.DataFrame(rows, columns=columns)
+        gap = group["time_gap"].to_numpy(dtype=float) if "time_gap" in group else np.array([np.nan])
+        stats["median_time_gap_h"] = float(np.nanmedian(gap)) / 3600.0 \
+            if np.isfinite(gap).any() else np.nan
+        estimates[(sensor, quantity)] = stats
+        rows.append({"sensor": sensor, "quantity": quantity,
+                     **{k: stats[k] for k in INNOVATION_COLUMNS[2:]}})
+    return pd.DataFrame(rows, columns=INNOVATION_COLUMNS), estimates

@@ -50,6 +50,17 @@ class RunData:
                 return float(source.get("correlation", 0.0))
         return 0.0
 
+    def representation_model(self) -> str:
+        """The build's representation model (``constant`` when not configured)."""
+        return str(self.configuration.get("superobs", {}).get("representation_model", "constant"))
+
+    def source_sensors(self) -> dict:
+        """Output sensor -> the configured source sensors written under it."""
+        out = {}
+        for source in self.configuration.get("sources", []):
+            out.setdefault(self.output_sensor(source["sensor"]), []).append(source["sensor"])
+        return out
+
     def output_sensor(self, source_sensor: str) -> str:
         """The output sensor a source is written under (after merging)."""
         merged = self.configuration.get("superobs", {}).get("merge_sensors", {})

@@ -17,6 +17,15 @@ Sampling uncertainty: the sample covariance c of n independent pairs (u, v) has 
 variance (mu_22 - c^2) / n with mu_22 = E[(u - u_mean)^2 (v - v_mean)^2] (the delta method for
 a sample covariance; for Gaussian (u, v) this is (var u var v + c^2) / n, textbook moments).
 The standard error of sigma = sqrt(c) follows as se(c) / (2 sigma).
+
+Against the assigned errors.  A representation error common to the three sensors cancels in the
+differences (:func:`obsprep.audit.collocation.visible_error`), so the triple-collocation variance
+is compared with the visible part of the assigned error: F^2 = sum (u - u_mean)(v - v_mean)
+n / (n - 1) / sum sigma_vis^2, the factor by which the assigned error should be multiplied, with
+the block standard error of this ratio (:mod:`obsprep.audit.uncertainty`), which allows for
+neighbouring triplets sharing errors.  Errors correlated *between* the sensors (one product
+derived from another) make the variance too small; the audit cannot see that and the report
+says so.
 """
 
 from __future__ import annotations
@@ -27,6 +36,7 @@ import numpy as np
 import pandas as pd
 
 from obsprep.audit.collocation import matched, sensors_by_quantity
+from obsprep.audit.uncertainty import Blocks, blocked_ratio
 
 
 def covariance_with_standard_error(u, v) -> tuple[float, float]:
@@ -73,29 +83,49 @@ def triple_collocation(x1, x2, x3) -> dict:
             "sigma": sigma, "sigma_se": sigma_se}
 
 
-def triple_collocation_table(superobs: pd.DataFrame, min_triplets: int = 10) -> pd.DataFrame:
+TRIPLE_COLUMNS = ["quantity", "sensor", "with", "n", "variance", "variance_se", "sigma",
+                  "sigma_se", "assigned", "assigned_visible", "factor_sq", "factor_sq_se",
+                  "factor_blocks", "factor_levelled", "ratio", "ratio_se"]
+
+
+def triple_collocation_table(superobs: pd.DataFrame, min_triplets: int = 10) -> tuple[pd.DataFrame, dict]:
     """Per quantity with three or more sensors, one row per sensor of every triple of sensors
     with at least ``min_triplets`` collocations: the triple-collocation error, the assigned
-    error (root mean square of the super-observation errors over the triplets) and their
-    ratio with its standard error."""
-    rows = []
+    error over the triplets (root mean square; ``assigned_visible`` its part differences see),
+    the estimate of F^2 with its block standard error, and the ratio sigma / assigned_visible.
+
+    Returns the table (:data:`TRIPLE_COLUMNS`) and {(sensor, quantity): [(partners, block
+    estimate of F^2), ...]}."""
+    rows, estimates = [], {}
     for quantity, sensors in sensors_by_quantity(superobs).items():
         for triple in combinations(sensors, 3):
             table = matched(superobs, quantity, list(triple))
             if len(table) < min_triplets:
                 continue
             result = triple_collocation(*(table[f"value_{s}"] for s in triple))
+            blocks = Blocks.from_table(table)
+            n = len(table)
             for k, sensor in enumerate(triple):
-                assigned = float(np.sqrt(np.mean(table[f"error_{sensor}"] ** 2)))
                 others = [s for s in triple if s != sensor]
+                own = table[f"value_{sensor}"].to_numpy(float)
+                u = own - table[f"value_{others[0]}"].to_numpy(float)
+                v = own - table[f"value_{others[1]}"].to_numpy(float)
+                visible2 = table[f"visible_{sensor}"].to_numpy(float) ** 2
+                factor = blocked_ratio((u - u.mean()) * (v - v.mean()) * (n / (n - 1.0)), visible2,
+                                       blocks)
+                assigned = float(np.sqrt(np.mean(table[f"error_{sensor}"] ** 2)))
+                assigned_visible = float(np.sqrt(np.mean(visible2)))
+                with_ = " ".join(others)
+                estimates.setdefault((sensor, quantity), []).append((with_, factor))
                 rows.append({
-                    "quantity": quantity, "sensor": sensor, "with": " ".join(others),
+                    "quantity": quantity, "sensor": sensor, "with": with_,
                     "n": result["n"], "variance": result["variance"][k],
                     "variance_se": result["variance_se"][k], "sigma": result["sigma"][k],
                     "sigma_se": result["sigma_se"][k], "assigned": assigned,
-                    "ratio": result["sigma"][k] / assigned,
-                    "ratio_se": result["sigma_se"][k] / assigned,
+                    "assigned_visible": assigned_visible, "factor_sq": factor.value,
+                    "factor_sq_se": factor.se, "factor_blocks": factor.blocks,
+                    "factor_levelled": factor.levelled,
+                    "ratio": result["sigma"][k] / assigned_visible,
+                    "ratio_se": result["sigma_se"][k] / assigned_visible,
                 })
-    columns = ["quantity", "sensor", "with", "n", "variance", "variance_se", "sigma", "sigma_se",
-               "assigned", "ratio", "ratio_se"]
-    return pd.DataFrame(rows, columns=columns)
+    return pd.DataFrame(rows, columns=TRIPLE_COLUMNS), estimates

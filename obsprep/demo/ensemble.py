@@ -5,16 +5,18 @@ anomaly, sea surface temperature and sea-ice concentration of 20 members at the 
 time slot (12:00 UTC of each window day).  It is built so that the innovation statistics of a
 correct observation error are known exactly:
 
-    mean        = truth + b,            b   = sigma(x) * z_0
+    mean        = truth + b,            b   = sigma(x) * sqrt(1 + 1/M) * z_0
     member m    = mean + e_m - mean(e), e_m = sigma(x) * z_m    (m = 1..M)
 
 with z_0 .. z_M independent smooth Gaussian random fields of unit variance (white noise
 smoothed by a Gaussian kernel of 30 km, periodic edges, divided by the kernel's L2 norm so the
-variance is exactly 1).  The ensemble mean error b is then drawn from the distribution the
-ensemble describes: E[b^2] = sigma^2 = E[sample variance of the members] (ddof = 1; the
-centring leaves the sample variance of e_m unchanged).  Hence, for an observation y = truth +
-eps with error variance sigma_o^2, the innovation d = y - H(mean) has E[d^2] = sigma_o^2 +
-sigma_ens^2, the consistency condition of [Desroziers2005], QJRMS 131) for d = y - H(x_b),
+variance is exactly 1).  The ensemble mean error b is then what it is when the truth is
+statistically one more member: E[b^2] = (1 + 1/M) sigma^2, with sigma^2 = E[sample variance of
+the members] (ddof = 1; the centring leaves the sample variance of e_m unchanged; the mean of M
+exchangeable draws misses another by sigma^2 + sigma^2 / M).  Hence, for an observation
+y = truth + eps with error variance sigma_o^2, the innovation d = y - H(mean) has
+E[d^2] = sigma_o^2 + (1 + 1/M) sigma_ens^2, the consistency condition of [Desroziers2005],
+QJRMS 131) for d = y - H(x_b),
 up to the horizontal interpolation of the truth (the truth is smooth on the 10 km grid) and the
 time between an observation and the nearest output time.
 
@@ -130,7 +132,7 @@ def write_ensemble(scn, members=MEMBERS):
                 rng = scn.rng(RANDOM_STREAM, q_index, t_index)
                 true_values = truth.truth_value(name, lon, lat, 0.0, when)
                 sigma = spread_field(name, true_values)
-                mean = true_values + sigma * unit_random_field(rng, shape)
+                mean = true_values + sigma * np.sqrt(1.0 + 1.0 / members) * unit_random_field(rng, shape)
                 perturbations = np.stack([unit_random_field(rng, shape) for _ in range(members)])
                 perturbations -= perturbations.mean(axis=0)
                 values = mean[None] + sigma[None] * perturbations
