@@ -2,8 +2,9 @@
 
 Everything is inside the file: inline CSS, the figures as PNG ``data:`` URIs ([RFC2397], base64),
 no JavaScript, no external resource, so it opens from disk in any browser and can be mailed.
-The verdict table comes first, then the per-sensor table, the rejections, collocations, triple
-collocation, innovations and the figures with captions.  Tables are rendered from every column
+The tables come in the order of :func:`obsprep.audit.report.report_tables`: the verdicts first,
+the raw-noise check, the per-sensor table, the estimates to configure, the rejections,
+collocations, triple collocation, innovations; then the figures with captions.  Tables are rendered from every column
 of the audit's DataFrames (new columns appear unasked); numbers use
 :func:`obsprep.audit.report.format_value`; every text is escaped (:func:`html.escape`).
 Each table carries ``data-table="<name>"`` and each figure ``data-figure="<file stem>"`` so that
@@ -20,15 +21,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.report import (
-    CAPTIONS,
-    SECTIONS,
-    WRONG_FLAGS,
-    format_value,
-    rejection_table,
-    sensor_columns,
-    verdict_table,
-)
+from obsprep.audit.report import CAPTIONS, SECTIONS, WRONG_FLAGS, format_value, report_tables
 
 STYLE = """
 body { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; margin: 1.5em auto;
@@ -52,6 +45,7 @@ td.flag-no_evidence { color: #555; }
 figure { margin: 1.5em 0; }
 figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
 figcaption { color: #333; font-size: 0.9em; max-width: 80em; }
+pre { background: #f4f4f4; border: 1px solid #ddd; padding: 0.5em; overflow-x: auto; }
 dl.meta dt { font-weight: bold; float: left; clear: left; width: 11em; }
 dl.meta dd { margin-left: 12em; }
 """
@@ -138,25 +132,23 @@ def report_html(result) -> str:
         "<p class=\"note\">F is the factor by which the assigned error should be multiplied: "
         "F &gt; 1 means the assigned errors are too small, F &lt; 1 too large, F = 1 right.</p>",
     ]
-    parts.append(_section("Verdicts", "One row per sensor and quantity.",
-                          _table_or_absence(verdict_table(s) if len(s) else s, "verdicts",
-                                            "No sensor in the run.")))
-    parts.append(_section("Per sensor and quantity", "Counts, errors and every estimate of the "
-                          "audit (column names as in summary.csv).",
-                          _table_or_absence(s, "summary", "No sensor in the run.",
-                                            sensor_columns(s))))
-    parts.append(_section("Rejected raw observations",
-                          "Per sensor (all its quantities), the reasons with any rejection.",
-                          _table_or_absence(rejection_table(s), "rejections",
-                                            "No ledger of rejections in the run.")))
-    for key, frame, absent in (
-            ("collocation", result.collocation, "No two sensors of one quantity share a cell, "
-                                                "layer and slot."),
-            ("triple", result.triple, "No three sensors of one quantity overlap."),
-            ("innovations", result.innovations, "No model given (--ensemble or --background): "
-                                                "no innovations.")):
+    absent = {"verdicts": "No sensor in the run.",
+              "noise": "No raw-noise check in the summary.",
+              "summary": "No sensor in the run.",
+              "configuration": "No estimate of correlation or representation error in the "
+                               "summary.",
+              "rejections": "No ledger of rejections in the run.",
+              "collocation": "No two sensors of one quantity share a cell, layer and slot.",
+              "triple": "No three sensors of one quantity overlap.",
+              "innovations": "No model given (--ensemble or --background): no innovations."}
+    for key, frame in report_tables(result).items():
         title_text, note = SECTIONS[key]
-        parts.append(_section(title_text, note, _table_or_absence(frame, key, absent)))
+        parts.append(_section(title_text, note, _table_or_absence(frame, key, absent[key])))
+        suggested = getattr(result, "suggested_configuration", "")
+        if key == "configuration" and suggested:
+            parts.append("<p class=\"note\">Configuration lines that would make the errors "
+                         "consistent (estimated; check before use):</p>")
+            parts.append(f"<pre data-configuration=\"suggested\">{_escape(suggested)}</pre>")
     parts.append("<h2>Figures</h2>")
     if not result.figures:
         parts.append("<p class=\"note\">No figures (written with --no-figures, or nothing to "

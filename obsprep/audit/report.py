@@ -20,7 +20,12 @@ from obsprep.writers.atomic import atomic_path
 #: significant digits of every number in the reports
 SIGNIFICANT_DIGITS = 3
 #: summary columns shown in the verdict table rather than in the per-sensor table
-VERDICT_TEXT_COLUMNS = ("reason", "conclusion")
+VERDICT_TEXT_COLUMNS = ("conclusion", "reason")
+#: summary columns by the table they are shown in (by name prefix): question (i), the raw-noise
+#: check; the estimated correlation and representation error; the ledger's rejections
+NOISE_PREFIX, ESTIMATE_PREFIX, REJECTED_PREFIX = "noise_", "estimate", "rejected_"
+#: header of the factor in the verdict table
+FACTOR_HEADER = "F (95 % interval): multiply the assigned error by F"
 #: flags meaning "the assigned error is wrong"
 WRONG_FLAGS = ("too_small", "too_large")
 
@@ -95,7 +100,7 @@ def verdict_table(summary: pd.DataFrame) -> pd.DataFrame:
     for _, row in summary.iterrows():  # report rows (sensors), not observations
         entry = {"sensor": row.get("sensor", ""), "quantity": row.get("quantity", ""),
                  "flag": row.get("flag", ""),
-                 "F (multiply the assigned error by)": factor_of(row)["text"]}
+                 FACTOR_HEADER: factor_of(row)["text"]}
         for name in VERDICT_TEXT_COLUMNS:
             if name in summary:
                 entry[name] = row.get(name, "")
@@ -104,15 +109,23 @@ def verdict_table(summary: pd.DataFrame) -> pd.DataFrame:
 
 
 def sensor_columns(summary: pd.DataFrame) -> list:
-    """Columns of the per-sensor table: all but the rejection counts (a table of their own)
-    and the long texts (in the verdict table)."""
-    return [c for c in summary if not str(c).startswith("rejected_")
-            and c not in VERDICT_TEXT_COLUMNS]
+    """Columns of the per-sensor table: every column not shown in another table (the verdict
+    texts, the raw-noise check, the estimates to configure, the rejection counts)."""
+    return [c for c in summary if c not in VERDICT_TEXT_COLUMNS
+            and not str(c).startswith((NOISE_PREFIX, ESTIMATE_PREFIX, REJECTED_PREFIX))]
+
+
+def prefixed_table(summary: pd.DataFrame, prefix: str) -> pd.DataFrame:
+    """Sensor, quantity and the summary columns starting with ``prefix`` (empty when none)."""
+    columns = [c for c in summary if str(c).startswith(prefix)]
+    if not columns or "sensor" not in summary:
+        return pd.DataFrame()
+    return summary[[c for c in ("sensor", "quantity") if c in summary] + columns]
 
 
 def rejection_table(summary: pd.DataFrame) -> pd.DataFrame:
     """Per sensor: read, kept and the rejections per reason (columns with any rejection)."""
-    reasons = [c for c in summary if str(c).startswith("rejected_")]
+    reasons = [c for c in summary if str(c).startswith(REJECTED_PREFIX)]
     if not reasons or "sensor" not in summary:
         return pd.DataFrame()
     per_sensor = summary.drop_duplicates("sensor")
@@ -139,6 +152,22 @@ def markdown_table(frame: pd.DataFrame, columns=None) -> str:
 
 #: what each table of the report is, shared by the Markdown and the HTML report
 SECTIONS = {
+    "verdicts": ("Verdicts: is the super-observation error right?",
+                 "One row per sensor and quantity: the factor F by which the assigned "
+                 "super-observation error should be multiplied, with its 95 % interval, from "
+                 "the innovations and collocations that can see it."),
+    "noise": ("Raw noise against the spread inside cells",
+              "A one-sided check of the uncorrelated part of the raw error: sub-cell variability "
+              "only adds to the spread, so a ratio clearly below 1 says the raw noise is "
+              "overstated, above 1 that it is understated or the truth varies inside cells. It "
+              "does not decide the verdict."),
+    "configuration": ("Estimated correlation and representation error",
+                      "From how the innovation variance changes with the number of raw values "
+                      "per super-observation, with standard errors."),
+    "summary": ("Per sensor and quantity",
+                "Counts, errors and the combined estimate (column names as in summary.csv)."),
+    "rejections": ("Rejected raw observations",
+                   "Per sensor (all its quantities), the reasons with any rejection."),
     "collocation": ("Collocated pairs",
                     "var(a - b) against sigma_a² + sigma_b² for super-observations of two "
                     "sensors in the same cell, layer and slot (ratio 1 when the two errors are "
@@ -171,6 +200,19 @@ CAPTIONS = {
 }
 
 
+def report_tables(result) -> dict:
+    """The report's tables in their order (name -> DataFrame, possibly empty); the per-sensor
+    table holds only :func:`sensor_columns`."""
+    s = result.summary
+    return {"verdicts": verdict_table(s) if len(s) else s,
+            "noise": prefixed_table(s, NOISE_PREFIX),
+            "summary": s[sensor_columns(s)] if len(s) else s,
+            "configuration": prefixed_table(s, ESTIMATE_PREFIX),
+            "rejections": rejection_table(s),
+            "collocation": result.collocation, "triple": result.triple,
+            "innovations": result.innovations}
+
+
 def summary_markdown(result) -> str:
     """The text of ``summary.md``."""
     s = result.summary
@@ -190,19 +232,14 @@ def summary_markdown(result) -> str:
         lines.append(f"- **{row['sensor']}** ({row['quantity']}): "
                      f"{str(row['flag']).replace('_', ' ')}; multiply the assigned error by "
                      f"F = **{format_value(f['factor'])}**{interval}. {row.get('reason', '')}.")
-    lines += ["", "## Verdicts", ""]
-    lines.append(markdown_table(verdict_table(s)) if len(s) else "(no sensors)")
-    lines += ["", "## Per sensor and quantity", ""]
-    lines.append(markdown_table(s, sensor_columns(s)) if len(s) else "(no sensors)")
-    rejected = rejection_table(s)
-    if len(rejected):
-        lines += ["", "Rejected raw observations per reason (all quantities of a sensor):", ""]
-        lines.append(markdown_table(rejected))
-    for key, frame in (("collocation", result.collocation), ("triple", result.triple),
-                       ("innovations", result.innovations)):
+    for key, frame in report_tables(result).items():
         if frame is not None and len(frame):
             title, text = SECTIONS[key]
             lines += ["", f"## {title}", "", text, "", markdown_table(frame)]
+            if key == "configuration" and getattr(result, "suggested_configuration", ""):
+                lines += ["", "Configuration lines that would make the errors consistent "
+                          "(estimated; check before use):", "", "```toml",
+                          result.suggested_configuration, "```"]
     if result.figures:
         lines += ["", "## Figures", ""]
         for p in result.figures:

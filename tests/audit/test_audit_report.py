@@ -23,7 +23,7 @@ import pytest
 from obsprep.audit import audit
 from obsprep.audit.figures import MapPlane, spread_bins
 from obsprep.audit.html import report_html
-from obsprep.audit.report import format_value, sensor_columns, summary_markdown
+from obsprep.audit.report import FACTOR_HEADER, format_value, sensor_columns, summary_markdown
 from obsprep.demo import write_demo
 from obsprep.run.build import build
 
@@ -152,13 +152,20 @@ def test_report_html_renders_every_table_and_figure_in_chromium(demo_report, tmp
         assert len(frame), name                    # the demo has every kind of table
         assert name in dom.tables, (name, sorted(dom.tables))
         assert dom.tables[name]["rows"] == len(frame), name
-    assert "rejections" in dom.tables
+    for name in ("rejections", "noise", "configuration"):
+        assert name in dom.tables, name
     # tables are generic: every column of the DataFrame is a header of its table
     for name in ("collocation", "triple", "innovations"):
         assert dom.tables[name]["header"] == [str(c) for c in expected_tables[name].columns]
     assert dom.tables["summary"]["header"] == [str(c) for c in sensor_columns(demo_report.summary)]
-    assert dom.tables["verdicts"]["header"][:4] == ["sensor", "quantity", "flag",
-                                                    "F (multiply the assigned error by)"]
+    assert dom.tables["verdicts"]["header"][:4] == ["sensor", "quantity", "flag", FACTOR_HEADER]
+    # every column of the summary is shown in one of the tables made from it
+    shown = set().union(*(dom.tables[name]["header"] for name in
+                          ("verdicts", "noise", "summary", "configuration", "rejections")))
+    # (a rejection reason without any rejection is left out of the rejections table)
+    never_used = {c for c in demo_report.summary if c.startswith("rejected_")
+                  and not demo_report.summary[c].fillna(0).gt(0).any()}
+    assert set(demo_report.summary.columns) - shown == never_used
     # every figure is in the DOM, its data URI decodes to the PNG on disk, and the browser
     # decoded it to the same size
     stems = [p.stem for p in demo_report.figures]
