@@ -38,6 +38,7 @@ td.missing { background: #fafafa; }
 td.text { min-width: 20em; }
 tr:nth-child(even) td { background-color: #fbfbfb; }
 td.flag { font-weight: bold; white-space: nowrap; }
+table[data-table="verdicts"] td:nth-child(4) { white-space: nowrap; }
 td.flag-ok { color: #1b5e20; }
 td.flag-too_small, td.flag-too_large { color: #b71c1c; background: #fdecea; }
 td.flag-inconclusive { color: #8a5a00; background: #fff6e0; }

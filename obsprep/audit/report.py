@@ -226,12 +226,17 @@ def summary_markdown(result) -> str:
     if len(flagged) == 0:
         lines.append(f"No sensor is flagged too small or too large (tolerance: a factor "
                      f"{result.tolerance:g}).")
+        lines.append("")
     for _, row in flagged.iterrows():
         f = factor_of(row)
         interval = f["text"][len(format_value(f["factor"])):]
         lines.append(f"- **{row['sensor']}** ({row['quantity']}): "
                      f"{str(row['flag']).replace('_', ' ')}; multiply the assigned error by "
                      f"F = **{format_value(f['factor'])}**{interval}. {row.get('reason', '')}.")
+    undecided = s[s["flag"] == "inconclusive"] if len(s) and "flag" in s else s.iloc[0:0]
+    for _, row in undecided.iterrows():
+        lines.append(f"- {row['sensor']} ({row['quantity']}): "
+                     f"{row.get('conclusion', 'inconclusive')}; F = {factor_of(row)['text']}.")
     for key, frame in report_tables(result).items():
         if frame is not None and len(frame):
             title, text = SECTIONS[key]
