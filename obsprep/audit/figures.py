@@ -1,5 +1,6 @@
 """PNG figures of the audit (matplotlib, non-interactive Agg backend), for people to read.
 
+- ``factors.png``: the factor F of each sensor and quantity with its interval and the tolerance;
 - ``counts_map.png``: super-observations per model grid cell, one panel per sensor;
 - ``innovation_map.png``: mean innovation per cell, one panel per sensor and quantity;
 - ``normalised_innovations.png``: histograms of d / sqrt(sigma_o^2 + sigma_ens^2) per sensor and
@@ -565,3 +566,60 @@ def spread_vs_error(superobs: pd.DataFrame, path, correlation=None) -> Path | No
         ax.legend(fontsize=6, loc="upper left")
     return _save(plt, fig, path, "spread of the raw values inside cells against their assigned "
                                  "error")
+
+
+#: colours of the verdict flags in the factor figure
+FLAG_COLOURS = {"ok": "tab:green", "too_small": "tab:red", "too_large": "tab:purple",
+                "inconclusive": "tab:orange", "no_evidence": "0.5"}
+
+
+def factor_intervals(summary: pd.DataFrame, path, tolerance: float) -> Path | None:
+    """The factor F by which each assigned error should be multiplied, with its interval, one
+    row per sensor and quantity on a logarithmic axis, with the tolerance band 1/t..t shaded;
+    None when no row has a factor.  Rows without a factor are counted in the title.  Where the
+    summary gives no interval, F +- 1.96 standard errors is drawn (normal 95 %, textbook)."""
+    from obsprep.audit.report import factor_of
+
+    plt = _pyplot()
+    rows = []
+    for _, row in summary.iterrows():  # report rows (sensors), not observations
+        f = factor_of(row)
+        if np.isfinite(f["factor"]) and f["factor"] > 0:
+            low, high = f["low"], f["high"]
+            if not (np.isfinite(low) and np.isfinite(high)) and np.isfinite(f["se"]):
+                low, high = f["factor"] - 1.96 * f["se"], f["factor"] + 1.96 * f["se"]
+            rows.append((f"{row['sensor']}\n{row['quantity']}", f["factor"], low, high,
+                         str(row.get("flag", ""))))
+    if not rows:
+        return None
+    missing = len(summary) - len(rows)
+    fig, ax = plt.subplots(figsize=(7.5, 0.55 * len(rows) + 1.6), constrained_layout=True)
+    positive = [v for r in rows for v in r[1:4] if np.isfinite(v) and v > 0]
+    left = min(min(positive), 1.0 / tolerance) / 1.6
+    right = max(max(positive), tolerance) * 1.6
+    ax.axvspan(1.0 / tolerance, tolerance, color="0.92", zorder=0,
+               label=f"within the tolerance, a factor {tolerance:g}")
+    ax.axvline(1.0, color="k", lw=0.8, zorder=1)
+    clipped = 0
+    for y, (_, factor, low, high, flag) in enumerate(rows):
+        colour = FLAG_COLOURS.get(flag, "k")
+        if np.isfinite(low) and np.isfinite(high):
+            shown_low = max(low, left)                  # a lower bound <= 0 runs off the axis
+            clipped += int(low < left) + int(high > right)
+            ax.plot([shown_low, min(high, right)], [y, y], "-", color=colour, lw=2, zorder=2)
+        ax.plot([factor], [y], "o", color=colour, ms=6, zorder=3)
+        ax.text(1.02, y, f"F = {format_value(factor)}", ha="left", va="center", fontsize=7,
+                transform=ax.get_yaxis_transform())
+    for flag in dict.fromkeys(r[4] for r in rows):
+        ax.plot([], [], "o-", color=FLAG_COLOURS.get(flag, "k"), label=flag)
+    ax.set_xscale("log")
+    ax.set_xlim(left, right)
+    ax.set_yticks(range(len(rows)), [r[0] for r in rows], fontsize=7)
+    ax.invert_yaxis()
+    notes = [f"{missing} sensor/quantity rows without a factor not shown"] if missing else []
+    if clipped:
+        notes.append(f"{clipped} interval ends beyond the axis (cut at its edge)")
+    ax.set_xlabel("F: factor by which the assigned error should be multiplied "
+                  "(dimensionless, logarithmic)" + "".join(f"\n{n}" for n in notes), fontsize=8)
+    ax.legend(fontsize=7, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=5, frameon=False)
+    return _save(plt, fig, path, "the factor F of each sensor with its 95 % interval")

@@ -184,6 +184,9 @@ SECTIONS = {
 
 #: captions of the figures, by file stem
 CAPTIONS = {
+    "factors": "The factor F by which each assigned super-observation error should be "
+               "multiplied, with its 95 % interval, coloured by the verdict; grey band: within "
+               "the tolerance.",
     "counts_map": "Super-observations per model grid cell, one panel per sensor (all slots and "
                   "layers). Dark grey: land from the grid's sea mask; light grey: sea without "
                   "data.",
@@ -269,7 +272,9 @@ def write_report(result, out_dir, with_figures: bool = True) -> dict:
     if with_figures:
         shape, grid, so = result.grid_shape, result.grid, result.run.superobs
         correlation = {sensor: result.run.correlation(sensor) for sensor in so["sensor"].unique()}
-        made = [figures.counts_map(so, out / "counts_map.png", shape, grid)]
+        made = [figures.factor_intervals(result.summary, out / "factors.png", result.tolerance)
+                if len(result.summary) else None,
+                figures.counts_map(so, out / "counts_map.png", shape, grid)]
         if result.table is not None:
             made.append(figures.innovation_map(result.table, out / "innovation_map.png", shape,
                                                grid))

@@ -169,7 +169,7 @@ def test_report_html_renders_every_table_and_figure_in_chromium(demo_report, tmp
     # every figure is in the DOM, its data URI decodes to the PNG on disk, and the browser
     # decoded it to the same size
     stems = [p.stem for p in demo_report.figures]
-    assert set(stems) == {"counts_map", "innovation_map", "normalised_innovations",
+    assert set(stems) == {"factors", "counts_map", "innovation_map", "normalised_innovations",
                           "spread_vs_error"}
     assert set(dom.figures) == set(stems)
     rendered = {entry["figure"]: entry for entry in json.loads(dom.probe)}
@@ -342,3 +342,20 @@ def test_figures_without_a_grid_and_on_a_regular_grid(tmp_path):
             assert min(image.info["dpi"]) >= 119.9, path.name
     # nothing left behind by the atomic writes
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(p.name for p in made)
+
+
+def test_factor_figure_draws_rows_with_a_factor(tmp_path):
+    from PIL import Image
+
+    from obsprep.audit import figures
+
+    summary = pd.DataFrame({"sensor": ["a", "b", "c"], "quantity": ["q", "q", "q"],
+                            "flag": ["too_large", "ok", "no_evidence"],
+                            "factor": [0.003, 1.01, np.nan], "factor_low": [0.0025, -0.1, np.nan],
+                            "factor_high": [0.0035, 1.2, np.nan]})
+    path = figures.factor_intervals(summary, tmp_path / "factors.png", 1.5)
+    with Image.open(path) as image:
+        image.load()
+        assert min(image.info["dpi"]) >= 119.9
+    assert figures.factor_intervals(summary.iloc[2:], tmp_path / "none.png", 1.5) is None
+    assert not (tmp_path / "none.png").exists()
