@@ -25,8 +25,9 @@ L2P_MEANINGS = ("microwave land ice lake river reserved_for_future_use "
                 "reserved_for_future_use reserved_for_future_use")
 
 
-def config_toml(paths_glob: str, out_dir: str, slots: int = 4) -> str:
-    """A build configuration for the synthetic day (window [-24 h, 0 h), ``slots`` slots)."""
+def config_toml(paths_glob: str, out_dir: str, slots: int = 4, source_extra: str = "") -> str:
+    """A build configuration for the synthetic day (window [-24 h, 0 h), ``slots`` slots);
+    ``source_extra``: more TOML lines for the source table (e.g. an error correlation)."""
     grid = "\n".join(f"{k} = {v!r}" if not isinstance(v, str) else f'{k} = "{v}"'
                      for k, v in GRID.items())
     return f"""title = "benchmark: synthetic GDS 2.0 style SST day"
@@ -42,6 +43,7 @@ slot_hours = {24.0 / slots}
 sensor = "sst_l2p"
 paths = ["{paths_glob}"]
 kind = "auto"
+{source_extra}
 error = {{ rule = "constant", value = 0.45 }}
 [output]
 directory = "{out_dir}"
@@ -203,6 +205,44 @@ def random_observations(n: int, nx: int, ny: int, n_slots: int, seed: int = 0):
     value = 271.35 + 10.0 * rng.random(n)
     error = 0.3 + 0.3 * rng.random(n)
     return i, j, slot, value, error, rng
+
+
+def swath_order_observations(n: int, n_slots: int = 4, columns: int = 1250, seed: int = 0):
+    """Invented observations for the accumulator in the order a swath delivers them: scan lines
+    of ``columns`` 1 km pixels (:func:`swath_pixels`) across the benchmark grid, granule after
+    granule, so that neighbouring pixels fall into the same or neighbouring 5 km cells.
+
+    Returns i, j, slot (int64 cell indices and time slot), value (SST-like, kelvin), error
+    (kelvin), time (s from the analysis time, rows 0.15 s apart), lon, lat (degrees): the
+    first ``n`` pixels that fall inside the grid, in scan order.
+    """
+    import pyproj
+
+    rng = np.random.default_rng(seed)
+    to_lonlat = pyproj.Transformer.from_crs(GRID["crs"], "EPSG:4326", always_xy=True)
+    rows = 2000
+    parts, have, granule = [], 0, 0
+    while have < n:
+        x, y = swath_pixels(granule, rows, columns, rng)
+        fi = np.floor((x - GRID["x_min"]) / GRID["dx"]).ravel()
+        fj = np.floor((y - GRID["y_min"]) / GRID["dy"]).ravel()
+        inside = (fi >= 0) & (fi < GRID["nx"]) & (fj >= 0) & (fj < GRID["ny"])
+        if inside.any():
+            # granule start spread over the window [-24 h, 0 h), as in write_granule
+            start = -24 * 3600.0 + (granule * 2711) % (24 * 3600 - 400)
+            row_time = start + np.arange(rows) * 0.15
+            time_s = np.repeat(row_time, columns)[inside]
+            lon, lat = to_lonlat.transform(x.ravel()[inside], y.ravel()[inside])
+            parts.append((fi[inside].astype(np.int64), fj[inside].astype(np.int64), time_s,
+                          np.asarray(lon), np.asarray(lat)))
+            have += int(inside.sum())
+        granule += 1
+    i, j, time_s, lon, lat = (np.concatenate(column)[:n] for column in zip(*parts))
+    slot_seconds = 24 * 3600.0 / n_slots
+    slot = np.clip(np.floor((time_s + 24 * 3600.0) / slot_seconds), 0, n_slots - 1).astype(np.int64)
+    value = 271.35 + 10.0 * rng.random(n)
+    error = 0.3 + 0.3 * rng.random(n)
+    return i, j, slot, value, error, time_s, lon, lat
 
 
 def curvilinear_grid(ny: int = 880, nx: int = 800):

@@ -102,8 +102,11 @@ def _evidence_of(sensor, quantity, innovations: dict, triples: dict, context: Au
                                   stats["upper_estimate"]))
         used = context.analysis_factors.get(sensor)
         if used is not None:
-            found.append(Evidence(f"analysis residuals (analyses made with F = {used:g})",
-                                  "estimate", stats["desroziers_estimate"]))
+            step = stats["desroziers_estimate"]
+            following = float(np.sqrt(max(step.value, 0.0))) if np.isfinite(step.value) else np.nan
+            found.append(Evidence(f"analysis residuals of analyses made with F = {used:.3g} "
+                                  f"(the next iterate is F = {following:.3g}; redo the analyses "
+                                  f"with it until the two agree)", "estimate", step))
         elif np.isfinite(stats["desroziers_sq"]):
             found.append(Evidence("one-step analysis residuals, biased toward the assigned "
                                   "errors", "diagnostic", stats["desroziers_estimate"]))

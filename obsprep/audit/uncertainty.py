@@ -17,11 +17,13 @@ B = 1 (each cell its own block) this is the usual standard error of independent 
 
 Block size: the variance grows with B while the blocks are smaller than the correlation of the
 errors, and levels off once they are larger (the blocking method, [FlyvbjergPetersen1989]).  It
-is computed for B = 1, 2, 4, ... cells, while at least :data:`MIN_BLOCKS` blocks remain, until
-doubling B raises the standard error by less than :data:`LEVEL_TOLERANCE` of its own relative
-standard errors; the larger of those two is used.  When it is still growing at the largest
-block size (:attr:`BlockedEstimate.levelled` is False) the errors correlate over distances
-comparable to the sampled area: the variance is then extrapolated one step, assuming its
+is computed for B = 1, 2, 4, ... cells while at least :data:`MIN_BLOCKS` blocks remain, and the
+largest is used: conservative, since the maximum of the noisy estimates is kept, and safe for
+weak correlations of long range (errors shared by a whole granule), which raise the variance
+only a little per doubling but much over many (a rule stopping at the first level step would
+miss them).  When it is still growing at the largest block size
+(:attr:`BlockedEstimate.levelled` is False) the errors correlate over distances comparable to
+the sampled area: the variance is then extrapolated one step, assuming its
 shortfall decays as 1/B (the pairs closer than the correlation length that straddle block
 edges), and the standard error may still be too small; the audit says so.  Degrees of freedom
 for intervals are G - 1 of the chosen size (Student's t, [CameronMiller2015]).
@@ -117,9 +119,9 @@ def block_sizes(blocks: Blocks) -> list[int]:
     return sizes
 
 
-def _plateau(variance_at, blocks: Blocks, n: int, value: float) -> BlockedEstimate:
-    """Run ``variance_at(labels, G)`` for block sizes 1, 2, 4, ... until it levels off (module
-    docstring); the larger of the two levelled variances is kept."""
+def _largest_over_sizes(variance_at, blocks: Blocks, n: int, value: float) -> BlockedEstimate:
+    """Run ``variance_at(labels, G)`` for every block size; keep the largest variance, and
+    extrapolate it where it is still growing at the largest size (module docstring)."""
     sizes = block_sizes(blocks)
     if not sizes or not np.isfinite(value):
         return BlockedEstimate(value, np.nan, 0, 0, 0, False, n)
@@ -127,21 +129,18 @@ def _plateau(variance_at, blocks: Blocks, n: int, value: float) -> BlockedEstima
     for cells in sizes:
         labels, g = blocks.labels(cells)
         results.append((variance_at(labels, g), g, cells))
-        if len(results) >= 2:
-            (previous, g_previous, _), (last, _, _) = results[-2], results[-1]
-            noise = LEVEL_TOLERANCE / np.sqrt(2.0 * max(g_previous - 1, 1))
-            if np.sqrt(max(last, 0.0)) <= np.sqrt(max(previous, 0.0)) * (1.0 + noise):
-                variance, g, cells = max(results[-2:], key=lambda r: r[0])
-                return BlockedEstimate(value, float(np.sqrt(max(variance, 0.0))), g, g - 1, cells,
-                                       True, n)
-    variance, g, cells = results[-1]
+    variance, g, cells = max(results, key=lambda r: r[0])
+    levelled = False
     if len(results) >= 2:
-        # still growing: the shortfall of a block variance decays about as 1/B (pairs closer
-        # than the correlation length straddle a block edge in proportion to its perimeter
-        # over its area), so one extrapolation step doubles the last increase
-        variance = variance + (variance - results[-2][0])
-    return BlockedEstimate(value, float(np.sqrt(max(variance, 0.0))), g, g - 1, cells,
-                           False, n)
+        (previous, g_previous, _), (last, _, _) = results[-2], results[-1]
+        noise = LEVEL_TOLERANCE / np.sqrt(2.0 * max(g_previous - 1, 1))
+        levelled = bool(np.sqrt(max(last, 0.0)) <= np.sqrt(max(previous, 0.0)) * (1.0 + noise))
+        if not levelled:
+            # still growing: the shortfall of a block variance decays about as 1/B (pairs
+            # closer than the correlation length straddle a block edge in proportion to its
+            # perimeter over its area), so one extrapolation step doubles the last increase
+            variance = max(variance, last + (last - previous))
+    return BlockedEstimate(value, float(np.sqrt(max(variance, 0.0))), g, g - 1, cells, levelled, n)
 
 
 def blocked_ratio(numerator, denominator, blocks: Blocks) -> BlockedEstimate:
@@ -166,7 +165,7 @@ def blocked_ratio(numerator, denominator, blocks: Blocks) -> BlockedEstimate:
         sums = np.bincount(labels, weights=residual, minlength=g)
         return g / (g - 1.0) * float(np.sum(sums * sums)) / (total * total)
 
-    return _plateau(variance_at, blocks, n, value)
+    return _largest_over_sizes(variance_at, blocks, n, value)
 
 
 def blocked_least_squares(design, response, blocks: Blocks, weights=None) -> tuple[np.ndarray, np.ndarray, BlockedEstimate]:
@@ -176,7 +175,7 @@ def blocked_least_squares(design, response, blocks: Blocks, weights=None) -> tup
     .. math:: V = \\frac{G}{G-1} (X^T W X)^{-1} \\Big(\\sum_g X_g^T W_g u_g u_g^T W_g X_g\\Big)
               (X^T W X)^{-1}
 
-    taken at the block size where the variance of the first coefficient levels off.
+    taken at the block size where the variance of the first coefficient is largest.
 
     Returns the coefficients, their covariance matrix and a :class:`BlockedEstimate` describing
     the blocks (its value and se are those of the first coefficient).
@@ -203,7 +202,7 @@ def blocked_least_squares(design, response, blocks: Blocks, weights=None) -> tup
         covariances[g] = covariance
         return float(covariance[0, 0])
 
-    summary = _plateau(variance_at, blocks, n, float(beta[0]))
+    summary = _largest_over_sizes(variance_at, blocks, n, float(beta[0]))
     if summary.blocks == 0:
         return beta, nan, summary
     return beta, covariances[summary.blocks], summary
