@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.report import format_value
+from obsprep.audit.presentation import factor_of, format_value
 from obsprep.model.quantities import QUANTITIES
 from obsprep.writers.atomic import atomic_path
 
@@ -578,8 +578,6 @@ def factor_intervals(summary: pd.DataFrame, path, tolerance: float) -> Path | No
     row per sensor and quantity on a logarithmic axis, with the tolerance band 1/t..t shaded;
     None when no row has a factor.  Rows without a factor are counted in the title.  Where the
     summary gives no interval, F +- 1.96 standard errors is drawn (normal 95 %, textbook)."""
-    from obsprep.audit.report import factor_of
-
     plt = _pyplot()
     rows = []
     for _, row in summary.iterrows():  # report rows (sensors), not observations

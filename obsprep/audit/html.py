@@ -2,11 +2,11 @@
 
 Everything is inside the file: inline CSS, the figures as PNG ``data:`` URIs ([RFC2397], base64),
 no JavaScript, no external resource, so it opens from disk in any browser and can be mailed.
-The tables come in the order of :func:`obsprep.audit.report.report_tables`: the verdicts first,
+The tables come in the order of :func:`obsprep.audit.presentation.report_tables`: the verdicts first,
 the raw-noise check, the per-sensor table, the estimates to configure, the rejections,
 collocations, triple collocation, innovations; then the figures with captions.  Tables are rendered from every column
 of the audit's DataFrames (new columns appear unasked); numbers use
-:func:`obsprep.audit.report.format_value`; every text is escaped (:func:`html.escape`).
+:func:`obsprep.audit.presentation.format_value`; every text is escaped (:func:`html.escape`).
 Each table carries ``data-table="<name>"`` and each figure ``data-figure="<file stem>"`` so that
 tests and scripts can find them.
 """
@@ -21,7 +21,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.report import CAPTIONS, SECTIONS, WRONG_FLAGS, format_value, report_tables
+from obsprep.audit.presentation import (
+    CAPTIONS,
+    SECTIONS,
+    WRONG_FLAGS,
+    format_value,
+    report_tables,
+)
 
 STYLE = """
 body { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; margin: 1.5em auto;

@@ -23,7 +23,8 @@ import pytest
 from obsprep.audit import audit
 from obsprep.audit.figures import MapPlane, spread_bins
 from obsprep.audit.html import report_html
-from obsprep.audit.report import FACTOR_HEADER, format_value, sensor_columns, summary_markdown
+from obsprep.audit.presentation import FACTOR_HEADER, format_value, sensor_columns
+from obsprep.audit.report import summary_markdown
 from obsprep.demo import write_demo
 from obsprep.run.build import build
 
