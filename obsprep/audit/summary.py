@@ -153,7 +153,11 @@ def evaluate(table: pd.DataFrame, context: AuditContext) -> Assessment:
     rows = []
     for (sensor, quantity), group in table.groupby(["sensor", "quantity"], sort=True):
         evidence = _evidence_of(sensor, quantity, innovation_estimates, triple_estimates, context)
-        if context.members >= 2:
+        own = innovation_estimates.get((sensor, quantity))
+        if context.members >= 2 and (own is None or not own["factor_estimate"].usable):
+            # only for a sensor without innovations of its own: the partner's innovations share
+            # its background errors, so the two estimates would be anti-correlated and the
+            # agreement test, which takes them as independent, would see disagreement
             partners = {s: stats["factor_estimate"] for (s, q), stats in innovation_estimates.items()
                         if q == quantity and s != sensor}
             evidence += _pair_evidence(table, quantity, sensor, partners)

@@ -9,7 +9,7 @@ correlated neighbours (:mod:`obsprep.audit.uncertainty`):
 - triple collocation, against the part of the error differences see
   (:mod:`obsprep.audit.triple`);
 - pair collocation with a partner whose own F is known from its innovations
-  (:func:`pair_estimate`);
+  (:func:`pair_estimate`), for a sensor without innovations of its own;
 - the analysis-residual estimate, only when the analyses were made with the errors being
   tested (the fixed point of its iteration, [Desroziers2005]); otherwise it is biased toward the
   assigned errors and is listed as a diagnostic, never deciding.
