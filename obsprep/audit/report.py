@@ -1,27 +1,40 @@
-"""Writing the audit report folder: CSV tables, a readable Markdown summary, figures."""
+"""Writing the audit report folder: CSV tables, a readable Markdown summary, the figures
+(:mod:`.figures`) and the self-contained HTML report (:mod:`.html`); what the tables hold and
+how numbers are printed is :mod:`.presentation`.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
+from obsprep.audit import figures
+from obsprep.audit.html import report_html
+from obsprep.audit.presentation import (
+    CAPTIONS,
+    SECTIONS,
+    WRONG_FLAGS,
+    factor_of,
+    format_value,
+    report_tables,
+)
 from obsprep.writers.atomic import atomic_path
 
 
-def _fmt(value, digits=3) -> str:
-    if isinstance(value, (float, np.floating)):
-        return "" if not np.isfinite(value) else f"{value:.{digits}g}"
-    return str(value)
+def markdown_table(frame: pd.DataFrame, columns=None) -> str:
+    """A Markdown table of ``columns`` (default all) of ``frame``, numbers by
+    :func:`format_value`; "|" in text is escaped."""
+    columns = [c for c in (frame.columns if columns is None else columns) if c in frame]
+    if not columns:
+        return "(no columns)"
 
+    def cell(value):
+        return format_value(value).replace("|", "\\|").replace("\n", " ")
 
-def markdown_table(frame: pd.DataFrame, columns) -> str:
-    """A Markdown table of ``columns`` of ``frame`` (numbers with 3 significant digits)."""
-    columns = [c for c in columns if c in frame]
-    lines = ["| " + " | ".join(columns) + " |", "|" + "---|" * len(columns)]
+    lines = ["| " + " | ".join(cell(c) for c in columns) + " |", "|" + "---|" * len(columns)]
     for _, row in frame.iterrows():  # report rows (sensors), not observations
-        lines.append("| " + " | ".join(_fmt(row[c]) for c in columns) + " |")
+        lines.append("| " + " | ".join(cell(row[c]) for c in columns) + " |")
     return "\n".join(lines)
 
 
@@ -30,61 +43,42 @@ def summary_markdown(result) -> str:
     s = result.summary
     lines = [f"# obsprep error audit of {result.run.directory}", ""]
     lines += [f"Super-observation files: {', '.join(p.name for p in result.run.files)}.",
-              f"Model: {result.model_description}.", ""]
-    flagged = s[s["flag"].isin(["too_small", "too_large"])] if len(s) else s
-    lines.append("## Flags")
-    lines.append("")
+              f"Model: {result.model_description}.", "",
+              "F is the factor by which the assigned error should be multiplied: F > 1 means "
+              "the errors are too small, F < 1 too large.", ""]
+    flagged = s[s["flag"].isin(WRONG_FLAGS)] if len(s) and "flag" in s else s.iloc[0:0]
+    lines += ["## Flags", ""]
     if len(flagged) == 0:
-        lines.append("No sensor is flagged: the assigned errors are consistent with the data "
-                     f"(tolerance: a factor {result.tolerance:g}).")
+        lines.append(f"No sensor is flagged too small or too large (tolerance: a factor "
+                     f"{result.tolerance:g}).")
+        lines.append("")
     for _, row in flagged.iterrows():
-        lines.append(f"- **{row['sensor']}** ({row['quantity']}): {row['flag'].replace('_', ' ')}; "
-                     f"multiply the assigned error by **F = {row['factor']:.3g}** "
-                     f"({row['factor_low']:.3g} to {row['factor_high']:.3g}). {row['reason']}.")
-    lines += ["", "## Per sensor and quantity", ""]
-    lines.append(markdown_table(s, ["sensor", "quantity", "files", "read", "kept", "superobs",
-                                    "median_raw_error", "median_superobs_error", "noise_ratio",
-                                    "noise_check", "factor", "factor_low", "factor_high",
-                                    "flag"]))
-    lines += ["", "Rejected raw observations per reason (all quantities of a sensor):", ""]
-    reasons = [c for c in s if c.startswith("rejected_")]
-    if reasons:
-        per_sensor = s.drop_duplicates("sensor")
-        lines.append(markdown_table(per_sensor, ["sensor", "read", "kept", *reasons]))
-    lines += ["", "Verdicts:", ""]
-    for _, row in s.iterrows():
-        lines.append(f"- {row['sensor']} / {row['quantity']}: {row['flag']}: {row['reason']}")
-    if len(result.collocation):
-        lines += ["", "## Collocated pairs", "",
-                  "var(a - b) against sigma_a² + sigma_b² for super-observations of two sensors "
-                  "in the same cell, layer and slot (ratio 1 when the two errors are right "
-                  "together).", ""]
-        lines.append(markdown_table(result.collocation, ["quantity", "sensor_a", "sensor_b", "n",
-                                                         "mean_difference", "ratio", "ratio_se"]))
-    if len(result.triple):
-        lines += ["", "## Triple collocation", "",
-                  "Error of each sensor from three collocated sensors (Stoffelen 1998), with its "
-                  "standard error, against the assigned super-observation error.", ""]
-        lines.append(markdown_table(result.triple, ["quantity", "sensor", "with", "n", "sigma",
-                                                    "sigma_se", "assigned", "ratio", "ratio_se"]))
-    if len(result.innovations):
-        lines += ["", "## Innovations", "",
-                  "d = y - H(mean); ratio = var(d) / (sigma_o² + sigma_ens²); factor = the "
-                  "scale of sigma_o that makes them consistent; sensitivity = the share of the "
-                  "innovation variance the observation error accounts for.", ""]
-        lines.append(markdown_table(result.innovations, [
-            "sensor", "quantity", "n", "mean", "std", "ratio", "factor_sq", "factor_sq_se",
-            "sensitivity", "upper_sq", "median_time_gap_h"]))
+        f = factor_of(row)
+        interval = f["text"][len(format_value(f["factor"])):]
+        lines.append(f"- **{row['sensor']}** ({row['quantity']}): "
+                     f"{str(row['flag']).replace('_', ' ')}; multiply the assigned error by "
+                     f"F = **{format_value(f['factor'])}**{interval}. {row.get('reason', '')}.")
+    undecided = s[s["flag"] == "inconclusive"] if len(s) and "flag" in s else s.iloc[0:0]
+    for _, row in undecided.iterrows():
+        lines.append(f"- {row['sensor']} ({row['quantity']}): "
+                     f"{row.get('conclusion', 'inconclusive')}; F = {factor_of(row)['text']}.")
+    for key, frame in report_tables(result).items():
+        if frame is not None and len(frame):
+            title, text = SECTIONS[key]
+            lines += ["", f"## {title}", "", text, "", markdown_table(frame)]
+            if key == "configuration" and getattr(result, "suggested_configuration", ""):
+                lines += ["", "Configuration lines that would make the errors consistent "
+                          "(estimated; check before use):", "", "```toml",
+                          result.suggested_configuration, "```"]
     if result.figures:
         lines += ["", "## Figures", ""]
-        lines += [f"![{p.stem}]({p.name})" for p in result.figures]
+        for p in result.figures:
+            lines += [f"![{p.stem}]({p.name})", "", CAPTIONS.get(p.stem, ""), ""]
     return "\n".join(lines) + "\n"
 
 
 def write_report(result, out_dir, with_figures: bool = True) -> dict:
     """Write the report folder; returns name -> path of every file written."""
-    from obsprep.audit import figures
-
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     written = {}
@@ -95,16 +89,23 @@ def write_report(result, out_dir, with_figures: bool = True) -> dict:
             frame.to_csv(tmp, index=False)
         written[name] = out / name
     if with_figures:
-        shape = result.grid_shape
-        made = [figures.counts_map(result.run.superobs, out / "counts_map.png", shape)]
+        shape, grid, so = result.grid_shape, result.grid, result.run.superobs
+        correlation = {sensor: result.run.correlation(sensor) for sensor in so["sensor"].unique()}
+        made = [figures.factor_intervals(result.summary, out / "factors.png", result.tolerance)
+                if len(result.summary) else None,
+                figures.counts_map(so, out / "counts_map.png", shape, grid)]
         if result.table is not None:
-            made.append(figures.innovation_map(result.table, out / "innovation_map.png", shape))
+            made.append(figures.innovation_map(result.table, out / "innovation_map.png", shape,
+                                               grid))
             made.append(figures.normalised_innovation_histograms(
                 result.table, out / "normalised_innovations.png"))
-        made.append(figures.spread_vs_error(result.run.superobs, out / "spread_vs_error.png"))
+        made.append(figures.spread_vs_error(so, out / "spread_vs_error.png", correlation))
         result.figures = [p for p in made if p is not None]
         written.update({p.name: p for p in result.figures})
     with atomic_path(out / "summary.md") as tmp:
         Path(tmp).write_text(summary_markdown(result), encoding="utf-8")
     written["summary.md"] = out / "summary.md"
+    with atomic_path(out / "report.html") as tmp:
+        Path(tmp).write_text(report_html(result), encoding="utf-8")
+    written["report.html"] = out / "report.html"
     return written

@@ -23,9 +23,8 @@ weak correlations of long range (errors shared by a whole granule), which raise 
 only a little per doubling but much over many (a rule stopping at the first level step would
 miss them).  When it is still growing at the largest block size
 (:attr:`BlockedEstimate.levelled` is False) the errors correlate over distances comparable to
-the sampled area: the variance is then extrapolated one step, assuming its
-shortfall decays as 1/B (the pairs closer than the correlation length that straddle block
-edges), and the standard error may still be too small; the audit says so.  Degrees of freedom
+the sampled area: the variance is then extrapolated by one more doubling at the growth of the
+last one, and the standard error may still be too small; the audit says so.  Degrees of freedom
 for intervals are G - 1 of the chosen size (Student's t, [CameronMiller2015]).
 """
 
@@ -136,10 +135,10 @@ def _largest_over_sizes(variance_at, blocks: Blocks, n: int, value: float) -> Bl
         noise = LEVEL_TOLERANCE / np.sqrt(2.0 * max(g_previous - 1, 1))
         levelled = bool(np.sqrt(max(last, 0.0)) <= np.sqrt(max(previous, 0.0)) * (1.0 + noise))
         if not levelled:
-            # still growing: the shortfall of a block variance decays about as 1/B (pairs
-            # closer than the correlation length straddle a block edge in proportion to its
-            # perimeter over its area), so one extrapolation step doubles the last increase
-            variance = max(variance, last + (last - previous))
+            # still growing: continue the last doubling's growth once more (geometric); for
+            # weak growth this is the step of a shortfall decaying as 1/B, for strong growth
+            # (correlations as long as the blocks) more, as the Monte Carlo tests need
+            variance = max(variance, last * max(last, previous) / max(previous, 1e-300))
     return BlockedEstimate(value, float(np.sqrt(max(variance, 0.0))), g, g - 1, cells, levelled, n)
 
 

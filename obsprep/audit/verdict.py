@@ -21,8 +21,9 @@ Q = sum w_k (e_k - F^2)^2 against chi-square with K - 1 degrees of freedom (Coch
 ("estimates disagree", each shown).  Otherwise, with t the Student quantile for the fewest blocks
 behind any estimate ([CameronMiller2015]) and tolerance T:
 
-- ``too_small`` when F^2 - t_0.95 se > T^2 (the one-sided 95 % bound is beyond the tolerance);
-- ``too_large`` when F^2 + t_0.95 se < 1 / T^2;
+- ``too_small`` when F^2 - se > T^2 (beyond the tolerance by more than its uncertainty) and
+  F^2 - t_0.99 se > 1 (wrong with 99 % confidence);
+- ``too_large`` when F^2 + se < 1 / T^2 and F^2 + t_0.99 se < 1;
 - ``ok`` when the two-sided 95 % interval F^2 +- t_0.975 se lies inside [1 / T^2, T^2];
 - else ``inconclusive`` ("not enough evidence"), never ``ok``;
 - ``no_evidence`` when no estimate exists at all (the reason says why).
@@ -42,8 +43,9 @@ from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio
 
 #: Cochran's Q below this p-value: the estimates disagree
 AGREEMENT_LEVEL = 0.01
-#: one-sided confidence of a flag, and two-sided confidence of an "ok"
-FLAG_CONFIDENCE = 0.95
+#: one-sided confidence that a flagged error is wrong (besides being beyond the tolerance by
+#: more than one standard error), and two-sided confidence of an "ok"
+FLAG_CONFIDENCE = 0.99
 OK_CONFIDENCE = 0.95
 
 FLAGS = ("ok", "too_small", "too_large", "inconclusive", "no_evidence")
@@ -157,6 +159,8 @@ def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
         p_agree = float(stats.chi2.sf(q, len(deciding) - 1))
     low_ok, high_ok = _interval(value, se, dof, OK_CONFIDENCE, two_sided=True)
     low_flag, high_flag = _interval(value, se, dof, FLAG_CONFIDENCE, two_sided=False)
+    beyond_small = value - se > tolerance ** 2 and low_flag > 1.0
+    beyond_large = value + se < 1.0 / tolerance ** 2 and high_flag < 1.0
     factor = _as_factor(value)
     result.update(factor=factor, factor_se=se / (2.0 * factor) if factor > 0 else nan,
                   factor_low=_as_factor(low_ok), factor_high=_as_factor(high_ok),
@@ -165,10 +169,10 @@ def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
     if np.isfinite(p_agree) and p_agree < AGREEMENT_LEVEL:
         result.update(flag="inconclusive", conclusion="inconclusive: estimates disagree",
                       reason=f"estimates disagree (p = {p_agree:.2g}): {shown}")
-    elif low_flag > tolerance ** 2:
+    elif beyond_small:
         result.update(flag="too_small", conclusion="too small",
                       reason=f"errors look too small: {interval}; {shown}")
-    elif high_flag < 1.0 / tolerance ** 2:
+    elif beyond_large:
         result.update(flag="too_large", conclusion="too large",
                       reason=f"errors look too large: {interval}; {shown}")
     elif low_ok >= 1.0 / tolerance ** 2 and high_ok <= tolerance ** 2:
