@@ -1,0 +1,270 @@
+"""Compiled first step of the curvilinear cell search: lookup-table guess and the four pieces.
+
+:class:`obsprep.geo.grid.curvilinear.CurvilinearGrid` finds the cell of a position in three
+steps (its module docstring): (1) a first guess of the nearest centre from a lookup table and
+the four bilinear pieces around it, (2) the pieces around the KD-tree's nearest centres for what
+(1) misses, (3) slivers between pieces.  Step (1) places nearly every position; done in numpy
+it makes a dozen passes over full-size temporaries per try.  :func:`table_search` does step (1)
+for each position in one compiled pass, with the same arithmetic in the same order as the numpy
+code (IEEE-754 double operations, no reassociation, no fused multiply-add), so the cells, the
+near misses and the positions left for step (2) are bit for bit those of the numpy path.
+
+Transcendental functions are not evaluated in the kernel: numpy and the compiled code may use
+different libraries for them (differing in the last bit).  The unit vectors of the positions
+come in from numpy, and a piece in a polar cap needs the position's polar stereographic
+coordinates, which the caller computes with numpy only for the positions that ask for them
+(status :data:`NEEDS_NORTH` / :data:`NEEDS_SOUTH`) and passes in on a second call.
+
+The kernel is compiled with numba, imported on first use only, so that importing obsprep does
+not import numba.  numba's on-disk cache is kept next to this file when its ``__pycache__`` is
+writable and otherwise in the user's cache directory (``$XDG_CACHE_HOME/numba``, by default
+``~/.cache/numba``), numba's own fallback; ``NUMBA_CACHE_DIR``, when set, takes precedence.
+When no cache directory is writable at all the kernel is compiled in memory for each process,
+with a warning.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import warnings
+
+import numpy as np
+
+#: status of a position after :func:`table_search`
+FOUND = 0
+#: the four pieces around the guessed centre were tried, none holds the position (step 2)
+PENDING = 1
+#: outside the lookup table or on the far side of the sphere: outside the grid
+OUTSIDE = 2
+#: a tried piece lies in the northern (southern) polar cap and the position's polar
+#: stereographic coordinates about that pole were not given: call again with them
+NEEDS_NORTH = 3
+NEEDS_SOUTH = 4
+
+
+def table_search(lon, lat, components, lookup, pieces, nx, ny, polar=None):
+    """Step (1) of the curvilinear cell search for every position, in one compiled pass.
+
+    Parameters
+    ----------
+    lon, lat : numpy.ndarray
+        float64 positions in degrees (finite, latitude within +-90), 1-D, length n.
+    components : tuple of numpy.ndarray
+        Their Earth-centred unit vectors (x, y, z; dimensionless), as
+        :func:`obsprep.geo.sphere.unit_vector_components` gives them.
+    lookup : tuple
+        The grid's first-guess table, ``CurvilinearGrid._lookup``: (basis (3, 3), x0, y0, bin
+        size (plane units of the unit-sphere stereographic projection), table (nby, nbx) of flat
+        centre indices, (ncells, 6) plane position and axis differences of each centre).
+    pieces : numpy.ndarray
+        (ny - 1) (nx - 1) rows of ``CurvilinearGrid._piece_table``: bilinear coefficients
+        e, f, g, corner p00, hemisphere of a polar piece (or 0), reference longitude (degrees).
+    nx, ny : int
+        Grid size in cells.
+    polar : tuple of numpy.ndarray, optional
+        (x, y, hemisphere): polar stereographic coordinates (unit sphere) of each position about
+        the pole of ``hemisphere`` (+1 north, -1 south, 0 where not given).
+
+    Returns
+    -------
+    i, j : numpy.ndarray
+        int64 cell indices where the status is :data:`FOUND`, else -1.
+    near_miss : numpy.ndarray
+        (n, 5) float64: smallest violation (index-space distance outside a piece, cells), j0, i0,
+        s, t of the nearest piece tried that did not hold the position (violation +inf if none).
+    status : numpy.ndarray
+        int8, one of :data:`FOUND`, :data:`PENDING`, :data:`OUTSIDE`, :data:`NEEDS_NORTH`,
+        :data:`NEEDS_SOUTH`.
+    """
+    n = lon.size
+    basis, x0, y0, size, table, axes = lookup
+    if polar is None:
+        polar_x = polar_y = np.zeros(n)
+        hemisphere = np.zeros(n, dtype=np.int8)
+    else:
+        polar_x, polar_y, hemisphere = polar
+    i = np.full(n, -1, dtype=np.int64)
+    j = np.full(n, -1, dtype=np.int64)
+    near_miss = np.empty((n, 5))
+    near_miss[:, 0] = np.inf
+    status = np.empty(n, dtype=np.int8)
+    kernel = _compiled_table_search()
+    kernel(_contiguous(lon), _contiguous(lat), *(_contiguous(c) for c in components),
+           np.ascontiguousarray(basis, dtype=np.float64), float(x0), float(y0), 1.0 / size,
+           table, axes, pieces, int(nx), int(ny), _contiguous(polar_x), _contiguous(polar_y),
+           np.ascontiguousarray(hemisphere, dtype=np.int8), i, j, near_miss, status)
+    return i, j, near_miss, status
+
+
+def _contiguous(values):
+    return np.ascontiguousarray(values, dtype=np.float64)
+
+
+#: positions per block of the staged loop: enough independent table and row reads in flight
+#: to hide the memory latency of random positions, few enough for the block to stay in cache
+_BLOCK = 256
+
+
+def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table, axes, pieces,
+                       nx, ny, polar_x, polar_y, hemisphere, found_i, found_j, near_miss,
+                       status):
+    """The per-position search of :func:`table_search` (plain Python; compiled by
+    :func:`_compiled_table_search`).  Every expression mirrors one of the numpy path in
+    :mod:`obsprep.geo.grid.curvilinear`, operand order included: ``_first_guess`` (the
+    stereographic plane and the bin), the facing piece of ``_locate_valid``, the four tries of
+    ``_try_pieces`` and the root choice of ``_solve_bilinear``.
+
+    Positions are taken in blocks, each in stages (bin and table entry; the guessed centre's
+    row; the first piece's row; the tries): within a stage the reads of different positions do
+    not depend on each other, so the processor has many of them in flight at once, where one
+    position after the other would wait for each of its dependent reads in turn (the tables
+    are tens of megabytes and random positions miss every cache).
+    Returns a checksum of the rows read ahead (nothing to use; it keeps the reads).
+    """
+    n = lon.size
+    nby, nbx = table.shape
+    last_i = nx - 2
+    last_j = ny - 2
+    nan = math.nan
+    block_centre = np.empty(_BLOCK, dtype=np.int64)
+    block_x = np.empty(_BLOCK)
+    block_y = np.empty(_BLOCK)
+    block_di = np.empty(_BLOCK, dtype=np.int64)
+    block_dj = np.empty(_BLOCK, dtype=np.int64)
+    read_ahead = 0.0
+    for begin in range(0, n, _BLOCK):
+        stop = min(begin + _BLOCK, n)
+        # stage 1: stereographic plane about the table's centre direction, the bin, its centre
+        for k in range(begin, stop):
+            b = k - begin
+            along = rx[k] * basis[0, 0] + ry[k] * basis[1, 0] + rz[k] * basis[2, 0]
+            scale = 2.0 / (1.0 + along)
+            plane_x = (rx[k] * basis[0, 1] + ry[k] * basis[1, 1] + rz[k] * basis[2, 1]) * scale
+            plane_y = (rx[k] * basis[0, 2] + ry[k] * basis[1, 2] + rz[k] * basis[2, 2]) * scale
+            # floats until the range test: a non-finite plane position has no integer bin
+            bx = np.floor((plane_x - x0) * inverse_size)
+            by = np.floor((plane_y - y0) * inverse_size)
+            if bx >= 0 and bx < nbx and by >= 0 and by < nby and along > 0.0:
+                block_centre[b] = table[int(by), int(bx)]
+            else:
+                block_centre[b] = -1
+            block_x[b] = plane_x
+            block_y[b] = plane_y
+        # stage 2: the piece facing the position first, from the offset against the axes
+        for b in range(stop - begin):
+            centre = block_centre[b]
+            if centre < 0:
+                continue
+            ox = block_x[b] - axes[centre, 0]
+            oy = block_y[b] - axes[centre, 1]
+            block_di[b] = -1 if ox * axes[centre, 2] + oy * axes[centre, 3] < 0 else 0
+            block_dj[b] = -1 if ox * axes[centre, 4] + oy * axes[centre, 5] < 0 else 0
+        # stage 3: read ahead the rows of the first two pieces tried (neighbours in memory)
+        for b in range(stop - begin):
+            centre = block_centre[b]
+            if centre < 0:
+                continue
+            jc = centre // nx
+            j0 = min(max(jc + block_dj[b], 0), last_j)
+            i0 = min(max(centre - jc * nx + block_di[b], 0), last_i)
+            row = j0 * (nx - 1) + i0
+            read_ahead += pieces[row, 0] + pieces[row, 9]
+        # stage 4: the four tries
+        for k in range(begin, stop):
+            b = k - begin
+            centre = block_centre[b]
+            if centre < 0:
+                status[k] = OUTSIDE
+                continue
+            jc = centre // nx
+            ic = centre - jc * nx
+            di = block_di[b]
+            dj = block_dj[b]
+            status[k] = PENDING
+            for attempt in range(4):
+                j0 = jc + (-1 - dj if attempt >= 2 else dj)
+                i0 = ic + (-1 - di if attempt % 2 == 1 else di)
+                if j0 < 0 or j0 > last_j or i0 < 0 or i0 > last_i:
+                    continue
+                row = j0 * (nx - 1) + i0
+                piece_hemisphere = pieces[row, 8]
+                if piece_hemisphere != 0.0:
+                    if hemisphere[k] != piece_hemisphere:
+                        status[k] = NEEDS_NORTH if piece_hemisphere > 0 else NEEDS_SOUTH
+                        break
+                    px = polar_x[k]
+                    py = polar_y[k]
+                else:
+                    reference = pieces[row, 9]
+                    difference = lon[k] - reference
+                    px = reference + (difference - 360.0 * np.rint(difference / 360.0))
+                    py = lat[k]
+                ex = pieces[row, 0]
+                ey = pieces[row, 1]
+                fx = pieces[row, 2]
+                fy = pieces[row, 3]
+                gx = pieces[row, 4]
+                gy = pieces[row, 5]
+                hx = px - pieces[row, 6]
+                hy = py - pieces[row, 7]
+                # the quadratic in t, its cancellation-free roots (curvilinear._solve_bilinear)
+                k2 = gx * fy - gy * fx
+                k1 = (ex * fy - ey * fx) + (hx * gy - hy * gx)
+                k0 = hx * ey - hy * ex
+                discriminant = k1 * k1 - 4.0 * k0 * k2
+                q = -0.5 * (k1 + np.copysign(np.sqrt(discriminant), k1))
+                t_small = k0 / q if q != 0.0 else nan
+                t_large = q / k2 if k2 != 0.0 else nan
+                if math.isnan(t_small):
+                    t = t_large
+                elif abs(t_large - 0.5) < abs(t_small - 0.5):
+                    t = t_large
+                else:
+                    t = t_small
+                dx = ex + t * gx
+                dy = ey + t * gy
+                s = ((hx - t * fx) * dx + (hy - t * fy) * dy) / (dx * dx + dy * dy)
+                if math.isnan(s) or math.isnan(t):
+                    continue  # no real solution: never inside, never a near miss
+                # how far outside the piece, in cells; edge pieces reach to -1/2 (resp. 3/2)
+                low_i = -0.5 if i0 == 0 else 0.0
+                high_i = 1.5 if i0 == last_i else 1.0
+                low_j = -0.5 if j0 == 0 else 0.0
+                high_j = 1.5 if j0 == last_j else 1.0
+                violation = max(max(low_i - s, s - high_i), max(low_j - t, t - high_j), 0.0)
+                if ((i0 == 0 and s < -0.5) or (i0 == last_i and s >= 1.5)
+                        or (j0 == 0 and t < -0.5) or (j0 == last_j and t >= 1.5)):
+                    continue  # beyond the outermost half cell: cannot hold it
+                if violation == 0.0:
+                    cell_i = int(np.floor(i0 + s + 0.5))
+                    cell_j = int(np.floor(j0 + t + 0.5))
+                    found_i[k] = min(max(cell_i, 0), nx - 1)
+                    found_j[k] = min(max(cell_j, 0), ny - 1)
+                    status[k] = FOUND
+                    break
+                if violation < near_miss[k, 0]:
+                    near_miss[k, 0] = violation
+                    near_miss[k, 1] = j0
+                    near_miss[k, 2] = i0
+                    near_miss[k, 3] = s
+                    near_miss[k, 4] = t
+    return read_ahead
+
+
+@functools.cache
+def _compiled_table_search():
+    """The compiled loop, built (or loaded from numba's on-disk cache) on first call."""
+    import numba  # here, not at module level: numba takes a few tenths of a second to import
+
+    options = dict(nogil=True, error_model="numpy")
+    try:
+        return numba.njit(cache=True, **options)(_table_search_loop)
+    except RuntimeError as exc:
+        if "no locator available" not in str(exc):
+            raise
+        warnings.warn("obsprep.geo.grid.cell_search: no writable cache directory for numba "
+                      "(package directory read-only, user cache directory not writable; set "
+                      "NUMBA_CACHE_DIR to a writable directory): the cell-search kernel is "
+                      "compiled anew in each process", RuntimeWarning, stacklevel=3)
+        return numba.njit(cache=False, **options)(_table_search_loop)
