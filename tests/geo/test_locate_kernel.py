@@ -123,10 +123,10 @@ def test_kernel_hands_over_what_the_numpy_first_step_hands_over(monkeypatch, nor
     handed_over = []
     search_near_centres = CurvilinearGrid._search_near_centres
 
-    def recording(self, pending, lon, lat, components, found, near_miss, from_tree):
+    def recording(self, pending, lon, lat, points_at, found, near_miss, from_tree):
         handed_over.append((pending.copy(), found[0].copy(), found[1].copy(),
                             near_miss[pending].copy()))
-        return search_near_centres(self, pending, lon, lat, components, found, near_miss,
+        return search_near_centres(self, pending, lon, lat, points_at, found, near_miss,
                                    from_tree)
 
     monkeypatch.setattr(CurvilinearGrid, "_search_near_centres", recording)
@@ -165,9 +165,8 @@ def test_polar_coordinates_asked_for_by_the_kernel_give_the_same_cells(monkeypat
     monkeypatch.setattr(CurvilinearGrid, "_polar_cap_reach", (np.inf, -np.inf))
     lon, lat = _positions(lon_c, lat_c, 50_000, seed=7)
     _assert_same_cells(compiled, reference, lon, lat)
-    components = unit_vector_components(lon[:-3], lat[:-3])
-    status = cell_search.table_search(lon[:-3], lat[:-3], components, compiled._lookup,
-                                      compiled._piece_table, compiled.nx, compiled.ny)[3]
+    status = cell_search.table_search(lon[:-3], lat[:-3], unit_vector_components(lon[:-3], lat[:-3]),
+                                      compiled._search_tables)[3]
     assert (status == cell_search.NEEDS_NORTH).sum() > 1000
 
 
@@ -180,8 +179,8 @@ def test_kernel_places_most_positions_and_leaves_the_rest_to_the_tree():
     lon, lat = lon[:-3], lat[:-3]
     north_from, _ = grid._polar_cap_reach
     hemisphere = np.where(lat >= north_from, 1, 0)
-    status = cell_search.table_search(lon, lat, unit_vector_components(lon, lat), grid._lookup,
-                                      grid._piece_table, grid.nx, grid.ny,
+    status = cell_search.table_search(lon, lat, unit_vector_components(lon, lat),
+                                      grid._search_tables,
                                       grid._polar_coordinates(lon, lat, hemisphere))[3]
     counts = np.bincount(status, minlength=5)
     assert counts[cell_search.FOUND] > 0.7 * lon.size

@@ -28,6 +28,7 @@ from __future__ import annotations
 import functools
 import math
 import warnings
+from typing import NamedTuple
 
 import numpy as np
 
@@ -41,9 +42,66 @@ OUTSIDE = 2
 #: stereographic coordinates about that pole were not given: call again with them
 NEEDS_NORTH = 3
 NEEDS_SOUTH = 4
+class SearchTables(NamedTuple):
+    """A grid's search tables in the kernel's layout (built once by :func:`search_tables`).
+
+    ``basis`` (3, 3), ``x0``, ``y0``, ``inverse_size``: the stereographic plane and its bins
+    (1 / bin size, in bins per plane unit); ``table`` (nby, nbx) int32 flat centre per bin;
+    ``centres`` (ncells, 8): plane x, y of each centre, its differences along +i and +j
+    (x, y each), its j and i; ``pieces`` (npieces, width): e, f, g, p00 (x, y each) of each
+    bilinear piece, and at ``reference_column`` its reference longitude (degrees);
+    ``hemisphere`` (npieces,) int8: +1 / -1 for a piece in the northern / southern polar cap,
+    else 0.  Rows of ``centres`` and ``pieces`` start on 64-byte boundaries: one cache line
+    per row (two for the wide layout).
+    """
+
+    basis: np.ndarray
+    x0: float
+    y0: float
+    inverse_size: float
+    table: np.ndarray
+    centres: np.ndarray
+    pieces: np.ndarray
+    reference_column: int
+    hemisphere: np.ndarray
+    nx: int
+    ny: int
 
 
-def table_search(lon, lat, components, lookup, pieces, nx, ny, polar=None):
+def search_tables(lookup, piece_table, nx, ny) -> SearchTables:
+    """:class:`SearchTables` from ``CurvilinearGrid._lookup`` (basis, x0, y0, bin size, table,
+    (ncells, 6) centre rows) and ``CurvilinearGrid._piece_table`` (rows e, f, g, p00,
+    hemisphere, reference longitude), the same values, rearranged."""
+    basis, x0, y0, size, table, axes = lookup
+    ncells = nx * ny
+    jc, ic = np.divmod(np.arange(ncells), nx)
+    centres = _aligned_rows(ncells, 8)
+    centres[:, :6] = axes
+    centres[:, 6] = jc
+    centres[:, 7] = ic
+    hemisphere = np.ascontiguousarray(piece_table[:, 8], dtype=np.int8)
+    # for a lon/lat piece the corner's x is its own longitude unwrapped about itself, which is
+    # that longitude bit for bit (x - x = +0): the row then needs no reference column
+    lonlat = hemisphere == 0
+    same = np.array_equal(piece_table[lonlat, 6].view(np.int64),
+                          piece_table[lonlat, 9].view(np.int64))
+    pieces = _aligned_rows(len(piece_table), 8 if same else 16)
+    pieces[:, :8] = piece_table[:, :8]
+    if not same:
+        pieces[:, 8] = piece_table[:, 9]
+    return SearchTables(np.ascontiguousarray(basis, dtype=np.float64), float(x0), float(y0),
+                        1.0 / size, np.ascontiguousarray(table, dtype=np.int32), centres, pieces,
+                        6 if same else 8, hemisphere, int(nx), int(ny))
+
+
+def _aligned_rows(n_rows, width):
+    """An (n_rows, width) float64 array whose data start on a 64-byte boundary."""
+    buffer = np.empty(n_rows * width + 8)
+    start = (-buffer.ctypes.data % 64) // 8
+    return buffer[start:start + n_rows * width].reshape(n_rows, width)
+
+
+def table_search(lon, lat, components, tables, polar=None):
     """Step (1) of the curvilinear cell search for every position, in one compiled pass.
 
     Parameters
@@ -52,48 +110,43 @@ def table_search(lon, lat, components, lookup, pieces, nx, ny, polar=None):
         float64 positions in degrees (finite, latitude within +-90), 1-D, length n.
     components : tuple of numpy.ndarray
         Their Earth-centred unit vectors (x, y, z; dimensionless), as
-        :func:`obsprep.geo.sphere.unit_vector_components` gives them.
-    lookup : tuple
-        The grid's first-guess table, ``CurvilinearGrid._lookup``: (basis (3, 3), x0, y0, bin
-        size (plane units of the unit-sphere stereographic projection), table (nby, nbx) of flat
-        centre indices, (ncells, 6) plane position and axis differences of each centre).
-    pieces : numpy.ndarray
-        (ny - 1) (nx - 1) rows of ``CurvilinearGrid._piece_table``: bilinear coefficients
-        e, f, g, corner p00, hemisphere of a polar piece (or 0), reference longitude (degrees).
-    nx, ny : int
-        Grid size in cells.
+        :func:`obsprep.geo.sphere.unit_vector_components` gives them (transcendental
+        functions are left to numpy: the compiled code's may differ in the last bit).
+    tables : SearchTables
+        The grid's tables (:func:`search_tables`).
     polar : tuple of numpy.ndarray, optional
         (x, y, hemisphere): polar stereographic coordinates (unit sphere) of each position about
-        the pole of ``hemisphere`` (+1 north, -1 south, 0 where not given).
-
+        the pole of ``hemisphere`` (+1 north, -1 south, 0 where not given), computed as
+        ``curvilinear._polar_stereographic`` computes them.
     Returns
     -------
     i, j : numpy.ndarray
         int64 cell indices where the status is :data:`FOUND`, else -1.
     near_miss : numpy.ndarray
         (n, 5) float64: smallest violation (index-space distance outside a piece, cells), j0, i0,
-        s, t of the nearest piece tried that did not hold the position (violation +inf if none).
+        s, t of the nearest piece tried that did not hold the position (violation +inf if none;
+        the other columns are then undefined).
     status : numpy.ndarray
         int8, one of :data:`FOUND`, :data:`PENDING`, :data:`OUTSIDE`, :data:`NEEDS_NORTH`,
         :data:`NEEDS_SOUTH`.
     """
     n = lon.size
-    basis, x0, y0, size, table, axes = lookup
     if polar is None:
         polar_x = polar_y = np.zeros(n)
         hemisphere = np.zeros(n, dtype=np.int8)
     else:
         polar_x, polar_y, hemisphere = polar
-    i = np.full(n, -1, dtype=np.int64)
-    j = np.full(n, -1, dtype=np.int64)
+    rx, ry, rz = (_contiguous(c) for c in components)
+    i = np.empty(n, dtype=np.int64)
+    j = np.empty(n, dtype=np.int64)
     near_miss = np.empty((n, 5))
-    near_miss[:, 0] = np.inf
     status = np.empty(n, dtype=np.int8)
-    kernel = _compiled_table_search()
-    kernel(_contiguous(lon), _contiguous(lat), *(_contiguous(c) for c in components),
-           np.ascontiguousarray(basis, dtype=np.float64), float(x0), float(y0), 1.0 / size,
-           table, axes, pieces, int(nx), int(ny), _contiguous(polar_x), _contiguous(polar_y),
-           np.ascontiguousarray(hemisphere, dtype=np.int8), i, j, near_miss, status)
+    t = tables
+    _compiled_table_search()(
+        _contiguous(lon), _contiguous(lat), rx, ry, rz, t.basis, t.x0, t.y0,
+        t.inverse_size, t.table, t.centres, t.pieces, t.reference_column, t.hemisphere, t.nx,
+        t.ny, _contiguous(polar_x), _contiguous(polar_y),
+        np.ascontiguousarray(hemisphere, dtype=np.int8), i, j, near_miss, status)
     return i, j, near_miss, status
 
 
@@ -106,24 +159,26 @@ def _contiguous(values):
 _BLOCK = 256
 
 
-def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table, axes, pieces,
-                       nx, ny, polar_x, polar_y, hemisphere, found_i, found_j, near_miss,
-                       status):
+def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table,
+                       centres, pieces, reference_column, piece_hemisphere, nx, ny, polar_x,
+                       polar_y, hemisphere, found_i, found_j, near_miss, status):
     """The per-position search of :func:`table_search` (plain Python; compiled by
     :func:`_compiled_table_search`).  Every expression mirrors one of the numpy path in
     :mod:`obsprep.geo.grid.curvilinear`, operand order included: ``_first_guess`` (the
-    stereographic plane and the bin), the facing piece of ``_locate_valid``, the four tries of
+    stereographic plane and the bin), the facing piece of ``_locate_numpy``, the four tries of
     ``_try_pieces`` and the root choice of ``_solve_bilinear``.
 
-    Positions are taken in blocks, each in stages (bin and table entry; the guessed centre's
-    row; the first piece's row; the tries): within a stage the reads of different positions do
-    not depend on each other, so the processor has many of them in flight at once, where one
+    Positions are taken in blocks, each in stages (bin; table entry; the guessed centre's row;
+    the first piece's row; the tries): within a stage the reads of different positions do not
+    depend on each other, so the processor has many of them in flight at once, where one
     position after the other would wait for each of its dependent reads in turn (the tables
-    are tens of megabytes and random positions miss every cache).
+    are tens of megabytes and random positions miss every cache).  On random positions
+    this ran several times faster than one position after the other (measured here).
     Returns a checksum of the rows read ahead (nothing to use; it keeps the reads).
     """
     n = lon.size
     nby, nbx = table.shape
+    flat_table = table.ravel()
     last_i = nx - 2
     last_j = ny - 2
     nan = math.nan
@@ -135,68 +190,83 @@ def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table,
     read_ahead = 0.0
     for begin in range(0, n, _BLOCK):
         stop = min(begin + _BLOCK, n)
-        # stage 1: stereographic plane about the table's centre direction, the bin, its centre
+        # stage 1: stereographic plane about the table's centre direction and the bin
         for k in range(begin, stop):
             b = k - begin
-            along = rx[k] * basis[0, 0] + ry[k] * basis[1, 0] + rz[k] * basis[2, 0]
+            found_i[k] = -1
+            found_j[k] = -1
+            near_miss[k, 0] = math.inf
+            status[k] = PENDING
+            x = rx[k]
+            y = ry[k]
+            z = rz[k]
+            along = x * basis[0, 0] + y * basis[1, 0] + z * basis[2, 0]
             scale = 2.0 / (1.0 + along)
-            plane_x = (rx[k] * basis[0, 1] + ry[k] * basis[1, 1] + rz[k] * basis[2, 1]) * scale
-            plane_y = (rx[k] * basis[0, 2] + ry[k] * basis[1, 2] + rz[k] * basis[2, 2]) * scale
+            plane_x = (x * basis[0, 1] + y * basis[1, 1] + z * basis[2, 1]) * scale
+            plane_y = (x * basis[0, 2] + y * basis[1, 2] + z * basis[2, 2]) * scale
             # floats until the range test: a non-finite plane position has no integer bin
             bx = np.floor((plane_x - x0) * inverse_size)
             by = np.floor((plane_y - y0) * inverse_size)
             if bx >= 0 and bx < nbx and by >= 0 and by < nby and along > 0.0:
-                block_centre[b] = table[int(by), int(bx)]
+                block_centre[b] = int(by) * nbx + int(bx)  # the bin, for now
             else:
+                status[k] = OUTSIDE
                 block_centre[b] = -1
             block_x[b] = plane_x
             block_y[b] = plane_y
-        # stage 2: the piece facing the position first, from the offset against the axes
+        # stage 2: the bins' centres, then a read of each centre's row: short loops, so that
+        # many of these reads are in flight together
+        for b in range(stop - begin):
+            if block_centre[b] >= 0:
+                block_centre[b] = flat_table[block_centre[b]]
+        for b in range(stop - begin):
+            if block_centre[b] >= 0:
+                read_ahead += centres[block_centre[b], 0]
+        # the piece facing the position first, from the offset against the axes
         for b in range(stop - begin):
             centre = block_centre[b]
             if centre < 0:
                 continue
-            ox = block_x[b] - axes[centre, 0]
-            oy = block_y[b] - axes[centre, 1]
-            block_di[b] = -1 if ox * axes[centre, 2] + oy * axes[centre, 3] < 0 else 0
-            block_dj[b] = -1 if ox * axes[centre, 4] + oy * axes[centre, 5] < 0 else 0
-        # stage 3: read ahead the rows of the first two pieces tried (neighbours in memory)
+            ox = block_x[b] - centres[centre, 0]
+            oy = block_y[b] - centres[centre, 1]
+            along_i = ox * centres[centre, 2] + oy * centres[centre, 3]
+            along_j = ox * centres[centre, 4] + oy * centres[centre, 5]
+            block_di[b] = -1 if along_i < 0 else 0
+            block_dj[b] = -1 if along_j < 0 else 0
+        # stage 3: read ahead the row of the first piece tried
         for b in range(stop - begin):
             centre = block_centre[b]
             if centre < 0:
                 continue
-            jc = centre // nx
-            j0 = min(max(jc + block_dj[b], 0), last_j)
-            i0 = min(max(centre - jc * nx + block_di[b], 0), last_i)
+            j0 = min(max(int(centres[centre, 6]) + block_dj[b], 0), last_j)
+            i0 = min(max(int(centres[centre, 7]) + block_di[b], 0), last_i)
             row = j0 * (nx - 1) + i0
-            read_ahead += pieces[row, 0] + pieces[row, 9]
+            read_ahead += pieces[row, 0] + piece_hemisphere[row]
         # stage 4: the four tries
         for k in range(begin, stop):
             b = k - begin
             centre = block_centre[b]
             if centre < 0:
-                status[k] = OUTSIDE
                 continue
-            jc = centre // nx
-            ic = centre - jc * nx
+            jc = int(centres[centre, 6])
+            ic = int(centres[centre, 7])
             di = block_di[b]
             dj = block_dj[b]
-            status[k] = PENDING
             for attempt in range(4):
                 j0 = jc + (-1 - dj if attempt >= 2 else dj)
                 i0 = ic + (-1 - di if attempt % 2 == 1 else di)
                 if j0 < 0 or j0 > last_j or i0 < 0 or i0 > last_i:
                     continue
                 row = j0 * (nx - 1) + i0
-                piece_hemisphere = pieces[row, 8]
-                if piece_hemisphere != 0.0:
-                    if hemisphere[k] != piece_hemisphere:
-                        status[k] = NEEDS_NORTH if piece_hemisphere > 0 else NEEDS_SOUTH
+                polar_piece = piece_hemisphere[row]
+                if polar_piece != 0:
+                    if hemisphere[k] != polar_piece:
+                        status[k] = NEEDS_NORTH if polar_piece > 0 else NEEDS_SOUTH
                         break
                     px = polar_x[k]
                     py = polar_y[k]
                 else:
-                    reference = pieces[row, 9]
+                    reference = pieces[row, reference_column]
                     difference = lon[k] - reference
                     px = reference + (difference - 360.0 * np.rint(difference / 360.0))
                     py = lat[k]

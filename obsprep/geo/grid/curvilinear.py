@@ -441,12 +441,20 @@ class CurvilinearGrid(ModelGrid):
             return self._locate_compiled(lon, lat, components)
         return self._locate_numpy(lon, lat, components)
 
+    @cached_property
+    def _search_tables(self):
+        """The lookup and piece tables in the compiled kernel's layout."""
+        from obsprep.geo.grid import cell_search
+
+        return cell_search.search_tables(self._lookup, self._piece_table, self.nx, self.ny)
+
     def _locate_compiled(self, lon, lat, components):
         """The search of :meth:`_locate_numpy` with its step 1 (table guess, four pieces) in
         one compiled pass (:func:`obsprep.geo.grid.cell_search.table_search`); steps 2 and 3
         for what it leaves are the numpy code, so the cells are the same."""
         from obsprep.geo.grid import cell_search
 
+        tables = self._search_tables
         # polar stereographic coordinates by numpy (as _try_pieces computes them) for the
         # positions near a polar cap; a position that meets a polar piece without them asks
         # for them (status NEEDS_NORTH / NEEDS_SOUTH) and is searched again
@@ -454,28 +462,32 @@ class CurvilinearGrid(ModelGrid):
         hemisphere = np.zeros(lon.size, dtype=np.int8)
         hemisphere[lat <= south_to] = -1
         hemisphere[lat >= north_from] = 1
-        polar = self._polar_coordinates(lon, lat, hemisphere)
         i, j, near_miss, status = cell_search.table_search(
-            lon, lat, components, self._lookup, self._piece_table, self.nx, self.ny, polar)
-        polar_rows = np.flatnonzero(status >= cell_search.NEEDS_NORTH)
-        if polar_rows.size:
-            hemisphere = np.where(status[polar_rows] == cell_search.NEEDS_NORTH, 1, -1)
-            lon_polar, lat_polar = lon[polar_rows], lat[polar_rows]
-            components_polar = tuple(c[polar_rows] for c in components)
+            lon, lat, components, tables, self._polar_coordinates(lon, lat, hemisphere))
+        again_rows = np.flatnonzero(status >= cell_search.NEEDS_NORTH)
+        if again_rows.size:
+            lon_again, lat_again = lon[again_rows], lat[again_rows]
+            hemisphere = np.where(status[again_rows] == cell_search.NEEDS_NORTH, 1, -1)
+            components_again = tuple(c[again_rows] for c in components)
             again = cell_search.table_search(
-                lon_polar, lat_polar, components_polar, self._lookup, self._piece_table,
-                self.nx, self.ny, self._polar_coordinates(lon_polar, lat_polar, hemisphere))
+                lon_again, lat_again, components_again, tables,
+                self._polar_coordinates(lon_again, lat_again, hemisphere))
             for whole, part in zip((i, j, near_miss, status), again):
-                whole[polar_rows] = part
+                whole[again_rows] = part
             # pieces of both polar caps around one position: the numpy search for those
             both = np.flatnonzero(again[3] >= cell_search.NEEDS_NORTH)
             if both.size:
-                rows = polar_rows[both]
-                i[rows], j[rows] = self._locate_numpy(
-                    lon[rows], lat[rows], tuple(c[both] for c in components_polar))
+                rows = again_rows[both]
+                i[rows], j[rows] = self._locate_numpy(lon[rows], lat[rows],
+                                                      tuple(c[both] for c in components_again))
                 status[rows] = cell_search.FOUND
         pending = np.flatnonzero(status == cell_search.PENDING)
-        self._search_near_centres(pending, lon, lat, components, (i, j), near_miss,
+
+        def points_at(rows):
+            """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
+            return np.stack([c[rows] for c in components], axis=-1)
+
+        self._search_near_centres(pending, lon, lat, points_at, (i, j), near_miss,
                                   from_tree=False)
         return i, j
 
@@ -557,19 +569,15 @@ class CurvilinearGrid(ModelGrid):
             piece_i = ic + np.where(flip_i, -1 - di, di)
             hit = self._try_pieces(pending, piece_j, piece_i, lon, lat, found, near_miss)
             pending, jc, ic, di, dj = (a[~hit] for a in (pending, jc, ic, di, dj))
-        self._search_near_centres(pending, lon, lat, components, found, near_miss, from_tree)
+        self._search_near_centres(pending, lon, lat, points_at, found, near_miss, from_tree)
         return found
 
-    def _search_near_centres(self, pending, lon, lat, components, found, near_miss, from_tree):
+    def _search_near_centres(self, pending, lon, lat, points_at, found, near_miss, from_tree):
         """Steps 2 and 3 of the search for the positions ``pending`` (indices into ``lon``,
-        ``lat``, ``components``, ``found`` and ``near_miss``, updated in place) that the four
-        pieces around the first guess did not hold; ``from_tree``: that guess was the
-        KD-tree's nearest centre (tried already)."""
+        ``lat``, ``found`` and ``near_miss``, updated in place) that the four pieces around the
+        first guess did not hold; ``points_at(rows)``: their (m, 3) unit vectors;
+        ``from_tree``: that guess was the KD-tree's nearest centre (tried already)."""
         ncells = self.ny * self.nx
-
-        def points_at(rows):
-            """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
-            return np.stack([c[rows] for c in components], axis=-1)
 
         # 2) the pieces around the nearest centres by KD-tree (a table guess one cell off,
         #    skewed cells, grid edges); the nearest itself was tried already if it came from
