@@ -129,9 +129,13 @@ class CurvilinearGrid(ModelGrid):
     """
 
     grid_type = "curvilinear"
-    #: smaller chunks than the default: the search keeps several arrays per position, and
-    #: chunks whose arrays stay in the processor cache are searched about twice as fast
-    chunk_size = 65_536
+    #: positions per chunk: the search keeps several arrays per position (about 120 bytes);
+    #: the compiled search takes a chunk in one call, the numpy search in parts of
+    #: :attr:`numpy_chunk_size`
+    chunk_size = 262_144
+    #: parts of a chunk for the numpy search: parts whose arrays stay in the processor cache
+    #: are searched about twice as fast
+    numpy_chunk_size = 65_536
     #: number of nearest centres whose surrounding pieces are tried
     neighbours = 4
     #: largest number of bins of the first-guess lookup table (int32 each)
@@ -439,7 +443,15 @@ class CurvilinearGrid(ModelGrid):
         components = unit_vector_components(lon, lat)
         if self.search == "compiled" and self.first_guess == "table" and self._lookup is not None:
             return self._locate_compiled(lon, lat, components)
-        return self._locate_numpy(lon, lat, components)
+        if lon.size <= self.numpy_chunk_size:
+            return self._locate_numpy(lon, lat, components)
+        i = np.empty(lon.size, dtype=np.int64)
+        j = np.empty(lon.size, dtype=np.int64)
+        for start in range(0, lon.size, self.numpy_chunk_size):
+            part = slice(start, start + self.numpy_chunk_size)
+            i[part], j[part] = self._locate_numpy(lon[part], lat[part],
+                                                  tuple(c[part] for c in components))
+        return i, j
 
     @cached_property
     def _search_tables(self):
