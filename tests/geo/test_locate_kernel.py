@@ -25,7 +25,7 @@ import pytest
 
 import obsprep
 from obsprep.geo.grid import CurvilinearGrid, cell_search
-from obsprep.geo.sphere import unit_vector_components
+from obsprep.geo.sphere import half_angle_tangent, unit_vector_components
 
 
 def _pair(lon, lat, **options):
@@ -86,6 +86,10 @@ def _positions(lon_c, lat_c, n, seed):
     lat[: at_centre.size] = lat_c.ravel()[at_centre]
     lon[-3:], lat[-3:] = [np.nan, 0.0, 10.0], [45.0, np.nan, 91.0]
     return lon, lat
+
+
+def _half_tangents(lon, lat):
+    return half_angle_tangent(lon), half_angle_tangent(lat)
 
 
 def _assert_same_cells(compiled, reference, lon, lat):
@@ -166,7 +170,7 @@ def test_polar_coordinates_asked_for_by_the_kernel_give_the_same_cells(monkeypat
     monkeypatch.setattr(CurvilinearGrid, "_polar_cap_reach", (np.inf, -np.inf))
     lon, lat = _positions(lon_c, lat_c, 50_000, seed=7)
     _assert_same_cells(compiled, reference, lon, lat)
-    status = cell_search.table_search(lon[:-3], lat[:-3], unit_vector_components(lon[:-3], lat[:-3]),
+    status = cell_search.table_search(lon[:-3], lat[:-3], _half_tangents(lon[:-3], lat[:-3]),
                                       compiled._search_tables)[3]
     assert (status == cell_search.NEEDS_NORTH).sum() > 1000
 
@@ -180,8 +184,7 @@ def test_kernel_places_most_positions_and_leaves_the_rest_to_the_tree():
     lon, lat = lon[:-3], lat[:-3]
     north_from, _ = grid._polar_cap_reach
     hemisphere = np.where(lat >= north_from, 1, 0)
-    status = cell_search.table_search(lon, lat, unit_vector_components(lon, lat),
-                                      grid._search_tables,
+    status = cell_search.table_search(lon, lat, _half_tangents(lon, lat), grid._search_tables,
                                       grid._polar_coordinates(lon, lat, hemisphere))[3]
     counts = np.bincount(status, minlength=5)
     assert counts[cell_search.FOUND] > 0.7 * lon.size

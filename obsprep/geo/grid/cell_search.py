@@ -10,10 +10,10 @@ code (IEEE-754 double operations, no reassociation, no fused multiply-add), so t
 near misses and the positions left for step (2) are bit for bit those of the numpy path.
 
 Transcendental functions are not evaluated in the kernel: numpy and the compiled code may use
-different libraries for them (differing in the last bit).  The unit vectors of the positions
-come in from numpy, and a piece in a polar cap needs the position's polar stereographic
-coordinates, which the caller computes with numpy only for the positions that ask for them
-(status :data:`NEEDS_NORTH` / :data:`NEEDS_SOUTH`) and passes in on a second call.
+different libraries for them (differing in the last bit).  The tangents of the positions' half
+angles, from which the kernel computes their unit vectors, come in from numpy; so do the polar
+stereographic coordinates a piece in a polar cap needs, computed beforehand for the positions
+near a cap and on request (status :data:`NEEDS_NORTH` / :data:`NEEDS_SOUTH`) for the others.
 
 The kernel is compiled with numba, imported on first use only, so that importing obsprep does
 not import numba.  numba's on-disk cache is kept next to this file when its ``__pycache__`` is
@@ -101,17 +101,18 @@ def _aligned_rows(n_rows, width):
     return buffer[start:start + n_rows * width].reshape(n_rows, width)
 
 
-def table_search(lon, lat, components, tables, polar=None):
+def table_search(lon, lat, half_tangents, tables, polar=None):
     """Step (1) of the curvilinear cell search for every position, in one compiled pass.
 
     Parameters
     ----------
     lon, lat : numpy.ndarray
         float64 positions in degrees (finite, latitude within +-90), 1-D, length n.
-    components : tuple of numpy.ndarray
-        Their Earth-centred unit vectors (x, y, z; dimensionless), as
-        :func:`obsprep.geo.sphere.unit_vector_components` gives them (transcendental
-        functions are left to numpy: the compiled code's may differ in the last bit).
+    half_tangents : tuple of numpy.ndarray
+        ``tan(lon / 2)``, ``tan(lat / 2)`` (dimensionless) by
+        :func:`obsprep.geo.sphere.half_angle_tangent`, from which the kernel computes the unit
+        vectors as :func:`obsprep.geo.sphere.unit_vector_components` does (the tangent is left
+        to numpy: the compiled code's may differ in the last bit; the rest is arithmetic).
     tables : SearchTables
         The grid's tables (:func:`search_tables`).
     polar : tuple of numpy.ndarray, optional
@@ -136,14 +137,14 @@ def table_search(lon, lat, components, tables, polar=None):
         hemisphere = np.zeros(n, dtype=np.int8)
     else:
         polar_x, polar_y, hemisphere = polar
-    rx, ry, rz = (_contiguous(c) for c in components)
+    tan_lon, tan_lat = (_contiguous(c) for c in half_tangents)
     i = np.empty(n, dtype=np.int64)
     j = np.empty(n, dtype=np.int64)
     near_miss = np.empty((n, 5))
     status = np.empty(n, dtype=np.int8)
     t = tables
     _compiled_table_search()(
-        _contiguous(lon), _contiguous(lat), rx, ry, rz, t.basis, t.x0, t.y0,
+        _contiguous(lon), _contiguous(lat), tan_lon, tan_lat, t.basis, t.x0, t.y0,
         t.inverse_size, t.table, t.centres, t.pieces, t.reference_column, t.hemisphere, t.nx,
         t.ny, _contiguous(polar_x), _contiguous(polar_y),
         np.ascontiguousarray(hemisphere, dtype=np.int8), i, j, near_miss, status)
@@ -159,12 +160,13 @@ def _contiguous(values):
 _BLOCK = 256
 
 
-def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table,
+def _table_search_loop(lon, lat, tan_lon, tan_lat, basis, x0, y0, inverse_size, table,
                        centres, pieces, reference_column, piece_hemisphere, nx, ny, polar_x,
                        polar_y, hemisphere, found_i, found_j, near_miss, status):
     """The per-position search of :func:`table_search` (plain Python; compiled by
     :func:`_compiled_table_search`).  Every expression mirrors one of the numpy path in
-    :mod:`obsprep.geo.grid.curvilinear`, operand order included: ``_first_guess`` (the
+    :mod:`obsprep.geo.grid.curvilinear`, operand order included: the unit vectors of
+    :func:`obsprep.geo.sphere.unit_vector_components`, ``_first_guess`` (the
     stereographic plane and the bin), the facing piece of ``_locate_numpy``, the four tries of
     ``_try_pieces`` and the root choice of ``_solve_bilinear``.
 
@@ -197,9 +199,13 @@ def _table_search_loop(lon, lat, rx, ry, rz, basis, x0, y0, inverse_size, table,
             found_j[k] = -1
             near_miss[k, 0] = math.inf
             status[k] = PENDING
-            x = rx[k]
-            y = ry[k]
-            z = rz[k]
+            # unit vector: sphere.cos_sin_degrees, cos = 2 / (t^2 + 1) - 1, sin = t 2 / (..)
+            two_lon = 2.0 / (tan_lon[k] * tan_lon[k] + 1.0)
+            two_lat = 2.0 / (tan_lat[k] * tan_lat[k] + 1.0)
+            cos_lat = two_lat - 1.0
+            x = cos_lat * (two_lon - 1.0)
+            y = cos_lat * (tan_lon[k] * two_lon)
+            z = tan_lat[k] * two_lat
             along = x * basis[0, 0] + y * basis[1, 0] + z * basis[2, 0]
             scale = 2.0 / (1.0 + along)
             plane_x = (x * basis[0, 1] + y * basis[1, 1] + z * basis[2, 1]) * scale

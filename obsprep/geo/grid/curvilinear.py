@@ -48,7 +48,12 @@ from obsprep.exceptions import GridError, InputFileError
 from obsprep.geo.grid.base import ModelGrid
 from obsprep.geo.grid.gridfile import read_grid_file, write_grid_file
 from obsprep.geo.rotation import axis_angle_from_centres
-from obsprep.geo.sphere import unit_vector_components, unit_vectors_from_lonlat, wrap_longitude
+from obsprep.geo.sphere import (
+    half_angle_tangent,
+    unit_vector_components,
+    unit_vectors_from_lonlat,
+    wrap_longitude,
+)
 
 #: pieces with a corner poleward of this latitude (degrees) use polar stereographic coordinates
 POLAR_CAP_LATITUDE = 80.0
@@ -439,10 +444,10 @@ class CurvilinearGrid(ModelGrid):
         return hit_mask
 
     def _locate_valid(self, lon, lat):
+        if self.search == "compiled" and self.first_guess == "table" and self._lookup is not None:
+            return self._locate_compiled(lon, lat)
         # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
         components = unit_vector_components(lon, lat)
-        if self.search == "compiled" and self.first_guess == "table" and self._lookup is not None:
-            return self._locate_compiled(lon, lat, components)
         if lon.size <= self.numpy_chunk_size:
             return self._locate_numpy(lon, lat, components)
         i = np.empty(lon.size, dtype=np.int64)
@@ -460,7 +465,7 @@ class CurvilinearGrid(ModelGrid):
 
         return cell_search.search_tables(self._lookup, self._piece_table, self.nx, self.ny)
 
-    def _locate_compiled(self, lon, lat, components):
+    def _locate_compiled(self, lon, lat):
         """The search of :meth:`_locate_numpy` with its step 1 (table guess, four pieces) in
         one compiled pass (:func:`obsprep.geo.grid.cell_search.table_search`); steps 2 and 3
         for what it leaves are the numpy code, so the cells are the same."""
@@ -474,15 +479,15 @@ class CurvilinearGrid(ModelGrid):
         hemisphere = np.zeros(lon.size, dtype=np.int8)
         hemisphere[lat <= south_to] = -1
         hemisphere[lat >= north_from] = 1
+        half_tangents = (half_angle_tangent(lon), half_angle_tangent(lat))
         i, j, near_miss, status = cell_search.table_search(
-            lon, lat, components, tables, self._polar_coordinates(lon, lat, hemisphere))
+            lon, lat, half_tangents, tables, self._polar_coordinates(lon, lat, hemisphere))
         again_rows = np.flatnonzero(status >= cell_search.NEEDS_NORTH)
         if again_rows.size:
             lon_again, lat_again = lon[again_rows], lat[again_rows]
             hemisphere = np.where(status[again_rows] == cell_search.NEEDS_NORTH, 1, -1)
-            components_again = tuple(c[again_rows] for c in components)
             again = cell_search.table_search(
-                lon_again, lat_again, components_again, tables,
+                lon_again, lat_again, tuple(t[again_rows] for t in half_tangents), tables,
                 self._polar_coordinates(lon_again, lat_again, hemisphere))
             for whole, part in zip((i, j, near_miss, status), again):
                 whole[again_rows] = part
@@ -491,13 +496,13 @@ class CurvilinearGrid(ModelGrid):
             if both.size:
                 rows = again_rows[both]
                 i[rows], j[rows] = self._locate_numpy(lon[rows], lat[rows],
-                                                      tuple(c[both] for c in components_again))
+                                                      unit_vector_components(lon[rows], lat[rows]))
                 status[rows] = cell_search.FOUND
         pending = np.flatnonzero(status == cell_search.PENDING)
 
         def points_at(rows):
             """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
-            return np.stack([c[rows] for c in components], axis=-1)
+            return np.stack(unit_vector_components(lon[rows], lat[rows]), axis=-1)
 
         self._search_near_centres(pending, lon, lat, points_at, (i, j), near_miss,
                                   from_tree=False)
