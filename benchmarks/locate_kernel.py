@@ -117,6 +117,120 @@ def start_up(repeats):
     print(f"  warm (import numba, load the cache)  {statistics.median(warm):.2f} s (goal < 0.5 s)")
 
 
+def orbit_swath(rows=2000, columns=1250, latitude_of_centre=76.0, float32=True):
+    """Longitude, latitude (degrees) of an invented scanning-radiometer swath over the
+    benchmark grid: nadir on a near-polar orbit (inclination 98.7 degrees, a great circle of
+    a spherical Earth, 1 km steps), pixels across the track at scan angles of -55..55 degrees
+    from 800 km up, so their spacing grows towards the swath edges and the swath is curved on
+    the map, unlike ``synthetic.swath_pixels``'s straight strips.  ``float32``: positions
+    stored as in L2P files (single precision).
+
+    Geometry: Earth-central angle of scan angle a from height h, gamma = asin((R + h) / R
+    sin a) - a (plane geometry of the triangle Earth centre, satellite, pixel); the pixel is
+    nadir rotated by gamma towards the orbit's normal."""
+    radius, height = 6371.0, 800.0
+    inclination = np.radians(98.7)
+    # orbit plane basis: u at the ascending node (lon 0), v 90 degrees on along the orbit
+    u = np.array([1.0, 0.0, 0.0])
+    v = np.array([0.0, np.cos(inclination), np.sin(inclination)])
+    normal = np.cross(u, v)
+    # the argument of latitude whose nadir is at latitude_of_centre, on the ascending side
+    centre = np.arcsin(np.sin(np.radians(latitude_of_centre)) / np.sin(inclination))
+    theta = centre + (np.arange(rows) - rows / 2) / radius
+    scan = np.radians(np.linspace(-55.0, 55.0, columns))
+    gamma = np.arcsin((radius + height) / radius * np.sin(scan)) - scan
+    nadir = np.cos(theta)[:, None] * u + np.sin(theta)[:, None] * v  # (rows, 3)
+    p = (np.cos(gamma)[None, :, None] * nadir[:, None, :]
+         + np.sin(gamma)[None, :, None] * normal[None, None, :])
+    lon = np.degrees(np.arctan2(p[..., 1], p[..., 0]))
+    lat = np.degrees(np.arcsin(np.clip(p[..., 2], -1.0, 1.0)))
+    if float32:
+        lon, lat = lon.astype(np.float32).astype(float), lat.astype(np.float32).astype(float)
+    return lon, lat
+
+
+def interpolate_from_tie_points(values, step):
+    """Values of a (rows, columns) field at every ``step``-th row and column (and the last
+    ones) interpolated linearly back to every pixel, separably: along the columns, then along
+    the rows.  Returns (interpolated field, (tie rows, tie columns))."""
+    rows, columns = values.shape
+    tie_rows = np.unique(np.append(np.arange(0, rows, step), rows - 1))
+    tie_columns = np.unique(np.append(np.arange(0, columns, step), columns - 1))
+    return tie_rows, tie_columns
+
+
+def _linear_weights(ties, n):
+    """Left tie index and weight of the right one for each of n positions."""
+    left = np.clip(np.searchsorted(ties, np.arange(n), side="right") - 1, 0, len(ties) - 2)
+    weight = (np.arange(n) - ties[left]) / (ties[left + 1] - ties[left])
+    return left, weight
+
+
+def tie_point_projection(to_xy, lon, lat, step):
+    """Projected x, y (m) of every pixel from PROJ at the tie points (every ``step``-th row and
+    column and the last ones) and separable linear interpolation between them."""
+    rows, columns = lon.shape
+    tie_rows, tie_columns = interpolate_from_tie_points(lon, step)
+    tx, ty = to_xy.transform(lon[np.ix_(tie_rows, tie_columns)], lat[np.ix_(tie_rows, tie_columns)])
+    left_c, weight_c = _linear_weights(tie_columns, columns)
+    left_r, weight_r = _linear_weights(tie_rows, rows)
+    out = []
+    for t in (np.asarray(tx), np.asarray(ty)):
+        along_columns = t[:, left_c] * (1.0 - weight_c) + t[:, left_c + 1] * weight_c
+        out.append(along_columns[left_r] * (1.0 - weight_r)[:, None]
+                   + along_columns[left_r + 1] * weight_r[:, None])
+    return out[0], out[1]
+
+
+def tie_points(repeats, steps=(2, 4, 8, 16, 32)):
+    """Time of PROJ for every pixel against PROJ at tie points and interpolation, and the cells
+    of the benchmark's projected grid that change, with their distance from a cell edge."""
+    from pyproj import Transformer
+
+    g = synthetic.GRID
+    to_xy = Transformer.from_crs("EPSG:4326", g["crs"], always_xy=True)
+
+    def cells(x, y):
+        fi, fj = (x - g["x_min"]) / g["dx"], (y - g["y_min"]) / g["dy"]
+        return np.floor(fi), np.floor(fj), fi, fj
+
+    for name, (lon, lat) in (("curved orbit swath, float32 positions", orbit_swath()),
+                             ("curved orbit swath, float64 positions",
+                              orbit_swath(float32=False)),
+                             ("straight strip of synthetic.py (granule 3)",
+                              _strip_positions(3))):
+        x, y = (np.asarray(a) for a in to_xy.transform(lon, lat))
+        i, j, fi, fj = cells(x, y)
+        to_edge = np.minimum(np.minimum(fi - np.floor(fi), np.ceil(fi) - fi),
+                             np.minimum(fj - np.floor(fj), np.ceil(fj) - fj))
+        functions = {"every pixel": lambda: to_xy.transform(lon, lat)}
+        for step in steps:
+            functions[f"step {step}"] = (lambda s=step: tie_point_projection(to_xy, lon, lat, s))
+        medians = interleaved(functions, repeats)
+        print(f"{name}: {lon.size:,} pixels; PROJ for every pixel {medians['every pixel']:.3f} s")
+        for step in steps:
+            xt, yt = tie_point_projection(to_xy, lon, lat, step)
+            it, jt, _, _ = cells(xt, yt)
+            differ = (it != i) | (jt != j)
+            error = np.maximum(np.abs(xt - x), np.abs(yt - y))
+            worst_edge = to_edge[differ].max() * g["dx"] if differ.any() else 0.0
+            print(f"  tie points every {step:2d}: {medians[f'step {step}']:.3f} s "
+                  f"({medians['every pixel'] / medians[f'step {step}']:.1f}x faster); "
+                  f"largest position error {error.max():.3g} m; {int(differ.sum())} pixels "
+                  f"({differ.mean():.2e}) in another cell, all within {worst_edge:.3g} m of a "
+                  f"cell edge")
+
+
+def _strip_positions(granule, rows=2000, columns=1250):
+    import pyproj
+
+    x, y = synthetic.swath_pixels(granule, rows, columns, None)
+    lon, lat = pyproj.Transformer.from_crs("EPSG:3413", "EPSG:4326",
+                                           always_xy=True).transform(x, y)
+    return (np.asarray(lon).astype(np.float32).astype(float),
+            np.asarray(lat).astype(np.float32).astype(float))
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--part", choices=["curvilinear", "start-up", "tie-points", "all"],
@@ -128,6 +242,8 @@ def main(argv=None):
         curvilinear(args.n, args.repeats)
     if args.part in ("start-up", "all"):
         start_up(max(1, args.repeats // 2))
+    if args.part in ("tie-points", "all"):
+        tie_points(args.repeats)
     return 0
 
 
