@@ -149,11 +149,8 @@ def orbit_swath(rows=2000, columns=1250, latitude_of_centre=76.0, float32=True):
     return lon, lat
 
 
-def interpolate_from_tie_points(values, step):
-    """Values of a (rows, columns) field at every ``step``-th row and column (and the last
-    ones) interpolated linearly back to every pixel, separably: along the columns, then along
-    the rows.  Returns (interpolated field, (tie rows, tie columns))."""
-    rows, columns = values.shape
+def tie_indices(rows, columns, step):
+    """Tie-point rows and columns of a (rows, columns) swath: every ``step``-th and the last."""
     tie_rows = np.unique(np.append(np.arange(0, rows, step), rows - 1))
     tie_columns = np.unique(np.append(np.arange(0, columns, step), columns - 1))
     return tie_rows, tie_columns
@@ -170,7 +167,7 @@ def tie_point_projection(to_xy, lon, lat, step):
     """Projected x, y (m) of every pixel from PROJ at the tie points (every ``step``-th row and
     column and the last ones) and separable linear interpolation between them."""
     rows, columns = lon.shape
-    tie_rows, tie_columns = interpolate_from_tie_points(lon, step)
+    tie_rows, tie_columns = tie_indices(rows, columns, step)
     tx, ty = to_xy.transform(lon[np.ix_(tie_rows, tie_columns)], lat[np.ix_(tie_rows, tie_columns)])
     left_c, weight_c = _linear_weights(tie_columns, columns)
     left_r, weight_r = _linear_weights(tie_rows, rows)
