@@ -30,6 +30,12 @@ is given to the nearest-fitting piece if it is within :data:`SLIVER_TOLERANCE` c
 Positions farther from every centre than the largest centre-to-neighbour distance are outside
 without further work.
 
+Compiled search.  With a lookup table, the guess and the four pieces around it are by default
+done for each position in one compiled pass (:mod:`obsprep.geo.grid.cell_search`, the same
+arithmetic in the same order); the KD-tree step and the slivers stay as above, for the few
+positions it leaves.  The cells are identical to the all-numpy search
+(:attr:`CurvilinearGrid.search` ``= "numpy"``), which is kept as the reference.
+
 Accuracy: exact (to rounding) when the grid is affine in lon/lat (a regular lon/lat grid,
 possibly rotated or sheared); otherwise the cell edges are those of the piecewise-bilinear
 model, which differ from the "true" edges of, e.g., a rotated-pole grid by the sagitta of the
