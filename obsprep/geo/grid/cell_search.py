@@ -124,7 +124,8 @@ def table_search(lon, lat, half_tangents, tables, polar=None):
     i, j : numpy.ndarray
         int64 cell indices where the status is :data:`FOUND`, else -1.
     near_miss : numpy.ndarray
-        (n, 5) float64: smallest violation (index-space distance outside a piece, cells), j0, i0,
+        (n, 5) float64, set for the positions of status :data:`PENDING` only (what the next
+        step reads): smallest violation (index-space distance outside a piece, cells), j0, i0,
         s, t of the nearest piece tried that did not hold the position (violation +inf if none;
         the other columns are then undefined).
     status : numpy.ndarray
@@ -197,7 +198,6 @@ def _table_search_loop(lon, lat, tan_lon, tan_lat, basis, x0, y0, inverse_size, 
             b = k - begin
             found_i[k] = -1
             found_j[k] = -1
-            near_miss[k, 0] = math.inf
             status[k] = PENDING
             # unit vector: sphere.cos_sin_degrees, cos = 2 / (t^2 + 1) - 1, sin = t 2 / (..)
             two_lon = 2.0 / (tan_lon[k] * tan_lon[k] + 1.0)
@@ -258,6 +258,10 @@ def _table_search_loop(lon, lat, tan_lon, tan_lat, basis, x0, y0, inverse_size, 
             ic = int(centres[centre, 7])
             di = block_di[b]
             dj = block_dj[b]
+            # the best near miss so far, kept here and written only if no piece holds it
+            best = math.inf
+            best_j0 = best_i0 = 0
+            best_s = best_t = 0.0
             for attempt in range(4):
                 j0 = jc + (-1 - dj if attempt >= 2 else dj)
                 i0 = ic + (-1 - di if attempt % 2 == 1 else di)
@@ -319,12 +323,18 @@ def _table_search_loop(lon, lat, tan_lon, tan_lat, basis, x0, y0, inverse_size, 
                     found_j[k] = min(max(cell_j, 0), ny - 1)
                     status[k] = FOUND
                     break
-                if violation < near_miss[k, 0]:
-                    near_miss[k, 0] = violation
-                    near_miss[k, 1] = j0
-                    near_miss[k, 2] = i0
-                    near_miss[k, 3] = s
-                    near_miss[k, 4] = t
+                if violation < best:
+                    best = violation
+                    best_j0 = j0
+                    best_i0 = i0
+                    best_s = s
+                    best_t = t
+            if status[k] == PENDING:
+                near_miss[k, 0] = best
+                near_miss[k, 1] = best_j0
+                near_miss[k, 2] = best_i0
+                near_miss[k, 3] = best_s
+                near_miss[k, 4] = best_t
     return read_ahead
 
 
