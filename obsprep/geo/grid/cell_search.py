@@ -42,6 +42,8 @@ OUTSIDE = 2
 #: stereographic coordinates about that pole were not given: call again with them
 NEEDS_NORTH = 3
 NEEDS_SOUTH = 4
+
+
 class SearchTables(NamedTuple):
     """A grid's search tables in the kernel's layout (built once by :func:`search_tables`).
 
@@ -119,6 +121,7 @@ def table_search(lon, lat, half_tangents, tables, polar=None):
         (x, y, hemisphere): polar stereographic coordinates (unit sphere) of each position about
         the pole of ``hemisphere`` (+1 north, -1 south, 0 where not given), computed as
         ``curvilinear._polar_stereographic`` computes them.
+
     Returns
     -------
     i, j : numpy.ndarray

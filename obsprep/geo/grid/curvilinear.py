@@ -450,6 +450,9 @@ class CurvilinearGrid(ModelGrid):
         return hit_mask
 
     def _locate_valid(self, lon, lat):
+        if self.search not in ("compiled", "numpy"):
+            raise ValueError(f"CurvilinearGrid.search must be 'compiled' or 'numpy', got "
+                             f"{self.search!r}")
         if self.search == "compiled" and self.first_guess == "table" and self._lookup is not None:
             return self._locate_compiled(lon, lat)
         # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
