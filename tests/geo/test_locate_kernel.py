@@ -31,6 +31,7 @@ from obsprep.geo.sphere import half_angle_tangent, unit_vector_components
 def _pair(lon, lat, **options):
     """The same grid twice: compiled search and numpy search."""
     compiled = CurvilinearGrid(lon, lat, **options)
+    compiled.compiled_from = 0  # the kernel for any number of positions
     reference = CurvilinearGrid(lon, lat, **options)
     reference.search = "numpy"
     return compiled, reference
@@ -200,6 +201,19 @@ def test_small_chunks_give_the_same_cells():
     _assert_same_cells(compiled, reference, lon, lat)
 
 
+def test_few_positions_are_searched_without_numba():
+    # below compiled_from positions the numpy search runs (the same cells), and numba is not
+    # imported for it
+    script = ("import sys, numpy as np; from obsprep.geo.grid import CurvilinearGrid; "
+              "lon, lat = np.meshgrid(np.arange(5.0), np.arange(4.0)); "
+              "print(CurvilinearGrid(lon, lat).locate([2.2, 0.4], [1.6, 2.9]), "
+              "'numba' in sys.modules)")
+    result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                            check=True, env=_environment(os.environ.get("PYTHONPATH", "")))
+    # a regular 1-degree grid: nearest centres (i, j) = (2, 2) and (0, 3) (by hand)
+    assert result.stdout.split() == ["(array([2,", "0]),", "array([2,", "3]))", "False"]
+
+
 def test_importing_the_grids_does_not_import_numba():
     script = ("import sys, obsprep, obsprep.geo.grid, obsprep.geo.grid.cell_search; "
               "print('numba' in sys.modules)")
@@ -217,7 +231,9 @@ _RUN_KERNEL = textwrap.dedent("""
         warnings.simplefilter("always")
         from obsprep.geo.grid import CurvilinearGrid, cell_search
         lon, lat = np.meshgrid(np.arange(5.0), np.arange(4.0))
-        i, j = CurvilinearGrid(lon, lat).locate(2.2, 1.6)
+        grid = CurvilinearGrid(lon, lat)
+        grid.compiled_from = 0
+        i, j = grid.locate(2.2, 1.6)
     stats = cell_search._compiled_table_search().stats
     print(json.dumps(dict(module=cell_search.__file__, cell=[int(i), int(j)],
                           cache_path=stats.cache_path, hits=sum(stats.cache_hits.values()),

@@ -157,6 +157,10 @@ class CurvilinearGrid(ModelGrid):
     #: (:mod:`obsprep.geo.grid.cell_search`); "numpy": all of it vectorised (the reference);
     #: the cells are identical
     search = "compiled"
+    #: fewer positions than this in a chunk take the numpy search even when ``search`` is
+    #: "compiled" (the same cells): a process that only ever locates a few positions does not
+    #: import numba and load the kernel (about half a second) to save milliseconds
+    compiled_from = 50_000
 
     def __init__(self, lon, lat, *, sea_mask=None, bathymetry=None, angle=None,
                  layer_interfaces=None, source=None):
@@ -453,7 +457,8 @@ class CurvilinearGrid(ModelGrid):
         if self.search not in ("compiled", "numpy"):
             raise ValueError(f"CurvilinearGrid.search must be 'compiled' or 'numpy', got "
                              f"{self.search!r}")
-        if self.search == "compiled" and self.first_guess == "table" and self._lookup is not None:
+        if (self.search == "compiled" and lon.size >= self.compiled_from
+                and self.first_guess == "table" and self._lookup is not None):
             return self._locate_compiled(lon, lat)
         # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
         components = unit_vector_components(lon, lat)
