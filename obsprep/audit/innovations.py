@@ -17,7 +17,8 @@ super-observations:
 - ``ratio`` = var(d) / mean(sigma_o^2 + (1 + 1/N) sigma_ens^2) (1 when consistent);
 - ``factor_sq``: the estimate of F^2 = (sum (d - mean d)^2 n / (n - 1) - sum (1 + 1/N)
   sigma_ens^2) / sum sigma_o^2, a ratio of sums whose standard error ``factor_sq_se`` allows for
-  the correlation of neighbouring innovations (block standard error); it may be negative when
+  the correlation of neighbouring innovations (block standard error, never below that of
+  independent Gaussian innovations, sqrt(2 sum E[d^2]^2) / sum sigma_o^2); it may be negative when
   the ensemble variance alone exceeds the innovation variance (then the assigned errors, or the
   ensemble spread, are too large);
 - ``sensitivity`` = mean(sigma_o^2) / mean(sigma_o^2 + (1 + 1/N) sigma_ens^2): the share of the
@@ -40,7 +41,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.uncertainty import NOT_ESTIMATED, Blocks, blocked_ratio
+from obsprep.audit.uncertainty import NOT_ESTIMATED, Blocks, blocked_ratio, with_floor
 
 
 def ensemble_mean_error_factor(members: int) -> float:
@@ -98,6 +99,10 @@ def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: 
         background = ensemble_mean_error_factor(members) * np.asarray(sigma_ens2, dtype=np.float64)
         expected = mean_o2 + float(background.mean())
         factor = blocked_ratio(centred - background, sigma_o2, blocks)
+        # Gaussian floor of its standard error (obsprep.audit.uncertainty.with_floor), at the
+        # expected innovation variance of each super-observation
+        expected_each = max(factor.value, 0.0) * sigma_o2 + background
+        factor = with_floor(factor, float(np.sqrt(2.0 * np.sum(expected_each ** 2)) / sigma_o2.sum()))
         out.update(mean_sigma_ens2=float(np.mean(sigma_ens2)), ratio=float(centred.mean()) / expected,
                    sensitivity=mean_o2 / expected, factor_sq=factor.value, factor_sq_se=factor.se,
                    factor_blocks=factor.blocks, factor_block_cells=factor.block_cells,

@@ -23,7 +23,8 @@ differences (:func:`obsprep.audit.collocation.visible_error`), so the triple-col
 is compared with the visible part of the assigned error: F^2 = sum (u - u_mean)(v - v_mean)
 n / (n - 1) / sum sigma_vis^2, the factor by which the assigned error should be multiplied, with
 the block standard error of this ratio (:mod:`obsprep.audit.uncertainty`), which allows for
-neighbouring triplets sharing errors.  Errors correlated *between* the sensors (one product
+neighbouring triplets sharing errors, never below the Gaussian one of independent triplets,
+sqrt(n (var u var v + c^2)) / sum sigma_vis^2.  Errors correlated *between* the sensors (one product
 derived from another) make the variance too small; the audit cannot see that and the report
 says so.
 """
@@ -36,7 +37,7 @@ import numpy as np
 import pandas as pd
 
 from obsprep.audit.collocation import matched, sensors_by_quantity
-from obsprep.audit.uncertainty import Blocks, blocked_ratio
+from obsprep.audit.uncertainty import Blocks, blocked_ratio, with_floor
 
 
 def covariance_with_standard_error(u, v) -> tuple[float, float]:
@@ -113,6 +114,9 @@ def triple_collocation_table(superobs: pd.DataFrame, min_triplets: int = 10) -> 
                 visible2 = table[f"visible_{sensor}"].to_numpy(float) ** 2
                 factor = blocked_ratio((u - u.mean()) * (v - v.mean()) * (n / (n - 1.0)), visible2,
                                        blocks)
+                # Gaussian floor: var((u - u_mean)(v - v_mean)) = var u var v + cov^2 per triplet
+                floor = np.sqrt(n * (u.var() * v.var() + factor.value ** 2 * np.mean(visible2) ** 2))
+                factor = with_floor(factor, float(floor / visible2.sum()))
                 assigned = float(np.sqrt(np.mean(table[f"error_{sensor}"] ** 2)))
                 assigned_visible = float(np.sqrt(np.mean(visible2)))
                 with_ = " ".join(others)

@@ -105,6 +105,21 @@ class BlockedEstimate:
 NOT_ESTIMATED = BlockedEstimate(np.nan, np.nan, 0, 0, 0, False, 0)
 
 
+def with_floor(estimate: BlockedEstimate, floor_se: float) -> BlockedEstimate:
+    """The estimate with its standard error raised to at least ``floor_se``.
+
+    The floors used are those of Gaussian errors: a sum of squares of Gaussian values of
+    covariance C has variance 2 tr(C^2) = 2 sum_ij C_ij^2 >= 2 sum_i C_ii^2 (Isserlis' theorem,
+    textbook), so correlation can only raise it above what independent values of the same
+    variances give.  Few blocks can make the block variance small by chance; the floor keeps a
+    ratio of large, nearly cancelling sums (innovations dominated by the background) from
+    looking precise."""
+    if not np.isfinite(floor_se) or not np.isfinite(estimate.se) or estimate.se >= floor_se:
+        return estimate
+    return BlockedEstimate(estimate.value, float(floor_se), estimate.blocks, estimate.dof,
+                           estimate.block_cells, estimate.levelled, estimate.n)
+
+
 def block_sizes(blocks: Blocks) -> list[int]:
     """Block sizes 1, 2, 4, ... (cells) that leave at least :data:`MIN_BLOCKS` blocks."""
     sizes, cells = [], 1

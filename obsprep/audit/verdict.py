@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio
+from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio, with_floor
 
 #: Cochran's Q below this p-value: the estimates disagree
 AGREEMENT_LEVEL = 0.01
@@ -91,10 +91,12 @@ def pair_estimate(centred_difference, visible_own, visible_partner, partner_fact
     se^2 += (sum sigma_vis,p^2 / sum sigma_vis^2)^2 se(F_p^2)^2 (delta method)."""
     own2 = np.asarray(visible_own, dtype=np.float64) ** 2
     partner2 = np.asarray(visible_partner, dtype=np.float64) ** 2
-    ratio = blocked_ratio(np.asarray(centred_difference, dtype=np.float64)
-                          - partner_factor_sq * partner2, own2, blocks)
+    centred = np.asarray(centred_difference, dtype=np.float64)
+    ratio = blocked_ratio(centred - partner_factor_sq * partner2, own2, blocks)
     if not np.isfinite(ratio.value):
         return ratio
+    # Gaussian floor (obsprep.audit.uncertainty.with_floor): var((d - d_mean)^2) = 2 var(d)^2
+    ratio = with_floor(ratio, float(np.sqrt(2.0 * centred.size) * centred.mean() / own2.sum()))
     scale = float(partner2.sum() / own2.sum())
     se = float(np.hypot(ratio.se, scale * partner_factor_sq_se))
     return BlockedEstimate(ratio.value, se, ratio.blocks, ratio.dof, ratio.block_cells,

@@ -53,6 +53,13 @@ def unit_vector_components(lon, lat):
 _HALF_DEGREE_IN_RADIANS = np.pi / 360.0
 
 
+def half_angle_tangent(angle, out=None):
+    """``tan(angle / 2)`` of ``angle`` in degrees (dimensionless), the ``t`` of
+    :func:`cos_sin_degrees`, into ``out`` when given."""
+    half_tangent = np.multiply(angle, _HALF_DEGREE_IN_RADIANS, out=out)
+    return np.tan(half_tangent, out=half_tangent)
+
+
 def cos_sin_degrees(angle, cos_out=None, sin_out=None):
     """(cos, sin) of ``angle`` (degrees) from the tangent of the half angle.
 
@@ -65,8 +72,7 @@ def cos_sin_degrees(angle, cos_out=None, sin_out=None):
     identities still give cos = -1, sin ~ 1e-16.  ``cos_out`` and ``sin_out`` (arrays like
     ``angle``, optional) receive the results.
     """
-    half_tangent = np.multiply(angle, _HALF_DEGREE_IN_RADIANS, out=sin_out)
-    np.tan(half_tangent, out=half_tangent)
+    half_tangent = half_angle_tangent(angle, out=sin_out)
     # 2 / (1 + t^2), then cos = 2 / (1 + t^2) - 1 and sin = t * 2 / (1 + t^2)
     cos_angle = np.multiply(half_tangent, half_tangent, out=cos_out)
     cos_angle += 1.0

@@ -123,7 +123,9 @@ class ModelGrid:
             part = slice(start, start + self.chunk_size)
             lon_part, lat_part = lon[part], lat[part]
             usable = np.isfinite(lon_part) & np.isfinite(lat_part) & (np.abs(lat_part) <= 90.0)
-            if usable.any():
+            if usable.all():  # the usual case: no copies of the positions, no scatter
+                i[part], j[part] = self._locate_valid(lon_part, lat_part)
+            elif usable.any():
                 i_found, j_found = self._locate_valid(lon_part[usable], lat_part[usable])
                 i[part][usable] = i_found
                 j[part][usable] = j_found

@@ -30,6 +30,12 @@ is given to the nearest-fitting piece if it is within :data:`SLIVER_TOLERANCE` c
 Positions farther from every centre than the largest centre-to-neighbour distance are outside
 without further work.
 
+Compiled search.  With a lookup table, the guess and the four pieces around it are by default
+done for each position in one compiled pass (:mod:`obsprep.geo.grid.cell_search`, the same
+arithmetic in the same order); the KD-tree step and the slivers stay as above, for the few
+positions it leaves.  The cells are identical to the all-numpy search
+(:attr:`CurvilinearGrid.search` ``= "numpy"``), which is kept as the reference.
+
 Accuracy: exact (to rounding) when the grid is affine in lon/lat (a regular lon/lat grid,
 possibly rotated or sheared); otherwise the cell edges are those of the piecewise-bilinear
 model, which differ from the "true" edges of, e.g., a rotated-pole grid by the sagitta of the
@@ -48,7 +54,12 @@ from obsprep.exceptions import GridError, InputFileError
 from obsprep.geo.grid.base import ModelGrid
 from obsprep.geo.grid.gridfile import read_grid_file, write_grid_file
 from obsprep.geo.rotation import axis_angle_from_centres
-from obsprep.geo.sphere import unit_vector_components, unit_vectors_from_lonlat, wrap_longitude
+from obsprep.geo.sphere import (
+    half_angle_tangent,
+    unit_vector_components,
+    unit_vectors_from_lonlat,
+    wrap_longitude,
+)
 
 #: pieces with a corner poleward of this latitude (degrees) use polar stereographic coordinates
 POLAR_CAP_LATITUDE = 80.0
@@ -129,15 +140,27 @@ class CurvilinearGrid(ModelGrid):
     """
 
     grid_type = "curvilinear"
-    #: smaller chunks than the default: the search keeps several arrays per position, and
-    #: chunks whose arrays stay in the processor cache are searched about twice as fast
-    chunk_size = 65_536
+    #: positions per chunk: the search keeps several arrays per position (about 120 bytes);
+    #: the compiled search takes a chunk in one call, the numpy search in parts of
+    #: :attr:`numpy_chunk_size`
+    chunk_size = 262_144
+    #: parts of a chunk for the numpy search: parts whose arrays stay in the processor cache
+    #: are searched about twice as fast
+    numpy_chunk_size = 65_536
     #: number of nearest centres whose surrounding pieces are tried
     neighbours = 4
     #: largest number of bins of the first-guess lookup table (int32 each)
     max_lookup_bins = 16_000_000
     #: "table" (lookup table, KD-tree only for what it misses) or "tree" (KD-tree for all)
     first_guess = "table"
+    #: "compiled": step 1 of the table search in one compiled pass
+    #: (:mod:`obsprep.geo.grid.cell_search`); "numpy": all of it vectorised (the reference);
+    #: the cells are identical
+    search = "compiled"
+    #: fewer positions than this in a chunk take the numpy search even when ``search`` is
+    #: "compiled" (the same cells): a process that only ever locates a few positions does not
+    #: import numba and load the kernel (about half a second) to save milliseconds
+    compiled_from = 50_000
 
     def __init__(self, lon, lat, *, sea_mask=None, bathymetry=None, angle=None,
                  layer_interfaces=None, source=None):
@@ -431,13 +454,113 @@ class CurvilinearGrid(ModelGrid):
         return hit_mask
 
     def _locate_valid(self, lon, lat):
+        if self.search not in ("compiled", "numpy"):
+            raise ValueError(f"CurvilinearGrid.search must be 'compiled' or 'numpy', got "
+                             f"{self.search!r}")
+        if (self.search == "compiled" and lon.size >= self.compiled_from
+                and self.first_guess == "table" and self._lookup is not None):
+            return self._locate_compiled(lon, lat)
+        # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
+        components = unit_vector_components(lon, lat)
+        if lon.size <= self.numpy_chunk_size:
+            return self._locate_numpy(lon, lat, components)
+        i = np.empty(lon.size, dtype=np.int64)
+        j = np.empty(lon.size, dtype=np.int64)
+        for start in range(0, lon.size, self.numpy_chunk_size):
+            part = slice(start, start + self.numpy_chunk_size)
+            i[part], j[part] = self._locate_numpy(lon[part], lat[part],
+                                                  tuple(c[part] for c in components))
+        return i, j
+
+    @cached_property
+    def _search_tables(self):
+        """The lookup and piece tables in the compiled kernel's layout."""
+        from obsprep.geo.grid import cell_search
+
+        return cell_search.search_tables(self._lookup, self._piece_table, self.nx, self.ny)
+
+    def _locate_compiled(self, lon, lat):
+        """The search of :meth:`_locate_numpy` with its step 1 (table guess, four pieces) in
+        one compiled pass (:func:`obsprep.geo.grid.cell_search.table_search`); steps 2 and 3
+        for what it leaves are the numpy code, so the cells are the same."""
+        from obsprep.geo.grid import cell_search
+
+        tables = self._search_tables
+        # polar stereographic coordinates by numpy (as _try_pieces computes them) for the
+        # positions near a polar cap; a position that meets a polar piece without them asks
+        # for them (status NEEDS_NORTH / NEEDS_SOUTH) and is searched again
+        north_from, south_to = self._polar_cap_reach
+        hemisphere = np.zeros(lon.size, dtype=np.int8)
+        hemisphere[lat <= south_to] = -1
+        hemisphere[lat >= north_from] = 1
+        half_tangents = (half_angle_tangent(lon), half_angle_tangent(lat))
+        i, j, near_miss, status = cell_search.table_search(
+            lon, lat, half_tangents, tables, self._polar_coordinates(lon, lat, hemisphere))
+        again_rows = np.flatnonzero(status >= cell_search.NEEDS_NORTH)
+        if again_rows.size:
+            lon_again, lat_again = lon[again_rows], lat[again_rows]
+            hemisphere = np.where(status[again_rows] == cell_search.NEEDS_NORTH, 1, -1)
+            again = cell_search.table_search(
+                lon_again, lat_again, tuple(t[again_rows] for t in half_tangents), tables,
+                self._polar_coordinates(lon_again, lat_again, hemisphere))
+            for whole, part in zip((i, j, near_miss, status), again):
+                whole[again_rows] = part
+            # pieces of both polar caps around one position: the numpy search for those
+            both = np.flatnonzero(again[3] >= cell_search.NEEDS_NORTH)
+            if both.size:
+                rows = again_rows[both]
+                i[rows], j[rows] = self._locate_numpy(lon[rows], lat[rows],
+                                                      unit_vector_components(lon[rows], lat[rows]))
+                status[rows] = cell_search.FOUND
+        pending = np.flatnonzero(status == cell_search.PENDING)
+
+        def points_at(rows):
+            """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
+            return np.stack(unit_vector_components(lon[rows], lat[rows]), axis=-1)
+
+        self._search_near_centres(pending, lon, lat, points_at, (i, j), near_miss,
+                                  from_tree=False)
+        return i, j
+
+    @staticmethod
+    def _polar_coordinates(lon, lat, hemisphere):
+        """(x, y, hemisphere) for :func:`obsprep.geo.grid.cell_search.table_search`: polar
+        stereographic coordinates (unit sphere) of the positions (degrees) about the pole of
+        ``hemisphere`` (+1, -1; 0: none, x = y = 0)."""
+        x = np.zeros(lon.size)
+        y = np.zeros(lon.size)
+        hemisphere = np.asarray(hemisphere, dtype=np.int8)
+        rows = np.flatnonzero(hemisphere)
+        if rows.size:
+            x[rows], y[rows] = _polar_stereographic(lon[rows], lat[rows],
+                                                    hemisphere[rows].astype(np.float64))
+        return x, y, hemisphere
+
+    @cached_property
+    def _polar_cap_reach(self):
+        """(from, to) latitudes in degrees: positions north of the first (south of the second)
+        are likely to meet a northern (southern) polar piece in the search: the lowest corner
+        latitude of those pieces, less twice the largest latitude step between neighbouring
+        centres.  Only a shortcut: a position outside meets them too, then asks for them."""
+        lat = self._lat
+        step = max(np.abs(np.diff(lat, axis=0)).max(), np.abs(np.diff(lat, axis=1)).max())
+        corners = np.stack([lat[:-1, :-1], lat[:-1, 1:], lat[1:, :-1], lat[1:, 1:]])
+        lowest = corners.min(axis=0)
+        highest = corners.max(axis=0)
+        north = self._polar_piece > 0
+        south = self._polar_piece < 0
+        north_from = lowest[north].min() - 2.0 * step if north.any() else np.inf
+        south_to = highest[south].max() + 2.0 * step if south.any() else -np.inf
+        return float(north_from), float(south_to)
+
+    def _locate_numpy(self, lon, lat, components):
+        """The vectorised search (module docstring) of positions ``lon``, ``lat`` (degrees,
+        finite) with unit vectors ``components``: cell indices (i, j), -1 outside."""
         n = lon.size
         ncells = self.ny * self.nx
         found = (np.full(n, -1, dtype=np.int64), np.full(n, -1, dtype=np.int64))
         near_miss = np.empty((n, 5))  # violation, j0, i0, s, t; read only where finite
         near_miss[:, 0] = np.inf
-        # unit vectors as three contiguous arrays (the table path needs no (n, 3) stack)
-        components = unit_vector_components(lon, lat)
 
         def points_at(rows=None):
             """(m, 3) unit vectors, as unit_vectors_from_lonlat gives them."""
@@ -477,6 +600,16 @@ class CurvilinearGrid(ModelGrid):
             piece_i = ic + np.where(flip_i, -1 - di, di)
             hit = self._try_pieces(pending, piece_j, piece_i, lon, lat, found, near_miss)
             pending, jc, ic, di, dj = (a[~hit] for a in (pending, jc, ic, di, dj))
+        self._search_near_centres(pending, lon, lat, points_at, found, near_miss, from_tree)
+        return found
+
+    def _search_near_centres(self, pending, lon, lat, points_at, found, near_miss, from_tree):
+        """Steps 2 and 3 of the search for the positions ``pending`` (indices into ``lon``,
+        ``lat``, ``found`` and ``near_miss``, updated in place) that the four pieces around the
+        first guess did not hold; ``points_at(rows)``: their (m, 3) unit vectors;
+        ``from_tree``: that guess was the KD-tree's nearest centre (tried already)."""
+        ncells = self.ny * self.nx
+
         # 2) the pieces around the nearest centres by KD-tree (a table guess one cell off,
         #    skewed cells, grid edges); the nearest itself was tried already if it came from
         #    the tree
@@ -506,7 +639,6 @@ class CurvilinearGrid(ModelGrid):
             t = np.clip(t, np.where(j0 == 0, -0.5, 0.0), np.where(j0 == self.ny - 2, 1.5, 1.0))
             found[0][sliver] = self._cell_from_fraction(i0, s, self.nx)
             found[1][sliver] = self._cell_from_fraction(j0, t, self.ny)
-        return found
 
     @staticmethod
     def _cell_from_fraction(origin, fraction, size):
