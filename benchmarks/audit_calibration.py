@@ -184,6 +184,18 @@ def wrong_examples(results: pd.DataFrame, limit: int = 8) -> str:
     return "\n".join(lines)
 
 
+def source_revision() -> str:
+    """The git commit of the working tree the benchmark runs in ("unknown" outside git)."""
+    import subprocess
+
+    try:
+        out = subprocess.run(["git", "-C", str(ROOT), "describe", "--always", "--dirty"],
+                             capture_output=True, text=True, timeout=10)
+    except (OSError, subprocess.SubprocessError):
+        return "unknown"
+    return out.stdout.strip() or "unknown"
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--quick", action="store_true", help="20 trials per case")
@@ -201,6 +213,7 @@ def main(argv=None) -> int:
         return 2
     trials = args.trials or TRIALS["quick" if args.quick else "full"]
     started = dt.datetime.now(dt.UTC)
+    revision = source_revision()     # before the run: the code the trials import
     clock = time.perf_counter()
     results = run_trials(trials, args.jobs)
     elapsed = time.perf_counter() - clock
@@ -212,7 +225,8 @@ def main(argv=None) -> int:
     command = "python benchmarks/audit_calibration.py" + (" --quick" if args.quick else "") \
         + (f" --trials {args.trials}" if args.trials else "")
     text = (f"Run {started:%Y-%m-%d %H:%M} UTC, `{command}` ({trials} trials per case, "
-            f"{elapsed / 60:.1f} min with {args.jobs} process{'es' if args.jobs > 1 else ''})"
+            f"{elapsed / 60:.1f} min with {args.jobs} process{'es' if args.jobs > 1 else ''}; "
+            f"source {revision})"
             f"\n\nMachine: {machine_line()}\n\n{body}")
     print(text)
     examples = wrong_examples(results)
