@@ -551,12 +551,16 @@ def _grouped_mean(x, inverse, n_groups, weight_per_row, total_weight):
 # --------------------------------------------------------------------------------------------
 # input checks
 
-def _float_column(where, name, array, n, *, positive=False, low=None, high=None):
+def _float_column(where, name, array, n, *, positive=False, low=None, high=None, check=True):
+    """``array`` as float64 (n,) (a scalar repeated), its values checked unless not ``check``
+    (then the caller checks them)."""
     array = np.asarray(array, dtype=np.float64)
     if array.ndim == 0:
         array = np.full(n, array.item())
     if array.shape != (n,):
         raise ValueError(f"{where}: '{name}' has shape {array.shape}, expected ({n},) like the keys")
+    if not check:
+        return np.ascontiguousarray(array)
     if n:
         # fast path: the extremes decide (NaN propagates through min and max)
         smallest, largest = array.min(), array.max()
@@ -578,14 +582,14 @@ def _float_column(where, name, array, n, *, positive=False, low=None, high=None)
     return array
 
 
-def _cross_covariance_columns(where, cross_covariance, partner_error, n):
+def _cross_covariance_columns(where, cross_covariance, partner_error, n, check=True):
     if cross_covariance is None and partner_error is None:
         return None, None
     if cross_covariance is None or partner_error is None:
         raise ValueError(f"{where}: 'cross_covariance' and 'partner_error' go together; "
                          f"got only one of them")
-    return (_float_column(where, "cross_covariance", cross_covariance, n),
-            _float_column(where, "partner_error", partner_error, n, positive=True))
+    return (_float_column(where, "cross_covariance", cross_covariance, n, check=check),
+            _float_column(where, "partner_error", partner_error, n, positive=True, check=check))
 
 
 def _pair_correlation(where, pair_correlation):
@@ -889,130 +893,9 @@ class Accumulator:
         -------
         Accumulator
         """
-        where = "Accumulator.from_observations"
-        key_names, key_arrays = _validate_keys(keys, where)
-        n = len(key_arrays[0])
-        value = _float_column(where, "value", value, n)
-        error = _float_column(where, "error", error, n, positive=True)
-        time = _float_column(where, "time", time, n)
-        lon = _float_column(where, "lon", lon, n)
-        lat = _float_column(where, "lat", lat, n, low=-90.0, high=90.0)
-        depth = _float_column(where, "depth", depth, n)
-        if tiebreak is not None and score is None:
-            raise ValueError(f"{where}: 'tiebreak' given without 'score'; the tiebreak only "
-                             f"orders observations of equal score")
-        if score is not None:
-            score = np.asarray(score, dtype=np.float64)
-            if score.shape != (n,) or np.isnan(score).any():
-                raise ValueError(f"{where}: 'score' must be a float array of shape ({n},) "
-                                 f"without NaN; got shape {score.shape}")
-            if tiebreak is None:
-                tiebreak = np.zeros(n, dtype=np.int64)
-            else:
-                tiebreak = np.asarray(tiebreak)
-                if tiebreak.shape != (n,) or tiebreak.dtype.kind not in "iu":
-                    raise ValueError(f"{where}: 'tiebreak' must be an int64 array of shape "
-                                     f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
-                tiebreak = tiebreak.astype(np.int64, copy=False)
-
-        cross_covariance, partner_error = _cross_covariance_columns(
-            where, cross_covariance, partner_error, n)
-        pair_correlation = _pair_correlation(where, pair_correlation)
-
-        grouping = _grouping(key_arrays)
-        group_keys = dict(zip(key_names, grouping.group_keys))
-        count_float = grouping.count.astype(np.float64)
-        compress = grouping.compress
-
-        # Two work buffers of n floats are reused by every per-row product below: fresh
-        # temporaries of millions of rows cost more in page faults than the arithmetic.
-        work = np.empty(n)
-        work_2 = np.empty(n)
-        value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
-        weights = None  # per-row 1/sigma^2; None: one error for the whole batch
-        if n and error.min() == error.max():
-            # one error for the whole batch (a constant error rule): the error sums follow
-            # from the counts, and every weighted mean is the plain mean
-            sigma = float(error[0])
-            weight = 1.0 / (sigma * sigma)
-            sum_variance = count_float * (sigma * sigma)
-            sum_sigma = count_float * sigma
-            sum_inverse_sigma = count_float * (1.0 / sigma)
-            sum_inverse_variance = count_float * weight
-            weighted_mean = value_mean
-            weighted_m2 = value_m2 * weight
-        else:
-            weights = np.divide(1.0, error)
-            sum_inverse_sigma = grouping.sum(weights)
-            np.multiply(weights, weights, out=weights)
-            sum_inverse_variance = grouping.sum(weights)
-            weighted_mean, weighted_m2 = _shifted_mean_and_m2(
-                value, grouping, count_float, work, weights, sum_inverse_variance)
-            sum_variance = grouping.sum(np.multiply(error, error, out=work))
-            sum_sigma = grouping.sum(error)
-        time_mean = _shifted_mean(time, grouping, count_float, work=work)
-        weighted_time_mean = time_mean if weights is None else _shifted_mean(
-            time, grouping, count_float, weights, sum_inverse_variance, work)
-        depth_state = _depth_moments(depth, value, value_mean, grouping, count_float)
-        depth_state["weighted_depth_mean"] = (
-            depth_state["depth_mean"] if weights is None or not depth_state["depth_varies"]
-            else _shifted_mean(depth, grouping, count_float, weights, sum_inverse_variance, work))
-        sums = _unit_vector_sums(lon, lat, grouping, work, work_2, weights)
-        if weights is None:  # constant weight: the weighted sums are the plain ones times it
-            sums += tuple(total * weight for total in sums)
-        if cross_covariance is None:
-            sum_cross = sum_weighted_cross = np.zeros(grouping.n_bins)
-        else:
-            sum_cross = grouping.sum(cross_covariance)
-            # weights of the two components' weighted means: 1/sigma^2 and 1/sigma_partner^2
-            np.divide(cross_covariance, np.multiply(error, partner_error, out=work) ** 2,
-                      out=work)
-            sum_weighted_cross = grouping.sum(work)
-        del work, work_2, weights
-        value_min = grouping.minimum(value, np.inf)
-        value_max = grouping.maximum(value, -np.inf)
-        if pair_correlation is None:
-            pair_sigma = pair_inverse_sigma = np.zeros(grouping.n_bins)
-        else:
-            pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
-                grouping, lon, lat, error, pair_correlation)
-
-        state = {
-            "count": compress(grouping.count).astype(np.int64, copy=False),
-            "value_mean": compress(value_mean),
-            "value_m2": compress(value_m2),
-            "value_min": compress(value_min),
-            "value_max": compress(value_max),
-            "weighted_mean": compress(weighted_mean),
-            "weighted_m2": compress(weighted_m2),
-            "sum_inverse_variance": compress(sum_inverse_variance),
-            "sum_inverse_sigma": compress(sum_inverse_sigma),
-            "sum_variance": compress(sum_variance),
-            "sum_sigma": compress(sum_sigma),
-            "time_mean": compress(time_mean),
-            "weighted_time_mean": compress(weighted_time_mean),
-            "sum_x": compress(sums[0]), "sum_y": compress(sums[1]), "sum_z": compress(sums[2]),
-            "sum_weighted_x": compress(sums[3]), "sum_weighted_y": compress(sums[4]),
-            "sum_weighted_z": compress(sums[5]),
-            "sum_cross_covariance": compress(sum_cross),
-            "sum_weighted_cross_covariance": compress(sum_weighted_cross),
-            "pair_sum_sigma": compress(pair_sigma),
-            "pair_sum_inverse_sigma": compress(pair_inverse_sigma),
-        }
-        for name in DEPTH_FIELDS:
-            state[name] = compress(depth_state[name])
-        state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
-        if score is not None:
-            if n:
-                row = _representative_rows(grouping, score, tiebreak)
-            else:
-                row = np.zeros(0, dtype=np.intp)
-            for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
-                                 ("error", error), ("time", time), ("lon", lon), ("lat", lat),
-                                 ("depth", depth)):
-                state["representative_" + name] = source[row]
-        return cls(key_names, group_keys, state, score is not None,
-                   pair_correlation=pair_correlation)
+        return _from_observations(cls, keys, value, error, time, lon, lat, depth, score,
+                                  tiebreak, cross_covariance, partner_error, pair_correlation,
+                                  compiled=True)
 
     @classmethod
     def merge(cls, accumulators) -> Accumulator:
@@ -1223,6 +1106,239 @@ class Accumulator:
             "error": error,
         })
         return pd.DataFrame(columns)
+
+
+# --------------------------------------------------------------------------------------------
+# one batch: checks, then the sums by the compiled kernels or by numpy
+
+
+def _from_observations(cls, keys, value, error, time, lon, lat, depth, score, tiebreak,
+                       cross_covariance, partner_error, pair_correlation, *, compiled):
+    """:meth:`Accumulator.from_observations`; ``compiled`` False: the plain numpy reference
+    (:func:`_reference_state`) instead of the compiled kernels (:func:`_compiled_state`).
+    Both give the same state (the kernels' docstrings say where it is not bit for bit)."""
+    where = "Accumulator.from_observations"
+    key_names, key_arrays = _validate_keys(keys, where)
+    n = len(key_arrays[0])
+    compiled = compiled and n > 0
+    # with the kernels the values are checked in their pass (one pass, not two per column);
+    # a batch the kernel finds wrong is checked here again for the one-line reason
+    columns = _checked_columns(where, n, value, error, time, lon, lat, depth,
+                               cross_covariance, partner_error, check=not compiled)
+    score, tiebreak = _checked_score(where, n, score, tiebreak)
+    pair_correlation = _pair_correlation(where, pair_correlation)
+    grouping = _grouping(key_arrays)
+    state = None
+    if compiled:
+        state = _compiled_state(grouping, *columns)
+        if state is None:  # invalid input (raises here) or beyond the kernel's range
+            columns = _checked_columns(where, n, value, error, time, lon, lat, depth,
+                                       cross_covariance, partner_error, check=True)
+    value, error, time, lon, lat, depth, cross_covariance, partner_error = columns
+    if state is None:
+        depth = np.broadcast_to(depth, (n,))
+        state = _reference_state(grouping, value, error, time, lon, lat, depth,
+                                 cross_covariance, partner_error)
+    if pair_correlation is None:
+        pair_sigma = pair_inverse_sigma = np.zeros(grouping.n_bins)
+    else:
+        pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
+            grouping, lon, lat, error, pair_correlation)
+    state["pair_sum_sigma"] = grouping.compress(pair_sigma)
+    state["pair_sum_inverse_sigma"] = grouping.compress(pair_inverse_sigma)
+    state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
+    if score is not None:
+        if n:
+            row = _representative_rows(grouping, score, tiebreak)
+        else:
+            row = np.zeros(0, dtype=np.intp)
+        for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
+                             ("error", error), ("time", time), ("lon", lon), ("lat", lat),
+                             ("depth", np.broadcast_to(depth, (n,)))):
+            state["representative_" + name] = source[row]
+    group_keys = dict(zip(key_names, grouping.group_keys))
+    return cls(key_names, group_keys, state, score is not None,
+               pair_correlation=pair_correlation)
+
+
+def _checked_columns(where, n, value, error, time, lon, lat, depth, cross_covariance,
+                     partner_error, *, check):
+    """The float columns of a batch as float64 arrays (n,); a scalar depth stays a scalar
+    when not ``check`` (the kernels take it as the batch's one depth)."""
+    value = _float_column(where, "value", value, n, check=check)
+    error = _float_column(where, "error", error, n, positive=True, check=check)
+    time = _float_column(where, "time", time, n, check=check)
+    lon = _float_column(where, "lon", lon, n, check=check)
+    lat = _float_column(where, "lat", lat, n, low=-90.0, high=90.0, check=check)
+    if check or np.ndim(depth) != 0:
+        depth = _float_column(where, "depth", depth, n, check=check)
+    else:
+        depth = np.float64(depth)
+        if not np.isfinite(depth):
+            _float_column(where, "depth", depth, n)  # raises, naming the column
+    cross_covariance, partner_error = _cross_covariance_columns(
+        where, cross_covariance, partner_error, n, check=check)
+    return value, error, time, lon, lat, depth, cross_covariance, partner_error
+
+
+def _checked_score(where, n, score, tiebreak):
+    if tiebreak is not None and score is None:
+        raise ValueError(f"{where}: 'tiebreak' given without 'score'; the tiebreak only "
+                         f"orders observations of equal score")
+    if score is not None:
+        score = np.asarray(score, dtype=np.float64)
+        if score.shape != (n,) or np.isnan(score).any():
+            raise ValueError(f"{where}: 'score' must be a float array of shape ({n},) "
+                             f"without NaN; got shape {score.shape}")
+        if tiebreak is None:
+            tiebreak = np.zeros(n, dtype=np.int64)
+        else:
+            tiebreak = np.asarray(tiebreak)
+            if tiebreak.shape != (n,) or tiebreak.dtype.kind not in "iu":
+                raise ValueError(f"{where}: 'tiebreak' must be an int64 array of shape "
+                                 f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
+            tiebreak = tiebreak.astype(np.int64, copy=False)
+    return score, tiebreak
+
+
+def _compiled_state(grouping, value, error, time, lon, lat, depth, cross_covariance,
+                    partner_error):
+    """The per-group state of :data:`STATE_FIELDS` of one batch (n > 0) by the compiled
+    kernels of :mod:`obsprep.superobs.batch_kernels`: one pass over the rows for every sum,
+    a second only for the groups that need the two-pass M2, a third only when the depth
+    varies.  None when an input is invalid or beyond the kernels' range (the caller checks).
+    """
+    from obsprep.superobs import batch_kernels as bk
+
+    kernels = bk.compiled()
+    n_bins = grouping.n_bins
+    index = grouping.index
+    varying_error = bool(error.min() != error.max())
+    varying_depth = depth.ndim == 1 and bool(depth.min() != depth.max())
+    has_cross = cross_covariance is not None
+    depth_rows = depth if varying_depth else np.zeros(1)
+    value_shift = float(np.mean(value))
+    time_shift = float(np.mean(time))
+    depth_shift = float(np.mean(depth)) if varying_depth else 0.0
+    empty = np.zeros(1)
+    state = _aligned_zeros(n_bins, bk.STRIDE)
+    state[:, bk.MINIMUM] = np.inf
+    state[:, bk.MAXIMUM] = -np.inf
+    valid = kernels.accumulate_rows(
+        index, state, value, error, time, lon, lat, depth_rows,
+        cross_covariance if has_cross else empty, partner_error if has_cross else empty,
+        value_shift, time_shift, depth_shift, varying_error, varying_depth, has_cross)
+    if not valid:
+        return None
+    count = grouping.count
+    moments, risky = kernels.value_moments(state, count, value_shift, TWO_PASS_RATIO,
+                                           varying_error)
+    if risky.any():
+        kernels.two_pass_moments(index, value, error, state, count, moments, risky,
+                                 varying_error)
+    if varying_depth:
+        depth_state = kernels.depth_moments(index, depth, value, state, count, moments)
+    else:
+        depth_state = np.zeros((1, 6))
+    keep = grouping.keep if grouping.keep is not None else np.zeros(0, dtype=np.intp)
+    sigma = float(error[0])
+    constant_depth = float(depth if depth.ndim == 0 else depth[0])
+    out = kernels.group_state(state, count, keep, moments, depth_state, time_shift,
+                              depth_shift, sigma, varying_error, varying_depth,
+                              constant_depth, has_cross)
+    result = dict(zip(bk.OUTPUT_FIELDS, out))
+    result["count"] = grouping.compress(count).astype(np.int64, copy=False)
+    return result
+
+
+def _aligned_zeros(rows, columns):
+    """float64 zeros (rows, columns) whose rows start on 64-byte boundaries (cache lines),
+    for ``columns`` a multiple of 8."""
+    buffer = np.zeros(rows * columns + 8)
+    offset = (-buffer.ctypes.data % 64) // 8
+    return buffer[offset:offset + rows * columns].reshape(rows, columns)
+
+
+def _reference_state(grouping, value, error, time, lon, lat, depth, cross_covariance,
+                     partner_error):
+    """The per-group state of :data:`STATE_FIELDS` of one batch by numpy, one
+    ``np.bincount`` per sum: the reference the compiled kernels are tested against."""
+    n = len(value)
+    count_float = grouping.count.astype(np.float64)
+    compress = grouping.compress
+
+    # Two work buffers of n floats are reused by every per-row product below: fresh
+    # temporaries of millions of rows cost more in page faults than the arithmetic.
+    work = np.empty(n)
+    work_2 = np.empty(n)
+    value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
+    weights = None  # per-row 1/sigma^2; None: one error for the whole batch
+    if n and error.min() == error.max():
+        # one error for the whole batch (a constant error rule): the error sums follow
+        # from the counts, and every weighted mean is the plain mean
+        sigma = float(error[0])
+        weight = 1.0 / (sigma * sigma)
+        sum_variance = count_float * (sigma * sigma)
+        sum_sigma = count_float * sigma
+        sum_inverse_sigma = count_float * (1.0 / sigma)
+        sum_inverse_variance = count_float * weight
+        weighted_mean = value_mean
+        weighted_m2 = value_m2 * weight
+    else:
+        weights = np.divide(1.0, error)
+        sum_inverse_sigma = grouping.sum(weights)
+        np.multiply(weights, weights, out=weights)
+        sum_inverse_variance = grouping.sum(weights)
+        weighted_mean, weighted_m2 = _shifted_mean_and_m2(
+            value, grouping, count_float, work, weights, sum_inverse_variance)
+        sum_variance = grouping.sum(np.multiply(error, error, out=work))
+        sum_sigma = grouping.sum(error)
+    time_mean = _shifted_mean(time, grouping, count_float, work=work)
+    weighted_time_mean = time_mean if weights is None else _shifted_mean(
+        time, grouping, count_float, weights, sum_inverse_variance, work)
+    depth_state = _depth_moments(depth, value, value_mean, grouping, count_float)
+    depth_state["weighted_depth_mean"] = (
+        depth_state["depth_mean"] if weights is None or not depth_state["depth_varies"]
+        else _shifted_mean(depth, grouping, count_float, weights, sum_inverse_variance, work))
+    sums = _unit_vector_sums(lon, lat, grouping, work, work_2, weights)
+    if weights is None:  # constant weight: the weighted sums are the plain ones times it
+        sums += tuple(total * weight for total in sums)
+    if cross_covariance is None:
+        sum_cross = sum_weighted_cross = np.zeros(grouping.n_bins)
+    else:
+        sum_cross = grouping.sum(cross_covariance)
+        # weights of the two components' weighted means: 1/sigma^2 and 1/sigma_partner^2
+        np.divide(cross_covariance, np.multiply(error, partner_error, out=work) ** 2,
+                  out=work)
+        sum_weighted_cross = grouping.sum(work)
+    del work, work_2, weights
+    value_min = grouping.minimum(value, np.inf)
+    value_max = grouping.maximum(value, -np.inf)
+    state = {
+        "count": compress(grouping.count).astype(np.int64, copy=False),
+        "value_mean": compress(value_mean),
+        "value_m2": compress(value_m2),
+        "value_min": compress(value_min),
+        "value_max": compress(value_max),
+        "weighted_mean": compress(weighted_mean),
+        "weighted_m2": compress(weighted_m2),
+        "sum_inverse_variance": compress(sum_inverse_variance),
+        "sum_inverse_sigma": compress(sum_inverse_sigma),
+        "sum_variance": compress(sum_variance),
+        "sum_sigma": compress(sum_sigma),
+        "time_mean": compress(time_mean),
+        "weighted_time_mean": compress(weighted_time_mean),
+        "sum_x": compress(sums[0]), "sum_y": compress(sums[1]), "sum_z": compress(sums[2]),
+        "sum_weighted_x": compress(sums[3]), "sum_weighted_y": compress(sums[4]),
+        "sum_weighted_z": compress(sums[5]),
+        "sum_cross_covariance": compress(sum_cross),
+        "sum_weighted_cross_covariance": compress(sum_weighted_cross),
+    }
+    for name in DEPTH_FIELDS:
+        state[name] = compress(depth_state[name])
+    for name in DEPTH_FIELDS:
+        state[name] = compress(depth_state[name])
+    return state
 
 
 def merge_accumulators(accumulators) -> Accumulator:
