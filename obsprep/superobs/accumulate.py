@@ -268,13 +268,10 @@ class _Grouping:
 def _direct_code(key_arrays, n):
     """(code, lows, radices) packing the keys in mixed radix (first key most significant) when
     the code range is small enough to index bins directly; else None."""
-    lows, radices = [], []
-    for array in key_arrays:
-        low, high = int(array.min()), int(array.max())
-        lows.append(low)
-        radices.append(high - low + 1)
-    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+    direct = _direct_radices(key_arrays, n)
+    if direct is None:
         return None
+    lows, radices = direct
     code = None
     for array, low, radix in zip(key_arrays, lows, radices):  # loop over keys, not rows
         if radix == 1:
@@ -288,6 +285,19 @@ def _direct_code(key_arrays, n):
     if code is None:
         code = np.zeros(n, dtype=np.int64)
     return code, lows, radices
+
+
+def _direct_radices(key_arrays, n):
+    """(lows, radices) of the keys when the mixed-radix code range is small enough to index
+    bins directly, else None."""
+    lows, radices = [], []
+    for array in key_arrays:
+        low, high = int(array.min()), int(array.max())
+        lows.append(low)
+        radices.append(high - low + 1)
+    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+        return None
+    return lows, radices
 
 
 def _grouping(key_arrays) -> _Grouping:
@@ -310,6 +320,21 @@ def _direct_grouping(code, lows, radices) -> _Grouping:
     """The grouping of rows by a direct (mixed-radix) code, see :func:`_direct_code`."""
     n_codes = math.prod(radices)
     count = np.bincount(code, minlength=n_codes)
+    occupied, group_keys, dense = _occupied_codes(count, lows, radices)
+    if dense:
+        # nearly every bin occupied: the code is the bin; empty bins are dropped at the end
+        keep = None if len(occupied) == n_codes else occupied
+        return _Grouping(code, n_codes, count, keep, group_keys)
+    # else renumber the occupied codes 0..n_groups-1: one gather per row buys per-bin arrays
+    # of the occupied bins only, cheaper for every sum that follows
+    return _Grouping(_renumbering(occupied, n_codes)[code], len(occupied), count[occupied],
+                     None, group_keys)
+
+
+def _occupied_codes(count, lows, radices):
+    """(occupied codes, their key values, whether nearly every code is occupied) from the rows
+    per code of a direct grouping."""
+    n_codes = len(count)
     occupied = np.flatnonzero(count)
     # decode the occupied codes back to key values (mixed radix, last key least significant)
     remainder = occupied.astype(np.int64)
@@ -320,15 +345,14 @@ def _direct_grouping(code, lows, radices) -> _Grouping:
             continue
         remainder, digit = np.divmod(remainder, np.int64(radices[position]))
         group_keys[position] = digit + np.int64(lows[position])
-    if 10 * len(occupied) >= 9 * n_codes:
-        # nearly every bin occupied: the code is the bin; empty bins are dropped at the end
-        keep = None if len(occupied) == n_codes else occupied
-        return _Grouping(code, n_codes, count, keep, group_keys)
-    # else renumber the occupied codes 0..n_groups-1: one gather per row buys per-bin arrays
-    # of the occupied bins only, cheaper for every sum that follows
+    return occupied, group_keys, 10 * len(occupied) >= 9 * n_codes
+
+
+def _renumbering(occupied, n_codes):
+    """code -> group number 0..len(occupied)-1 of the occupied codes."""
     renumber = np.empty(n_codes, dtype=np.intp)
     renumber[occupied] = np.arange(len(occupied))
-    return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
+    return renumber
 
 
 def _grouping_of_parts(parts, key_names) -> _Grouping:
@@ -1127,25 +1151,32 @@ def _from_observations(cls, keys, value, error, time, lon, lat, depth, score, ti
                                cross_covariance, partner_error, check=not compiled)
     score, tiebreak = _checked_score(where, n, score, tiebreak)
     pair_correlation = _pair_correlation(where, pair_correlation)
-    grouping = _grouping(key_arrays)
-    state = None
+    state = grouping = None
     if compiled:
-        state = _compiled_state(grouping, *columns)
+        from obsprep.superobs.batch_kernels import compiled as compiled_kernels
+
+        bins = _compiled_grouping(key_arrays, compiled_kernels())
+        state = _compiled_state(bins, *columns)
         if state is None:  # invalid input (raises here) or beyond the kernel's range
             columns = _checked_columns(where, n, value, error, time, lon, lat, depth,
                                        cross_covariance, partner_error, check=True)
+        elif pair_correlation is not None or score is not None:
+            grouping = bins.grouping()
+        else:  # what the rest needs of a grouping: the number of bins and compress
+            grouping = _Grouping(None, bins.n_bins, bins.count, bins.keep, bins.group_keys)
     value, error, time, lon, lat, depth, cross_covariance, partner_error = columns
     if state is None:
+        grouping = _grouping(key_arrays)
         depth = np.broadcast_to(depth, (n,))
         state = _reference_state(grouping, value, error, time, lon, lat, depth,
                                  cross_covariance, partner_error)
     if pair_correlation is None:
-        pair_sigma = pair_inverse_sigma = np.zeros(grouping.n_bins)
+        state["pair_sum_sigma"] = state["pair_sum_inverse_sigma"] = np.zeros(len(state["count"]))
     else:
         pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
             grouping, lon, lat, error, pair_correlation)
-    state["pair_sum_sigma"] = grouping.compress(pair_sigma)
-    state["pair_sum_inverse_sigma"] = grouping.compress(pair_inverse_sigma)
+        state["pair_sum_sigma"] = grouping.compress(pair_sigma)
+        state["pair_sum_inverse_sigma"] = grouping.compress(pair_inverse_sigma)
     state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
     if score is not None:
         if n:
@@ -1201,7 +1232,7 @@ def _checked_score(where, n, score, tiebreak):
     return score, tiebreak
 
 
-def _compiled_state(grouping, value, error, time, lon, lat, depth, cross_covariance,
+def _compiled_state(bins, value, error, time, lon, lat, depth, cross_covariance,
                     partner_error):
     """The per-group state of :data:`STATE_FIELDS` of one batch (n > 0) by the compiled
     kernels of :mod:`obsprep.superobs.batch_kernels`: one pass over the rows for every sum,
@@ -1211,8 +1242,8 @@ def _compiled_state(grouping, value, error, time, lon, lat, depth, cross_covaria
     from obsprep.superobs import batch_kernels as bk
 
     kernels = bk.compiled()
-    n_bins = grouping.n_bins
-    index = grouping.index
+    n_bins = bins.n_bins
+    code, renumber = bins.code, bins.renumber
     varying_error = bool(error.min() != error.max())
     varying_depth = depth.ndim == 1 and bool(depth.min() != depth.max())
     has_cross = cross_covariance is not None
@@ -1225,30 +1256,75 @@ def _compiled_state(grouping, value, error, time, lon, lat, depth, cross_covaria
     state[:, bk.MINIMUM] = np.inf
     state[:, bk.MAXIMUM] = -np.inf
     valid = kernels.accumulate_rows(
-        index, state, value, error, time, lon, lat, depth_rows,
+        code, renumber, state, value, error, time, lon, lat, depth_rows,
         cross_covariance if has_cross else empty, partner_error if has_cross else empty,
         value_shift, time_shift, depth_shift, varying_error, varying_depth, has_cross)
     if not valid:
         return None
-    count = grouping.count
+    count = bins.count
     moments, risky = kernels.value_moments(state, count, value_shift, TWO_PASS_RATIO,
                                            varying_error)
     if risky.any():
-        kernels.two_pass_moments(index, value, error, state, count, moments, risky,
+        kernels.two_pass_moments(code, renumber, value, error, state, count, moments, risky,
                                  varying_error)
     if varying_depth:
-        depth_state = kernels.depth_moments(index, depth, value, state, count, moments)
+        depth_state = kernels.depth_moments(code, renumber, depth, value, state, count, moments)
     else:
         depth_state = np.zeros((1, 6))
-    keep = grouping.keep if grouping.keep is not None else np.zeros(0, dtype=np.intp)
+    keep = bins.keep if bins.keep is not None else np.zeros(0, dtype=np.intp)
     sigma = float(error[0])
     constant_depth = float(depth if depth.ndim == 0 else depth[0])
     out = kernels.group_state(state, count, keep, moments, depth_state, time_shift,
                               depth_shift, sigma, varying_error, varying_depth,
                               constant_depth, has_cross)
     result = dict(zip(bk.OUTPUT_FIELDS, out))
-    result["count"] = grouping.compress(count).astype(np.int64, copy=False)
+    result["count"] = (count if bins.keep is None else count[bins.keep]).astype(np.int64,
+                                                                              copy=False)
     return result
+
+
+class _RowBins:
+    """Rows -> bins of one batch for the kernels: the bin of row r is ``renumber[code[r]]``
+    (``renumber`` empty: ``code[r]``); the other attributes as in :class:`_Grouping`."""
+
+    __slots__ = ("code", "renumber", "n_bins", "count", "keep", "group_keys")
+
+    def __init__(self, code, renumber, n_bins, count, keep, group_keys):
+        self.code, self.renumber, self.n_bins = code, renumber, n_bins
+        self.count, self.keep, self.group_keys = count, keep, group_keys
+
+    def grouping(self) -> _Grouping:
+        """The same bins as a :class:`_Grouping` (the bin of every row in one array)."""
+        index = self.renumber[self.code] if len(self.renumber) else self.code
+        return _Grouping(index, self.n_bins, self.count, self.keep, self.group_keys)
+
+
+def _compiled_grouping(key_arrays, kernels) -> _RowBins:
+    """:func:`_grouping` with the direct code and the rows per code in one compiled pass
+    (:func:`obsprep.superobs.batch_kernels.packed_code_and_count`); the same bins."""
+    n = len(key_arrays[0])
+    no_renumbering = np.zeros(0, dtype=np.intp)
+    direct = _direct_radices(key_arrays, n)
+    if direct is None:
+        grouping = _grouping(key_arrays)
+        return _RowBins(grouping.index, no_renumbering, grouping.n_bins, grouping.count,
+                        grouping.keep, grouping.group_keys)
+    lows, radices = direct
+    n_codes = math.prod(radices)
+    varying = [position for position, radix in enumerate(radices) if radix > 1]
+    if varying:  # a constant key adds nothing to the code (and may be a broadcast view)
+        code, count = kernels.packed_code_and_count(
+            tuple(np.ascontiguousarray(key_arrays[p]) for p in varying),
+            np.array([lows[p] for p in varying], dtype=np.int64),
+            np.array([radices[p] for p in varying], dtype=np.int64), n_codes)
+    else:
+        code, count = np.zeros(n, dtype=np.int64), np.array([n], dtype=np.int64)
+    occupied, group_keys, dense = _occupied_codes(count, lows, radices)
+    if dense:
+        keep = None if len(occupied) == n_codes else occupied
+        return _RowBins(code, no_renumbering, n_codes, count, keep, group_keys)
+    return _RowBins(code, _renumbering(occupied, n_codes), len(occupied), count[occupied], None,
+                    group_keys)
 
 
 def _aligned_zeros(rows, columns):

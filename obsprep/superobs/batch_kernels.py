@@ -100,14 +100,38 @@ def cos_sin_degrees(angle):
     c = 1.0 + r2 * (_C1 + r2 * (_C2 + r2 * (_C3 + r2 * (_C4 + r2 * (
         _C5 + r2 * (_C6 + r2 * (_C7 + r2 * (_C8 + r2 * _C9))))))))
     quadrant = k - 4.0 * math.floor(k * 0.25)  # k mod 4, exact in floating point
-    swap = quadrant == 1.0 or quadrant == 3.0
-    cos_a = s if swap else c
-    sin_a = c if swap else s
-    if quadrant == 1.0 or quadrant == 2.0:
-        cos_a = -cos_a
-    if quadrant >= 2.0:
-        sin_a = -sin_a
-    return cos_a, sin_a
+    # selects and sign flips without branches (| not "or"), so that loops vectorise
+    odd = (quadrant == 1.0) | (quadrant == 3.0)
+    cos_a = s if odd else c
+    sin_a = c if odd else s
+    cos_sign = -1.0 if (quadrant == 1.0) | (quadrant == 2.0) else 1.0
+    sin_sign = -1.0 if quadrant >= 2.0 else 1.0
+    return cos_a * cos_sign, sin_a * sin_sign
+
+
+def packed_code_and_count(keys, lows, radices, n_codes):
+    """The mixed-radix code of every row and the rows per code, one pass over the rows.
+
+    ``keys`` a tuple of int64 arrays (the keys that vary, first most significant), ``lows`` and
+    ``radices`` their smallest value and range (max - min + 1):
+    :math:`c = (\\ldots((k_1 - l_1) R_2 + (k_2 - l_2)) R_3 + \\ldots) + (k_m - l_m)`, in
+    0..n_codes-1 (n_codes the product of the radices).  Returns ``(code, count)``, int64.
+    """
+    n = len(keys[0])
+    code = np.empty(n, dtype=np.int64)
+    count = np.zeros(n_codes, dtype=np.int64)
+    for r in range(n):
+        c = 0
+        for position in range(len(keys)):
+            c = c * radices[position] + (keys[position][r] - lows[position])
+        code[r] = c
+        count[c] += 1
+    return code, count
+
+
+def _bin(code, renumber, r):
+    """The bin of row r: ``renumber[code[r]]``, or ``code[r]`` when ``renumber`` is empty."""
+    return renumber[code[r]] if len(renumber) else code[r]
 
 
 def _unit_vectors_block(lon, lat, start, stop, x, y, z):
@@ -121,13 +145,13 @@ def _unit_vectors_block(lon, lat, start, stop, x, y, z):
         z[k] = sin_lat
 
 
-def accumulate_rows(index, state, value, error, time, lon, lat, depth, cross, partner,
+def accumulate_rows(code, renumber, state, value, error, time, lon, lat, depth, cross, partner,
                     value_shift, time_shift, depth_shift, varying_error, varying_depth,
                     has_cross):
     """Add every row to the sums of its bin, one pass over the rows.
 
     ``state`` (n_bins, :data:`STRIDE`) float64 is updated in place; it starts at zero with
-    ``MINIMUM`` at +inf and ``MAXIMUM`` at -inf.  For row r in bin b = ``index[r]``, with
+    ``MINIMUM`` at +inf and ``MAXIMUM`` at -inf.  For row r in bin b (:func:`_bin`), with
     :math:`\\delta v = v - c_v`, :math:`\\delta t = t - c_t` (the shifts, units of the value
     and s), :math:`w = (1/\\sigma)^2` and unit vector (x, y, z) of (lon, lat):
 
@@ -144,7 +168,7 @@ def accumulate_rows(index, state, value, error, time, lon, lat, depth, cross, pa
     Returns True when every input was valid (finite; sigma and the partner's sigma > 0; lat
     within -90..90; |lon| below 2^50), else False and the sums are meaningless.
     """
-    n = len(index)
+    n = len(code)
     x = np.empty(BLOCK)
     y = np.empty(BLOCK)
     z = np.empty(BLOCK)
@@ -153,7 +177,7 @@ def accumulate_rows(index, state, value, error, time, lon, lat, depth, cross, pa
         stop = min(start + BLOCK, n)
         _unit_vectors_block(lon, lat, start, stop, x, y, z)
         for r in range(start, stop):
-            b = index[r]
+            b = _bin(code, renumber, r)
             v = value[r]
             dv = v - value_shift
             dt = time[r] - time_shift
@@ -236,7 +260,7 @@ def _one_pass(s1, s2, total, n, shift, ratio, moments, risky, b, column):
     risky[b, column] = (between > ratio * m2) and n > 1.0
 
 
-def two_pass_moments(index, value, error, state, count, moments, risky, varying_error):
+def two_pass_moments(code, renumber, value, error, state, count, moments, risky, varying_error):
     """Recompute mean and M2 of the risky bins by the corrected two-pass algorithm, in place.
 
     For a risky bin, :math:`f = \\sum x / n` (or :math:`\\sum w x / W`), :math:`e = x - f`,
@@ -245,10 +269,10 @@ def two_pass_moments(index, value, error, state, count, moments, risky, varying_
     over the rows, only the risky bins' rows add.
     """
     n_bins = state.shape[0]
-    n = len(index)
+    n = len(code)
     sums = np.zeros((n_bins, 6))  # raw, deviation, squared deviation; unweighted, weighted
     for r in range(n):
-        b = index[r]
+        b = _bin(code, renumber, r)
         if risky[b, 0]:
             sums[b, 0] += value[r]
         if risky[b, 1]:
@@ -260,7 +284,7 @@ def two_pass_moments(index, value, error, state, count, moments, risky, varying_
         if varying_error:
             first[b, 1] = sums[b, 3] / state[b, S_INVERSE_VARIANCE]
     for r in range(n):
-        b = index[r]
+        b = _bin(code, renumber, r)
         if risky[b, 0]:
             e = value[r] - first[b, 0]
             sums[b, 1] += e
@@ -281,7 +305,7 @@ def two_pass_moments(index, value, error, state, count, moments, risky, varying_
                     sums[b, 3 * column + 2] - s1 * s1 / total, 0.0)
 
 
-def depth_moments(index, depth, value, state, count, moments):
+def depth_moments(code, renumber, depth, value, state, count, moments):
     """Per bin the depth moments of :func:`obsprep.superobs.accumulate._depth_moments`.
 
     Returns (n_bins, 6), the columns in the order of :data:`OUTPUT_FIELDS`: mean depth (m), M2
@@ -300,8 +324,8 @@ def depth_moments(index, depth, value, state, count, moments):
     for b in range(n_bins):
         first[b] = state[b, S_DEPTH] / float(count[b])
     sums = np.zeros((n_bins, 7))  # P1..P4, V1, D, E
-    for r in range(len(index)):
-        b = index[r]
+    for r in range(len(code)):
+        b = _bin(code, renumber, r)
         d = depth[r] - first[b]
         v = value[r] - moments[b, 0]
         d2 = d * d
@@ -411,8 +435,13 @@ _cos_sin = cos_sin_degrees  # rebound to the compiled function by compiled()
 _OPTIONS = dict(nogil=True, error_model="numpy")
 
 #: the plain-Python functions compiled by :func:`compiled`, callees before their callers
-_KERNELS = ("cos_sin_degrees", "_unit_vectors_block", "_one_pass", "accumulate_rows",
+_KERNELS = ("cos_sin_degrees", "_bin", "_unit_vectors_block", "_one_pass",
+            "packed_code_and_count", "accumulate_rows",
             "value_moments", "two_pass_moments", "depth_moments", "group_state")
+
+
+#: inlined into their callers (the caller's loop vectorises, or the call costs more than it)
+_INLINED = ("cos_sin_degrees", "_bin")
 
 
 @functools.cache
@@ -428,8 +457,10 @@ def compiled():
     kernels = {}
     for name in _KERNELS:
         function = namespace[name]
+        # the sine and cosine are inlined into the loop that calls them (vectorised there)
+        options = dict(_OPTIONS, inline="always") if name in _INLINED else _OPTIONS
         try:
-            kernel = numba.njit(cache=cache, **_OPTIONS)(function)
+            kernel = numba.njit(cache=cache, **options)(function)
         except RuntimeError as exc:
             if "no locator available" not in str(exc):
                 raise
@@ -439,7 +470,7 @@ def compiled():
                           "accumulation kernels are compiled anew in each process",
                           RuntimeWarning, stacklevel=3)
             cache = False
-            kernel = numba.njit(cache=False, **_OPTIONS)(function)
+            kernel = numba.njit(cache=False, **options)(function)
         # callers compiled later find the compiled callee under the module-level name
         namespace["_cos_sin" if name == "cos_sin_degrees" else name] = kernel
         kernels[name.lstrip("_")] = kernel
