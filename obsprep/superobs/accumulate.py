@@ -1262,21 +1262,28 @@ def _compiled_state(bins, value, error, time, lon, lat, depth, cross_covariance,
     if not valid:
         return None
     count = bins.count
-    moments, risky = kernels.value_moments(state, count, value_shift, TWO_PASS_RATIO,
-                                           varying_error)
-    if risky.any():
+    # every array of n_bins or n rows is allocated here, by numpy, which asks for huge pages
+    moments = np.empty((n_bins, 4))
+    risky = np.empty((n_bins, 2), dtype=bool)
+    kernels.value_moments(state, count, value_shift, TWO_PASS_RATIO, varying_error, moments,
+                          risky)
+    risky_bins = risky[:, 0] | risky[:, 1]
+    if risky_bins.any():
+        rows = np.empty(int(count[risky_bins].sum()), dtype=np.int64)
         kernels.two_pass_moments(code, renumber, value, error, state, count, moments, risky,
-                                 varying_error)
+                                 rows)
+    depth_state = np.empty((n_bins, 6) if varying_depth else (1, 6))
     if varying_depth:
-        depth_state = kernels.depth_moments(code, renumber, depth, value, state, count, moments)
-    else:
-        depth_state = np.zeros((1, 6))
+        kernels.depth_moments(code, renumber, depth, value, state, count, moments,
+                              np.empty((n_bins, 8)), depth_state)
     keep = bins.keep if bins.keep is not None else np.zeros(0, dtype=np.intp)
     sigma = float(error[0])
     constant_depth = float(depth if depth.ndim == 0 else depth[0])
-    out = kernels.group_state(state, count, keep, moments, depth_state, time_shift,
-                              depth_shift, sigma, varying_error, varying_depth,
-                              constant_depth, has_cross)
+    n_groups = len(keep) if len(keep) else n_bins
+    out = _field_rows(len(bk.OUTPUT_FIELDS), n_groups)
+    kernels.group_state(state, count, keep, moments, depth_state, time_shift, depth_shift,
+                        sigma, varying_error, varying_depth, constant_depth, has_cross, out)
+    out = out[:, :n_groups]
     result = dict(zip(bk.OUTPUT_FIELDS, out))
     result["count"] = (count if bins.keep is None else count[bins.keep]).astype(np.int64,
                                                                               copy=False)
@@ -1313,10 +1320,11 @@ def _compiled_grouping(key_arrays, kernels) -> _RowBins:
     n_codes = math.prod(radices)
     varying = [position for position, radix in enumerate(radices) if radix > 1]
     if varying:  # a constant key adds nothing to the code (and may be a broadcast view)
-        code, count = kernels.packed_code_and_count(
+        code, count = np.empty(n, dtype=np.int64), np.zeros(n_codes, dtype=np.int64)
+        kernels.packed_code_and_count(
             tuple(np.ascontiguousarray(key_arrays[p]) for p in varying),
             np.array([lows[p] for p in varying], dtype=np.int64),
-            np.array([radices[p] for p in varying], dtype=np.int64), n_codes)
+            np.array([radices[p] for p in varying], dtype=np.int64), code, count)
     else:
         code, count = np.zeros(n, dtype=np.int64), np.array([n], dtype=np.int64)
     occupied, group_keys, dense = _occupied_codes(count, lows, radices)
@@ -1325,6 +1333,16 @@ def _compiled_grouping(key_arrays, kernels) -> _RowBins:
         return _RowBins(code, no_renumbering, n_codes, count, keep, group_keys)
     return _RowBins(code, _renumbering(occupied, n_codes), len(occupied), count[occupied], None,
                     group_keys)
+
+
+def _field_rows(n_fields, n_groups):
+    """An empty float64 array (n_fields, >= n_groups) for one field per row, written a column
+    (group) at a time: its rows are padded so that they start 17 cache lines apart modulo
+    4096 bytes; rows a multiple of 4096 bytes long would all fall into the same set of the
+    processor cache (a grid of 800 x 880 x 4 cells is such a length) and evict each other."""
+    row_bytes = 8 * n_groups
+    pad = ((17 * 64 - row_bytes % 4096) % 4096) // 8
+    return np.empty((n_fields, n_groups + pad))
 
 
 def _aligned_zeros(rows, columns):

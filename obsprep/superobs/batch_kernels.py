@@ -109,24 +109,23 @@ def cos_sin_degrees(angle):
     return cos_a * cos_sign, sin_a * sin_sign
 
 
-def packed_code_and_count(keys, lows, radices, n_codes):
+def packed_code_and_count(keys, lows, radices, code, count):
     """The mixed-radix code of every row and the rows per code, one pass over the rows.
 
     ``keys`` a tuple of int64 arrays (the keys that vary, first most significant), ``lows`` and
     ``radices`` their smallest value and range (max - min + 1):
     :math:`c = (\\ldots((k_1 - l_1) R_2 + (k_2 - l_2)) R_3 + \\ldots) + (k_m - l_m)`, in
-    0..n_codes-1 (n_codes the product of the radices).  Returns ``(code, count)``, int64.
+    0..n_codes-1 (n_codes the product of the radices).  Fills ``code`` (n,) and adds to
+    ``count`` (n_codes,), both int64 (allocated by numpy, which asks for huge pages: page faults
+    of fresh memory would otherwise cost as much as the loop).
     """
     n = len(keys[0])
-    code = np.empty(n, dtype=np.int64)
-    count = np.zeros(n_codes, dtype=np.int64)
     for r in range(n):
         c = 0
         for position in range(len(keys)):
             c = c * radices[position] + (keys[position][r] - lows[position])
         code[r] = c
         count[c] += 1
-    return code, count
 
 
 def _bin(code, renumber, r):
@@ -227,10 +226,10 @@ def accumulate_rows(code, renumber, state, value, error, time, lon, lat, depth, 
     return valid
 
 
-def value_moments(state, count, value_shift, ratio, varying_error):
+def value_moments(state, count, value_shift, ratio, varying_error, moments, risky):
     """Per bin, the mean and M2 of the values from the shifted sums, and where they are risky.
 
-    Returns ``moments`` (n_bins, 4): mean, M2, weighted mean, weighted M2, and ``risky``
+    Fills ``moments`` (n_bins, 4): mean, M2, weighted mean, weighted M2, and ``risky``
     (n_bins, 2) bool: where the one-pass form loses too many digits (unweighted, weighted).
     With :math:`S_1 = \\sum \\delta v`, :math:`S_2 = \\sum \\delta v^2` and total n (or
     :math:`W = \\sum w`, :math:`S_1 = \\sum w \\delta v`, :math:`S_2 = \\sum w \\delta v^2`):
@@ -238,16 +237,14 @@ def value_moments(state, count, value_shift, ratio, varying_error):
     where :math:`S_1 (S_1/n) > \\text{ratio}\\, M_2` and n > 1.  Empty bins give NaN.
     """
     n_bins = state.shape[0]
-    moments = np.empty((n_bins, 4))
-    risky = np.zeros((n_bins, 2), dtype=np.bool_)
     for b in range(n_bins):
         n = float(count[b])
+        risky[b, 1] = False
         _one_pass(state[b, S_DEVIATION], state[b, S_DEVIATION_SQUARED], n, n, value_shift,
                   ratio, moments, risky, b, 0)
         if varying_error:
             _one_pass(state[b, S_W_DEVIATION], state[b, S_W_DEVIATION_SQUARED],
                       state[b, S_INVERSE_VARIANCE], n, value_shift, ratio, moments, risky, b, 1)
-    return moments, risky
 
 
 def _one_pass(s1, s2, total, n, shift, ratio, moments, risky, b, column):
@@ -260,56 +257,72 @@ def _one_pass(s1, s2, total, n, shift, ratio, moments, risky, b, column):
     risky[b, column] = (between > ratio * m2) and n > 1.0
 
 
-def two_pass_moments(code, renumber, value, error, state, count, moments, risky, varying_error):
+#: columns of ``state`` that :func:`two_pass_moments` uses (free once the moments are taken):
+#: raw sum, sum of deviations, sum of squared deviations; unweighted, then weighted
+_TWO_PASS_COLUMNS = ((22, S_DEVIATION, S_DEVIATION_SQUARED),
+                     (23, S_W_DEVIATION, S_W_DEVIATION_SQUARED))
+
+
+def two_pass_moments(code, renumber, value, error, state, count, moments, risky, rows):
     """Recompute mean and M2 of the risky bins by the corrected two-pass algorithm, in place.
 
     For a risky bin, :math:`f = \\sum x / n` (or :math:`\\sum w x / W`), :math:`e = x - f`,
     :math:`\\bar x = f + \\sum e / n`, :math:`M_2 = \\max(\\sum e^2 - (\\sum e)^2 / n, 0)`
-    (weighted: :math:`\\sum w e` and :math:`\\sum (w e) e` with W; [Chan1983]); two passes
-    over the rows, only the risky bins' rows add.
+    (weighted: :math:`\\sum w e` and :math:`\\sum (w e) e` with W; [Chan1983]).  One pass
+    over all rows finds the risky bins' rows (into ``rows``, int64, as many as they have), two
+    over those rows add.  Scratch sums in the free columns of ``state``.
     """
     n_bins = state.shape[0]
-    n = len(code)
-    sums = np.zeros((n_bins, 6))  # raw, deviation, squared deviation; unweighted, weighted
-    for r in range(n):
-        b = _bin(code, renumber, r)
-        if risky[b, 0]:
-            sums[b, 0] += value[r]
-        if risky[b, 1]:
-            inverse_sigma = 1.0 / error[r]
-            sums[b, 3] += inverse_sigma * inverse_sigma * value[r]
-    first = np.empty((n_bins, 2))
-    for b in range(n_bins):
-        first[b, 0] = sums[b, 0] / float(count[b])
-        if varying_error:
-            first[b, 1] = sums[b, 3] / state[b, S_INVERSE_VARIANCE]
-    for r in range(n):
-        b = _bin(code, renumber, r)
-        if risky[b, 0]:
-            e = value[r] - first[b, 0]
-            sums[b, 1] += e
-            sums[b, 2] += e * e
-        if risky[b, 1]:
-            inverse_sigma = 1.0 / error[r]
-            e = value[r] - first[b, 1]
-            weighted = inverse_sigma * inverse_sigma * e
-            sums[b, 4] += weighted
-            sums[b, 5] += weighted * e
     for b in range(n_bins):
         for column in range(2):
             if risky[b, column]:
+                for scratch in _TWO_PASS_COLUMNS[column]:
+                    state[b, scratch] = 0.0
+    found = 0
+    for r in range(len(code)):
+        b = _bin(code, renumber, r)
+        if risky[b, 0] or risky[b, 1]:
+            rows[found] = r
+            found += 1
+    for r in rows[:found]:
+        b = _bin(code, renumber, r)
+        if risky[b, 0]:
+            state[b, 22] += value[r]
+        if risky[b, 1]:
+            inverse_sigma = 1.0 / error[r]
+            state[b, 23] += inverse_sigma * inverse_sigma * value[r]
+    for b in range(n_bins):  # raw sums -> first-pass means
+        if risky[b, 0]:
+            state[b, 22] = state[b, 22] / float(count[b])
+        if risky[b, 1]:
+            state[b, 23] = state[b, 23] / state[b, S_INVERSE_VARIANCE]
+    for r in rows[:found]:
+        b = _bin(code, renumber, r)
+        if risky[b, 0]:
+            e = value[r] - state[b, 22]
+            state[b, S_DEVIATION] += e
+            state[b, S_DEVIATION_SQUARED] += e * e
+        if risky[b, 1]:
+            inverse_sigma = 1.0 / error[r]
+            e = value[r] - state[b, 23]
+            weighted = inverse_sigma * inverse_sigma * e
+            state[b, S_W_DEVIATION] += weighted
+            state[b, S_W_DEVIATION_SQUARED] += weighted * e
+    for b in range(n_bins):
+        for column in range(2):
+            if risky[b, column]:
+                first_column, s1_column, s2_column = _TWO_PASS_COLUMNS[column]
                 total = float(count[b]) if column == 0 else state[b, S_INVERSE_VARIANCE]
-                s1 = sums[b, 3 * column + 1]
-                moments[b, 2 * column] = first[b, column] + s1 / total
-                moments[b, 2 * column + 1] = max(
-                    sums[b, 3 * column + 2] - s1 * s1 / total, 0.0)
+                s1 = state[b, s1_column]
+                moments[b, 2 * column] = state[b, first_column] + s1 / total
+                moments[b, 2 * column + 1] = max(state[b, s2_column] - s1 * s1 / total, 0.0)
 
 
-def depth_moments(code, renumber, depth, value, state, count, moments):
+def depth_moments(code, renumber, depth, value, state, count, moments, sums, out):
     """Per bin the depth moments of :func:`obsprep.superobs.accumulate._depth_moments`.
 
-    Returns (n_bins, 6), the columns in the order of :data:`OUTPUT_FIELDS`: mean depth (m), M2
-    (m^2), the co-moment :math:`C_2 = \\sum (d - \\bar d)(v - \\bar v)`, M3, M4 (m^3, m^4) and
+    Fills ``out`` (n_bins, 6), the columns in the order of :data:`OUTPUT_FIELDS`: mean depth
+    (m), M2 (m^2), the co-moment :math:`C_2 = \\sum (d - \\bar d)(v - \\bar v)`, M3, M4 (m^3, m^4) and
     :math:`C_3 = \\sum (d - \\bar d)^2 (v - \\bar v)`.
     With the first-pass mean :math:`d_f = \\sum d / n`, :math:`P_p = \\sum (d - d_f)^p`,
     :math:`s = P_1 / n`: :math:`\\bar d = d_f + s`, :math:`M_2 = \\max(P_2 - n s^2, 0)`,
@@ -317,13 +330,14 @@ def depth_moments(code, renumber, depth, value, state, count, moments):
     s^4, 0)`, and with :math:`V_1 = \\sum (v - \\bar v)`, :math:`D = \\sum (d - d_f)(v - \\bar v)`,
     :math:`E = \\sum (d - d_f)^2 (v - \\bar v)`: :math:`C_2 = D - s V_1`,
     :math:`C_3 = E - 2 s D + s^2 V_1` (the binomial theorem; [Chan1983] carried to higher
-    moments).
+    moments).  ``sums`` (n_bins, 8) is scratch.
     """
     n_bins = state.shape[0]
-    first = np.empty(n_bins)
+    first = sums[:, 7]
     for b in range(n_bins):
         first[b] = state[b, S_DEPTH] / float(count[b])
-    sums = np.zeros((n_bins, 7))  # P1..P4, V1, D, E
+        for column in range(7):
+            sums[b, column] = 0.0  # P1..P4, V1, D, E
     for r in range(len(code)):
         b = _bin(code, renumber, r)
         d = depth[r] - first[b]
@@ -336,7 +350,6 @@ def depth_moments(code, renumber, depth, value, state, count, moments):
         sums[b, 4] += v
         sums[b, 5] += d * v
         sums[b, 6] += d2 * v
-    out = np.empty((n_bins, 6))
     for b in range(n_bins):
         n = float(count[b])
         shift = sums[b, 0] / n
@@ -349,7 +362,6 @@ def depth_moments(code, renumber, depth, value, state, count, moments):
         out[b, 4] = max(p4 - 4.0 * shift * p3 + 6.0 * (shift * shift) * p2
                         - 3.0 * n * math.pow(shift, 4.0), 0.0)
         out[b, 5] = d2v - 2.0 * shift * dv + (shift * shift) * sum_v
-    return out
 
 
 #: rows of the output of :func:`group_state`, in this order
@@ -363,8 +375,9 @@ OUTPUT_FIELDS = ("value_mean", "value_m2", "value_min", "value_max", "weighted_m
 
 
 def group_state(state, count, keep, moments, depth, time_shift, depth_shift, sigma,
-                varying_error, varying_depth, constant_depth, has_cross):
-    """The per-group state fields (:data:`OUTPUT_FIELDS`, one row each) of the occupied bins.
+                varying_error, varying_depth, constant_depth, has_cross, out):
+    """The per-group state fields (:data:`OUTPUT_FIELDS`, one row each of ``out``, shape
+    (len(OUTPUT_FIELDS), n_groups)) of the occupied bins.
 
     ``keep``: the occupied bins in group order (empty: bin g is group g).  Means are
     shift + sum of deviations / total (time: :math:`c_t + \\sum \\delta t / n`, weighted
@@ -376,7 +389,6 @@ def group_state(state, count, keep, moments, depth, time_shift, depth_shift, sig
     ``varying_depth``) the mean depth is ``constant_depth`` and the depth moments 0.
     """
     n_groups = len(keep) if len(keep) else state.shape[0]
-    out = np.zeros((len(OUTPUT_FIELDS), n_groups))
     weight = 1.0 / (sigma * sigma)
     for g in range(n_groups):
         b = keep[g] if len(keep) else g
@@ -395,6 +407,8 @@ def group_state(state, count, keep, moments, depth, time_shift, depth_shift, sig
                 out[13 + column, g] = depth[b, column]
         else:
             out[13, g] = constant_depth
+            for column in range(1, 6):
+                out[13 + column, g] = 0.0
         if varying_error:
             total = state[b, S_INVERSE_VARIANCE]
             out[4, g] = moments[b, 2]
@@ -421,10 +435,8 @@ def group_state(state, count, keep, moments, depth, time_shift, depth_shift, sig
             out[22, g] = state[b, S_X] * weight
             out[23, g] = state[b, S_Y] * weight
             out[24, g] = state[b, S_Z] * weight
-        if has_cross:
-            out[25, g] = state[b, S_CROSS]
-            out[26, g] = state[b, S_W_CROSS]
-    return out
+        out[25, g] = state[b, S_CROSS] if has_cross else 0.0
+        out[26, g] = state[b, S_W_CROSS] if has_cross else 0.0
 
 
 # --------------------------------------------------------------------------------------------
