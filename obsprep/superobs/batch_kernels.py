@@ -62,6 +62,10 @@ S_W_CROSS = 21           #: sum cross / (sigma sigma_partner)^2
 
 #: rows whose unit vectors are evaluated together (a block stays in the processor cache)
 BLOCK = 1024
+#: rows ahead whose bin's sums are fetched into the cache (:func:`_prefetch`): rows in random
+#: bins then wait for memory together instead of one after the other (measured here: five times
+#: faster for 20 M rows in 2.8 M random bins; 8 to 64 rows ahead all do about as well)
+PREFETCH_ROWS = 16
 
 _HALF_CIRCLE = 180.0
 _RADIANS_PER_DEGREE = math.pi / 180.0
@@ -133,6 +137,11 @@ def _bin(code, renumber, r):
     return renumber[code[r]] if len(renumber) else code[r]
 
 
+def _prefetch(array, index):
+    """Ask the processor to fetch the cache line of ``array.flat[index]`` for writing, without
+    waiting for it.  A no-op here; :func:`compiled` puts the compiled intrinsic in its place."""
+
+
 def _unit_vectors_block(lon, lat, start, stop, x, y, z):
     """x, y, z[0:stop-start] = the unit vectors cos(lat) cos(lon), cos(lat) sin(lon), sin(lat)
     of rows start..stop-1 (degrees in, dimensionless out)."""
@@ -168,6 +177,7 @@ def accumulate_rows(code, renumber, state, value, error, time, lon, lat, depth, 
     within -90..90; |lon| below 2^50), else False and the sums are meaningless.
     """
     n = len(code)
+    flat_state = state.reshape(-1)
     x = np.empty(BLOCK)
     y = np.empty(BLOCK)
     z = np.empty(BLOCK)
@@ -176,6 +186,11 @@ def accumulate_rows(code, renumber, state, value, error, time, lon, lat, depth, 
         stop = min(start + BLOCK, n)
         _unit_vectors_block(lon, lat, start, stop, x, y, z)
         for r in range(start, stop):
+            if r + PREFETCH_ROWS < n:
+                ahead = _bin(code, renumber, r + PREFETCH_ROWS) * STRIDE
+                _prefetch(flat_state, ahead)
+                _prefetch(flat_state, ahead + 8)
+                _prefetch(flat_state, ahead + 16)
             b = _bin(code, renumber, r)
             v = value[r]
             dv = v - value_shift
@@ -338,7 +353,11 @@ def depth_moments(code, renumber, depth, value, state, count, moments, sums, out
         first[b] = state[b, S_DEPTH] / float(count[b])
         for column in range(7):
             sums[b, column] = 0.0  # P1..P4, V1, D, E
-    for r in range(len(code)):
+    flat_sums = sums.reshape(-1)
+    n = len(code)
+    for r in range(n):
+        if r + PREFETCH_ROWS < n:
+            _prefetch(flat_sums, _bin(code, renumber, r + PREFETCH_ROWS) * 8)
         b = _bin(code, renumber, r)
         d = depth[r] - first[b]
         v = value[r] - moments[b, 0]
@@ -456,6 +475,31 @@ _KERNELS = ("cos_sin_degrees", "_bin", "_unit_vectors_block", "_one_pass",
 _INLINED = ("cos_sin_degrees", "_bin")
 
 
+def _prefetch_intrinsic(numba):
+    """:func:`_prefetch` as a numba intrinsic: LLVM's ``llvm.prefetch`` (write, keep in all
+    cache levels, data) of the address of element ``index`` of a contiguous 1-D array."""
+    from llvmlite import ir
+    from numba.core import cgutils
+    from numba.extending import intrinsic
+
+    @intrinsic
+    def prefetch(typing_context, array, index):
+        def codegen(context, builder, signature, arguments):
+            data = context.make_array(signature.args[0])(context, builder, arguments[0]).data
+            byte_pointer = ir.IntType(8).as_pointer()
+            i32 = ir.IntType(32)
+            function = cgutils.get_or_insert_function(
+                builder.module, ir.FunctionType(ir.VoidType(), [byte_pointer, i32, i32, i32]),
+                "llvm.prefetch.p0i8")
+            address = builder.bitcast(builder.gep(data, [arguments[1]]), byte_pointer)
+            builder.call(function, [address, i32(1), i32(3), i32(1)])
+            return context.get_dummy_value()
+
+        return numba.types.void(array, index), codegen
+
+    return prefetch
+
+
 @functools.cache
 def compiled():
     """The compiled kernels (built, or loaded from numba's on-disk cache, on first call):
@@ -466,6 +510,7 @@ def compiled():
 
     cache = True
     namespace = globals()
+    namespace["_prefetch"] = _prefetch_intrinsic(numba)
     kernels = {}
     for name in _KERNELS:
         function = namespace[name]
