@@ -1271,7 +1271,7 @@ def _compiled_state(bins, value, error, time, lon, lat, depth, cross_covariance,
     if risky_bins.any():
         rows = np.empty(int(count[risky_bins].sum()), dtype=np.int64)
         kernels.two_pass_moments(code, renumber, value, error, state, count, moments, risky,
-                                 rows)
+                                 risky_bins, rows)
     depth_state = np.empty((n_bins, 6) if varying_depth else (1, 6))
     if varying_depth:
         kernels.depth_moments(code, renumber, depth, value, state, count, moments,

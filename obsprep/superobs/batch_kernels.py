@@ -278,14 +278,15 @@ _TWO_PASS_COLUMNS = ((22, S_DEVIATION, S_DEVIATION_SQUARED),
                      (23, S_W_DEVIATION, S_W_DEVIATION_SQUARED))
 
 
-def two_pass_moments(code, renumber, value, error, state, count, moments, risky, rows):
+def two_pass_moments(code, renumber, value, error, state, count, moments, risky, risky_bin,
+                     rows):
     """Recompute mean and M2 of the risky bins by the corrected two-pass algorithm, in place.
 
     For a risky bin, :math:`f = \\sum x / n` (or :math:`\\sum w x / W`), :math:`e = x - f`,
     :math:`\\bar x = f + \\sum e / n`, :math:`M_2 = \\max(\\sum e^2 - (\\sum e)^2 / n, 0)`
     (weighted: :math:`\\sum w e` and :math:`\\sum (w e) e` with W; [Chan1983]).  One pass
-    over all rows finds the risky bins' rows (into ``rows``, int64, as many as they have), two
-    over those rows add.  Scratch sums in the free columns of ``state``.
+    over all rows finds the rows of the risky bins (``risky_bin``: bool per bin, either column of
+    ``risky``) into ``rows`` (int64, as many as they have), two over those rows add.  Scratch sums in the free columns of ``state``.
     """
     n_bins = state.shape[0]
     for b in range(n_bins):
@@ -295,8 +296,7 @@ def two_pass_moments(code, renumber, value, error, state, count, moments, risky,
                     state[b, scratch] = 0.0
     found = 0
     for r in range(len(code)):
-        b = _bin(code, renumber, r)
-        if risky[b, 0] or risky[b, 1]:
+        if risky_bin[_bin(code, renumber, r)]:
             rows[found] = r
             found += 1
     for r in rows[:found]:
