@@ -23,6 +23,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import resource
 import statistics
 import subprocess
 import sys
@@ -47,6 +48,7 @@ started = time.perf_counter()
 import numpy as np
 from obsprep.superobs.accumulate import Accumulator
 imported = time.perf_counter()
+cpu_before = time.process_time()
 import numba
 numba_imported = time.perf_counter()
 Accumulator.from_observations({"i": np.array([0, 1, 1])}, np.array([1.0, 2.0, 4.0]),
@@ -54,7 +56,8 @@ Accumulator.from_observations({"i": np.array([0, 1, 1])}, np.array([1.0, 2.0, 4.
                               np.zeros(3), np.zeros(3), np.array([0.0, 1.0, 2.0]))
 called = time.perf_counter()
 print(json.dumps(dict(obsprep_import=imported - started, numba_import=numba_imported - imported,
-                      first_call=called - numba_imported)))
+                      first_call=called - numba_imported,
+                      overhead_cpu=time.process_time() - cpu_before)))
 """
 
 
@@ -65,14 +68,24 @@ def fresh_process(cache_dir):
     return json.loads(result.stdout.splitlines()[-1])
 
 
+def _cpu_seconds():
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_utime + usage.ru_stime
+
+
 def interleaved(functions, repeats):
-    times = {name: [] for name in functions}
+    """Median wall seconds and median processor seconds (user + system: what this process
+    itself spent, less sensitive to other processes on a busy machine) of each function."""
+    wall = {name: [] for name in functions}
+    cpu = {name: [] for name in functions}
     for _ in range(repeats):
         for name, function in functions.items():
-            started = time.perf_counter()
+            started, cpu_started = time.perf_counter(), _cpu_seconds()
             function()
-            times[name].append(time.perf_counter() - started)
-    return {name: statistics.median(values) for name, values in times.items()}
+            wall[name].append(time.perf_counter() - started)
+            cpu[name].append(_cpu_seconds() - cpu_started)
+    return ({name: statistics.median(values) for name, values in wall.items()},
+            {name: statistics.median(values) for name, values in cpu.items()})
 
 
 def random_cells(n):
@@ -121,7 +134,9 @@ def main():
           f"{median(r['obsprep_import'] for r in warm):.3f} s, numba "
           f"{median(r['numba_import'] for r in warm):.3f} s; first call, filled cache (warm) "
           f"{median(r['first_call'] for r in warm):.3f} s, empty cache (cold, compiles) "
-          f"{median(r['first_call'] for r in cold):.3f} s")
+          f"{median(r['first_call'] for r in cold):.3f} s; warm overhead (numba import + first "
+          f"call) {median(r['numba_import'] + r['first_call'] for r in warm):.3f} s wall, "
+          f"{median(r['overhead_cpu'] for r in warm):.3f} s processor")
 
     random_cell_row(n, options)
     swath_row(n, options)
@@ -155,10 +170,12 @@ def random_cell_row(n, options):
                  "compiled + finalize": compiled_finalize_run}
     if not options.skip_reference:
         functions["numpy reference"] = reference_run
-    seconds = interleaved(functions, options.repeats)
-    print(f"random cells, {n:,} observations in 800 x 880 x 4 cells, full state:")
+    seconds, cpu = interleaved(functions, options.repeats)
+    print(f"random cells, {n:,} observations in 800 x 880 x 4 cells, full state "
+          f"(wall; processor):")
     for name, value_s in seconds.items():
-        print(f"  {name:22s} {value_s:7.3f} s   pandas / this = {seconds['pandas'] / value_s:5.2f}")
+        print(f"  {name:22s} {value_s:7.3f} s   pandas / this = {seconds['pandas'] / value_s:5.2f};"
+              f"   {cpu[name]:7.3f} s   pandas / this = {cpu['pandas'] / cpu[name]:5.2f}")
 
 
 
@@ -175,10 +192,11 @@ def swath_row(n, options):
     functions = {"compiled": swath_compiled}
     if not options.skip_reference:
         functions["numpy reference"] = swath_reference
-    seconds = interleaved(functions, options.repeats)
-    print(f"swath order, {n:,} observations:")
+    seconds, cpu = interleaved(functions, options.repeats)
+    print(f"swath order, {n:,} observations (wall; processor):")
     for name, value_s in seconds.items():
-        print(f"  {name:22s} {value_s:7.3f} s   {n / value_s / 1e6:6.1f} M observations/s")
+        print(f"  {name:22s} {value_s:7.3f} s   {n / value_s / 1e6:6.1f} M observations/s;"
+              f"   {cpu[name]:7.3f} s   {n / cpu[name] / 1e6:6.1f} M observations/s")
 
 
 if __name__ == "__main__":

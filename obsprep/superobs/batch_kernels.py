@@ -186,6 +186,8 @@ def accumulate_rows(code, renumber, state, value, error, time, lon, lat, depth, 
         stop = min(start + BLOCK, n)
         _unit_vectors_block(lon, lat, start, stop, x, y, z)
         for r in range(start, stop):
+            if len(renumber) and r + 2 * PREFETCH_ROWS < n:
+                _prefetch(renumber, code[r + 2 * PREFETCH_ROWS])  # the bin needed next
             if r + PREFETCH_ROWS < n:
                 ahead = _bin(code, renumber, r + PREFETCH_ROWS) * STRIDE
                 _prefetch(flat_state, ahead)
@@ -295,7 +297,10 @@ def two_pass_moments(code, renumber, value, error, state, count, moments, risky,
                 for scratch in _TWO_PASS_COLUMNS[column]:
                     state[b, scratch] = 0.0
     found = 0
-    for r in range(len(code)):
+    n = len(code)
+    for r in range(n):
+        if len(renumber) and r + PREFETCH_ROWS < n:
+            _prefetch(renumber, code[r + PREFETCH_ROWS])
         if risky_bin[_bin(code, renumber, r)]:
             rows[found] = r
             found += 1
