@@ -35,6 +35,11 @@ indexes the bins, so every per-group sum is one ``np.bincount`` and minima/maxim
 ``np.minimum.at``/``np.maximum.at``.  Otherwise (wide or sparse keys) the codes are sorted once
 (or sorted lexicographically when they do not fit in int64).  No Python loop runs over
 observations or groups; memory is O(n) per batch.
+
+The sums of a batch are taken by compiled kernels (:mod:`obsprep.superobs.batch_kernels`): the
+packed code and the rows per code in one pass, then every sum of a row's bin in one pass, with
+a bin's sums contiguous in memory.  Their arithmetic is that of the numpy computation here
+(:func:`_reference_state`, one ``np.bincount`` per sum), which is kept as the reference.
 """
 
 from __future__ import annotations
