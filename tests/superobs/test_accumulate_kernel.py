@@ -367,3 +367,34 @@ def test_no_writable_kernel_cache_warns_once_and_still_computes(
     assert run["mean"] == [1.0, 3.0]
     assert len(run["warnings"]) == 1 and "no writable cache directory for numba" in run["warnings"][0]
     assert run["hits"] == 0
+
+
+# --- a whole build ------------------------------------------------------------------------------
+
+def test_demo_build_is_the_same_with_the_numpy_path(tmp_path, monkeypatch):
+    # Reference: the same demo built with the numpy path (the kernels' entry returns None, the
+    # answer for input they leave to numpy).  Super-observations equal within 1e-12 relative
+    # (lon and lat: the unit-vector sums differ in the last places), counts, keys, times and the
+    # ledger identical.
+    from obsprep.demo import write_demo
+    from obsprep.run.build import build
+    from obsprep.superobs import accumulate
+
+    paths = write_demo(tmp_path / "demo", scale=0.1)
+    compiled = build(paths["config"], out=tmp_path / "compiled")
+    batches = []
+    monkeypatch.setattr(accumulate, "_compiled_state", lambda *arguments: batches.append(1))
+    reference = build(paths["config"], out=tmp_path / "reference")
+    assert batches  # the numpy path did run
+    a, b = compiled.superobs, reference.superobs
+    assert list(a.columns) == list(b.columns) and len(a) == len(b) > 1000
+    for column in a.columns:
+        x, y = a[column].to_numpy(), b[column].to_numpy()
+        if x.dtype.kind == "f":
+            np.testing.assert_allclose(x, y, rtol=1e-12, atol=0, equal_nan=True, err_msg=column)
+        elif x.dtype.kind == "M":
+            np.testing.assert_array_equal(x.astype(np.int64), y.astype(np.int64), err_msg=column)
+        else:
+            np.testing.assert_array_equal(x, y, err_msg=column)
+    assert ([(e.file, e.status, e.read, e.kept, e.rejected) for e in compiled.ledger.entries]
+            == [(e.file, e.status, e.read, e.kept, e.rejected) for e in reference.ledger.entries])
