@@ -62,7 +62,8 @@ def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dat
     check_declared_sizes(path, size)
     try:
         ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=not profile,
-                             decode_times=False, decode_timedelta=False, decode_coords=False)
+                             decode_times=False, decode_timedelta=False, decode_coords=False,
+                             create_default_indexes=False)
     except MemoryError as exc:
         raise out_of_memory(path) from exc
     except (OSError, RuntimeError, ValueError, KeyError, IndexError) as exc:
