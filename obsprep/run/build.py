@@ -25,7 +25,7 @@ from obsprep.geo.grid.base import CLASSIFY_REASONS
 from obsprep.model.quantities import QUANTITIES, QUANTITY_NAMES
 from obsprep.model.table import WARNINGS, kept, reject
 from obsprep.qc import find_duplicates, grid_checks, table_checks
-from obsprep.readers import read, read_parts
+from obsprep.readers import read_each_part
 from obsprep.readers.cf import NOT_IN_TABLE, out_of_memory
 from obsprep.run.execution import FixedTreeReducer, run_tasks
 from obsprep.run.ledger import NO_FILES, UNREADABLE, Ledger, LedgerEntry, entry_from_table, rejected_counts
@@ -154,19 +154,17 @@ def read_file_parts(source, path: str):
     """The observation tables of one file of ``source``, one per part, in order (a generator).
 
     A file bigger than :data:`READ_PART_VALUES` values per variable is read in parts along
-    its reader's slice dimension (:func:`obsprep.readers.read_parts`); rows the reader
+    its reader's slice dimension (:func:`obsprep.readers.read_each_part`); rows the reader
     rejects are left out and counted (``leave_out_rejected``).  Raises
     :class:`~obsprep.exceptions.InputFileError` (or ``MemoryError``) for a file, or a part,
     that cannot be read.
     """
     if not os.path.exists(path):
         raise InputFileError(path, "file not found")
-    parts = read_parts(path, kind=source.kind, reader_profile=source.reader,
-                       max_values=READ_PART_VALUES)
-    for part in parts:
-        yield read(path, kind=source.kind, reader_profile=source.reader,
-                   leave_out_rejected=True, row_slice=part, sensor=source.sensor,
-                   **source.options)
+    # one opening of the file for the slicing and every part (read_each_part)
+    yield from read_each_part(path, kind=source.kind, reader_profile=source.reader,
+                              max_values=READ_PART_VALUES, leave_out_rejected=True,
+                              sensor=source.sensor, **source.options)
 
 
 def read_task_parts(task: FileTask):

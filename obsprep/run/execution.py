@@ -286,9 +286,9 @@ def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, 
                 _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),
                          reducer, outcome, bar)
         elif read_ahead is not None and to_run:
-            files = FilesReadAhead(read_ahead, to_run)
+            # the reading thread holds the file lock while it reads, as run_one_task would
+            files = FilesReadAhead(read_ahead, to_run, lock=_FILE_LOCK)
             try:
-                # the reading thread is the only one that calls the netCDF library meanwhile
                 ran = (process(cfg, grid, t.source, t.path, t.file_index, sensor_names, strict,
                                parts=files.parts_of(t)) for t in to_run)
                 _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)

@@ -13,6 +13,7 @@ library is not thread-safe); the consumer must not read files itself meanwhile.
 
 from __future__ import annotations
 
+import contextlib
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -25,11 +26,19 @@ def read_ahead(items: Iterable) -> Iterator:
     caller works on the current one (at most one item ahead).
 
     An exception raised while computing an item is raised here, to the caller, when that item
-    is asked for; nothing after it is computed.
+    is asked for; nothing after it is computed.  The first item is computed in the caller's
+    thread (there is nothing to overlap it with).
     """
     iterator = iter(items)
+    # the first item is waited for anyway: computed here (a file of one part is then read in
+    # the caller's thread, as without reading ahead)
+    item = next(iterator, _END)
+    if item is _END:
+        return
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="obsprep-read-ahead") as pool:
         pending = pool.submit(next, iterator, _END)
+        yield item
+        item = None
         while True:
             item = pending.result()
             if item is _END:
@@ -50,18 +59,25 @@ class FilesReadAhead:
     """The parts of a list of files, read one part ahead across file boundaries.
 
     ``read(task)`` gives the parts of one task's file (an iterator; an exception it raises
-    concerns that file only).  :meth:`parts_of` hands out the parts of each task in turn; call
-    it for the tasks in the order given, each once.
+    concerns that file only).  ``lock``, when given, is held while each part is read (the
+    lock that keeps other threads of the process out of the netCDF library meanwhile).
+    :meth:`parts_of` hands out the parts of each task in turn; call it for the tasks in the
+    order given, each once.
     """
 
-    def __init__(self, read: Callable[[object], Iterable], tasks: Iterable):
+    def __init__(self, read: Callable[[object], Iterable], tasks: Iterable, lock=None):
+        self._lock = contextlib.nullcontext() if lock is None else lock
         self._stream = read_ahead(self._all_parts(read, list(tasks)))
 
-    @staticmethod
-    def _all_parts(read, tasks):
+    def _all_parts(self, read, tasks):
         for task in tasks:
             try:
-                for part in read(task):
+                parts = iter(read(task))
+                while True:
+                    with self._lock:  # held while the netCDF library reads this part
+                        part = next(parts, _END)
+                    if part is _END:
+                        break
                     yield task, part
             except Exception as exc:  # noqa: BLE001 - this file's failure, raised to its consumer
                 yield task, _Failed(exc)

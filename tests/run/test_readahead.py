@@ -15,12 +15,12 @@ class CountingItems:
     """An iterator of 0..n-1 that records how far it was advanced and in which thread."""
 
     def __init__(self, n):
-        self.n, self.produced, self.threads = n, 0, set()
+        self.n, self.produced, self.threads = n, 0, []
 
     def __iter__(self):
         for k in range(self.n):
             self.produced += 1
-            self.threads.add(threading.get_ident())
+            self.threads.append(threading.get_ident())
             yield k
 
 
@@ -32,7 +32,9 @@ def test_items_come_in_order_and_at_most_one_ahead():
         assert items.produced <= item + 2
         seen.append(item)
     assert seen == list(range(6))
-    assert threading.get_ident() not in items.threads  # produced in the background thread
+    # the first in the caller's thread (nothing to overlap it with), the others in another
+    assert items.threads[0] == threading.get_ident()
+    assert threading.get_ident() not in items.threads[1:]
 
 
 def test_an_exception_reaches_the_consumer_at_its_place():
@@ -77,3 +79,19 @@ def test_parts_a_consumer_leaves_are_skipped():
     assert next(first) == "a-0"  # the consumer stops after one part (an error, say)
     assert list(files.parts_of("b")) == ["b-0", "b-1", "b-2"]
     files.close()
+
+
+def test_the_lock_is_held_while_each_part_is_read():
+    lock = threading.Lock()
+    held = []
+
+    def read(task):
+        for k in range(2):
+            held.append(lock.locked())
+            yield f"{task}-{k}"
+
+    files = FilesReadAhead(read, ["a", "b"], lock=lock)
+    assert list(files.parts_of("a")) == ["a-0", "a-1"]
+    assert list(files.parts_of("b")) == ["b-0", "b-1"]
+    files.close()
+    assert held == [True] * 4
