@@ -3,6 +3,7 @@
     python benchmarks/build_profile.py                 # 8 granules of 2.5 M pixels, 3 repeats
     python benchmarks/build_profile.py --profile       # also a cProfile of one in-process build
     python benchmarks/build_profile.py --jobs 2        # --jobs 2 against the two-process read
+    python benchmarks/build_profile.py --other /path/to/other/checkout   # two versions, A/B
 
 Run from the repository root.  The day is written once (benchmarks/synthetic.py) to --data and
 reused; builds and reads are whole processes, interleaved, the median of --repeats reported.  The
@@ -51,6 +52,9 @@ def main(argv=None) -> int:
     parser.add_argument("--pixels", type=int, default=2_500_000, help="pixels per granule")
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--jobs", type=int, default=1)
+    parser.add_argument("--other", type=Path, default=None,
+                        help="also build with the obsprep of this source tree (another "
+                             "checkout), interleaved, for a before/after comparison")
     parser.add_argument("--profile", action="store_true",
                         help="cProfile one in-process build and print the top functions")
     args = parser.parse_args(argv)
@@ -69,23 +73,33 @@ def main(argv=None) -> int:
             profiler.disable()
             pstats.Stats(profiler).sort_stats("cumulative").print_stats(45)
             pstats.Stats(profiler).sort_stats("tottime").print_stats(35)
-        walls, cpus = {"build": [], "read": []}, {"build": [], "read": []}
-        for _ in range(args.repeats):  # interleaved: a drift of the machine hits both
-            for name, command in (("build", run.build_command(toml, args.jobs)),
-                                  ("read", run.read_command(paths, args.jobs))):
-                wall, cpu = timed(command, env)
+        commands = {"build": (run.build_command(toml, args.jobs), env)}
+        if args.other is not None:
+            other_env = dict(env, PYTHONPATH=str(args.other.resolve()))
+            commands["other build"] = (run.build_command(toml, args.jobs), other_env)
+        commands["read"] = (run.read_command(paths, args.jobs), env)
+        walls = {name: [] for name in commands}
+        cpus = {name: [] for name in commands}
+        for _ in range(args.repeats):  # interleaved: a drift of the machine hits all
+            for name, (command, command_env) in commands.items():
+                wall, cpu = timed(command, command_env)
                 walls[name].append(wall)
                 cpus[name].append(cpu)
         where = "" if args.jobs == 1 else f" in {args.jobs} processes"
         median = {k: statistics.median(v) for k, v in walls.items()}
         cpu = {k: statistics.median(v) for k, v in cpus.items()}
-        pairs = [b / r for b, r in zip(walls["build"], walls["read"])]
-        print(f"{len(paths)} granules x {args.pixels:,} pixels, --jobs {args.jobs}: build "
-              f"{median['build']:.2f} s, bare read{where} {median['read']:.2f} s (wall, median "
-              f"of {args.repeats}): {median['build'] / median['read']:.2f}x; per pair "
-              f"{', '.join(f'{x:.2f}' for x in pairs)}")
-        print(f"  CPU time (user + system): build {cpu['build']:.2f} s, read {cpu['read']:.2f} s: "
-              f"{cpu['build'] / cpu['read']:.2f}x")
+        print(f"{len(paths)} granules x {args.pixels:,} pixels, --jobs {args.jobs}; bare read"
+              f"{where} {median['read']:.2f} s wall, {cpu['read']:.2f} s CPU (median of "
+              f"{args.repeats})")
+        for name in commands:
+            if name == "read":
+                continue
+            pairs = [b / r for b, r in zip(walls[name], walls["read"])]
+            label = "this tree" if name == "build" else str(args.other)
+            print(f"  build ({label}): {median[name]:.2f} s wall = "
+                  f"{median[name] / median['read']:.2f}x the read (per pair "
+                  f"{', '.join(f'{x:.2f}' for x in pairs)}); CPU (user + system) "
+                  f"{cpu[name]:.2f} s = {cpu[name] / cpu['read']:.2f}x")
     return 0
 
 
