@@ -94,3 +94,23 @@ def test_a_later_process_converts_without_loading_pint(fresh_cache):
                          check=True).stdout.split()
     assert float(out[0]) == pytest.approx(0.0, abs=1e-12)
     assert out[1] == "False"
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.int16, np.float64])
+def test_a_unit_factor_of_one_gives_the_values_and_leaves_the_input_alone(dtype):
+    # reference: numpy's float64 widening and the registry's affine map applied with numpy
+    # (K -> degC has factor 1: t_C = t_K - 273.15; a difference takes the factor only)
+    raw = np.array([0, 1, 250, 300], dtype=dtype)
+    before = raw.copy()
+    scale, offset = pint_map("kelvin", "degC")
+    assert scale == 1.0  # the case this test is about
+    widened = raw.astype(np.float64)
+    np.testing.assert_array_equal(units.convert_units(raw, "kelvin", "degC", "f.nc"),
+                                  widened * scale + offset)
+    np.testing.assert_array_equal(units.convert_units(raw, "kelvin", "degC", "f.nc",
+                                                      difference=True), widened * scale)
+    np.testing.assert_array_equal(raw, before)  # the caller's array is not changed
+    values = np.array([1.0, 2.0])
+    converted = units.convert_units(values, "second", "s", "f.nc")
+    converted += 1.0
+    np.testing.assert_array_equal(values, [1.0, 2.0])  # a new array even for float64 input

@@ -242,8 +242,10 @@ def observation_table(path, opts: SourceOptions, decoded: DecodedVariable, *, lo
     select = None
     not_in_table = {}
     if leave_out:
-        counts = np.bincount(code + 1, minlength=len(reasons) + 1)
-        not_in_table = {reasons[k - 1]: int(c) for k, c in enumerate(counts) if k and c}
+        # one count per reason used (a handful), no int64 copy of the codes for a bincount
+        used = dict.fromkeys(reasons.index(reason) for _, reason in ordered)
+        not_in_table = {reasons[k]: int(c) for k in sorted(used)
+                        if (c := np.count_nonzero(code == k))}
         if not_in_table:
             select = np.flatnonzero(code < 0)  # indices: one scan, then cheap gathers
             values, code = values[select], code[select]

@@ -60,12 +60,17 @@ def convert_units(values, units: str, canonical: str, path, variable=None,
     Returns float64.  Raises :class:`InputFileError` naming ``variable``, the units found and
     the units expected when the string is not a unit or has the wrong dimension.
     """
+    # a change of dtype copies: the widened array is this function's own
+    widened = isinstance(values, np.ndarray) and values.dtype != np.float64
     values = np.asarray(values, dtype=np.float64)
     units = str(units).strip()
     if units == canonical:
         return values
     scale, offset = _affine_conversion(units, canonical, path, variable)
-    converted = np.multiply(values, scale)  # one new array; the caller's stays as it was
+    if scale == 1.0 and widened:
+        converted = values  # already a new array, and x * 1.0 is x
+    else:
+        converted = np.multiply(values, scale)  # one new array; the caller's stays as it was
     if not difference and offset:
         converted += offset
     return converted
