@@ -98,8 +98,9 @@ def audit(run_dir, ensemble=None, background=None, analysis=None, out=None,
         Report folder (default ``RUN_DIR/audit``).
     tolerance : float
         Errors within this factor of right count as right: a sensor is flagged when its factor
-        F is beyond it (or below its inverse) with 95 % confidence, and ok when the 95 %
-        interval of F lies inside (:mod:`obsprep.audit.verdict`).
+        F is beyond it (or below its inverse) by more than its standard error and differs
+        from 1 with 95 % confidence, and ok when the 95 % interval of F lies inside
+        (:mod:`obsprep.audit.verdict`).
     config : path, optional
         The build configuration, for resolving the grid files when the output does not say.
     figures : bool

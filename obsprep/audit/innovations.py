@@ -15,8 +15,9 @@ super-observations:
 
 - ``mean`` = mean(d) (bias), with its block standard error (:mod:`obsprep.audit.uncertainty`);
 - ``ratio`` = var(d) / mean(sigma_o^2 + (1 + 1/N) sigma_ens^2) (1 when consistent);
-- ``factor_sq``: the estimate of F^2 = (sum (d - mean d)^2 n / (n - 1) - sum (1 + 1/N)
-  sigma_ens^2) / sum sigma_o^2, a ratio of sums whose standard error ``factor_sq_se`` allows for
+- ``factor_sq``: the estimate of F^2 from (d - mean d)^2 n / (n - 1) - (1 + 1/N) sigma_ens^2
+  against sigma_o^2, weighted toward the informative innovations (:func:`weighted_factor`),
+  a ratio of sums whose standard error ``factor_sq_se`` allows for
   the correlation of neighbouring innovations (block standard error, never below that of
   independent Gaussian innovations, sqrt(2 sum E[d^2]^2) / sum sigma_o^2); it may be negative when
   the ensemble variance alone exceeds the innovation variance (then the assigned errors, or the
@@ -49,6 +50,32 @@ def ensemble_mean_error_factor(members: int) -> float:
     variance, when the truth is statistically one more member (module docstring); NaN for fewer
     than 2 members."""
     return 1.0 + 1.0 / members if members >= 2 else np.nan
+
+
+def weighted_factor(centred, sigma_o2, background, blocks: Blocks):
+    """F^2 from the squared innovations with weights that favour the informative ones:
+
+    .. math::
+        F^2 = \\frac{\\sum_i w_i (d_i^2 - b_i)}{\\sum_i w_i \\sigma_{o,i}^2}, \\quad
+        w_i = \\frac{\\sigma_{o,i}^2}{(F_0^2 \\sigma_{o,i}^2 + b_i)^2}
+
+    (b_i the background term, F_0^2 the unweighted estimate kept in [0.01, 100]): the
+    estimating equation whose weights are the inverse variances 2 E[d_i^2]^2 of Gaussian squared
+    innovations times their sensitivity to F^2 (weighted least squares for a variance,
+    textbook).  Where the background error dwarfs the observation error, those innovations
+    carry noise and no information on F and weigh little.  Block standard error, never below
+    the Gaussian one of independent innovations (:func:`obsprep.audit.uncertainty.with_floor`).
+    """
+    first = blocked_ratio(centred - background, sigma_o2, blocks)
+    if not np.isfinite(first.value):
+        return first
+    start = float(np.clip(first.value, 0.01, 100.0))
+    expected = start * sigma_o2 + background
+    weights = sigma_o2 / expected ** 2
+    factor = blocked_ratio(weights * (centred - background), weights * sigma_o2, blocks)
+    expected = max(factor.value, 0.0) * sigma_o2 + background
+    floor = np.sqrt(2.0 * np.sum((weights * expected) ** 2)) / np.sum(weights * sigma_o2)
+    return with_floor(factor, float(floor))
 
 
 def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: int = 0,
@@ -98,11 +125,7 @@ def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: 
     if sigma_ens2 is not None and members >= 2:
         background = ensemble_mean_error_factor(members) * np.asarray(sigma_ens2, dtype=np.float64)
         expected = mean_o2 + float(background.mean())
-        factor = blocked_ratio(centred - background, sigma_o2, blocks)
-        # Gaussian floor of its standard error (obsprep.audit.uncertainty.with_floor), at the
-        # expected innovation variance of each super-observation
-        expected_each = max(factor.value, 0.0) * sigma_o2 + background
-        factor = with_floor(factor, float(np.sqrt(2.0 * np.sum(expected_each ** 2)) / sigma_o2.sum()))
+        factor = weighted_factor(centred, sigma_o2, background, blocks)
         out.update(mean_sigma_ens2=float(np.mean(sigma_ens2)), ratio=float(centred.mean()) / expected,
                    sensitivity=mean_o2 / expected, factor_sq=factor.value, factor_sq_se=factor.se,
                    factor_blocks=factor.blocks, factor_block_cells=factor.block_cells,

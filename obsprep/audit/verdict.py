@@ -22,8 +22,8 @@ Q = sum w_k (e_k - F^2)^2 against chi-square with K - 1 degrees of freedom (Coch
 behind any estimate ([CameronMiller2015]) and tolerance T:
 
 - ``too_small`` when F^2 - se > T^2 (beyond the tolerance by more than its uncertainty) and
-  F^2 - t_0.99 se > 1 (wrong with 99 % confidence);
-- ``too_large`` when F^2 + se < 1 / T^2 and F^2 + t_0.99 se < 1;
+  F^2 - t_0.95 se > 1 (wrong with one-sided 95 % confidence);
+- ``too_large`` when F^2 + se < 1 / T^2 and F^2 + t_0.95 se < 1;
 - ``ok`` when the two-sided 95 % interval F^2 +- t_0.975 se lies inside [1 / T^2, T^2];
 - else ``inconclusive`` ("not enough evidence"), never ``ok``;
 - ``no_evidence`` when no estimate exists at all (the reason says why).
@@ -45,7 +45,7 @@ from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio
 AGREEMENT_LEVEL = 0.01
 #: one-sided confidence that a flagged error is wrong (besides being beyond the tolerance by
 #: more than one standard error), and two-sided confidence of an "ok"
-FLAG_CONFIDENCE = 0.99
+FLAG_CONFIDENCE = 0.95
 OK_CONFIDENCE = 0.95
 
 FLAGS = ("ok", "too_small", "too_large", "inconclusive", "no_evidence")

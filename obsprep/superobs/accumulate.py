@@ -35,6 +35,11 @@ indexes the bins, so every per-group sum is one ``np.bincount`` and minima/maxim
 ``np.minimum.at``/``np.maximum.at``.  Otherwise (wide or sparse keys) the codes are sorted once
 (or sorted lexicographically when they do not fit in int64).  No Python loop runs over
 observations or groups; memory is O(n) per batch.
+
+The sums of a batch are taken by compiled kernels (:mod:`obsprep.superobs.batch_kernels`): the
+packed code and the rows per code in one pass, then every sum of a row's bin in one pass, with
+a bin's sums contiguous in memory.  Their arithmetic is that of the numpy computation here
+(:func:`_reference_state`, one ``np.bincount`` per sum), which is kept as the reference.
 """
 
 from __future__ import annotations
@@ -268,13 +273,10 @@ class _Grouping:
 def _direct_code(key_arrays, n):
     """(code, lows, radices) packing the keys in mixed radix (first key most significant) when
     the code range is small enough to index bins directly; else None."""
-    lows, radices = [], []
-    for array in key_arrays:
-        low, high = int(array.min()), int(array.max())
-        lows.append(low)
-        radices.append(high - low + 1)
-    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+    direct = _direct_radices(key_arrays, n)
+    if direct is None:
         return None
+    lows, radices = direct
     code = None
     for array, low, radix in zip(key_arrays, lows, radices):  # loop over keys, not rows
         if radix == 1:
@@ -288,6 +290,19 @@ def _direct_code(key_arrays, n):
     if code is None:
         code = np.zeros(n, dtype=np.int64)
     return code, lows, radices
+
+
+def _direct_radices(key_arrays, n):
+    """(lows, radices) of the keys when the mixed-radix code range is small enough to index
+    bins directly, else None."""
+    lows, radices = [], []
+    for array in key_arrays:
+        low, high = int(array.min()), int(array.max())
+        lows.append(low)
+        radices.append(high - low + 1)
+    if math.prod(radices) > max(_DIRECT_MIN_BINS, _DIRECT_BINS_PER_ROW * n):
+        return None
+    return lows, radices
 
 
 def _grouping(key_arrays) -> _Grouping:
@@ -310,6 +325,21 @@ def _direct_grouping(code, lows, radices) -> _Grouping:
     """The grouping of rows by a direct (mixed-radix) code, see :func:`_direct_code`."""
     n_codes = math.prod(radices)
     count = np.bincount(code, minlength=n_codes)
+    occupied, group_keys, dense = _occupied_codes(count, lows, radices)
+    if dense:
+        # nearly every bin occupied: the code is the bin; empty bins are dropped at the end
+        keep = None if len(occupied) == n_codes else occupied
+        return _Grouping(code, n_codes, count, keep, group_keys)
+    # else renumber the occupied codes 0..n_groups-1: one gather per row buys per-bin arrays
+    # of the occupied bins only, cheaper for every sum that follows
+    return _Grouping(_renumbering(occupied, n_codes)[code], len(occupied), count[occupied],
+                     None, group_keys)
+
+
+def _occupied_codes(count, lows, radices):
+    """(occupied codes, their key values, whether nearly every code is occupied) from the rows
+    per code of a direct grouping."""
+    n_codes = len(count)
     occupied = np.flatnonzero(count)
     # decode the occupied codes back to key values (mixed radix, last key least significant)
     remainder = occupied.astype(np.int64)
@@ -320,15 +350,14 @@ def _direct_grouping(code, lows, radices) -> _Grouping:
             continue
         remainder, digit = np.divmod(remainder, np.int64(radices[position]))
         group_keys[position] = digit + np.int64(lows[position])
-    if 10 * len(occupied) >= 9 * n_codes:
-        # nearly every bin occupied: the code is the bin; empty bins are dropped at the end
-        keep = None if len(occupied) == n_codes else occupied
-        return _Grouping(code, n_codes, count, keep, group_keys)
-    # else renumber the occupied codes 0..n_groups-1: one gather per row buys per-bin arrays
-    # of the occupied bins only, cheaper for every sum that follows
+    return occupied, group_keys, 10 * len(occupied) >= 9 * n_codes
+
+
+def _renumbering(occupied, n_codes):
+    """code -> group number 0..len(occupied)-1 of the occupied codes."""
     renumber = np.empty(n_codes, dtype=np.intp)
     renumber[occupied] = np.arange(len(occupied))
-    return _Grouping(renumber[code], len(occupied), count[occupied], None, group_keys)
+    return renumber
 
 
 def _grouping_of_parts(parts, key_names) -> _Grouping:
@@ -551,12 +580,16 @@ def _grouped_mean(x, inverse, n_groups, weight_per_row, total_weight):
 # --------------------------------------------------------------------------------------------
 # input checks
 
-def _float_column(where, name, array, n, *, positive=False, low=None, high=None):
+def _float_column(where, name, array, n, *, positive=False, low=None, high=None, check=True):
+    """``array`` as float64 (n,) (a scalar repeated), its values checked unless not ``check``
+    (then the caller checks them)."""
     array = np.asarray(array, dtype=np.float64)
     if array.ndim == 0:
         array = np.full(n, array.item())
     if array.shape != (n,):
         raise ValueError(f"{where}: '{name}' has shape {array.shape}, expected ({n},) like the keys")
+    if not check:
+        return np.ascontiguousarray(array)
     if n:
         # fast path: the extremes decide (NaN propagates through min and max)
         smallest, largest = array.min(), array.max()
@@ -578,14 +611,14 @@ def _float_column(where, name, array, n, *, positive=False, low=None, high=None)
     return array
 
 
-def _cross_covariance_columns(where, cross_covariance, partner_error, n):
+def _cross_covariance_columns(where, cross_covariance, partner_error, n, check=True):
     if cross_covariance is None and partner_error is None:
         return None, None
     if cross_covariance is None or partner_error is None:
         raise ValueError(f"{where}: 'cross_covariance' and 'partner_error' go together; "
                          f"got only one of them")
-    return (_float_column(where, "cross_covariance", cross_covariance, n),
-            _float_column(where, "partner_error", partner_error, n, positive=True))
+    return (_float_column(where, "cross_covariance", cross_covariance, n, check=check),
+            _float_column(where, "partner_error", partner_error, n, positive=True, check=check))
 
 
 def _pair_correlation(where, pair_correlation):
@@ -889,130 +922,9 @@ class Accumulator:
         -------
         Accumulator
         """
-        where = "Accumulator.from_observations"
-        key_names, key_arrays = _validate_keys(keys, where)
-        n = len(key_arrays[0])
-        value = _float_column(where, "value", value, n)
-        error = _float_column(where, "error", error, n, positive=True)
-        time = _float_column(where, "time", time, n)
-        lon = _float_column(where, "lon", lon, n)
-        lat = _float_column(where, "lat", lat, n, low=-90.0, high=90.0)
-        depth = _float_column(where, "depth", depth, n)
-        if tiebreak is not None and score is None:
-            raise ValueError(f"{where}: 'tiebreak' given without 'score'; the tiebreak only "
-                             f"orders observations of equal score")
-        if score is not None:
-            score = np.asarray(score, dtype=np.float64)
-            if score.shape != (n,) or np.isnan(score).any():
-                raise ValueError(f"{where}: 'score' must be a float array of shape ({n},) "
-                                 f"without NaN; got shape {score.shape}")
-            if tiebreak is None:
-                tiebreak = np.zeros(n, dtype=np.int64)
-            else:
-                tiebreak = np.asarray(tiebreak)
-                if tiebreak.shape != (n,) or tiebreak.dtype.kind not in "iu":
-                    raise ValueError(f"{where}: 'tiebreak' must be an int64 array of shape "
-                                     f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
-                tiebreak = tiebreak.astype(np.int64, copy=False)
-
-        cross_covariance, partner_error = _cross_covariance_columns(
-            where, cross_covariance, partner_error, n)
-        pair_correlation = _pair_correlation(where, pair_correlation)
-
-        grouping = _grouping(key_arrays)
-        group_keys = dict(zip(key_names, grouping.group_keys))
-        count_float = grouping.count.astype(np.float64)
-        compress = grouping.compress
-
-        # Two work buffers of n floats are reused by every per-row product below: fresh
-        # temporaries of millions of rows cost more in page faults than the arithmetic.
-        work = np.empty(n)
-        work_2 = np.empty(n)
-        value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
-        weights = None  # per-row 1/sigma^2; None: one error for the whole batch
-        if n and error.min() == error.max():
-            # one error for the whole batch (a constant error rule): the error sums follow
-            # from the counts, and every weighted mean is the plain mean
-            sigma = float(error[0])
-            weight = 1.0 / (sigma * sigma)
-            sum_variance = count_float * (sigma * sigma)
-            sum_sigma = count_float * sigma
-            sum_inverse_sigma = count_float * (1.0 / sigma)
-            sum_inverse_variance = count_float * weight
-            weighted_mean = value_mean
-            weighted_m2 = value_m2 * weight
-        else:
-            weights = np.divide(1.0, error)
-            sum_inverse_sigma = grouping.sum(weights)
-            np.multiply(weights, weights, out=weights)
-            sum_inverse_variance = grouping.sum(weights)
-            weighted_mean, weighted_m2 = _shifted_mean_and_m2(
-                value, grouping, count_float, work, weights, sum_inverse_variance)
-            sum_variance = grouping.sum(np.multiply(error, error, out=work))
-            sum_sigma = grouping.sum(error)
-        time_mean = _shifted_mean(time, grouping, count_float, work=work)
-        weighted_time_mean = time_mean if weights is None else _shifted_mean(
-            time, grouping, count_float, weights, sum_inverse_variance, work)
-        depth_state = _depth_moments(depth, value, value_mean, grouping, count_float)
-        depth_state["weighted_depth_mean"] = (
-            depth_state["depth_mean"] if weights is None or not depth_state["depth_varies"]
-            else _shifted_mean(depth, grouping, count_float, weights, sum_inverse_variance, work))
-        sums = _unit_vector_sums(lon, lat, grouping, work, work_2, weights)
-        if weights is None:  # constant weight: the weighted sums are the plain ones times it
-            sums += tuple(total * weight for total in sums)
-        if cross_covariance is None:
-            sum_cross = sum_weighted_cross = np.zeros(grouping.n_bins)
-        else:
-            sum_cross = grouping.sum(cross_covariance)
-            # weights of the two components' weighted means: 1/sigma^2 and 1/sigma_partner^2
-            np.divide(cross_covariance, np.multiply(error, partner_error, out=work) ** 2,
-                      out=work)
-            sum_weighted_cross = grouping.sum(work)
-        del work, work_2, weights
-        value_min = grouping.minimum(value, np.inf)
-        value_max = grouping.maximum(value, -np.inf)
-        if pair_correlation is None:
-            pair_sigma = pair_inverse_sigma = np.zeros(grouping.n_bins)
-        else:
-            pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
-                grouping, lon, lat, error, pair_correlation)
-
-        state = {
-            "count": compress(grouping.count).astype(np.int64, copy=False),
-            "value_mean": compress(value_mean),
-            "value_m2": compress(value_m2),
-            "value_min": compress(value_min),
-            "value_max": compress(value_max),
-            "weighted_mean": compress(weighted_mean),
-            "weighted_m2": compress(weighted_m2),
-            "sum_inverse_variance": compress(sum_inverse_variance),
-            "sum_inverse_sigma": compress(sum_inverse_sigma),
-            "sum_variance": compress(sum_variance),
-            "sum_sigma": compress(sum_sigma),
-            "time_mean": compress(time_mean),
-            "weighted_time_mean": compress(weighted_time_mean),
-            "sum_x": compress(sums[0]), "sum_y": compress(sums[1]), "sum_z": compress(sums[2]),
-            "sum_weighted_x": compress(sums[3]), "sum_weighted_y": compress(sums[4]),
-            "sum_weighted_z": compress(sums[5]),
-            "sum_cross_covariance": compress(sum_cross),
-            "sum_weighted_cross_covariance": compress(sum_weighted_cross),
-            "pair_sum_sigma": compress(pair_sigma),
-            "pair_sum_inverse_sigma": compress(pair_inverse_sigma),
-        }
-        for name in DEPTH_FIELDS:
-            state[name] = compress(depth_state[name])
-        state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
-        if score is not None:
-            if n:
-                row = _representative_rows(grouping, score, tiebreak)
-            else:
-                row = np.zeros(0, dtype=np.intp)
-            for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
-                                 ("error", error), ("time", time), ("lon", lon), ("lat", lat),
-                                 ("depth", depth)):
-                state["representative_" + name] = source[row]
-        return cls(key_names, group_keys, state, score is not None,
-                   pair_correlation=pair_correlation)
+        return _from_observations(cls, keys, value, error, time, lon, lat, depth, score,
+                                  tiebreak, cross_covariance, partner_error, pair_correlation,
+                                  compiled=True)
 
     @classmethod
     def merge(cls, accumulators) -> Accumulator:
@@ -1223,6 +1135,309 @@ class Accumulator:
             "error": error,
         })
         return pd.DataFrame(columns)
+
+
+# --------------------------------------------------------------------------------------------
+# one batch: checks, then the sums by the compiled kernels or by numpy
+
+
+def _from_observations(cls, keys, value, error, time, lon, lat, depth, score, tiebreak,
+                       cross_covariance, partner_error, pair_correlation, *, compiled):
+    """:meth:`Accumulator.from_observations`; ``compiled`` False: the plain numpy reference
+    (:func:`_reference_state`) instead of the compiled kernels (:func:`_compiled_state`).
+    Both give the same state (the kernels' docstrings say where it is not bit for bit)."""
+    where = "Accumulator.from_observations"
+    key_names, key_arrays = _validate_keys(keys, where)
+    n = len(key_arrays[0])
+    compiled = compiled and n > 0
+    # with the kernels the values are checked in their pass (one pass, not two per column);
+    # a batch the kernel finds wrong is checked here again for the one-line reason
+    columns = _checked_columns(where, n, value, error, time, lon, lat, depth,
+                               cross_covariance, partner_error, check=not compiled)
+    score, tiebreak = _checked_score(where, n, score, tiebreak)
+    pair_correlation = _pair_correlation(where, pair_correlation)
+    state = grouping = None
+    if compiled:
+        from obsprep.superobs.batch_kernels import compiled as compiled_kernels
+
+        bins = _compiled_grouping(key_arrays, compiled_kernels())
+        state = _compiled_state(bins, *columns)
+        if state is None:  # invalid input (raises here) or beyond the kernel's range
+            columns = _checked_columns(where, n, value, error, time, lon, lat, depth,
+                                       cross_covariance, partner_error, check=True)
+        elif pair_correlation is not None or score is not None:
+            grouping = bins.grouping()
+        else:  # what the rest needs of a grouping: the number of bins and compress
+            grouping = _Grouping(None, bins.n_bins, bins.count, bins.keep, bins.group_keys)
+    value, error, time, lon, lat, depth, cross_covariance, partner_error = columns
+    if state is None:
+        grouping = _grouping(key_arrays)
+        depth = np.broadcast_to(depth, (n,))
+        state = _reference_state(grouping, value, error, time, lon, lat, depth,
+                                 cross_covariance, partner_error)
+    if pair_correlation is None:
+        state["pair_sum_sigma"] = state["pair_sum_inverse_sigma"] = np.zeros(len(state["count"]))
+    else:
+        pair_sigma, pair_inverse_sigma = _pair_sums_of_rows(
+            grouping, lon, lat, error, pair_correlation)
+        state["pair_sum_sigma"] = grouping.compress(pair_sigma)
+        state["pair_sum_inverse_sigma"] = grouping.compress(pair_inverse_sigma)
+    state = {name: state[name] for name in (*STATE_FIELDS, *PAIR_FIELDS)}
+    if score is not None:
+        if n:
+            row = _representative_rows(grouping, score, tiebreak)
+        else:
+            row = np.zeros(0, dtype=np.intp)
+        for name, source in (("score", score), ("tiebreak", tiebreak), ("value", value),
+                             ("error", error), ("time", time), ("lon", lon), ("lat", lat),
+                             ("depth", np.broadcast_to(depth, (n,)))):
+            state["representative_" + name] = source[row]
+    group_keys = dict(zip(key_names, grouping.group_keys))
+    return cls(key_names, group_keys, state, score is not None,
+               pair_correlation=pair_correlation)
+
+
+def _checked_columns(where, n, value, error, time, lon, lat, depth, cross_covariance,
+                     partner_error, *, check):
+    """The float columns of a batch as float64 arrays (n,); a scalar depth stays a scalar
+    when not ``check`` (the kernels take it as the batch's one depth)."""
+    value = _float_column(where, "value", value, n, check=check)
+    error = _float_column(where, "error", error, n, positive=True, check=check)
+    time = _float_column(where, "time", time, n, check=check)
+    lon = _float_column(where, "lon", lon, n, check=check)
+    lat = _float_column(where, "lat", lat, n, low=-90.0, high=90.0, check=check)
+    if check or np.ndim(depth) != 0:
+        depth = _float_column(where, "depth", depth, n, check=check)
+    else:
+        depth = np.float64(depth)
+        if not np.isfinite(depth):
+            _float_column(where, "depth", depth, n)  # raises, naming the column
+    cross_covariance, partner_error = _cross_covariance_columns(
+        where, cross_covariance, partner_error, n, check=check)
+    return value, error, time, lon, lat, depth, cross_covariance, partner_error
+
+
+def _checked_score(where, n, score, tiebreak):
+    if tiebreak is not None and score is None:
+        raise ValueError(f"{where}: 'tiebreak' given without 'score'; the tiebreak only "
+                         f"orders observations of equal score")
+    if score is not None:
+        score = np.asarray(score, dtype=np.float64)
+        if score.shape != (n,) or np.isnan(score).any():
+            raise ValueError(f"{where}: 'score' must be a float array of shape ({n},) "
+                             f"without NaN; got shape {score.shape}")
+        if tiebreak is None:
+            tiebreak = np.zeros(n, dtype=np.int64)
+        else:
+            tiebreak = np.asarray(tiebreak)
+            if tiebreak.shape != (n,) or tiebreak.dtype.kind not in "iu":
+                raise ValueError(f"{where}: 'tiebreak' must be an int64 array of shape "
+                                 f"({n},); got dtype {tiebreak.dtype}, shape {tiebreak.shape}")
+            tiebreak = tiebreak.astype(np.int64, copy=False)
+    return score, tiebreak
+
+
+def _compiled_state(bins, value, error, time, lon, lat, depth, cross_covariance,
+                    partner_error):
+    """The per-group state of :data:`STATE_FIELDS` of one batch (n > 0) by the compiled
+    kernels of :mod:`obsprep.superobs.batch_kernels`: one pass over the rows for every sum,
+    a second only for the groups that need the two-pass M2, a third only when the depth
+    varies.  None when an input is invalid or beyond the kernels' range (the caller checks).
+    """
+    from obsprep.superobs import batch_kernels as bk
+
+    kernels = bk.compiled()
+    n_bins = bins.n_bins
+    code, renumber = bins.code, bins.renumber
+    varying_error = bool(error.min() != error.max())
+    varying_depth = depth.ndim == 1 and bool(depth.min() != depth.max())
+    has_cross = cross_covariance is not None
+    depth_rows = depth if varying_depth else np.zeros(1)
+    value_shift = float(np.mean(value))
+    time_shift = float(np.mean(time))
+    depth_shift = float(np.mean(depth)) if varying_depth else 0.0
+    empty = np.zeros(1)
+    state = _aligned_zeros(n_bins, bk.STRIDE)
+    state[:, bk.MINIMUM] = np.inf
+    state[:, bk.MAXIMUM] = -np.inf
+    valid = kernels.accumulate_rows(
+        code, renumber, state, value, error, time, lon, lat, depth_rows,
+        cross_covariance if has_cross else empty, partner_error if has_cross else empty,
+        value_shift, time_shift, depth_shift, varying_error, varying_depth, has_cross)
+    if not valid:
+        return None
+    count = bins.count
+    # every array of n_bins or n rows is allocated here, by numpy, which asks for huge pages
+    moments = np.empty((n_bins, 4))
+    risky = np.empty((n_bins, 2), dtype=bool)
+    kernels.value_moments(state, count, value_shift, TWO_PASS_RATIO, varying_error, moments,
+                          risky)
+    risky_bins = risky[:, 0] | risky[:, 1]
+    if risky_bins.any():
+        rows = np.empty(int(count[risky_bins].sum()), dtype=np.int64)
+        kernels.two_pass_moments(code, renumber, value, error, state, count, moments, risky,
+                                 risky_bins, rows)
+    depth_state = np.empty((n_bins, 6) if varying_depth else (1, 6))
+    if varying_depth:
+        kernels.depth_moments(code, renumber, depth, value, state, count, moments,
+                              np.empty((n_bins, 8)), depth_state)
+    keep = bins.keep if bins.keep is not None else np.zeros(0, dtype=np.intp)
+    sigma = float(error[0])
+    constant_depth = float(depth if depth.ndim == 0 else depth[0])
+    n_groups = len(keep) if len(keep) else n_bins
+    out = _field_rows(len(bk.OUTPUT_FIELDS), n_groups)
+    kernels.group_state(state, count, keep, moments, depth_state, time_shift, depth_shift,
+                        sigma, varying_error, varying_depth, constant_depth, has_cross, out)
+    out = out[:, :n_groups]
+    result = dict(zip(bk.OUTPUT_FIELDS, out))
+    result["count"] = (count if bins.keep is None else count[bins.keep]).astype(np.int64,
+                                                                              copy=False)
+    return result
+
+
+class _RowBins:
+    """Rows -> bins of one batch for the kernels: the bin of row r is ``renumber[code[r]]``
+    (``renumber`` empty: ``code[r]``); the other attributes as in :class:`_Grouping`."""
+
+    __slots__ = ("code", "renumber", "n_bins", "count", "keep", "group_keys")
+
+    def __init__(self, code, renumber, n_bins, count, keep, group_keys):
+        self.code, self.renumber, self.n_bins = code, renumber, n_bins
+        self.count, self.keep, self.group_keys = count, keep, group_keys
+
+    def grouping(self) -> _Grouping:
+        """The same bins as a :class:`_Grouping` (the bin of every row in one array)."""
+        index = self.renumber[self.code] if len(self.renumber) else self.code
+        return _Grouping(index, self.n_bins, self.count, self.keep, self.group_keys)
+
+
+def _compiled_grouping(key_arrays, kernels) -> _RowBins:
+    """:func:`_grouping` with the direct code and the rows per code in one compiled pass
+    (:func:`obsprep.superobs.batch_kernels.packed_code_and_count`); the same bins."""
+    n = len(key_arrays[0])
+    no_renumbering = np.zeros(0, dtype=np.intp)
+    direct = _direct_radices(key_arrays, n)
+    if direct is None:
+        grouping = _grouping(key_arrays)
+        return _RowBins(grouping.index, no_renumbering, grouping.n_bins, grouping.count,
+                        grouping.keep, grouping.group_keys)
+    lows, radices = direct
+    n_codes = math.prod(radices)
+    varying = [position for position, radix in enumerate(radices) if radix > 1]
+    if varying:  # a constant key adds nothing to the code (and may be a broadcast view)
+        code, count = np.empty(n, dtype=np.int64), np.zeros(n_codes, dtype=np.int64)
+        kernels.packed_code_and_count(
+            tuple(np.ascontiguousarray(key_arrays[p]) for p in varying),
+            np.array([lows[p] for p in varying], dtype=np.int64),
+            np.array([radices[p] for p in varying], dtype=np.int64), code, count)
+    else:
+        code, count = np.zeros(n, dtype=np.int64), np.array([n], dtype=np.int64)
+    occupied, group_keys, dense = _occupied_codes(count, lows, radices)
+    if dense:
+        keep = None if len(occupied) == n_codes else occupied
+        return _RowBins(code, no_renumbering, n_codes, count, keep, group_keys)
+    return _RowBins(code, _renumbering(occupied, n_codes), len(occupied), count[occupied], None,
+                    group_keys)
+
+
+def _field_rows(n_fields, n_groups):
+    """An empty float64 array (n_fields, >= n_groups) for one field per row, written a column
+    (group) at a time: its rows are padded so that they start 17 cache lines apart modulo
+    4096 bytes; rows a multiple of 4096 bytes long would all fall into the same set of the
+    processor cache (a grid of 800 x 880 x 4 cells is such a length) and evict each other."""
+    row_bytes = 8 * n_groups
+    pad = ((17 * 64 - row_bytes % 4096) % 4096) // 8
+    return np.empty((n_fields, n_groups + pad))
+
+
+def _aligned_zeros(rows, columns):
+    """float64 zeros (rows, columns) whose rows start on 64-byte boundaries (cache lines),
+    for ``columns`` a multiple of 8."""
+    buffer = np.zeros(rows * columns + 8)
+    offset = (-buffer.ctypes.data % 64) // 8
+    return buffer[offset:offset + rows * columns].reshape(rows, columns)
+
+
+def _reference_state(grouping, value, error, time, lon, lat, depth, cross_covariance,
+                     partner_error):
+    """The per-group state of :data:`STATE_FIELDS` of one batch by numpy, one
+    ``np.bincount`` per sum: the reference the compiled kernels are tested against."""
+    n = len(value)
+    count_float = grouping.count.astype(np.float64)
+    compress = grouping.compress
+
+    # Two work buffers of n floats are reused by every per-row product below: fresh
+    # temporaries of millions of rows cost more in page faults than the arithmetic.
+    work = np.empty(n)
+    work_2 = np.empty(n)
+    value_mean, value_m2 = _shifted_mean_and_m2(value, grouping, count_float, work)
+    weights = None  # per-row 1/sigma^2; None: one error for the whole batch
+    if n and error.min() == error.max():
+        # one error for the whole batch (a constant error rule): the error sums follow
+        # from the counts, and every weighted mean is the plain mean
+        sigma = float(error[0])
+        weight = 1.0 / (sigma * sigma)
+        sum_variance = count_float * (sigma * sigma)
+        sum_sigma = count_float * sigma
+        sum_inverse_sigma = count_float * (1.0 / sigma)
+        sum_inverse_variance = count_float * weight
+        weighted_mean = value_mean
+        weighted_m2 = value_m2 * weight
+    else:
+        weights = np.divide(1.0, error)
+        sum_inverse_sigma = grouping.sum(weights)
+        np.multiply(weights, weights, out=weights)
+        sum_inverse_variance = grouping.sum(weights)
+        weighted_mean, weighted_m2 = _shifted_mean_and_m2(
+            value, grouping, count_float, work, weights, sum_inverse_variance)
+        sum_variance = grouping.sum(np.multiply(error, error, out=work))
+        sum_sigma = grouping.sum(error)
+    time_mean = _shifted_mean(time, grouping, count_float, work=work)
+    weighted_time_mean = time_mean if weights is None else _shifted_mean(
+        time, grouping, count_float, weights, sum_inverse_variance, work)
+    depth_state = _depth_moments(depth, value, value_mean, grouping, count_float)
+    depth_state["weighted_depth_mean"] = (
+        depth_state["depth_mean"] if weights is None or not depth_state["depth_varies"]
+        else _shifted_mean(depth, grouping, count_float, weights, sum_inverse_variance, work))
+    sums = _unit_vector_sums(lon, lat, grouping, work, work_2, weights)
+    if weights is None:  # constant weight: the weighted sums are the plain ones times it
+        sums += tuple(total * weight for total in sums)
+    if cross_covariance is None:
+        sum_cross = sum_weighted_cross = np.zeros(grouping.n_bins)
+    else:
+        sum_cross = grouping.sum(cross_covariance)
+        # weights of the two components' weighted means: 1/sigma^2 and 1/sigma_partner^2
+        np.divide(cross_covariance, np.multiply(error, partner_error, out=work) ** 2,
+                  out=work)
+        sum_weighted_cross = grouping.sum(work)
+    del work, work_2, weights
+    value_min = grouping.minimum(value, np.inf)
+    value_max = grouping.maximum(value, -np.inf)
+    state = {
+        "count": compress(grouping.count).astype(np.int64, copy=False),
+        "value_mean": compress(value_mean),
+        "value_m2": compress(value_m2),
+        "value_min": compress(value_min),
+        "value_max": compress(value_max),
+        "weighted_mean": compress(weighted_mean),
+        "weighted_m2": compress(weighted_m2),
+        "sum_inverse_variance": compress(sum_inverse_variance),
+        "sum_inverse_sigma": compress(sum_inverse_sigma),
+        "sum_variance": compress(sum_variance),
+        "sum_sigma": compress(sum_sigma),
+        "time_mean": compress(time_mean),
+        "weighted_time_mean": compress(weighted_time_mean),
+        "sum_x": compress(sums[0]), "sum_y": compress(sums[1]), "sum_z": compress(sums[2]),
+        "sum_weighted_x": compress(sums[3]), "sum_weighted_y": compress(sums[4]),
+        "sum_weighted_z": compress(sums[5]),
+        "sum_cross_covariance": compress(sum_cross),
+        "sum_weighted_cross_covariance": compress(sum_weighted_cross),
+    }
+    for name in DEPTH_FIELDS:
+        state[name] = compress(depth_state[name])
+    for name in DEPTH_FIELDS:
+        state[name] = compress(depth_state[name])
+    return state
 
 
 def merge_accumulators(accumulators) -> Accumulator:

@@ -308,8 +308,11 @@ def test_verdict_needs_agreement_and_enough_evidence():
     split = decide([evidence("innovations", 1.0, 0.05), evidence("triple", 4.0, 0.3)], 1.5)
     assert split["flag"] == "inconclusive" and split["conclusion"] == "inconclusive: estimates disagree"
     assert "innovations" in split["reason"] and "triple" in split["reason"]
-    # 2.2 +- 0.5 in F (F^2 4.84 +- 2.2) is beyond the tolerance but not significantly: never "ok"
-    weak = decide([evidence("innovations", 4.84, 2.2)], 1.5)
+    # 2.2 +- 0.5 in F (F^2 4.84 +- 2.2) lies beyond the tolerance by more than its uncertainty
+    # (4.84 - 2.2 > 1.5^2) and is wrong with 95 % confidence: too small, never "ok"
+    assert decide([evidence("innovations", 4.84, 2.2)], 1.5)["flag"] == "too_small"
+    # F^2 3.0 +- 1.5: beyond the tolerance, but not by more than its uncertainty
+    weak = decide([evidence("innovations", 3.0, 1.5)], 1.5)
     assert weak["flag"] == "inconclusive" and "not enough evidence" in weak["conclusion"]
     # ok only where the whole 95 % interval is inside [1/1.5, 1.5]
     assert decide([evidence("innovations", 1.1, 0.1)], 1.5)["flag"] == "ok"
