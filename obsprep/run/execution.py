@@ -312,6 +312,8 @@ def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, 
 NO_WORKER_TIMEOUT_SECONDS = 120.0
 #: seconds between two looks at the cluster while the build waits for results
 POLL_SECONDS = 1.0
+#: a scheduler that has not answered the worker count for this long counts as lost (s)
+SCHEDULER_SILENCE_SECONDS = 20.0
 #: times a file's task is submitted again after the scheduler gave it up because the workers
 #: running it were lost (the scheduler itself first moves it to another worker, up to
 #: ``distributed.scheduler.allowed-failures`` times); then the file is listed as unreadable
@@ -361,6 +363,7 @@ class _ClusterWatch:
         self._finished = as_completed()
         self._watched = set()  # added and not yet handed out
         self._empty_since = None
+        self._silent_since = None
 
     def add(self, future) -> None:
         """Watch ``future`` too."""
@@ -368,14 +371,27 @@ class _ClusterWatch:
         self._finished.add(future)
 
     def _workers(self, done: int, total: int) -> int:
+        """Workers the scheduler has; -1 while a busy scheduler is slow to answer (a scheduler
+        that has not answered for :data:`SCHEDULER_SILENCE_SECONDS` counts as lost)."""
+        import time
+
         from obsprep.exceptions import ClusterError
 
         try:
-            return len(self.client.nthreads(callback_timeout=max(5.0, 5 * POLL_SECONDS)))
+            workers = len(self.client.nthreads(callback_timeout=max(5.0, 5 * POLL_SECONDS)))
         except (OSError, TimeoutError) as exc:
+            now = time.monotonic()
+            if isinstance(exc, TimeoutError):
+                # a scheduler moving large results on a loaded machine can be slow to answer
+                if self._silent_since is None:
+                    self._silent_since = now
+                if now - self._silent_since < SCHEDULER_SILENCE_SECONDS:
+                    return -1
             raise ClusterError(f"lost the connection to the Dask scheduler at {self.address} "
                                f"({type(exc).__name__}: {exc}; {done} of {total} files done); "
                                f"the build stops") from None
+        self._silent_since = None
+        return workers
 
     def check(self, done: int, total: int) -> None:
         """Raise ClusterError when the cluster has had no worker for too long."""
@@ -383,7 +399,10 @@ class _ClusterWatch:
 
         from obsprep.exceptions import ClusterError
 
-        if self._workers(done, total):
+        workers = self._workers(done, total)
+        if workers < 0:
+            return  # no answer yet: look again at the next poll
+        if workers:
             self._empty_since = None
             return
         now = time.monotonic()
