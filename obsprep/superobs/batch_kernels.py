@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import functools
 import math
-import warnings
 
 import numpy as np
 
@@ -513,6 +512,8 @@ def compiled():
 
     import numba  # here, not at module level: numba takes a few tenths of a second to import
 
+    from obsprep.compiled import compile_cached
+
     cache = True
     namespace = globals()
     namespace["_prefetch"] = _prefetch_intrinsic(numba)
@@ -521,18 +522,8 @@ def compiled():
         function = namespace[name]
         # the sine and cosine are inlined into the loop that calls them (vectorised there)
         options = dict(_OPTIONS, inline="always") if name in _INLINED else _OPTIONS
-        try:
-            kernel = numba.njit(cache=cache, **options)(function)
-        except RuntimeError as exc:
-            if "no locator available" not in str(exc):
-                raise
-            warnings.warn("obsprep.superobs.batch_kernels: no writable cache directory for "
-                          "numba (package directory read-only, user cache directory not "
-                          "writable; set NUMBA_CACHE_DIR to a writable directory): the "
-                          "accumulation kernels are compiled anew in each process",
-                          RuntimeWarning, stacklevel=3)
-            cache = False
-            kernel = numba.njit(cache=False, **options)(function)
+        kernel, cache = compile_cached(function, "obsprep.superobs.batch_kernels (the "
+                                       "accumulation kernels)", cache=cache, **options)
         # callers compiled later find the compiled callee under the module-level name
         namespace["_cos_sin" if name == "cos_sin_degrees" else name] = kernel
         kernels[name.lstrip("_")] = kernel

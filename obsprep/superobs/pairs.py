@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import functools
 import math
-import warnings
 
 import numpy as np
 
@@ -186,16 +185,6 @@ _SERIES_HALF_CHORD = 0.05
 @functools.cache
 def _compiled_pair_sums():
     """The compiled pair loop, built (or loaded from numba's on-disk cache) on first call."""
-    import numba  # here, not at module level: numba takes a few tenths of a second to import
+    from obsprep.compiled import compile_cached
 
-    options = dict(nogil=True, error_model="numpy")
-    try:
-        return numba.njit(cache=True, **options)(_pair_sums_loop)
-    except RuntimeError as exc:
-        if "no locator available" not in str(exc):
-            raise
-        warnings.warn("obsprep.superobs.pairs: no writable cache directory for numba (package "
-                      "directory read-only, user cache directory not writable; set NUMBA_CACHE_DIR "
-                      "to a writable directory): the pair kernel is compiled anew in each process",
-                      RuntimeWarning, stacklevel=3)
-        return numba.njit(cache=False, **options)(_pair_sums_loop)
+    return compile_cached(_pair_sums_loop, "obsprep.superobs.pairs (the pair kernel)", nogil=True, error_model="numpy")[0]

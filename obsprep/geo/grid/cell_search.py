@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import functools
 import math
-import warnings
 from typing import NamedTuple
 
 import numpy as np
@@ -344,16 +343,6 @@ def _table_search_loop(lon, lat, tan_lon, tan_lat, basis, x0, y0, inverse_size, 
 @functools.cache
 def _compiled_table_search():
     """The compiled loop, built (or loaded from numba's on-disk cache) on first call."""
-    import numba  # here, not at module level: numba takes a few tenths of a second to import
+    from obsprep.compiled import compile_cached
 
-    options = dict(nogil=True, error_model="numpy")
-    try:
-        return numba.njit(cache=True, **options)(_table_search_loop)
-    except RuntimeError as exc:
-        if "no locator available" not in str(exc):
-            raise
-        warnings.warn("obsprep.geo.grid.cell_search: no writable cache directory for numba "
-                      "(package directory read-only, user cache directory not writable; set "
-                      "NUMBA_CACHE_DIR to a writable directory): the cell-search kernel is "
-                      "compiled anew in each process", RuntimeWarning, stacklevel=3)
-        return numba.njit(cache=False, **options)(_table_search_loop)
+    return compile_cached(_table_search_loop, "obsprep.geo.grid.cell_search (the cell-search kernel)", nogil=True, error_model="numpy")[0]
