@@ -44,7 +44,7 @@ import pandas as pd
 from obsprep.exceptions import ConfigError
 from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import register_reason
-from obsprep.model.table import category_masks, reject_first, warn_of_large_shares
+from obsprep.model.table import category_masks, reject, warn_of_large_shares
 
 register_reason("implausible_error", "raw error infinite, not positive, or larger than the "
                 "quantity's whole physical range", stage="errors")
@@ -265,6 +265,4 @@ def assign_errors(table: pd.DataFrame, rule, source_key: str = "error") -> int:
         for q, mask in masks.items():
             codes[mask] = categories.index(labels[q])
         table["error_origin"] = pd.Categorical.from_codes(codes, categories=categories)
-    # the two masks exclude each other: one update of the reasons
-    return sum(reject_first(table, [(missing, "missing_error"),
-                                    (implausible, "implausible_error")]).values())
+    return reject(table, missing, "missing_error") + reject(table, implausible, "implausible_error")

@@ -167,46 +167,10 @@ def reject(table: pd.DataFrame, mask, reason: str) -> int:
     if n:
         codes = codes.copy()
         codes[mask] = categories.get_loc(reason)
-        # codes of existing categories only: no validating pass over millions of rows
-        table["rejected"] = pd.Categorical.from_codes(codes, dtype=column.dtype, validate=False)
+        table["rejected"] = pd.Categorical.from_codes(codes, categories=categories)
     elif column is not table["rejected"]:
         table["rejected"] = column
     return n
-
-
-def reject_first(table: pd.DataFrame, ordered) -> dict:
-    """Mark rows as rejected by the first of several tests, in place, in one update.
-
-    ``ordered``: ``(mask, reason)`` pairs in the order the tests run; each row not yet
-    rejected gets the reason of the first mask that selects it.  The same as calling
-    :func:`reject` for each pair in turn when the masks do not depend on one another's
-    rejections (each test looks at the values, not at which rows earlier tests rejected).
-    Returns ``{reason: number of rows newly rejected}`` (every reason of ``ordered``, 0 when
-    none).
-    """
-    ordered = list(ordered)
-    for _, reason in ordered:
-        if reason not in REASONS:
-            raise KeyError(f"unknown rejection reason '{reason}'")
-    column = table["rejected"]
-    missing = [r for r in dict.fromkeys(r for _, r in ordered) if r not in column.cat.categories]
-    if missing:
-        column = column.cat.add_categories(missing)
-    categories = column.cat.categories
-    codes = column.cat.codes.to_numpy()
-    new = np.full(codes.shape, -1, dtype=codes.dtype)
-    # the first reason wins: written last, going through the tests backwards
-    for mask, reason in reversed(ordered):
-        np.putmask(new, np.asarray(mask, dtype=bool), categories.get_loc(reason))
-    np.putmask(new, codes >= 0, -1)  # rows rejected before keep their reason
-    found = np.bincount(new.astype(np.int64) + 1, minlength=len(categories) + 1)
-    counts = {reason: int(found[categories.get_loc(reason) + 1]) for _, reason in ordered}
-    if any(counts.values()):
-        table["rejected"] = pd.Categorical.from_codes(np.where(new >= 0, new, codes),
-                                                      dtype=column.dtype, validate=False)
-    elif column is not table["rejected"]:
-        table["rejected"] = column
-    return counts
 
 
 def category_masks(table: pd.DataFrame, column: str = "quantity") -> dict:

@@ -11,7 +11,7 @@ import pandas as pd
 
 from obsprep.model.quantities import QUANTITIES, SUSPICIOUS_OUT_OF_RANGE_SHARE
 from obsprep.model.reasons import REASONS
-from obsprep.model.table import reject, reject_first, warn_of_large_shares
+from obsprep.model.table import reject, warn_of_large_shares
 from obsprep.qc.check import QcCheck, QcSetting
 
 
@@ -34,25 +34,26 @@ def basic_checks(table: pd.DataFrame, window, *, quantities=None, valid_range=No
       [min, max]} (canonical units, inclusive); skipped with ``range_check=False``
       (:func:`gross_range_check` does it alone).
     """
-    # every test looks at the values only: the masks first, then one update of the reasons
-    ordered = [(~np.isfinite(table["value"].to_numpy()), "missing_value")]
+    counts = {}
+    counts["missing_value"] = reject(table, ~np.isfinite(table["value"].to_numpy()), "missing_value")
     if quantities:
         # on the categories, not on millions of strings
-        ordered.append((~table["quantity"].isin(list(quantities)).to_numpy(),
-                        "quantity_not_selected"))
+        counts["quantity_not_selected"] = reject(
+            table, ~table["quantity"].isin(list(quantities)).to_numpy(), "quantity_not_selected")
     lon, lat = table["lon"].to_numpy(), table["lat"].to_numpy()
-    ordered.append((~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(lat) <= 90)), "bad_position"))
+    counts["bad_position"] = reject(table, ~(np.isfinite(lon) & np.isfinite(lat) & (np.abs(lat) <= 90)),
+                                    "bad_position")
     time = table["time"].to_numpy()
     time_end = table["time_end"].to_numpy()
     interval = ~np.isnat(time_end)
-    ordered.append((np.isnat(time) | (interval & (time_end < time)), "bad_time"))
+    bad_time = np.isnat(time) | (interval & (time_end < time))
+    counts["bad_time"] = reject(table, bad_time, "bad_time")
     with np.errstate(invalid="ignore"):
         inside = (time >= window.start) & (time < window.end)
         lead = np.timedelta64(int(round(interval_lead_hours * 3600e9)), "ns")
         inside_interval = ((time >= window.start - lead) & (time_end <= window.end)
                            & ((time_end > window.start) | (time >= window.start)))
-    ordered.append((~np.where(interval, inside_interval, inside), "outside_window"))
-    counts = reject_first(table, ordered)
+    counts["outside_window"] = reject(table, ~np.where(interval, inside_interval, inside), "outside_window")
     if range_check:
         counts["out_of_range"] = gross_range_check(table, valid_range)
     return counts

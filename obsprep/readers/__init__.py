@@ -28,7 +28,7 @@ def _import_products() -> None:
 
 _import_products()
 
-__all__ = ["read", "read_each_part", "read_parts", "guess_kind", "available_kinds", "Reader", "register_reader"]
+__all__ = ["read", "read_parts", "guess_kind", "available_kinds", "Reader", "register_reader"]
 
 
 def available_kinds() -> list[str]:
@@ -76,46 +76,32 @@ def read_parts(path, kind=None, reader_profile=None, max_values=None) -> list:
 
     if max_values is None:
         return [None]
-    ds = open_dataset(path, profile=_profile_without_options(reader_profile), load=False)
+    profile = {k: v for k, v in dict(reader_profile or {}).items() if k != "good_flag_meanings"}
+    ds = open_dataset(path, profile=profile or None, load=False)
     try:
         if kind in (None, "auto"):
             kind = guess_kind(path, ds)
-        return _part_slices(ds, kind, max_values)
+        reader = registered_readers().get(kind)
+        try:
+            dimension = reader.slice_dimension(ds) if reader is not None else None
+        except InputFileError:
+            dimension = None  # read whole: the reader itself will say what is wrong
+        if dimension is None or dimension not in ds.sizes:
+            return [None]
+        sliced = [v for v in ds.data_vars.values() if dimension in v.dims]
+        n_rows = ds.sizes[dimension]
+        per_row = max((v.size // n_rows for v in sliced), default=1) or 1
+        chunk = 1
+        for v in sliced:
+            sizes = v.encoding.get("chunksizes")
+            if sizes:
+                chunk = max(chunk, int(sizes[v.dims.index(dimension)]))
+        rows = max(chunk, (max(1, int(max_values) // per_row) // chunk) * chunk)
+        if rows >= n_rows:
+            return [None]
+        return [slice(start, min(start + rows, n_rows)) for start in range(0, n_rows, rows)]
     finally:
         ds.close()
-
-
-def _profile_without_options(reader_profile) -> dict | None:
-    """The reader profile as :func:`~obsprep.readers.cf.open_dataset` takes it (its
-    ``good_flag_meanings`` is a reader option, not an override of the file)."""
-    profile = {k: v for k, v in dict(reader_profile or {}).items() if k != "good_flag_meanings"}
-    return profile or None
-
-
-def _part_slices(ds, kind, max_values) -> list:
-    """The ``row_slice`` arguments of :func:`read_parts` for the open dataset ``ds`` read by
-    reader ``kind``."""
-    if max_values is None:
-        return [None]
-    reader = registered_readers().get(kind)
-    try:
-        dimension = reader.slice_dimension(ds) if reader is not None else None
-    except InputFileError:
-        dimension = None  # read whole: the reader itself will say what is wrong
-    if dimension is None or dimension not in ds.sizes:
-        return [None]
-    sliced = [v for v in ds.data_vars.values() if dimension in v.dims]
-    n_rows = ds.sizes[dimension]
-    per_row = max((v.size // n_rows for v in sliced), default=1) or 1
-    chunk = 1
-    for v in sliced:
-        sizes = v.encoding.get("chunksizes")
-        if sizes:
-            chunk = max(chunk, int(sizes[v.dims.index(dimension)]))
-    rows = max(chunk, (max(1, int(max_values) // per_row) // chunk) * chunk)
-    if rows >= n_rows:
-        return [None]
-    return [slice(start, min(start + rows, n_rows)) for start in range(0, n_rows, rows)]
 
 
 def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_slice=None,
@@ -152,24 +138,6 @@ def read(path, kind=None, *, reader_profile=None, leave_out_rejected=False, row_
         The observation table; ``file_id`` is ``path``.  ``attrs["kind"]`` is the reader kind,
         ``attrs["variables"]`` the file variables the reader used and their units.
     """
-    return next(_read_in_parts(path, kind, reader_profile, leave_out_rejected, options,
-                               row_slice=row_slice))
-
-
-def read_each_part(path, kind=None, *, reader_profile=None, max_values=None,
-                   leave_out_rejected=False, **options):
-    """The tables of :func:`read` for each part of :func:`read_parts` (``max_values``), in
-    order, from one opening of the file (a generator): the same tables as calling
-    ``read(path, row_slice=part, ...)`` for each part, without opening the file and guessing
-    its reader again for every part and for the slicing."""
-    return _read_in_parts(path, kind, reader_profile, leave_out_rejected, options,
-                          max_values=max_values)
-
-
-def _read_in_parts(path, kind, reader_profile, leave_out_rejected, options, *, row_slice=None,
-                   max_values=None):
-    """:func:`read` of ``row_slice``, or of each part of ``max_values`` (see
-    :func:`read_each_part`): a generator of tables."""
     from obsprep.model.table import add_warning
     from obsprep.readers.cf import (
         collecting_file_warnings,
@@ -203,45 +171,38 @@ def _read_in_parts(path, kind, reader_profile, leave_out_rejected, options, *, r
         parsed = reader_options(readers[kind], options)
     # lazy: a variable is read (once, then cached) when the reader first uses it, so the
     # many variables of a product that obsprep does not need are never read or decoded
-    whole = open_dataset(path, profile=profile or None, load=False)
+    ds = open_dataset(path, profile=profile or None, load=False)
+    whole = ds
     try:
         if auto:
-            kind = guess_kind(path, whole)  # refuses model output
+            kind = guess_kind(path, ds)  # refuses model output
             parsed = reader_options(readers[kind], declared_options(readers[kind], options))
         else:
-            refuse_model_output(whole, path)  # whatever kind is named
-        slices = [row_slice] if max_values is None else _part_slices(whole, kind, max_values)
-        for part in slices:
-            ds = whole
-            try:
-                if part is not None:
-                    dimension = readers[kind].slice_dimension(ds)
-                    if dimension is None:
-                        raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
-                    ds = ds.isel({dimension: part})
-                with collecting_file_warnings() as quirks:  # the CF layer's per-file warnings
-                    table = readers[kind].read_dataset(ds, path, options=parsed,
-                                                       leave_out_rejected=bool(leave_out_rejected),
-                                                       reading_part=part is not None)
-                for message in quirks:
-                    add_warning(table, message)
-                if part is not None:
-                    _rows_of_whole_file(table, whole, ds, dimension, part.start or 0, path)
-            except InputFileError:
-                raise
-            except MemoryError as exc:  # one file too big for memory is that file's reason
-                raise out_of_memory(path, whole) from exc
-            except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
-                raise unreadable_data(path, exc) from exc
-            finally:
-                if ds is not whole:
-                    ds.close()
-            table.attrs["kind"] = kind
-            table.attrs.setdefault("variables", {})
-            yield table
-            del table, ds  # the part's data: not held while the next part is read
+            refuse_model_output(ds, path)  # whatever kind is named
+        if row_slice is not None:
+            dimension = readers[kind].slice_dimension(ds)
+            if dimension is None:
+                raise InputFileError(path, f"reader '{kind}' cannot read a file in parts")
+            ds = ds.isel({dimension: row_slice})
+        with collecting_file_warnings() as quirks:  # the CF layer's per-file warnings
+            table = readers[kind].read_dataset(ds, path, options=parsed,
+                                               leave_out_rejected=bool(leave_out_rejected),
+                                               reading_part=row_slice is not None)
+        for message in quirks:
+            add_warning(table, message)
+        if row_slice is not None:
+            _rows_of_whole_file(table, whole, ds, dimension, row_slice.start or 0, path)
+    except InputFileError:
+        raise
+    except MemoryError as exc:  # one file too big for memory is that file's reason
+        raise out_of_memory(path, whole) from exc
+    except (OSError, RuntimeError) as exc:  # the netCDF/HDF5 library, reading the data
+        raise unreadable_data(path, exc) from exc
     finally:
-        whole.close()
+        ds.close()
+    table.attrs["kind"] = kind
+    table.attrs.setdefault("variables", {})
+    return table
 
 
 def _rows_of_whole_file(table, whole, part, dimension, start, path) -> None:

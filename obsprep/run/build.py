@@ -25,13 +25,12 @@ from obsprep.geo.grid.base import CLASSIFY_REASONS
 from obsprep.model.quantities import QUANTITIES, QUANTITY_NAMES
 from obsprep.model.table import WARNINGS, kept, reject
 from obsprep.qc import find_duplicates, grid_checks, table_checks
-from obsprep.readers import read_each_part
+from obsprep.readers import read, read_parts
 from obsprep.readers.cf import NOT_IN_TABLE, out_of_memory
 from obsprep.run.execution import FixedTreeReducer, run_tasks
 from obsprep.run.ledger import NO_FILES, UNREADABLE, Ledger, LedgerEntry, entry_from_table, rejected_counts
 from obsprep.run.log import LOGGER, file_log
 from obsprep.run.outcome import Outcome, build_outcome
-from obsprep.run.readahead import read_ahead
 from obsprep.run.tasks import FileResult, FileTask
 from obsprep.settings.config import Config, load_config, output_sensors
 from obsprep.superobs import Accumulator
@@ -150,51 +149,31 @@ def _rows(array: np.ndarray, selected: np.ndarray) -> np.ndarray:
     return array if selected.all() else array[selected]
 
 
-def read_file_parts(source, path: str):
-    """The observation tables of one file of ``source``, one per part, in order (a generator).
-
-    A file bigger than :data:`READ_PART_VALUES` values per variable is read in parts along
-    its reader's slice dimension (:func:`obsprep.readers.read_each_part`); rows the reader
-    rejects are left out and counted (``leave_out_rejected``).  Raises
-    :class:`~obsprep.exceptions.InputFileError` (or ``MemoryError``) for a file, or a part,
-    that cannot be read.
-    """
-    if not os.path.exists(path):
-        raise InputFileError(path, "file not found")
-    # one opening of the file for the slicing and every part (read_each_part)
-    yield from read_each_part(path, kind=source.kind, reader_profile=source.reader,
-                              max_values=READ_PART_VALUES, leave_out_rejected=True,
-                              sensor=source.sensor, **source.options)
-
-
-def read_task_parts(task: FileTask):
-    """:func:`read_file_parts` of one task (for reading ahead across the files of a build)."""
-    return read_file_parts(task.source, task.path)
-
-
 def process_file(cfg: Config, grid, source, path: str, file_index: int, sensor_names: list[str],
-                 strict: bool = False, duplicate_groups=None, parts=None) -> FileResult:
+                 strict: bool = False, duplicate_groups=None) -> FileResult:
     """Read, check, assign errors, locate and accumulate one file of one source.
 
-    The file's parts (:func:`read_file_parts`) are each processed like a file, their ledger
-    counts added and their accumulators merged in order; the next part is read in a
-    background thread while one is processed (:func:`obsprep.run.readahead.read_ahead`).
-    When any part cannot be read, the whole file is listed as unreadable and nothing of it is
-    used.
+    A file bigger than :data:`READ_PART_VALUES` values per variable is read in parts along its
+    reader's slice dimension (:func:`obsprep.readers.read_parts`), each part processed like a
+    file, their ledger counts added and their accumulators merged in order.  When any part
+    cannot be read, the whole file is listed as unreadable and nothing of it is used.
 
     ``duplicate_groups``: the file's profiles that lost the cross-file duplicate check
-    (default: looked up in ``cfg.duplicate_groups``, filled by :func:`build`).  ``parts``:
-    the file's tables, already being read by the caller (an iterator as
-    :func:`read_file_parts` gives; default: read here).
+    (default: looked up in ``cfg.duplicate_groups``, filled by :func:`build`).
     """
     size = os.path.getsize(path) if os.path.exists(path) else 0
     if duplicate_groups is None:
         duplicate_groups = cfg.duplicate_groups.get((source.index, path), ())
     results = []
-    if parts is None:
-        parts = read_ahead(read_file_parts(source, path))
     try:
-        for table in parts:
+        if not os.path.exists(path):
+            raise InputFileError(path, "file not found")
+        parts = read_parts(path, kind=source.kind, reader_profile=source.reader,
+                           max_values=READ_PART_VALUES)
+        for part in parts:
+            table = read(path, kind=source.kind, reader_profile=source.reader,
+                         leave_out_rejected=True, row_slice=part, sensor=source.sensor,
+                         **source.options)
             results.append(_process_table(cfg, grid, source, path, table, file_index,
                                           sensor_names, size, duplicate_groups))
             del table
@@ -478,7 +457,7 @@ def build(config, date=None, out=None, strict=False, progress=False, jobs=1,
         # the one cross-file step: decide duplicate profiles before the independent per-file work
         cfg.duplicate_groups = find_duplicates(tasks)
         executed = run_tasks(process_file, cfg, grid, tasks, sensor_names, strict=strict, jobs=jobs,
-                             scheduler=scheduler, progress=progress, read_ahead=read_task_parts)
+                             scheduler=scheduler, progress=progress)
 
         ledger = Ledger()
         by_source = {}

@@ -31,7 +31,6 @@ import threading
 from concurrent.futures import ProcessPoolExecutor
 
 from obsprep.run.ledger import DUPLICATE_FILE, UNREADABLE, LedgerEntry
-from obsprep.run.readahead import FilesReadAhead
 from obsprep.run.tasks import ExecutionResult, FileResult, FileTask
 from obsprep.superobs import Accumulator
 
@@ -230,7 +229,7 @@ def _collect(results, reducer, outcome, bar):
 
 
 def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, scheduler=None,
-              progress=False, read_ahead=None) -> ExecutionResult:
+              progress=False) -> ExecutionResult:
     """Run the per-file work for every task and reduce the accumulators in the fixed tree.
 
     Parameters
@@ -249,12 +248,6 @@ def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, 
         Address of a running Dask scheduler (or a client) to run the tasks on.
     progress : bool
         Show a progress bar over the files.
-    read_ahead : callable, optional
-        ``read_ahead(task)`` gives the parts of a task's file (an iterator of what ``process``
-        takes as ``parts``, :func:`obsprep.run.build.read_file_parts`).  When the tasks run in
-        this process, the parts are then read one part ahead in a background thread, across
-        file boundaries (:class:`obsprep.run.readahead.FilesReadAhead`), and ``process`` is
-        called with ``parts=`` the parts of its file; results are the same.
 
     Returns
     -------
@@ -285,15 +278,6 @@ def run_tasks(process, cfg, grid, tasks, sensor_names, *, strict=False, jobs=1, 
                                      initargs=(process, cfg, grid, sensor_names, strict)) as pool:
                 _collect(_in_task_order(tasks, duplicates, pool.map(_run_in_worker, to_run)),
                          reducer, outcome, bar)
-        elif read_ahead is not None and to_run:
-            # the reading thread holds the file lock while it reads, as run_one_task would
-            files = FilesReadAhead(read_ahead, to_run, lock=_FILE_LOCK)
-            try:
-                ran = (process(cfg, grid, t.source, t.path, t.file_index, sensor_names, strict,
-                               parts=files.parts_of(t)) for t in to_run)
-                _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)
-            finally:
-                files.close()
         else:
             ran = (run_one_task(process, cfg, grid, sensor_names, strict, t) for t in to_run)
             _collect(_in_task_order(tasks, duplicates, ran), reducer, outcome, bar)

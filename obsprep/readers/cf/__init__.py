@@ -91,7 +91,6 @@ from obsprep.readers.cf.table import (  # noqa: F401
     NOT_IN_TABLE,
     ROW_VARIABLE,
     DecodedVariable,
-    PerRow,
     decode_data_variable,
     labels_as_strings,
     observation_table,
@@ -122,7 +121,6 @@ from obsprep.readers.cf.valid import (  # noqa: F401
 )
 
 __all__ = [
-    "PerRow",
     "DEFAULT_GOOD_FLAG_MEANINGS",
     "option",
     "parse_string",

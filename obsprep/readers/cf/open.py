@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import inspect
 import math
 import os
 
@@ -21,12 +20,6 @@ _NETCDF_MAGIC = (*CLASSIC_MAGICS, b"\x89HDF\r\n\x1a\n")
 DEFLATE_MAX_RATIO = 1032
 #: codecs of netCDF-4 with no such bound known here; their variables are not size-checked
 _UNBOUNDED_CODECS = ("szip", "zstd", "bzip2", "blosc")
-#: open_dataset keywords that skip building pandas indexes for dimension coordinates (no reader
-#: selects by label; building them makes xarray import every duck-array library it knows of);
-#: empty for an xarray without the option
-_WITHOUT_INDEXES = ({"create_default_indexes": False}
-                    if "create_default_indexes" in inspect.signature(xr.open_dataset).parameters
-                    else {})
 #: values above which a variable the file cannot hold is refused before anything is read
 #: (2^24: 128 MiB as float64; smaller unwritten variables are cheap to read as fill)
 IMPLAUSIBLE_VALUES = 1 << 24
@@ -69,8 +62,7 @@ def open_dataset(path, profile: dict | None = None, load: bool = True) -> xr.Dat
     check_declared_sizes(path, size)
     try:
         ds = xr.open_dataset(path, engine="netcdf4", mask_and_scale=not profile,
-                             decode_times=False, decode_timedelta=False, decode_coords=False,
-                             **_WITHOUT_INDEXES)
+                             decode_times=False, decode_timedelta=False, decode_coords=False)
     except MemoryError as exc:
         raise out_of_memory(path) from exc
     except (OSError, RuntimeError, ValueError, KeyError, IndexError) as exc:

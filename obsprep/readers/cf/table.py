@@ -165,26 +165,6 @@ def require_values(path, decoded: list[DecodedVariable], *, reading_part: bool) 
 NOT_IN_TABLE = "rejected_not_in_table"
 
 
-@dataclass(frozen=True)
-class PerRow:
-    """A column computed value by value from ``arrays`` by ``function``, evaluated by
-    :func:`observation_table` only at the rows it keeps (a swath's rejected pixels are most of
-    it: their times are never computed).
-
-    ``function`` must work value by value (numpy elementwise operations: the value of a row
-    depends on that row's inputs only), so evaluating it at some rows gives exactly what
-    evaluating it at all rows and then selecting would.  The arrays broadcast to the data
-    variable's shape.
-    """
-
-    function: object
-    arrays: tuple
-
-    def at(self, flat_rows) -> np.ndarray:
-        """The column at the rows ``flat_rows(array)`` selects of each flattened argument."""
-        return self.function(*(flat_rows(a) for a in self.arrays))
-
-
 #: table attribute: the variable whose flat index the ``row`` column is
 ROW_VARIABLE = "row_variable"
 
@@ -195,9 +175,7 @@ def observation_table(path, opts: SourceOptions, decoded: DecodedVariable, *, lo
                       leave_out_rejected=False) -> pd.DataFrame:
     """The observation table for one decoded variable.
 
-    Every array argument is broadcast to the variable's shape and flattened in source order;
-    ``time``, ``time_end``, ``lon``, ``lat``, ``depth`` may also be a :class:`PerRow`,
-    computed at the rows kept only.
+    Every array argument is broadcast to the variable's shape and flattened in source order.
     ``row`` defaults to the flat index of the value in the source variable; ``keep`` (boolean)
     drops entries that are not observations at all (profile padding); ``missing`` (boolean)
     marks extra rows as ``missing_value`` (e.g. the vertical coordinate is fill).
@@ -215,8 +193,6 @@ def observation_table(path, opts: SourceOptions, decoded: DecodedVariable, *, lo
     shape = decoded.values.shape
 
     def flat(a, dtype=None):
-        if isinstance(a, PerRow):
-            return np.asarray(a.at(flat), dtype=dtype)
         a = np.asarray(a, dtype=dtype)
         # an array of the full shape is flattened as it is (a view, no copy); others broadcast
         a = a.ravel() if a.shape == shape else np.broadcast_to(a, shape).ravel()
@@ -234,35 +210,21 @@ def observation_table(path, opts: SourceOptions, decoded: DecodedVariable, *, lo
     if decoded.good is not None:
         ordered.append((~flat(decoded.good, bool), "provider_flag"))
     ordered += [(flat(mask, bool), reason) for mask, reason in rejections]
-    # the first reason of a row wins: written last, going through the reasons backwards (one
-    # pass per reason, no test of the code so far)
-    for mask, reason in reversed(ordered):
-        np.putmask(code, mask, reasons.index(reason))
+    for mask, reason in ordered:  # loop over the few reasons, not the rows
+        code[mask & (code < 0)] = reasons.index(reason)
     leave_out = bool(leave_out_rejected)
     select = None
     not_in_table = {}
     if leave_out:
-        # one count per reason used (a handful), no int64 copy of the codes for a bincount
-        used = dict.fromkeys(reasons.index(reason) for _, reason in ordered)
-        not_in_table = {reasons[k]: int(c) for k in sorted(used)
-                        if (c := np.count_nonzero(code == k))}
+        counts = np.bincount(code + 1, minlength=len(reasons) + 1)
+        not_in_table = {reasons[k - 1]: int(c) for k, c in enumerate(counts) if k and c}
         if not_in_table:
             select = np.flatnonzero(code < 0)  # indices: one scan, then cheap gathers
             values, code = values[select], code[select]
 
     def column(a, dtype=None):
-        if isinstance(a, PerRow):  # evaluated at the selected rows only
-            return np.asarray(a.at(selected), dtype=dtype)
-        # selected first, then converted (value by value: the same numbers, fewer of them)
-        return np.asarray(selected(a), dtype=dtype)
-
-    def selected(a):
-        if select is None:
-            return flat(a)
-        a = np.asarray(a)
-        if a.ndim and a.size and not any(a.strides):  # one value broadcast: no full-size copy
-            return np.full(select.size, a.flat[0], dtype=a.dtype)
-        return flat(a).take(select)
+        a = flat(a, dtype)
+        return a if select is None else a.take(select)
 
     rows_number_the_variable = row is None and keep_flat is None
     if rows_number_the_variable:

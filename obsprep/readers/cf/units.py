@@ -2,10 +2,7 @@
 
 from __future__ import annotations
 
-import json
-import os
 import tokenize
-from pathlib import Path
 
 import numpy as np
 import xarray as xr
@@ -40,13 +37,12 @@ def _registry():
 
 
 def preload() -> None:
-    """Load what reading a file needs on first use (xarray's netCDF4 backend, the unit
-    conversions of earlier runs, :func:`cached_conversions`), so that worker processes forked
-    afterwards inherit it instead of each loading it again.  The CF/udunits registry itself
-    (half a second to load) is loaded only when a pair of unit strings is new."""
+    """Import what reading a file needs on first use (the CF/udunits unit registry, xarray's
+    netCDF4 backend), so that worker processes forked afterwards inherit it instead of each
+    paying the half second of loading it again."""
     import xarray.backends.netCDF4_  # noqa: F401
 
-    _load_cached_conversions()
+    _registry()
 
 
 def convert_units(values, units: str, canonical: str, path, variable=None,
@@ -60,17 +56,12 @@ def convert_units(values, units: str, canonical: str, path, variable=None,
     Returns float64.  Raises :class:`InputFileError` naming ``variable``, the units found and
     the units expected when the string is not a unit or has the wrong dimension.
     """
-    # a change of dtype copies: the widened array is this function's own
-    widened = isinstance(values, np.ndarray) and values.dtype != np.float64
     values = np.asarray(values, dtype=np.float64)
     units = str(units).strip()
     if units == canonical:
         return values
     scale, offset = _affine_conversion(units, canonical, path, variable)
-    if scale == 1.0 and widened:
-        converted = values  # already a new array, and x * 1.0 is x
-    else:
-        converted = np.multiply(values, scale)  # one new array; the caller's stays as it was
+    converted = np.multiply(values, scale)  # one new array; the caller's stays as it was
     if not difference and offset:
         converted += offset
     return converted
@@ -78,68 +69,6 @@ def convert_units(values, units: str, canonical: str, path, variable=None,
 
 #: (units, canonical) -> (scale, offset) of the affine map between them, see _affine_conversion
 _AFFINE_CONVERSIONS: dict[tuple[str, str], tuple[float, float]] = {}
-#: name of the file, in obsprep's user cache directory, keeping the maps of earlier runs
-CONVERSIONS_CACHE_FILE = "unit-conversions.json"
-_CACHE_LOADED = False
-
-
-def cached_conversions_path() -> Path:
-    """Where the unit conversions of earlier runs are kept: ``$XDG_CACHE_HOME/obsprep/``
-    (default ``~/.cache/obsprep/``) + :data:`CONVERSIONS_CACHE_FILE`."""
-    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
-    return Path(base) / "obsprep" / CONVERSIONS_CACHE_FILE
-
-
-def _registry_versions() -> dict:
-    """Versions of the packages whose registry gives the maps (a new version: maps computed
-    again, since a unit definition may have changed)."""
-    from importlib.metadata import PackageNotFoundError, version
-
-    found = {}
-    for package in ("pint", "cf_xarray"):
-        try:
-            found[package] = version(package)
-        except PackageNotFoundError:
-            found[package] = ""
-    return found
-
-
-def _load_cached_conversions() -> None:
-    """Fill :data:`_AFFINE_CONVERSIONS` from the cache file (once per process).
-
-    The file holds the ``(scale, offset)`` pint gave for each pair of unit strings met before,
-    as exact decimal representations of the float64 values, with the versions of the
-    registry's packages; a file of other versions, or one that cannot be read, is ignored (the
-    maps are then asked of pint again, as without a cache)."""
-    global _CACHE_LOADED
-    if _CACHE_LOADED:
-        return
-    _CACHE_LOADED = True
-    try:
-        with open(cached_conversions_path(), encoding="utf-8") as fh:
-            stored = json.load(fh)
-        if stored.get("versions") != _registry_versions():
-            return
-        for units, canonical, scale, offset in stored.get("maps", []):
-            _AFFINE_CONVERSIONS.setdefault((str(units), str(canonical)), (float(scale), float(offset)))
-    except (OSError, ValueError, TypeError, AttributeError):
-        return
-
-
-def _store_cached_conversions() -> None:
-    """Write :data:`_AFFINE_CONVERSIONS` to the cache file (atomically: a process reading it
-    meanwhile sees the old or the new file).  A cache directory that cannot be written only
-    means the next run asks pint again."""
-    path = cached_conversions_path()
-    maps = [[u, c, s, o] for (u, c), (s, o) in sorted(_AFFINE_CONVERSIONS.items())]
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        partial = path.with_name(f"{path.name}.{os.getpid()}.partial")
-        partial.write_text(json.dumps({"versions": _registry_versions(), "maps": maps}),
-                           encoding="utf-8")
-        os.replace(partial, path)
-    except OSError:
-        return
 
 
 def _affine_conversion(units: str, canonical: str, path, variable) -> tuple[float, float]:
@@ -148,13 +77,9 @@ def _affine_conversion(units: str, canonical: str, path, variable) -> tuple[floa
     Every CF unit conversion obsprep makes is affine (a factor, plus an offset for temperature
     scales); pint is asked for f(0) and f(1) once per pair of unit strings and the map is
     applied with numpy, instead of pint converting every array (slow for offset units).  A
-    third point checks that the map is affine.  The maps found are kept in the user's cache
-    directory (:func:`cached_conversions_path`), so a later run does not load pint for the
-    same unit strings; the numbers are those pint gave, so the result is the same.
+    third point checks that the map is affine.
     """
     key = (units, canonical)
-    if key not in _AFFINE_CONVERSIONS:
-        _load_cached_conversions()
     if key not in _AFFINE_CONVERSIONS:
         import pint
 
@@ -172,7 +97,6 @@ def _affine_conversion(units: str, canonical: str, path, variable) -> tuple[floa
                                        f"conversion; obsprep converts factors and offsets only",
                                  variable=variable)
         _AFFINE_CONVERSIONS[key] = (scale, offset)
-        _store_cached_conversions()
     return _AFFINE_CONVERSIONS[key]
 
 

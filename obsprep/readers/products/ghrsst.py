@@ -48,7 +48,6 @@ from obsprep.model.table import add_warning
 from obsprep.readers import cf
 from obsprep.readers.products.sst_diurnal import (
     DiurnalGuardOptions,
-    diurnal_guard_applies,
     diurnal_warming_rejections,
     parse_choice,
 )
@@ -323,11 +322,8 @@ class _GhrsstReader(Reader):
         dtime_var = self._pixel(ds, name, "sst_dtime", path)
         if dtime_var is not None:
             seconds = cf.values_in_units(dtime_var, "s", path, default_units="s")
-            seconds = cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path)
-            # NaN or out of range -> NaT -> bad_time later; computed at the rows the table
-            # keeps only, unless the diurnal guard needs the time of every pixel
-            time = (cf.add_seconds(time, seconds) if diurnal_guard_applies(opts, quantity)
-                    else cf.PerRow(cf.add_seconds, (time, seconds)))
+            # NaN or out of range -> NaT -> bad_time later
+            time = cf.add_seconds(time, cf.broadcast_to_variable(seconds, dtime_var.dims, sst, path=path))
             used.append("sst_dtime")
         else:
             _absent(warnings, "sst_dtime")

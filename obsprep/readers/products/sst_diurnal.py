@@ -77,12 +77,6 @@ def find_wind_speed(ds, name) -> str | None:
     return None
 
 
-def diurnal_guard_applies(options, quantity) -> bool:
-    """True when the diurnal guard screens values of SST type ``quantity`` (guard on, skin or
-    subskin SST): it then needs the time and position of every pixel."""
-    return options.diurnal_guard != "off" and quantity.name in DIURNAL_WARMING_TYPES
-
-
 def diurnal_warming_rejections(ds, name, path, options, quantity, time, lon, lat, warnings,
                                used) -> list:
     """``[(mask, "diurnal_warming")]`` for the values of ``name`` (SST type ``quantity``) the
@@ -91,7 +85,7 @@ def diurnal_warming_rejections(ds, name, path, options, quantity, time, lon, lat
     ``time``, ``lon``, ``lat`` broadcast to the variable's shape; a wind speed (m s-1, a fill
     wind is not windy) is read for ``night_or_windy``; a one-line warning is appended to
     ``warnings`` when the file has no wind, and the wind variable to ``used``."""
-    if not diurnal_guard_applies(options, quantity):
+    if options.diurnal_guard == "off" or quantity.name not in DIURNAL_WARMING_TYPES:
         return []
     shape = ds[name].shape
     day = is_daytime(np.broadcast_to(time, shape), np.broadcast_to(lon, shape),
