@@ -156,7 +156,8 @@ def _no_reading(monkeypatch):
     def must_not_read(*args, **kwargs):
         raise AssertionError("an input file was read before the output directory was checked")
 
-    monkeypatch.setattr(build_module, "read_each_part", must_not_read)  # the only file reader
+    monkeypatch.setattr(build_module, "read", must_not_read)
+    monkeypatch.setattr(build_module, "read_parts", must_not_read)
     monkeypatch.setattr(build_module, "find_duplicates", must_not_read)
 
 
