@@ -25,7 +25,7 @@ from itertools import combinations
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.uncertainty import Blocks, blocked_ratio, with_floor
+from obsprep.audit.uncertainty import Blocks, blocked_ratio, centred_squares, gaussian_floor, with_floor
 
 MATCH_KEYS = ("slot", "j", "i", "k", "time_end")
 
@@ -95,10 +95,10 @@ def pair_statistics(a, b, sigma_a, sigma_b, blocks: Blocks) -> dict:
         return {"n": n, "mean_difference": np.nan, "mean_difference_se": np.nan,
                 "var_difference": np.nan, "expected_var": expected, "ratio": np.nan,
                 "ratio_se": np.nan, "estimate": None}
-    centred = (d - d.mean()) ** 2 * (n / (n - 1.0))
+    centred = centred_squares(d)
     ratio = blocked_ratio(centred, expected_terms, blocks)
-    # Gaussian floor of its standard error: var((d - d_mean)^2) = 2 var(d)^2 per pair
-    ratio = with_floor(ratio, float(np.sqrt(2.0 * n) * centred.mean() / expected_terms.sum()))
+    # Gaussian floor of its standard error, at the sample variance of every difference
+    ratio = with_floor(ratio, gaussian_floor(np.full(n, centred.mean()), expected_terms))
     mean = blocked_ratio(d, np.ones(n), blocks)
     return {"n": n, "mean_difference": float(d.mean()), "mean_difference_se": mean.se,
             "var_difference": float(centred.mean()), "expected_var": expected,

@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 
 from obsprep.audit.innovations import ensemble_mean_error_factor
-from obsprep.audit.uncertainty import Blocks, blocked_least_squares
+from obsprep.audit.uncertainty import Blocks, blocked_least_squares, centred_squares
 
 #: fewest super-observations with more than one raw value the fit needs
 MIN_MULTIPLE = 30
@@ -71,7 +71,7 @@ def estimate_correlation_and_representation(group: pd.DataFrame, members: int,
         out["estimate_note"] = "too few super-observations of several raw values"
         return out
     d, spread, raw2, n, sampling2 = d[use], spread[use], raw2[use], n[use], sampling2[use]
-    centred = (d - d.mean()) ** 2 * (m / (m - 1.0))
+    centred = centred_squares(d)
     response = centred - ensemble_mean_error_factor(members) * spread - raw2 / n - sampling2
     design = np.stack([np.ones(m), raw2 * (1.0 - 1.0 / n)], axis=1)
     if np.std(design[:, 1]) < 0.05 * np.mean(design[:, 1]):

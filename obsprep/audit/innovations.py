@@ -42,7 +42,14 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from obsprep.audit.uncertainty import NOT_ESTIMATED, Blocks, blocked_ratio, with_floor
+from obsprep.audit.uncertainty import (
+    NOT_ESTIMATED,
+    Blocks,
+    blocked_ratio,
+    centred_squares,
+    gaussian_floor,
+    with_floor,
+)
 
 
 def ensemble_mean_error_factor(members: int) -> float:
@@ -74,8 +81,7 @@ def weighted_factor(centred, sigma_o2, background, blocks: Blocks):
     weights = sigma_o2 / expected ** 2
     factor = blocked_ratio(weights * (centred - background), weights * sigma_o2, blocks)
     expected = max(factor.value, 0.0) * sigma_o2 + background
-    floor = np.sqrt(2.0 * np.sum((weights * expected) ** 2)) / np.sum(weights * sigma_o2)
-    return with_floor(factor, float(floor))
+    return with_floor(factor, gaussian_floor(weights * expected, weights * sigma_o2))
 
 
 def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: int = 0,
@@ -115,7 +121,7 @@ def innovation_statistics(d, sigma_o, blocks: Blocks, sigma_ens2=None, members: 
            "desroziers_estimate": NOT_ESTIMATED}
     if n < 3:
         return out
-    centred = (d - d.mean()) ** 2 * (n / (n - 1.0))
+    centred = centred_squares(d)
     bias = blocked_ratio(d, np.ones(n), blocks)
     mean_o2 = float(sigma_o2.mean())
     upper = blocked_ratio(centred, sigma_o2, blocks)

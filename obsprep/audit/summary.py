@@ -29,7 +29,7 @@ from obsprep.audit.configure import estimate_correlation_and_representation
 from obsprep.audit.innovations import innovation_table
 from obsprep.audit.noise import raw_noise_check
 from obsprep.audit.triple import triple_collocation_table
-from obsprep.audit.uncertainty import Blocks
+from obsprep.audit.uncertainty import Blocks, centred_squares
 from obsprep.audit.verdict import Evidence, decide, pair_estimate
 
 DEFAULT_TOLERANCE = 1.5
@@ -131,8 +131,7 @@ def _pair_evidence(table, quantity, sensor, partners: dict) -> list:
         if pairs is None or len(pairs) < 3:
             continue
         d = pairs[f"value_{sensor}"].to_numpy(float) - pairs[f"value_{partner}"].to_numpy(float)
-        centred = (d - d.mean()) ** 2 * (len(d) / (len(d) - 1.0))
-        estimate = pair_estimate(centred, pairs[f"visible_{sensor}"], pairs[f"visible_{partner}"],
+        estimate = pair_estimate(centred_squares(d), pairs[f"visible_{sensor}"], pairs[f"visible_{partner}"],
                                  known.value, known.se, Blocks.from_table(pairs))
         found.append(Evidence(f"pair collocation with {partner} (its F from innovations)",
                               "estimate", estimate))

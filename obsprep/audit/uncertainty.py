@@ -105,6 +105,21 @@ class BlockedEstimate:
 NOT_ESTIMATED = BlockedEstimate(np.nan, np.nan, 0, 0, 0, False, 0)
 
 
+def centred_squares(x) -> np.ndarray:
+    """(x - mean x)^2 n / (n - 1): squared deviations whose mean is the sample variance with
+    ddof = 1 (same units as x squared)."""
+    x = np.asarray(x, dtype=np.float64)
+    return (x - x.mean()) ** 2 * (x.size / (x.size - 1.0))
+
+
+def gaussian_floor(expected_squares, denominator) -> float:
+    """sqrt(2 sum e_i^2) / sum c_i: the standard error of sum x_i^2 / sum c_i for independent
+    Gaussian x_i with E[x_i^2] = e_i (var(x^2) = 2 E[x^2]^2, textbook); the floor
+    :func:`with_floor` applies.  Weighted sums pass the weighted terms."""
+    e = np.asarray(expected_squares, dtype=np.float64)
+    return float(np.sqrt(2.0 * np.sum(e * e)) / np.sum(denominator))
+
+
 def with_floor(estimate: BlockedEstimate, floor_se: float) -> BlockedEstimate:
     """The estimate with its standard error raised to at least ``floor_se``.
 

@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio, with_floor
+from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio, gaussian_floor, with_floor
 
 #: Cochran's Q below this p-value: the estimates disagree
 AGREEMENT_LEVEL = 0.01
@@ -95,8 +95,8 @@ def pair_estimate(centred_difference, visible_own, visible_partner, partner_fact
     ratio = blocked_ratio(centred - partner_factor_sq * partner2, own2, blocks)
     if not np.isfinite(ratio.value):
         return ratio
-    # Gaussian floor (obsprep.audit.uncertainty.with_floor): var((d - d_mean)^2) = 2 var(d)^2
-    ratio = with_floor(ratio, float(np.sqrt(2.0 * centred.size) * centred.mean() / own2.sum()))
+    # Gaussian floor (obsprep.audit.uncertainty.with_floor), at the sample variance of d
+    ratio = with_floor(ratio, gaussian_floor(np.full(centred.size, centred.mean()), own2))
     scale = float(partner2.sum() / own2.sum())
     se = float(np.hypot(ratio.se, scale * partner_factor_sq_se))
     return BlockedEstimate(ratio.value, se, ratio.blocks, ratio.dof, ratio.block_cells,
