@@ -10,20 +10,17 @@ mask).
 
 from __future__ import annotations
 
-import json
 import os
-import shutil
 import subprocess
 import sys
-import tempfile
 import textwrap
 from pathlib import Path
 
 import numpy as np
 import pyproj
 import pytest
+from read_only_install import environment, read_only_package, run_read_only  # noqa: F401 (fixture)
 
-import obsprep
 from obsprep.geo.grid import CurvilinearGrid, cell_search
 from obsprep.geo.sphere import half_angle_tangent, unit_vector_components
 
@@ -209,7 +206,7 @@ def test_few_positions_are_searched_without_numba():
               "print(CurvilinearGrid(lon, lat).locate([2.2, 0.4], [1.6, 2.9]), "
               "'numba' in sys.modules)")
     result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                            check=True, env=_environment(os.environ.get("PYTHONPATH", "")))
+                            check=True, env=environment(os.environ.get("PYTHONPATH", "")))
     # a regular 1-degree grid: nearest centres (i, j) = (2, 2) and (0, 3) (by hand)
     assert result.stdout.split() == ["(array([2,", "0]),", "array([2,", "3]))", "False"]
 
@@ -218,7 +215,7 @@ def test_importing_the_grids_does_not_import_numba():
     script = ("import sys, obsprep, obsprep.geo.grid, obsprep.geo.grid.cell_search; "
               "print('numba' in sys.modules)")
     result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                            check=True, env=_environment(os.environ.get("PYTHONPATH", "")))
+                            check=True, env=environment(os.environ.get("PYTHONPATH", "")))
     assert result.stdout.strip() == "False"
 
 
@@ -241,59 +238,11 @@ _RUN_KERNEL = textwrap.dedent("""
                           warnings=[str(w.message) for w in caught])))
 """)
 
-#: as root, mode bits do not stop writes: the subprocess then runs in a mount namespace of its
-#: own (util-linux unshare) in which the package copy is bind-mounted read-only
-_READ_ONLY_MOUNT = ('mount --bind "$0" "$0" && mount -o remount,bind,ro "$0" "$0" && '
-                    'exec "$1" -c "$2"')
-
-
-def _environment(pythonpath, **extra):
-    environment = {k: v for k, v in os.environ.items() if not k.startswith(("NUMBA_", "XDG_"))}
-    environment.update(PYTHONPATH=pythonpath, **extra)
-    return environment
-
-
-def _can_mount_read_only():
-    probe = tempfile.mkdtemp(prefix="obsprep-mount-probe-")
-    try:
-        result = subprocess.run(["unshare", "--mount", "sh", "-c", _READ_ONLY_MOUNT, probe,
-                                 "/bin/sh", f"touch {probe}/written"], capture_output=True)
-        return (result.returncode != 0 and not os.path.exists(os.path.join(probe, "written"))
-                and b"Read-only" in result.stderr)
-    except OSError:
-        return False
-    finally:
-        shutil.rmtree(probe)
-
-
-def test_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(tmp_path):
-    if os.geteuid() == 0 and not _can_mount_read_only():
-        pytest.skip("running as root without a private read-only bind mount (unshare --mount)")
-    read_only_root = tmp_path / "read-only"
-    site = read_only_root / "site"
-    shutil.copytree(Path(obsprep.__file__).parent, site / "obsprep",
-                    ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
-    home = tmp_path / "home"
-    home.mkdir()
+def test_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(read_only_package):  # noqa: F811 (the fixture)
+    site, read_only_root, home = read_only_package
     cache_home = home / "cache"
-    for path in [read_only_root, *read_only_root.rglob("*")]:
-        path.chmod(0o555 if path.is_dir() else 0o444)
-    if os.geteuid() == 0:
-        command = ["unshare", "--mount", "sh", "-c", _READ_ONLY_MOUNT, str(read_only_root),
-                   sys.executable, _RUN_KERNEL]
-    else:
-        command = [sys.executable, "-c", _RUN_KERNEL]
-    environment = _environment(str(site), HOME=str(home), XDG_CACHE_HOME=str(cache_home))
-    try:
-        runs = []
-        for _ in range(2):
-            result = subprocess.run(command, capture_output=True, text=True, cwd="/",
-                                    env=environment)
-            assert result.returncode == 0, result.stderr
-            runs.append(json.loads(result.stdout.splitlines()[-1]))
-    finally:
-        for path in [read_only_root, *read_only_root.rglob("*")]:
-            path.chmod(0o755 if path.is_dir() else 0o644)
+    runs = [run_read_only(_RUN_KERNEL, site, read_only_root, HOME=str(home),
+                          XDG_CACHE_HOME=str(cache_home)) for _ in range(2)]
     first, second = runs
     for run in runs:
         assert Path(run["module"]).is_relative_to(site)

@@ -8,7 +8,6 @@ cosines, pandas groupby and Python's math.fsum for grouped means and spreads.
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import subprocess
@@ -19,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from test_pairs import _READ_ONLY_MOUNT, _environment, read_only_package  # noqa: F401 (fixture)
+from read_only_install import environment, read_only_package, run_read_only  # noqa: F401 (fixture)
 
 from obsprep.superobs import batch_kernels
 from obsprep.superobs.accumulate import (
@@ -308,7 +307,7 @@ def test_importing_the_accumulator_does_not_import_numba():
     script = ("import sys, obsprep, obsprep.superobs.accumulate, obsprep.superobs.batch_kernels; "
               "print('numba' in sys.modules)")
     result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
-                            check=True, env=_environment(os.environ.get("PYTHONPATH", "")))
+                            check=True, env=environment(os.environ.get("PYTHONPATH", "")))
     assert result.stdout.strip() == "False"
 
 
@@ -331,15 +330,7 @@ _RUN_ACCUMULATION = textwrap.dedent("""
 
 
 def _run(site, read_only_root, **extra):
-    if os.geteuid() == 0:
-        command = ["unshare", "--mount", "sh", "-c", _READ_ONLY_MOUNT, str(read_only_root),
-                   sys.executable, _RUN_ACCUMULATION]
-    else:
-        command = [sys.executable, "-c", _RUN_ACCUMULATION]
-    result = subprocess.run(command, capture_output=True, text=True, cwd="/",
-                            env=_environment(str(site), **extra))
-    assert result.returncode == 0, result.stderr
-    return json.loads(result.stdout.splitlines()[-1])
+    return run_read_only(_RUN_ACCUMULATION, site, read_only_root, **extra)
 
 
 def test_kernel_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(

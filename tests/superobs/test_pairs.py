@@ -10,21 +10,18 @@ draws.
 
 from __future__ import annotations
 
-import json
 import math
 import os
-import shutil
 import subprocess
 import sys
-import tempfile
 import textwrap
 from pathlib import Path
 
 import numpy as np
 import pyproj
 import pytest
+from read_only_install import environment, read_only_package, run_read_only  # noqa: F401 (fixture)
 
-import obsprep
 from obsprep.geo.sphere import EARTH_MEAN_RADIUS_M
 from obsprep.superobs.accumulate import _group_index
 from obsprep.superobs.pairs import within_group_pair_sums
@@ -212,7 +209,7 @@ def test_bad_input_is_named(override, message):
 def test_importing_obsprep_does_not_import_numba():
     script = "import sys, obsprep, obsprep.superobs.pairs; print('numba' in sys.modules)"
     result = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True,
-                            env=_environment(os.environ.get("PYTHONPATH", "")))
+                            env=environment(os.environ.get("PYTHONPATH", "")))
     assert result.stdout.strip() == "False"
 
 
@@ -237,67 +234,11 @@ _RUN_KERNEL = textwrap.dedent("""
 _QUARTER_CIRCLE_M = math.pi * EARTH_MEAN_RADIUS_M / 2.0
 
 
-def _environment(pythonpath, **extra):
-    environment = {k: v for k, v in os.environ.items() if not k.startswith(("NUMBA_", "XDG_"))}
-    environment.update(PYTHONPATH=pythonpath, **extra)
-    return environment
-
-
-#: as root, mode bits do not stop writes: the subprocess then runs in a mount namespace of its own
-#: (util-linux unshare) in which the package copy is bind-mounted read-only, so writes fail with
-#: EROFS whoever makes them
-_READ_ONLY_MOUNT = 'mount --bind "$0" "$0" && mount -o remount,bind,ro "$0" "$0" && exec "$1" -c "$2"'
-
-
-@pytest.fixture()
-def read_only_package():
-    """A copy of the obsprep package under a directory that cannot be written to, and a home.
-
-    Yields (site, read_only_root, home): ``site`` goes on PYTHONPATH, everything under
-    ``read_only_root`` is read-only, ``home`` is writable.
-    """
-    as_root = os.geteuid() == 0
-    if as_root and not _can_mount_read_only():
-        pytest.skip("running as root without a private read-only bind mount (unshare --mount)")
-    top = Path(tempfile.mkdtemp(prefix="obsprep-readonly-"))
-    read_only_root = top / "read-only"
-    site = read_only_root / "site"
-    shutil.copytree(Path(obsprep.__file__).parent, site / "obsprep", ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
-    home = top / "home"
-    home.mkdir()
-    for path in [read_only_root, *read_only_root.rglob("*")]:
-        path.chmod(0o555 if path.is_dir() else 0o444)
-    try:
-        yield site, read_only_root, home
-    finally:
-        for path in [read_only_root, *read_only_root.rglob("*")]:
-            path.chmod(0o755 if path.is_dir() else 0o644)
-        shutil.rmtree(top)
-
-
-def _can_mount_read_only():
-    probe = tempfile.mkdtemp(prefix="obsprep-mount-probe-")
-    try:
-        result = subprocess.run(["unshare", "--mount", "sh", "-c", _READ_ONLY_MOUNT, probe, "/bin/sh",
-                                 f"touch {probe}/written"], capture_output=True)
-        return result.returncode != 0 and not os.path.exists(os.path.join(probe, "written")) and b"Read-only" in result.stderr
-    except OSError:
-        return False
-    finally:
-        shutil.rmtree(probe)
-
-
 def _run_kernel(site, read_only_root, **extra):
-    if os.geteuid() == 0:
-        command = ["unshare", "--mount", "sh", "-c", _READ_ONLY_MOUNT, str(read_only_root), sys.executable, _RUN_KERNEL]
-    else:
-        command = [sys.executable, "-c", _RUN_KERNEL]
-    result = subprocess.run(command, capture_output=True, text=True, cwd="/", env=_environment(str(site), **extra))
-    assert result.returncode == 0, result.stderr
-    return json.loads(result.stdout.splitlines()[-1])
+    return run_read_only(_RUN_KERNEL, site, read_only_root, **extra)
 
 
-def test_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(read_only_package):
+def test_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(read_only_package):  # noqa: F811 (the fixture)
     site, read_only_root, home = read_only_package
     cache_home = home / "cache"
     first = _run_kernel(site, read_only_root, HOME=str(home), XDG_CACHE_HOME=str(cache_home))
@@ -313,7 +254,7 @@ def test_cache_goes_to_the_user_cache_directory_when_the_package_is_read_only(re
     assert not list(site.rglob("*.nb[ic]"))
 
 
-def test_user_cache_directory_set_by_the_user_is_kept(read_only_package):
+def test_user_cache_directory_set_by_the_user_is_kept(read_only_package):  # noqa: F811 (the fixture)
     site, read_only_root, home = read_only_package
     chosen = home / "chosen-numba-cache"
     run = _run_kernel(site, read_only_root, HOME=str(home), NUMBA_CACHE_DIR=str(chosen))
@@ -321,7 +262,7 @@ def test_user_cache_directory_set_by_the_user_is_kept(read_only_package):
     assert list(chosen.rglob("pairs._pair_sums_loop-*.nbi"))
 
 
-def test_no_writable_cache_directory_warns_and_still_computes(read_only_package):
+def test_no_writable_cache_directory_warns_and_still_computes(read_only_package):  # noqa: F811 (the fixture)
     site, read_only_root, _ = read_only_package
     unwritable = read_only_root / "no-home"  # inside the read-only tree: cannot be created
     run = _run_kernel(site, read_only_root, HOME=str(unwritable), XDG_CACHE_HOME=str(unwritable / "cache"))
