@@ -26,11 +26,20 @@ miss them).  When it is still growing at the largest block size
 the sampled area: the variance is then extrapolated by one more doubling at the growth of the
 last one, and the standard error may still be too small; the audit says so.  Degrees of freedom
 for intervals are G - 1 of the chosen size (Student's t, [CameronMiller2015]).
+
+How the uncertainty depends on the value.  An estimate of F^2 built from squares is more
+uncertain where F^2 is larger: its sampling variance is, for Gaussian errors, a quadratic
+a x^2 + b x + c in the true x = F^2 (:attr:`BlockedEstimate.variance_model`; each estimator
+states its own).  The block standard error is measured at the estimate itself, so an estimate
+that came out low by chance also gets a standard error that is too small; where estimates are
+combined (:mod:`obsprep.audit.verdict`) each standard error is carried to the common value by
+that quadratic, :meth:`BlockedEstimate.se_at`, keeping the block measurement's scale (the
+variance at the pooled value, as in scoring with the expected information, textbook).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -80,12 +89,37 @@ class Blocks:
 
 
 @dataclass(frozen=True)
+class Influence:
+    """How each super-observation moves an estimate: estimate - its expectation is, to first
+    order, the sum of ``values`` (the delta method; for a ratio R = sum a / sum c the value of
+    row i is (a_i - R c_i) / sum c), with the rows' grid indices ``i``, ``j`` and ``day`` for
+    blocks.  Two estimates on overlapping rows are correlated through the block sums of their
+    influences (:func:`joint_correlation`)."""
+
+    i: np.ndarray
+    j: np.ndarray
+    day: np.ndarray
+    values: np.ndarray
+
+    def plus(self, other: Influence, scale: float) -> Influence:
+        """The influence of this estimate plus ``scale`` times ``other`` (an estimate that
+        enters this one linearly, such as a partner's known F^2)."""
+        return Influence(np.concatenate([self.i, other.i]), np.concatenate([self.j, other.j]),
+                         np.concatenate([self.day, other.day]),
+                         np.concatenate([self.values, scale * other.values]))
+
+
+@dataclass(frozen=True)
 class BlockedEstimate:
     """An estimate with its block standard error.
 
     ``value``; ``se`` its standard error; ``blocks`` G of the block size used and ``dof`` = G - 1;
     ``block_cells`` that size (cells); ``levelled``: False when the standard error was still
-    growing at the largest block size the data allow; ``n`` the super-observations used."""
+    growing at the largest block size the data allow; ``n`` the super-observations used;
+    ``variance_model`` (a, b, c): the sampling variance is proportional to a x^2 + b x + c at a
+    true value x (empty: taken as constant); ``se_fixed``: a part of ``se`` that does not
+    depend on the value (a partner's uncertainty added in quadrature); ``influence``: the
+    rows' contributions (:class:`Influence`), for correlations with other estimates."""
 
     value: float
     se: float
@@ -94,6 +128,31 @@ class BlockedEstimate:
     block_cells: int
     levelled: bool
     n: int
+    variance_model: tuple = ()
+    se_fixed: float = 0.0
+    influence: Influence | None = field(default=None, compare=False, repr=False)
+
+    def se_at(self, x: float) -> float:
+        """The standard error this estimate would have if the true value were ``x``:
+        se_fixed^2 + (se^2 - se_fixed^2) v(x) / v(value), v the variance model at max(., 0)
+        (module docstring); ``se`` itself without a model."""
+        if len(self.variance_model) != 3 or not np.isfinite(x):
+            return self.se
+        a, b, c = self.variance_model
+
+        def model(t):
+            t = max(float(t), 0.0)
+            return a * t * t + b * t + c
+
+        at_estimate = model(self.value)
+        if not at_estimate > 0:
+            return self.se
+        scaled = max(self.se ** 2 - self.se_fixed ** 2, 0.0) * model(x) / at_estimate
+        return float(np.sqrt(scaled + self.se_fixed ** 2))
+
+    def with_variance_model(self, a: float, b: float, c: float) -> BlockedEstimate:
+        """This estimate with the variance model a x^2 + b x + c (see :meth:`se_at`)."""
+        return replace(self, variance_model=(float(a), float(b), float(c)))
 
     @property
     def usable(self) -> bool:
@@ -131,8 +190,7 @@ def with_floor(estimate: BlockedEstimate, floor_se: float) -> BlockedEstimate:
     looking precise."""
     if not np.isfinite(floor_se) or not np.isfinite(estimate.se) or estimate.se >= floor_se:
         return estimate
-    return BlockedEstimate(estimate.value, float(floor_se), estimate.blocks, estimate.dof,
-                           estimate.block_cells, estimate.levelled, estimate.n)
+    return replace(estimate, se=float(floor_se))
 
 
 def block_sizes(blocks: Blocks) -> list[int]:
@@ -194,7 +252,56 @@ def blocked_ratio(numerator, denominator, blocks: Blocks) -> BlockedEstimate:
         sums = np.bincount(labels, weights=residual, minlength=g)
         return g / (g - 1.0) * float(np.sum(sums * sums)) / (total * total)
 
-    return _largest_over_sizes(variance_at, blocks, n, value)
+    estimate = _largest_over_sizes(variance_at, blocks, n, value)
+    return replace(estimate, influence=Influence(blocks.i, blocks.j, blocks.day, residual / total))
+
+
+#: the correlations of :func:`joint_correlation` are shrunk toward none until the matrix's
+#: smallest eigenvalue is at least this (a near-singular matrix would give wild weights)
+MIN_EIGENVALUE = 0.05
+
+
+def joint_correlation(estimates: list[BlockedEstimate]) -> np.ndarray:
+    """The correlation matrix of estimates made from overlapping super-observations.
+
+    From the block sums of their influences (:class:`Influence`) over the union of their rows:
+    C_kl = G / (G - 1) sum_g S_gk S_gl for S_gk the sum of estimate k's influence in block g,
+    the cluster-robust covariance of several estimates at once ([CameronMiller2015]), at the
+    largest block size any of them chose, halved until at least :data:`MIN_BLOCKS` blocks
+    remain.  Estimates without influences are taken as uncorrelated with the others.  Shrunk
+    toward the identity until its smallest eigenvalue is :data:`MIN_EIGENVALUE` or more.
+    """
+    k = len(estimates)
+    correlation = np.eye(k)
+    known = [m for m, e in enumerate(estimates) if e.influence is not None
+             and e.influence.values.size]
+    if len(known) < 2:
+        return correlation
+    parts = [estimates[m].influence for m in known]
+    union = Blocks(np.concatenate([p.i for p in parts]), np.concatenate([p.j for p in parts]),
+                   np.concatenate([p.day for p in parts]))
+    owner = np.repeat(np.arange(len(parts)), [p.values.size for p in parts])
+    values = np.concatenate([p.values for p in parts])
+    cells = max(max(estimates[m].block_cells for m in known), 1)
+    labels, g = union.labels(cells)
+    while g < MIN_BLOCKS and cells > 1:
+        cells //= 2
+        labels, g = union.labels(cells)
+    if g < 2:
+        return correlation
+    sums = np.zeros((g, len(parts)))
+    np.add.at(sums, (labels, owner), values)
+    covariance = sums.T @ sums
+    scale = np.sqrt(np.diag(covariance))
+    if not np.all(scale > 0):
+        return correlation
+    block = covariance / np.outer(scale, scale)
+    correlation[np.ix_(known, known)] = block
+    for shrink in np.linspace(0.0, 1.0, 21):
+        candidate = (1.0 - shrink) * correlation + shrink * np.eye(k)
+        if np.linalg.eigvalsh(candidate).min() >= MIN_EIGENVALUE:
+            return candidate
+    return np.eye(k)
 
 
 def blocked_least_squares(design, response, blocks: Blocks, weights=None) -> tuple[np.ndarray, np.ndarray, BlockedEstimate]:
