@@ -84,6 +84,23 @@ def triple_collocation(x1, x2, x3) -> dict:
             "sigma": sigma, "sigma_se": sigma_se}
 
 
+def _with_triplet_variance_model(factor, u, v, own2, partner2):
+    """``factor`` with its variance model (:meth:`obsprep.audit.uncertainty.BlockedEstimate.se_at`):
+    for Gaussian (u, v) a triplet's term varies as var u var v + cov(u, v)^2, with at a true
+    F^2 = x: cov = x s, var u = x s + p_1, var v = x s + p_2 (s the sensor's visible error
+    variance, p_k the partner's share of the difference variance, each partner's visible
+    variance scaled to what the data show, mean(u'^2) - F^2 mean(s), kept >= 0), so
+    2 s^2 x^2 + s (p_1 + p_2) x + p_1 p_2."""
+    shares = []
+    for difference, partner in zip((u, v), partner2):
+        excess = float(np.mean((difference - difference.mean()) ** 2)
+                       - max(factor.value, 0.0) * np.mean(own2))
+        shares.append(partner * max(excess, 0.0) / float(np.mean(partner)))
+    p1, p2 = shares
+    return factor.with_variance_model(2.0 * np.sum(own2 * own2), np.sum(own2 * (p1 + p2)),
+                                      np.sum(p1 * p2))
+
+
 TRIPLE_COLUMNS = ["quantity", "sensor", "with", "n", "variance", "variance_se", "sigma",
                   "sigma_se", "assigned", "assigned_visible", "factor_sq", "factor_sq_se",
                   "factor_blocks", "factor_levelled", "ratio", "ratio_se"]
@@ -117,6 +134,8 @@ def triple_collocation_table(superobs: pd.DataFrame, min_triplets: int = 10) -> 
                 # Gaussian floor: var((u - u_mean)(v - v_mean)) = var u var v + cov^2 per triplet
                 floor = np.sqrt(n * (u.var() * v.var() + factor.value ** 2 * np.mean(visible2) ** 2))
                 factor = with_floor(factor, float(floor / visible2.sum()))
+                factor = _with_triplet_variance_model(factor, u, v, visible2, [
+                    table[f"visible_{s}"].to_numpy(float) ** 2 for s in others])
                 assigned = float(np.sqrt(np.mean(table[f"error_{sensor}"] ** 2)))
                 assigned_visible = float(np.sqrt(np.mean(visible2)))
                 with_ = " ".join(others)
