@@ -131,8 +131,8 @@ def _pair_evidence(table, quantity, sensor, partners: dict) -> list:
         if pairs is None or len(pairs) < 3:
             continue
         d = pairs[f"value_{sensor}"].to_numpy(float) - pairs[f"value_{partner}"].to_numpy(float)
-        estimate = pair_estimate(centred_squares(d), pairs[f"visible_{sensor}"], pairs[f"visible_{partner}"],
-                                 known.value, known.se, Blocks.from_table(pairs))
+        estimate = pair_estimate(centred_squares(d), pairs[f"visible_{sensor}"],
+                                 pairs[f"visible_{partner}"], known, Blocks.from_table(pairs))
         found.append(Evidence(f"pair collocation with {partner} (its F from innovations)",
                               "estimate", estimate))
     return found
@@ -152,11 +152,9 @@ def evaluate(table: pd.DataFrame, context: AuditContext) -> Assessment:
     rows = []
     for (sensor, quantity), group in table.groupby(["sensor", "quantity"], sort=True):
         evidence = _evidence_of(sensor, quantity, innovation_estimates, triple_estimates, context)
-        own = innovation_estimates.get((sensor, quantity))
-        if context.members >= 2 and (own is None or not own["factor_estimate"].usable):
-            # only for a sensor without innovations of its own: the partner's innovations share
-            # its background errors, so the two estimates would be anti-correlated and the
-            # agreement test, which takes them as independent, would see disagreement
+        if context.members >= 2:
+            # the partner's innovations share the background errors with the sensor's own:
+            # the combination counts that correlation (obsprep.audit.verdict.combined)
             partners = {s: stats["factor_estimate"] for (s, q), stats in innovation_estimates.items()
                         if q == quantity and s != sensor}
             evidence += _pair_evidence(table, quantity, sensor, partners)

@@ -9,17 +9,28 @@ correlated neighbours (:mod:`obsprep.audit.uncertainty`):
 - triple collocation, against the part of the error differences see
   (:mod:`obsprep.audit.triple`);
 - pair collocation with a partner whose own F is known from its innovations
-  (:func:`pair_estimate`), for a sensor without innovations of its own;
+  (:func:`pair_estimate`);
 - the analysis-residual estimate, only when the analyses were made with the errors being
   tested (the fixed point of its iteration, [Desroziers2005]); otherwise it is biased toward the
   assigned errors and is listed as a diagnostic, never deciding.
 
-Combination: the inverse-variance weighted mean of the K estimates, F^2 = sum w_k e_k / sum w_k
-with w_k = 1 / se_k^2 and standard error (sum w_k)^(-1/2), and the test of their agreement
-Q = sum w_k (e_k - F^2)^2 against chi-square with K - 1 degrees of freedom (Cochran's Q,
-[Cochran1954]).  With p(Q) below :data:`AGREEMENT_LEVEL` the verdict is ``inconclusive``
-("estimates disagree", each shown).  Otherwise, with t the Student quantile for the fewest blocks
-behind any estimate ([CameronMiller2015]) and tolerance T:
+Combination: the generalised least-squares mean of the K estimates e_k, F^2 = 1^T V^-1 e /
+1^T V^-1 1 with standard error (1^T V^-1 1)^(-1/2), V their covariance (standard errors se_k and
+the correlations of estimates made from the same super-observations, from the block sums of
+their influences, :func:`obsprep.audit.uncertainty.joint_correlation`), and the test of their
+agreement Q = (e - F^2)^T V^-1 (e - F^2) against chi-square with K - 1 degrees of freedom
+(Cochran's Q, [Cochran1954]; for independent estimates the inverse-variance weighted mean and
+Q = sum (e_k - F^2)^2 / se_k^2).  Each se_k is taken at the combined value F^2, not at its own
+estimate
+(:meth:`obsprep.audit.uncertainty.BlockedEstimate.se_at`; solved by fixed-point iteration from
+the plain weights): the uncertainty of a variance estimate grows with the variance, so weights
+from each estimate's own value would favour the estimates that came out low by chance and pull
+the combination down.  With p(Q) below :data:`AGREEMENT_LEVEL` the estimates disagree: the
+verdict is ``inconclusive`` ("estimates disagree", each shown) unless every one of them, on its
+own, shows the errors wrong in the same direction by the rule below (they then disagree on how
+wrong, not on whether: the flag is given, with the interval spanning theirs).  Otherwise, with
+t the Student quantile for the fewest blocks behind any estimate ([CameronMiller2015]) and
+tolerance T:
 
 - ``too_small`` when F^2 - se > T^2 (beyond the tolerance by more than its uncertainty) and
   F^2 - t_0.95 se > 1 (wrong with one-sided 95 % confidence);
@@ -34,12 +45,19 @@ errors too large, never too small or right.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import stats
 
-from obsprep.audit.uncertainty import MIN_BLOCKS, BlockedEstimate, blocked_ratio, gaussian_floor, with_floor
+from obsprep.audit.uncertainty import (
+    MIN_BLOCKS,
+    BlockedEstimate,
+    blocked_ratio,
+    gaussian_floor,
+    joint_correlation,
+    with_floor,
+)
 
 #: Cochran's Q below this p-value: the estimates disagree
 AGREEMENT_LEVEL = 0.01
@@ -79,28 +97,38 @@ class Evidence:
         return f"{prefix}{self.name}: F = {self.factor:.3g} ({spread}; {blocks}{levelled})"
 
 
-def pair_estimate(centred_difference, visible_own, visible_partner, partner_factor_sq,
-                  partner_factor_sq_se, blocks) -> BlockedEstimate:
-    """F^2 of a sensor from its differences with a partner of known F_p^2 (its innovations):
+def pair_estimate(centred_difference, visible_own, visible_partner, partner: BlockedEstimate,
+                  blocks) -> BlockedEstimate:
+    """F^2 of a sensor from its differences with a partner whose F_p^2 is known (``partner``,
+    the estimate from its innovations):
 
     .. math:: F^2 = \\frac{\\sum (d - \\bar d)^2 n/(n-1) - F_p^2 \\sum \\sigma_{vis,p}^2}
                           {\\sum \\sigma_{vis}^2}
 
     (collocation variance, :mod:`obsprep.audit.collocation`), with the block standard error of
     this ratio and the partner's uncertainty added in quadrature,
-    se^2 += (sum sigma_vis,p^2 / sum sigma_vis^2)^2 se(F_p^2)^2 (delta method)."""
+    se^2 += (sum sigma_vis,p^2 / sum sigma_vis^2)^2 se(F_p^2)^2 (delta method); its influence
+    includes the partner's, scaled likewise, so that its correlation with the sensor's own
+    innovations (which share the background errors with the partner's) is counted."""
     own2 = np.asarray(visible_own, dtype=np.float64) ** 2
     partner2 = np.asarray(visible_partner, dtype=np.float64) ** 2
     centred = np.asarray(centred_difference, dtype=np.float64)
-    ratio = blocked_ratio(centred - partner_factor_sq * partner2, own2, blocks)
+    ratio = blocked_ratio(centred - partner.value * partner2, own2, blocks)
     if not np.isfinite(ratio.value):
         return ratio
     # Gaussian floor (obsprep.audit.uncertainty.with_floor), at the sample variance of d
     ratio = with_floor(ratio, gaussian_floor(np.full(centred.size, centred.mean()), own2))
     scale = float(partner2.sum() / own2.sum())
-    se = float(np.hypot(ratio.se, scale * partner_factor_sq_se))
-    return BlockedEstimate(ratio.value, se, ratio.blocks, ratio.dof, ratio.block_cells,
-                           ratio.levelled, ratio.n)
+    fixed = scale * partner.se
+    # at a true F^2 = x a term varies as var(d^2) = 2 (x s + F_p^2 s_p)^2 (Gaussian d)
+    known = partner.value * partner2
+    ratio = ratio.with_variance_model(np.sum(own2 * own2), 2.0 * np.sum(own2 * known),
+                                      np.sum(known * known))
+    influence = ratio.influence
+    if influence is not None and partner.influence is not None:
+        influence = influence.plus(partner.influence, -scale)
+    return replace(ratio, se=float(np.hypot(ratio.se, fixed)), se_fixed=float(fixed),
+                   influence=influence)
 
 
 def _interval(value, se, dof, confidence, two_sided):
@@ -110,6 +138,49 @@ def _interval(value, se, dof, confidence, two_sided):
 
 def _as_factor(value_sq) -> float:
     return float(np.sqrt(max(value_sq, 0.0)))
+
+
+def _beyond(value, se, dof, tolerance) -> tuple[bool, bool]:
+    """(too small, too large) by the rule of the module docstring, for F^2 = value +- se."""
+    low_flag, high_flag = _interval(value, se, dof, FLAG_CONFIDENCE, two_sided=False)
+    return (bool(value - se > tolerance ** 2 and low_flag > 1.0),
+            bool(value + se < 1.0 / tolerance ** 2 and high_flag < 1.0))
+
+
+#: fixed-point iterations of :func:`combined` (it settles in a few; the cap guards a cycle)
+COMBINE_ITERATIONS = 50
+
+
+def combined(deciding: list[Evidence]) -> tuple[float, float, float]:
+    """The combined F^2, its standard error and Cochran's Q (module docstring).
+
+    Generalised least squares with V = D R D, D the standard errors se_k(F^2) at the combined
+    value and R the estimates' correlation (:func:`obsprep.audit.uncertainty.joint_correlation`:
+    estimates from the same super-observations are not independent):
+    F^2 = 1^T V^-1 e / 1^T V^-1 1, se = (1^T V^-1 1)^(-1/2), Q = (e - F^2)^T V^-1 (e - F^2).
+    Starts from the estimates' own standard errors and iterates until F^2 changes by less
+    than 1e-9 relative."""
+    values = np.array([e.estimate.value for e in deciding])
+    if len(deciding) == 1:
+        return float(values[0]), float(deciding[0].estimate.se), 0.0
+    correlation = joint_correlation([e.estimate for e in deciding])
+    ones = np.ones(len(deciding))
+
+    def solve(ses):
+        inverse = np.linalg.inv(correlation * np.outer(ses, ses))
+        weights = inverse @ ones
+        return float(weights @ values / weights.sum()), inverse
+
+    value, inverse = solve(np.array([e.estimate.se for e in deciding]))
+    for _ in range(COMBINE_ITERATIONS):
+        following, inverse = solve(np.array([e.estimate.se_at(value) for e in deciding]))
+        settled = abs(following - value) <= 1e-9 * max(abs(value), 1e-12)
+        value = following
+        if settled:
+            break
+    _, inverse = solve(np.array([e.estimate.se_at(value) for e in deciding]))
+    residual = values - value
+    return value, float(1.0 / np.sqrt(ones @ inverse @ ones)), float(residual @ inverse @ residual)
 
 
 def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
@@ -150,25 +221,35 @@ def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
                if unusable else "no model equivalents and no three collocated sensors")
         result["reason"] = why + (f" ({shown})" if shown else "")
         return result
-    values = np.array([e.estimate.value for e in deciding])
-    weights = np.array([1.0 / e.estimate.se ** 2 for e in deciding])
-    value = float(np.sum(weights * values) / weights.sum())
-    se = float(1.0 / np.sqrt(weights.sum()))
+    value, se, q = combined(deciding)
     dof = min(e.estimate.dof for e in deciding)
-    p_agree = nan
-    if len(deciding) >= 2:
-        q = float(np.sum(weights * (values - value) ** 2))
-        p_agree = float(stats.chi2.sf(q, len(deciding) - 1))
+    p_agree = float(stats.chi2.sf(q, len(deciding) - 1)) if len(deciding) >= 2 else nan
     low_ok, high_ok = _interval(value, se, dof, OK_CONFIDENCE, two_sided=True)
-    low_flag, high_flag = _interval(value, se, dof, FLAG_CONFIDENCE, two_sided=False)
-    beyond_small = value - se > tolerance ** 2 and low_flag > 1.0
-    beyond_large = value + se < 1.0 / tolerance ** 2 and high_flag < 1.0
+    beyond_small, beyond_large = _beyond(value, se, dof, tolerance)
+    disagree = bool(np.isfinite(p_agree) and p_agree < AGREEMENT_LEVEL)
+    if disagree:
+        # each estimate alone, at its own standard error: do they all point the same way?
+        alone = [_beyond(e.estimate.value, e.estimate.se, e.estimate.dof, tolerance)
+                 for e in deciding]
+        beyond_small = all(small for small, _ in alone)
+        beyond_large = all(large for _, large in alone)
+        if beyond_small or beyond_large:  # the interval spans every estimate's
+            bounds = [_interval(e.estimate.value, e.estimate.se, e.estimate.dof, OK_CONFIDENCE,
+                                two_sided=True) for e in deciding]
+            low_ok, high_ok = min(b[0] for b in bounds), max(b[1] for b in bounds)
     factor = _as_factor(value)
     result.update(factor=factor, factor_se=se / (2.0 * factor) if factor > 0 else nan,
                   factor_low=_as_factor(low_ok), factor_high=_as_factor(high_ok),
                   agreement_p=p_agree, evidence=", ".join(e.name for e in deciding))
     interval = f"F = {factor:.3g} ({_as_factor(low_ok):.3g} to {_as_factor(high_ok):.3g}, 95 %)"
-    if np.isfinite(p_agree) and p_agree < AGREEMENT_LEVEL:
+    if disagree and (beyond_small or beyond_large):
+        way = "small" if beyond_small else "large"
+        interval = (f"F = {factor:.3g} ({_as_factor(low_ok):.3g} to {_as_factor(high_ok):.3g}, "
+                    f"the 95 % intervals of all estimates)")
+        result.update(flag=f"too_{way}", conclusion=f"too {way}",
+                      reason=f"errors look too {way}: every estimate alone says so, though they "
+                             f"disagree on how much (p = {p_agree:.2g}): {interval}; {shown}")
+    elif disagree:
         result.update(flag="inconclusive", conclusion="inconclusive: estimates disagree",
                       reason=f"estimates disagree (p = {p_agree:.2g}): {shown}")
     elif beyond_small:
