@@ -516,7 +516,8 @@ def compiled():
 
     cache = True
     namespace = globals()
-    namespace["_prefetch"] = _prefetch_intrinsic(numba)
+    if not numba.config.DISABLE_JIT:  # an intrinsic cannot run as Python: keep the no-op
+        namespace["_prefetch"] = _prefetch_intrinsic(numba)
     kernels = {}
     for name in _KERNELS:
         function = namespace[name]
