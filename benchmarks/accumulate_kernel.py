@@ -13,7 +13,10 @@ Rows:
   grid, neighbouring pixels in neighbouring cells, four passes in four time slots):
   observations per second of ``from_observations`` on one core;
 - start: importing numba and loading the cached kernels in a fresh process (warm: the cache
-  filled), and compiling them into an empty cache (cold).
+  filled), and compiling them into an empty cache (cold);
+- stages (``--stages``): for both orders, the compiled path's time split into the bins of the
+  rows (``_compiled_grouping``: the packed code and the rows per code), the sums and the
+  per-group state (``_compiled_state``) and ``finalize``, to show where the time goes.
 
 Medians of --repeats runs, the sides interleaved; the machine is shared, so compare ratios.
 """
@@ -121,8 +124,14 @@ def main():
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--skip-reference", action="store_true",
                         help="leave out the numpy reference path (slow at 20 M rows)")
+    parser.add_argument("--stages", action="store_true",
+                        help="only the split of the compiled path into its stages")
     options = parser.parse_args()
     n = options.rows
+    if options.stages:
+        for name, rows in (("random cells", random_cells), ("swath order", swath_order)):
+            stage_row(name, rows(n), options.repeats)
+        return
 
     cold, warm = [], []
     for _ in range(options.repeats):
@@ -197,6 +206,38 @@ def swath_row(n, options):
     for name, value_s in seconds.items():
         print(f"  {name:22s} {value_s:7.3f} s   {n / value_s / 1e6:6.1f} M observations/s;"
               f"   {cpu[name]:7.3f} s   {n / cpu[name] / 1e6:6.1f} M observations/s")
+
+
+def stage_row(name, rows, repeats):
+    """Median wall seconds of each stage of the compiled path (module docstring)."""
+    from obsprep.superobs import accumulate
+    from obsprep.superobs.batch_kernels import compiled
+
+    keys, value, error, time_s, lon, lat = rows
+    n = len(value)
+    kernels = compiled()
+    key_arrays = [keys[key] for key in ("slot", "j", "i")]
+    columns = (value, error, time_s, lon, lat, np.float64(0.0), None, None)
+    arguments = (keys, value, error, time_s, lon, lat, 0.0, None, None, None, None, None)
+    seconds = {"bins": [], "sums and state": [], "finalize": []}
+    for _ in range(repeats + 1):  # the first round fills the caches and is left out
+        started = time.perf_counter()
+        bins = accumulate._compiled_grouping(key_arrays, kernels)
+        grouped = time.perf_counter()
+        accumulate._compiled_state(bins, *columns)
+        summed = time.perf_counter()
+        accumulator = _from_observations(Accumulator, *arguments, compiled=True)
+        before_finalize = time.perf_counter()
+        accumulator.finalize(mode="mean", correlation=0.2)
+        finished = time.perf_counter()
+        for stage, spent in zip(seconds, (grouped - started, summed - grouped,
+                                          finished - before_finalize)):
+            seconds[stage].append(spent)
+    medians = {stage: statistics.median(values[1:]) for stage, values in seconds.items()}
+    total = sum(medians.values())
+    print(f"stages, {name}, {n:,} observations, {bins.n_bins:,} bins (median wall s of "
+          f"{repeats}): " + ", ".join(f"{stage} {spent:.3f}" for stage, spent in medians.items())
+          + f"; total {total:.3f} ({n / total / 1e6:.1f} M observations/s)")
 
 
 if __name__ == "__main__":

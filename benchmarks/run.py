@@ -103,12 +103,16 @@ def run_process(args, env=None) -> tuple[float, float, int]:
     wall = time.perf_counter() - start
     child.stderr.close()
     child.returncode = os.waitstatus_to_exitcode(status)
-    if child.returncode != 0:
-        raise RuntimeError(f"{' '.join(map(str, args))} failed ({child.returncode}):\n{stderr}")
     peak = usage.ru_maxrss * 1024.0
+    own_lines = []  # the child's stderr without GNU time's lines, so a failure ends with its reason
     for line in stderr.splitlines():
         if line.startswith("OBSPREP_PEAK_KB "):
             peak = float(line.split()[1]) * 1024.0
+        elif not (use_time and line.startswith("Command exited with non-zero status")):
+            own_lines.append(line)
+    if child.returncode != 0:
+        raise RuntimeError(f"{' '.join(map(str, args))} failed ({child.returncode}):\n"
+                           + "\n".join(own_lines))
     return wall, peak, child.returncode
 
 
