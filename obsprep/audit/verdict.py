@@ -159,11 +159,9 @@ def _beyond(value, se, dof, tolerance, se_at=None) -> tuple[bool, bool]:
     def spread(boundary):
         return max(se, at(boundary))
 
-    one_sided = stats.t.ppf(FLAG_CONFIDENCE, max(dof, 1))
-    small = (value - spread(tolerance ** 2) > tolerance ** 2
-             and value - one_sided * spread(1.0) > 1.0)
-    large = (value + spread(1.0 / tolerance ** 2) < 1.0 / tolerance ** 2
-             and value + one_sided * spread(1.0) < 1.0)
+    low_flag, high_flag = _interval(value, spread(1.0), dof, FLAG_CONFIDENCE, two_sided=False)
+    small = value - spread(tolerance ** 2) > tolerance ** 2 and low_flag > 1.0
+    large = value + spread(1.0 / tolerance ** 2) < 1.0 / tolerance ** 2 and high_flag < 1.0
     return bool(small), bool(large)
 
 
@@ -171,7 +169,12 @@ def _beyond(value, se, dof, tolerance, se_at=None) -> tuple[bool, bool]:
 COMBINE_ITERATIONS = 50
 
 
-def combined(deciding: list[Evidence]) -> tuple[float, float, float]:
+def _inverse_covariance(correlation, ses) -> np.ndarray:
+    """V^-1 for V = D R D, D = diag(ses), R = ``correlation``."""
+    return np.linalg.inv(correlation * np.outer(ses, ses))
+
+
+def combined(deciding: list[Evidence], correlation=None) -> tuple[float, float, float]:
     """The combined F^2, its standard error and Cochran's Q (module docstring).
 
     Generalised least squares with V = D R D, D the standard errors se_k(F^2) at the combined
@@ -179,15 +182,16 @@ def combined(deciding: list[Evidence]) -> tuple[float, float, float]:
     estimates from the same super-observations are not independent):
     F^2 = 1^T V^-1 e / 1^T V^-1 1, se = (1^T V^-1 1)^(-1/2), Q = (e - F^2)^T V^-1 (e - F^2).
     Starts from the estimates' own standard errors and iterates until F^2 changes by less
-    than 1e-9 relative."""
+    than 1e-9 relative.  ``correlation``: R when the caller has it already."""
     values = np.array([e.estimate.value for e in deciding])
     if len(deciding) == 1:
         return float(values[0]), float(deciding[0].estimate.se), 0.0
-    correlation = joint_correlation([e.estimate for e in deciding])
+    if correlation is None:
+        correlation = joint_correlation([e.estimate for e in deciding])
     ones = np.ones(len(deciding))
 
     def solve(ses):
-        inverse = np.linalg.inv(correlation * np.outer(ses, ses))
+        inverse = _inverse_covariance(correlation, ses)
         weights = inverse @ ones
         return float(weights @ values / weights.sum()), inverse
 
@@ -203,15 +207,16 @@ def combined(deciding: list[Evidence]) -> tuple[float, float, float]:
     return value, float(1.0 / np.sqrt(ones @ inverse @ ones)), float(residual @ inverse @ residual)
 
 
-def combined_se_at(deciding: list[Evidence], x: float) -> float:
+def combined_se_at(deciding: list[Evidence], x: float, correlation=None) -> float:
     """The standard error of the combined F^2 (:func:`combined`) if the true F^2 were ``x``:
-    (1^T V(x)^-1 1)^(-1/2), V(x) = D(x) R D(x), D(x) the estimates' se_k(x)."""
+    (1^T V(x)^-1 1)^(-1/2), V(x) = D(x) R D(x), D(x) the estimates' se_k(x); ``correlation``:
+    R when the caller has it already."""
     if len(deciding) == 1:
         return deciding[0].estimate.se_at(x)
+    if correlation is None:
+        correlation = joint_correlation([e.estimate for e in deciding])
     ses = np.array([e.estimate.se_at(x) for e in deciding])
-    inverse = np.linalg.inv(joint_correlation([e.estimate for e in deciding])
-                            * np.outer(ses, ses))
-    return float(1.0 / np.sqrt(inverse.sum()))
+    return float(1.0 / np.sqrt(_inverse_covariance(correlation, ses).sum()))
 
 
 def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
@@ -252,12 +257,15 @@ def decide(evidence: list[Evidence], tolerance: float = 1.5) -> dict:
                if unusable else "no model equivalents and no three collocated sensors")
         result["reason"] = why + (f" ({shown})" if shown else "")
         return result
-    value, se, q = combined(deciding)
+    # the estimates' correlation, computed once for the combination and the flag tests
+    correlation = (joint_correlation([e.estimate for e in deciding]) if len(deciding) > 1
+                   else None)
+    value, se, q = combined(deciding, correlation)
     dof = min(e.estimate.dof for e in deciding)
     p_agree = float(stats.chi2.sf(q, len(deciding) - 1)) if len(deciding) >= 2 else nan
     low_ok, high_ok = _interval(value, se, dof, OK_CONFIDENCE, two_sided=True)
     beyond_small, beyond_large = _beyond(value, se, dof, tolerance,
-                                         lambda x: combined_se_at(deciding, x))
+                                         lambda x: combined_se_at(deciding, x, correlation))
     disagree = bool(np.isfinite(p_agree) and p_agree < AGREEMENT_LEVEL)
     if disagree:
         # each estimate alone, at its own standard error: do they all point the same way?
